@@ -1,0 +1,3 @@
+//! armspace: secondary dendrite arm spacing from micrographs.
+
+pub mod synth;

@@ -1,0 +1,1 @@
+//! Synthetic dendritic micrographs with known truth (test oracle and demo data).
