@@ -1,3 +1,21 @@
-//! armspace: secondary dendrite arm spacing from micrographs.
+//! armspace: secondary dendrite arm spacing (SDAS) from micrographs of cast
+//! alloys.
+//!
+//! Data flows one way through modules named for their stage:
+//! [`load`] -> [`calibrate`] -> [`preprocess`] -> [`methods`] -> [`stats`] ->
+//! [`interpret`] -> [`report`]; [`pipeline`] runs them over a batch and
+//! [`synth`] makes micrographs of known truth.
 
+pub mod calibrate;
+pub mod error;
+pub mod interpret;
+pub mod load;
+pub mod methods;
+pub mod pipeline;
+pub mod preprocess;
+pub mod report;
+pub mod stats;
 pub mod synth;
+pub mod units;
+
+pub use error::{Error, Result};

@@ -1,1 +1,200 @@
-fn main() {}
+//! The `armspace` command: parses arguments, calls the library, prints.
+
+use armspace::calibrate::parse_um_per_px;
+use armspace::load::{collect_inputs, LoadOptions, DEFAULT_MAX_MEGAPIXELS};
+use armspace::methods::fft::FftParams;
+use armspace::pipeline::{measure_batch, MeasureOptions, Method};
+use armspace::preprocess::PreprocessParams;
+use armspace::report;
+use clap::{Parser, Subcommand, ValueEnum};
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+/// Exit statuses (also in README.md).
+const EXIT_OK: u8 = 0;
+const EXIT_FATAL: u8 = 1;
+const EXIT_USAGE: u8 = 2;
+const EXIT_NOT_MEASURED: u8 = 3;
+
+#[derive(Parser)]
+#[command(
+    name = "armspace",
+    version,
+    about = "Secondary dendrite arm spacing (SDAS) from etched micrographs of cast alloys",
+    after_help = "Exit status: 0 every image measured; 1 the run itself failed (e.g. the report \
+could not be written); 2 usage error; 3 at least one image could not be measured (unreadable, \
+or nothing reliable to measure).\n\nResults support, and never replace, the judgement of \
+qualified personnel and the applicable specification and codes."
+)]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand)]
+enum Command {
+    /// Measure SDAS in images and folders of images and write a JSON report.
+    Measure(MeasureArgs),
+    /// Write synthetic dendritic micrographs of known SDAS and their truth.json.
+    Synth(SynthArgs),
+}
+
+#[derive(clap::Args)]
+struct MeasureArgs {
+    /// Image files or folders (walked recursively, sorted, hidden entries ignored).
+    #[arg(required = true)]
+    paths: Vec<PathBuf>,
+    /// Calibration: micrometres per pixel.
+    #[arg(long, value_parser = parse_um_per_px)]
+    um_per_px: armspace::units::UmPerPx,
+    /// Write the JSON report here (atomically); without it the report goes to stdout.
+    #[arg(long)]
+    out: Option<PathBuf>,
+    /// Measurement method(s).
+    #[arg(long, value_enum, default_value = "all")]
+    method: MethodArg,
+    /// Refuse images with more megapixels than this (checked before decoding).
+    #[arg(long, default_value_t = DEFAULT_MAX_MEGAPIXELS, value_parser = parse_positive)]
+    max_megapixels: f64,
+    /// Worker threads (default: one per core).
+    #[arg(long, value_parser = clap::value_parser!(u16).range(1..))]
+    jobs: Option<u16>,
+}
+
+#[derive(Clone, Copy, ValueEnum)]
+enum MethodArg {
+    Fft,
+    All,
+}
+
+#[derive(clap::Args)]
+struct SynthArgs {
+    /// Output folder (created if needed).
+    outdir: PathBuf,
+    /// Seed of the random generator; the same seed gives the same images.
+    #[arg(long, default_value_t = 1)]
+    seed: u64,
+    /// Number of images.
+    #[arg(long, default_value_t = 8, value_parser = clap::value_parser!(u32).range(1..=10000))]
+    count: u32,
+}
+
+fn parse_positive(s: &str) -> Result<f64, String> {
+    match s.trim().parse::<f64>() {
+        Ok(v) if v.is_finite() && v > 0.0 => Ok(v),
+        _ => Err(format!("'{s}' is not a positive number")),
+    }
+}
+
+fn main() -> ExitCode {
+    let cli = match Cli::try_parse() {
+        Ok(c) => c,
+        Err(e) => {
+            let _ = e.print();
+            return ExitCode::from(if e.use_stderr() { EXIT_USAGE } else { EXIT_OK });
+        }
+    };
+    match cli.command {
+        Command::Measure(args) => run_measure(args),
+        Command::Synth(args) => run_synth(args),
+    }
+}
+
+fn run_measure(args: MeasureArgs) -> ExitCode {
+    let methods = match args.method {
+        MethodArg::Fft | MethodArg::All => vec![Method::Fft],
+    };
+    let opts = MeasureOptions {
+        um_per_px: args.um_per_px,
+        load: LoadOptions {
+            max_megapixels: args.max_megapixels,
+        },
+        preprocess: PreprocessParams::default(),
+        fft: FftParams::default(),
+        methods,
+    };
+    let inputs = collect_inputs(&args.paths);
+    if !inputs
+        .iter()
+        .any(|i| !matches!(i, armspace::load::Input::Skipped { .. }))
+    {
+        eprintln!("armspace: no image files found in the given paths");
+        return ExitCode::from(EXIT_NOT_MEASURED);
+    }
+    let pool = match rayon::ThreadPoolBuilder::new()
+        .num_threads(args.jobs.map_or(0, usize::from))
+        .build()
+    {
+        Ok(p) => p,
+        Err(e) => {
+            eprintln!("armspace: cannot start worker threads: {e}");
+            return ExitCode::from(EXIT_FATAL);
+        }
+    };
+    let (results, skipped) = pool.install(|| measure_batch(&inputs, &opts, &|| {}));
+    let given: Vec<String> = args.paths.iter().map(|p| p.display().to_string()).collect();
+    let rep = report::build(&given, &opts, &results, &skipped, report::now_utc());
+    let json = report::to_json(&rep);
+
+    for img in &rep.images {
+        match (&img.error, img.sdas_um.value) {
+            (Some(e), _) => eprintln!("error    {e}"),
+            (None, Some(v)) => {
+                let ci = img
+                    .sdas_um
+                    .ci95
+                    .map(|[a, b]| format!(" (95% CI {a:.2} to {b:.2})"))
+                    .unwrap_or_default();
+                eprintln!("measured {}: SDAS {v:.2} um{ci}, n = {}", img.file, img.sdas_um.n);
+            }
+            (None, None) => eprintln!(
+                "no value {}: {}",
+                img.file,
+                img.sdas_um.reason.as_deref().unwrap_or("no reason given")
+            ),
+        }
+        for w in &img.warnings {
+            eprintln!("  warning: {w}");
+        }
+    }
+    for s in &rep.skipped {
+        eprintln!("skipped  {}: {}", s.file, s.reason);
+    }
+    match &args.out {
+        Some(path) => {
+            if let Err(e) = report::write_atomic(path, json.as_bytes()) {
+                eprintln!("armspace: {e}");
+                return ExitCode::from(EXIT_FATAL);
+            }
+            eprintln!("report written to {}", path.display());
+        }
+        None => print!("{json}"),
+    }
+    let s = &rep.summary;
+    eprintln!(
+        "{} image(s): {} measured, {} without a value, {} failed, {} skipped",
+        s.images, s.measured, s.without_value, s.failed, s.skipped
+    );
+    if s.measured == s.images {
+        ExitCode::from(EXIT_OK)
+    } else {
+        ExitCode::from(EXIT_NOT_MEASURED)
+    }
+}
+
+fn run_synth(args: SynthArgs) -> ExitCode {
+    match armspace::synth::write_set(&args.outdir, args.seed, args.count as usize) {
+        Ok(truths) => {
+            eprintln!(
+                "wrote {} image(s) and truth.json to {}",
+                truths.len(),
+                args.outdir.display()
+            );
+            ExitCode::from(EXIT_OK)
+        }
+        Err(e) => {
+            eprintln!("armspace: {e}");
+            ExitCode::from(EXIT_FATAL)
+        }
+    }
+}

@@ -1,0 +1,46 @@
+//! Errors as values, each naming the file (or parameter) and what is wrong.
+
+use std::path::PathBuf;
+
+#[derive(Debug, thiserror::Error)]
+pub enum Error {
+    #[error("{}: cannot read: {source}", path.display())]
+    Read {
+        path: PathBuf,
+        source: std::io::Error,
+    },
+    #[error("{}: not a supported image (PNG, JPEG, TIFF or BMP): {reason}", path.display())]
+    Format { path: PathBuf, reason: String },
+    #[error("{}: the image data is damaged or truncated: {reason}", path.display())]
+    Decode { path: PathBuf, reason: String },
+    #[error(
+        "{}: image is {width}x{height} pixels ({:.1} megapixels), over the limit of {limit_mpx} megapixels; raise it with --max-megapixels",
+        path.display(), (*width as f64) * (*height as f64) / 1e6
+    )]
+    TooLarge {
+        path: PathBuf,
+        width: u32,
+        height: u32,
+        limit_mpx: f64,
+    },
+    #[error("{}: image is {width}x{height} pixels, too small to measure (at least {min}x{min} needed)", path.display())]
+    TooSmall {
+        path: PathBuf,
+        width: u32,
+        height: u32,
+        min: u32,
+    },
+    #[error("{}: path does not exist", path.display())]
+    Missing { path: PathBuf },
+    #[error("invalid {name}: {reason}")]
+    Parameter { name: String, reason: String },
+    #[error("{}: cannot write: {source}", path.display())]
+    Write {
+        path: PathBuf,
+        source: std::io::Error,
+    },
+    #[error("{}: {reason}", path.display())]
+    Input { path: PathBuf, reason: String },
+}
+
+pub type Result<T> = std::result::Result<T, Error>;

@@ -1,0 +1,329 @@
+//! Loading micrographs: finding the files of a batch, checking their size from
+//! the header before decoding, and converting them to a grey `f32` image.
+//!
+//! Grey values are scaled to [0, 1] from the full scale of the file's bit
+//! depth; an `f32` holds every 16-bit level exactly. Colour images are
+//! reduced to luminance with the ITU-R BT.709 weights (0.2126, 0.7152, 0.0722).
+
+use crate::error::{Error, Result};
+use image::{DynamicImage, ImageFormat, ImageReader};
+use sha2::{Digest, Sha256};
+use std::io::Cursor;
+use std::path::{Path, PathBuf};
+
+/// Smallest side, in pixels, of an image that can carry a measurement.
+pub const MIN_SIDE_PX: u32 = 32;
+
+/// Default limit on the pixel count of one image, in megapixels.
+pub const DEFAULT_MAX_MEGAPIXELS: f64 = 400.0;
+
+/// File extensions taken when a folder is walked (compared without case).
+pub const IMAGE_EXTENSIONS: &[&str] = &["png", "jpg", "jpeg", "tif", "tiff", "bmp"];
+
+/// A grey image, row-major, values in [0, 1].
+#[derive(Clone, Debug, PartialEq)]
+pub struct GrayImage {
+    pub width: usize,
+    pub height: usize,
+    pub data: Vec<f32>,
+}
+
+impl GrayImage {
+    pub fn new(width: usize, height: usize) -> Self {
+        Self {
+            width,
+            height,
+            data: vec![0.0; width * height],
+        }
+    }
+
+    pub fn from_vec(width: usize, height: usize, data: Vec<f32>) -> Option<Self> {
+        (data.len() == width * height).then_some(Self {
+            width,
+            height,
+            data,
+        })
+    }
+
+    #[inline]
+    pub fn get(&self, x: usize, y: usize) -> f32 {
+        self.data[y * self.width + x]
+    }
+
+    pub fn row(&self, y: usize) -> &[f32] {
+        &self.data[y * self.width..(y + 1) * self.width]
+    }
+}
+
+/// A decoded micrograph with what the report needs to know about its file.
+#[derive(Clone, Debug)]
+pub struct Loaded {
+    pub image: GrayImage,
+    /// Bits per sample of the file: 8, 16 or 32 (float).
+    pub bit_depth: u8,
+    /// Lowercase hexadecimal SHA-256 of the file's bytes.
+    pub sha256: String,
+    pub format: ImageFormat,
+    pub warnings: Vec<String>,
+}
+
+/// Limits applied while loading.
+#[derive(Clone, Copy, Debug)]
+pub struct LoadOptions {
+    pub max_megapixels: f64,
+}
+
+impl Default for LoadOptions {
+    fn default() -> Self {
+        Self {
+            max_megapixels: DEFAULT_MAX_MEGAPIXELS,
+        }
+    }
+}
+
+/// One entry of a batch, in the order it will be reported.
+#[derive(Clone, Debug, PartialEq)]
+pub enum Input {
+    /// A file to measure (a path given directly, or an image found in a folder).
+    Image(PathBuf),
+    /// A path that was passed over, with the reason.
+    Skipped { path: PathBuf, reason: String },
+    /// A path given on the command line that does not exist.
+    Missing(PathBuf),
+}
+
+fn has_image_extension(path: &Path) -> bool {
+    path.extension()
+        .and_then(|e| e.to_str())
+        .map(|e| IMAGE_EXTENSIONS.iter().any(|x| x.eq_ignore_ascii_case(e)))
+        .unwrap_or(false)
+}
+
+fn is_hidden(path: &Path) -> bool {
+    path.file_name()
+        .and_then(|n| n.to_str())
+        .map(|n| n.starts_with('.'))
+        .unwrap_or(false)
+}
+
+/// Expands the paths of a batch: files are taken as they are, folders are
+/// walked recursively in sorted order. In folders, hidden entries are ignored
+/// and files without an image extension are reported as skipped.
+pub fn collect_inputs(paths: &[PathBuf]) -> Vec<Input> {
+    let mut out = Vec::new();
+    for p in paths {
+        if p.is_dir() {
+            walk(p, &mut out);
+        } else if p.exists() {
+            out.push(Input::Image(p.clone()));
+        } else {
+            out.push(Input::Missing(p.clone()));
+        }
+    }
+    out
+}
+
+fn walk(dir: &Path, out: &mut Vec<Input>) {
+    let mut entries: Vec<PathBuf> = match std::fs::read_dir(dir) {
+        Ok(rd) => rd.filter_map(|e| e.ok().map(|e| e.path())).collect(),
+        Err(e) => {
+            out.push(Input::Skipped {
+                path: dir.to_path_buf(),
+                reason: format!("folder cannot be read: {e}"),
+            });
+            return;
+        }
+    };
+    entries.sort();
+    for p in entries {
+        if is_hidden(&p) {
+            continue;
+        }
+        if p.is_dir() {
+            walk(&p, out);
+        } else if has_image_extension(&p) {
+            out.push(Input::Image(p));
+        } else {
+            out.push(Input::Skipped {
+                path: p,
+                reason: "not an image file (by its extension)".into(),
+            });
+        }
+    }
+}
+
+/// Reads, checks and decodes one image file.
+pub fn load(path: &Path, opts: &LoadOptions) -> Result<Loaded> {
+    let bytes = std::fs::read(path).map_err(|source| Error::Read {
+        path: path.to_path_buf(),
+        source,
+    })?;
+    load_bytes(path, &bytes, opts)
+}
+
+/// Decodes an image already in memory; `path` only names it in messages.
+pub fn load_bytes(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loaded> {
+    let format_err = |reason: String| Error::Format {
+        path: path.to_path_buf(),
+        reason,
+    };
+    let decode_err = |reason: String| Error::Decode {
+        path: path.to_path_buf(),
+        reason,
+    };
+    if bytes.is_empty() {
+        return Err(format_err("the file is empty".into()));
+    }
+    let reader = ImageReader::new(Cursor::new(bytes))
+        .with_guessed_format()
+        .map_err(|e| format_err(e.to_string()))?;
+    let format = reader
+        .format()
+        .ok_or_else(|| format_err("the file's content is not a known image format".into()))?;
+    if !matches!(
+        format,
+        ImageFormat::Png | ImageFormat::Jpeg | ImageFormat::Tiff | ImageFormat::Bmp
+    ) {
+        return Err(format_err(format!("{format:?} files are not supported")));
+    }
+    let (width, height) = reader
+        .into_dimensions()
+        .map_err(|e| decode_err(format!("header unreadable: {e}")))?;
+    check_size(path, width, height, opts)?;
+
+    let mut warnings = Vec::new();
+    if format == ImageFormat::Tiff && tiff_has_more_pages(bytes) {
+        warnings.push("multi-page TIFF: only the first page is measured".to_string());
+    }
+
+    let mut reader = ImageReader::with_format(Cursor::new(bytes), format);
+    let mut limits = image::Limits::default();
+    // The pixel count was checked above; allow the decoder what that needs
+    // (up to 4 channels of 32-bit floats) and no more.
+    let px = width as u64 * height as u64;
+    limits.max_alloc = Some(px.saturating_mul(16).saturating_add(64 << 20));
+    reader.limits(limits);
+    let decoded = reader.decode().map_err(|e| decode_err(e.to_string()))?;
+    let (image, bit_depth) = to_gray(decoded);
+
+    let sha256 = hex(&Sha256::digest(bytes));
+    Ok(Loaded {
+        image,
+        bit_depth,
+        sha256,
+        format,
+        warnings,
+    })
+}
+
+fn check_size(path: &Path, width: u32, height: u32, opts: &LoadOptions) -> Result<()> {
+    let mpx = width as f64 * height as f64 / 1e6;
+    if mpx > opts.max_megapixels {
+        return Err(Error::TooLarge {
+            path: path.to_path_buf(),
+            width,
+            height,
+            limit_mpx: opts.max_megapixels,
+        });
+    }
+    if width < MIN_SIDE_PX || height < MIN_SIDE_PX {
+        return Err(Error::TooSmall {
+            path: path.to_path_buf(),
+            width,
+            height,
+            min: MIN_SIDE_PX,
+        });
+    }
+    Ok(())
+}
+
+fn tiff_has_more_pages(bytes: &[u8]) -> bool {
+    tiff::decoder::Decoder::new(Cursor::new(bytes))
+        .map(|d| d.more_images())
+        .unwrap_or(false)
+}
+
+/// SHA-256 of a file's bytes, as lowercase hexadecimal.
+pub fn sha256_hex(bytes: &[u8]) -> String {
+    hex(&Sha256::digest(bytes))
+}
+
+fn hex(bytes: &[u8]) -> String {
+    use std::fmt::Write;
+    bytes.iter().fold(String::with_capacity(64), |mut s, b| {
+        let _ = write!(s, "{b:02x}");
+        s
+    })
+}
+
+const BT709: [f32; 3] = [0.2126, 0.7152, 0.0722];
+
+/// Grey values in [0, 1] from interleaved samples with `channels` channels,
+/// luminance taken from the first three when there are three or more.
+fn samples_to_gray<T: Copy + Into<f32>>(samples: &[T], channels: usize, scale: f32) -> Vec<f32> {
+    match channels {
+        1 | 2 => samples
+            .chunks_exact(channels)
+            .map(|c| c[0].into() * scale)
+            .collect(),
+        _ => samples
+            .chunks_exact(channels)
+            .map(|c| {
+                (BT709[0] * c[0].into() + BT709[1] * c[1].into() + BT709[2] * c[2].into()) * scale
+            })
+            .collect(),
+    }
+}
+
+fn to_gray(img: DynamicImage) -> (GrayImage, u8) {
+    let (w, h) = (img.width() as usize, img.height() as usize);
+    let (data, depth) = match &img {
+        DynamicImage::ImageLuma8(b) => (samples_to_gray(b.as_raw(), 1, 1.0 / 255.0), 8),
+        DynamicImage::ImageLumaA8(b) => (samples_to_gray(b.as_raw(), 2, 1.0 / 255.0), 8),
+        DynamicImage::ImageRgb8(b) => (samples_to_gray(b.as_raw(), 3, 1.0 / 255.0), 8),
+        DynamicImage::ImageRgba8(b) => (samples_to_gray(b.as_raw(), 4, 1.0 / 255.0), 8),
+        DynamicImage::ImageLuma16(b) => (samples_to_gray(b.as_raw(), 1, 1.0 / 65535.0), 16),
+        DynamicImage::ImageLumaA16(b) => (samples_to_gray(b.as_raw(), 2, 1.0 / 65535.0), 16),
+        DynamicImage::ImageRgb16(b) => (samples_to_gray(b.as_raw(), 3, 1.0 / 65535.0), 16),
+        DynamicImage::ImageRgba16(b) => (samples_to_gray(b.as_raw(), 4, 1.0 / 65535.0), 16),
+        DynamicImage::ImageRgb32F(b) => (samples_to_gray(b.as_raw(), 3, 1.0), 32),
+        DynamicImage::ImageRgba32F(b) => (samples_to_gray(b.as_raw(), 4, 1.0), 32),
+        other => {
+            let b = other.to_luma32f();
+            (samples_to_gray(b.as_raw(), 1, 1.0), 32)
+        }
+    };
+    let data = data.into_iter().map(|v| v.clamp(0.0, 1.0)).collect();
+    (
+        GrayImage {
+            width: w,
+            height: h,
+            data,
+        },
+        depth,
+    )
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn sha256_of_known_string() {
+        // FIPS 180-2, appendix B.1: SHA-256("abc").
+        assert_eq!(
+            sha256_hex(b"abc"),
+            "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad"
+        );
+    }
+
+    #[test]
+    fn bt709_luma_of_primaries() {
+        // ITU-R BT.709-6, item 3.2: Y = 0.2126 R + 0.7152 G + 0.0722 B.
+        let px: [u8; 9] = [255, 0, 0, 0, 255, 0, 0, 0, 255];
+        let g = samples_to_gray(&px, 3, 1.0 / 255.0);
+        assert!((g[0] - 0.2126).abs() < 1e-6);
+        assert!((g[1] - 0.7152).abs() < 1e-6);
+        assert!((g[2] - 0.0722).abs() < 1e-6);
+    }
+}

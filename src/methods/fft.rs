@@ -1,0 +1,548 @@
+//! SDAS by FFT periodicity.
+//!
+//! Rows of secondary arms are periodic along their primary trunk, so the power
+//! spectrum of a window over them peaks at the spatial frequency 1/lambda2 in
+//! the trunk's direction. The image is cut into overlapping square tiles of
+//! about `periods_per_tile` periods (the period first estimated on a few large
+//! windows); each tile gives a spacing, a direction and a quality, and the
+//! image's value is a robust aggregate of the reliable tiles.
+//!
+//! Peak choice in a tile, in order:
+//! 1. candidates are local maxima of the 3x3-smoothed power spectrum with
+//!    periods between `min_period_px` and half the tile, ranked by their
+//!    prominence over the median power of their frequency ring;
+//! 2. if a candidate lies near half the strongest one's frequency vector, the
+//!    strongest was a harmonic and the fundamental is taken;
+//! 3. if a strong candidate lies roughly perpendicular at a clearly higher
+//!    frequency, the strongest was the primary (trunk) spacing, and the
+//!    perpendicular, finer period is taken: secondary arms are finer than the
+//!    primary spacing and perpendicular to it.
+//!
+//! The quality of a tile is the chosen peak's prominence. Under white noise
+//! the smoothed spectrum's maximum prominence rarely exceeds 3, so the default
+//! threshold of 6 keeps tiles whose peak noise alone would not explain.
+
+use super::spectrum::{hann_peak_offset, smooth_sizes, SpectrumAnalyser};
+use crate::preprocess::Prepared;
+use crate::stats;
+use rayon::prelude::*;
+
+/// Parameters of the FFT method.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct FftParams {
+    /// Shortest period searched, in pixels.
+    pub min_period_px: f64,
+    /// Target number of periods across one tile.
+    pub periods_per_tile: f64,
+    /// Smallest peak prominence for a tile to count.
+    pub min_quality: f64,
+    /// Largest masked fraction of a tile for it to be analysed.
+    pub max_masked_fraction: f64,
+    /// Largest side of the windows of the first (coarse) pass, in pixels.
+    pub coarse_window_max_px: usize,
+}
+
+impl Default for FftParams {
+    fn default() -> Self {
+        Self {
+            min_period_px: 3.0,
+            periods_per_tile: 6.0,
+            min_quality: 6.0,
+            max_masked_fraction: 0.25,
+            coarse_window_max_px: 512,
+        }
+    }
+}
+
+/// One analysed tile.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct TileResult {
+    /// Tile centre, pixels from the image's top-left corner.
+    pub cx_px: f64,
+    pub cy_px: f64,
+    pub spacing_px: f64,
+    /// Direction along which the spacing repeats (the trunk direction for a
+    /// row of secondary arms), degrees counter-clockwise from the image's
+    /// +x axis with y pointing up, in [0, 180).
+    pub dir_deg: f64,
+    pub quality: f64,
+    /// Whether the tile entered the aggregate.
+    pub used: bool,
+}
+
+/// The method's result for one image, in pixels.
+#[derive(Clone, Debug, PartialEq)]
+pub struct FftOutcome {
+    pub value_px: Option<f64>,
+    pub ci95_px: Option<[f64; 2]>,
+    /// Robust standard deviation of the used tiles' spacings.
+    pub spread_px: Option<f64>,
+    pub n_tiles_used: usize,
+    /// Number of tiles whose spectra were analysed.
+    pub n_tiles_analysed: usize,
+    pub window_px: usize,
+    pub orientation_deg: Option<f64>,
+    /// Axial coherence of the used tiles' directions, 0 (all ways) to 1 (one way).
+    pub orientation_coherence: Option<f64>,
+    pub tiles: Vec<TileResult>,
+    /// Why there is no value, when there is none.
+    pub reason: Option<String>,
+}
+
+impl FftOutcome {
+    fn none(reason: String, window_px: usize, tiles: Vec<TileResult>, n: usize) -> Self {
+        Self {
+            value_px: None,
+            ci95_px: None,
+            spread_px: None,
+            n_tiles_used: 0,
+            n_tiles_analysed: n,
+            window_px,
+            orientation_deg: None,
+            orientation_coherence: None,
+            tiles,
+            reason: Some(reason),
+        }
+    }
+}
+
+/// A spectral peak.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Peak {
+    /// Frequency vector in cycles per pixel, image axes (y down).
+    pub fx: f64,
+    pub fy: f64,
+    pub prominence: f64,
+}
+
+impl Peak {
+    pub fn freq(&self) -> f64 {
+        self.fx.hypot(self.fy)
+    }
+    pub fn period_px(&self) -> f64 {
+        1.0 / self.freq()
+    }
+    /// Direction in degrees, counter-clockwise from +x with y up, in [0, 180).
+    pub fn dir_deg(&self) -> f64 {
+        (-self.fy).atan2(self.fx).to_degrees().rem_euclid(180.0)
+    }
+}
+
+/// Measures the secondary arm spacing of a prepared image.
+pub fn measure(img: &Prepared, params: &FftParams) -> FftOutcome {
+    let (w, h) = (img.image.width, img.image.height);
+    let side = w.min(h);
+    let sizes = smooth_sizes(side);
+    let Some(&largest) = sizes.last() else {
+        return FftOutcome::none("image too small for spectral analysis".into(), 0, vec![], 0);
+    };
+    if img.contrast <= 1e-6 {
+        return FftOutcome::none(
+            "no reliable periodicity: the image has no contrast".into(),
+            0,
+            vec![],
+            0,
+        );
+    }
+
+    // Coarse pass: large windows give a first period that sets the tile size.
+    let coarse_n = *sizes
+        .iter()
+        .rev()
+        .find(|&&s| s <= params.coarse_window_max_px.max(32))
+        .unwrap_or(&largest);
+    let coarse = analyse_tiles(img, coarse_n, coarse_n, params);
+    let good: Vec<&TileResult> = coarse
+        .iter()
+        .filter(|t| t.quality >= params.min_quality)
+        .collect();
+    let coarse_period = stats::weighted_median(
+        &good.iter().map(|t| t.spacing_px).collect::<Vec<_>>(),
+        &good.iter().map(|t| t.quality).collect::<Vec<_>>(),
+    );
+    let Some(coarse_period) = coarse_period else {
+        return FftOutcome::none(
+            "no reliable periodicity: no spectral peak stands above the background".into(),
+            coarse_n,
+            vec![],
+            coarse.len(),
+        );
+    };
+
+    // Fine pass: tiles of about `periods_per_tile` periods, half overlapping.
+    let target = params.periods_per_tile * coarse_period;
+    let n = sizes
+        .iter()
+        .copied()
+        .filter(|&s| s >= 32)
+        .min_by(|a, b| {
+            ((*a as f64) - target)
+                .abs()
+                .total_cmp(&((*b as f64) - target).abs())
+        })
+        .unwrap_or(largest);
+    let tiles = analyse_tiles(img, n, (n / 2).max(1), params);
+    aggregate(tiles, n, params)
+}
+
+/// Tile origins along one axis: evenly spread, about `stride` apart, covering
+/// [0, len) with tiles of size n.
+fn origins(len: usize, n: usize, stride: usize) -> Vec<usize> {
+    if len < n {
+        return vec![];
+    }
+    let span = len - n;
+    let count = span.div_ceil(stride) + 1;
+    if count == 1 {
+        return vec![span / 2];
+    }
+    (0..count)
+        .map(|i| ((i * span) as f64 / (count - 1) as f64).round() as usize)
+        .collect()
+}
+
+/// Analyses every tile of size n on a grid of about `stride` spacing.
+pub fn analyse_tiles(img: &Prepared, n: usize, stride: usize, params: &FftParams) -> Vec<TileResult> {
+    let (w, h) = (img.image.width, img.image.height);
+    let xs = origins(w, n, stride);
+    let ys = origins(h, n, stride);
+    let grid: Vec<(usize, usize)> = ys
+        .iter()
+        .flat_map(|&y| xs.iter().map(move |&x| (x, y)))
+        .filter(|&(x, y)| masked_fraction(img, x, y, n) <= params.max_masked_fraction)
+        .collect();
+    grid.par_iter()
+        .map_init(
+            || (SpectrumAnalyser::new(n), Vec::new()),
+            |(an, buf), &(x, y)| {
+                an.power(&img.image.data, w, x, y, buf);
+                let peak = choose_peak(buf, n, params);
+                let (cx, cy) = (x as f64 + n as f64 / 2.0, y as f64 + n as f64 / 2.0);
+                match peak {
+                    Some(p) => TileResult {
+                        cx_px: cx,
+                        cy_px: cy,
+                        spacing_px: p.period_px(),
+                        dir_deg: p.dir_deg(),
+                        quality: p.prominence,
+                        used: false,
+                    },
+                    None => TileResult {
+                        cx_px: cx,
+                        cy_px: cy,
+                        spacing_px: f64::NAN,
+                        dir_deg: f64::NAN,
+                        quality: 0.0,
+                        used: false,
+                    },
+                }
+            },
+        )
+        .collect()
+}
+
+fn masked_fraction(img: &Prepared, x0: usize, y0: usize, n: usize) -> f64 {
+    let Some(mask) = &img.mask else { return 0.0 };
+    let w = img.image.width;
+    let count: usize = (y0..y0 + n)
+        .map(|y| mask[y * w + x0..y * w + x0 + n].iter().filter(|m| **m).count())
+        .sum();
+    count as f64 / (n * n) as f64
+}
+
+/// Finds the spectral peaks of a power spectrum and applies the harmonic and
+/// primary-spacing checks; `None` when there is no candidate at all.
+pub fn choose_peak(power: &[f64], n: usize, params: &FftParams) -> Option<Peak> {
+    let cands = candidates(power, n, params);
+    let first = *cands.first()?;
+    let mut best = fundamental_of(first, &cands, params);
+    let perpendicular = cands
+        .iter()
+        .filter(|c| {
+            let d = axial_difference(c.dir_deg(), best.dir_deg());
+            (d - 90.0).abs() < 20.0
+                && c.freq() > 1.2 * best.freq()
+                && c.prominence >= params.min_quality.max(0.35 * best.prominence)
+        })
+        .max_by(|a, b| a.prominence.total_cmp(&b.prominence))
+        .copied();
+    if let Some(p) = perpendicular {
+        best = fundamental_of(p, &cands, params);
+    }
+    Some(best)
+}
+
+/// The fundamental of `peak`: a candidate near half its frequency vector
+/// that is itself reliable, or `peak` itself.
+fn fundamental_of(peak: Peak, cands: &[Peak], params: &FftParams) -> Peak {
+    let (hx, hy) = (peak.fx / 2.0, peak.fy / 2.0);
+    let tol = 0.15 * peak.freq() / 2.0;
+    cands
+        .iter()
+        .filter(|c| {
+            let d1 = (c.fx - hx).hypot(c.fy - hy);
+            let d2 = (c.fx + hx).hypot(c.fy + hy);
+            d1.min(d2) < tol && c.prominence >= params.min_quality.max(0.25 * peak.prominence)
+        })
+        .max_by(|a, b| a.prominence.total_cmp(&b.prominence))
+        .copied()
+        .unwrap_or(peak)
+}
+
+/// Difference of two axial directions (degrees modulo 180), in [0, 90].
+pub fn axial_difference(a: f64, b: f64) -> f64 {
+    let d = (a - b).rem_euclid(180.0);
+    d.min(180.0 - d)
+}
+
+/// Candidate peaks of a power spectrum, strongest prominence first.
+pub fn candidates(power: &[f64], n: usize, params: &FftParams) -> Vec<Peak> {
+    let half = n / 2;
+    let r_lo = 2.0f64;
+    let r_hi = (n as f64 / params.min_period_px).min(half as f64 - 1.0);
+    if r_hi <= r_lo {
+        return vec![];
+    }
+    let idx = |u: i64, v: i64| -> usize {
+        let uu = u.rem_euclid(n as i64) as usize;
+        let vv = v.rem_euclid(n as i64) as usize;
+        vv * n + uu
+    };
+    // 3x3 box smoothing on the periodic spectrum.
+    let mut smooth = vec![0.0f64; n * n];
+    for v in 0..n as i64 {
+        for u in 0..n as i64 {
+            let mut s = 0.0;
+            for dv in -1..=1 {
+                for du in -1..=1 {
+                    s += power[idx(u + du, v + dv)];
+                }
+            }
+            smooth[idx(u, v)] = s / 9.0;
+        }
+    }
+    // Median of the smoothed power in each integer frequency ring, over the
+    // half plane (the spectrum of a real image is symmetric).
+    let rings = half + 1;
+    let mut ring_vals: Vec<Vec<f32>> = vec![Vec::new(); rings];
+    let half_plane = |u: i64, v: i64| v > 0 || (v == 0 && u >= 0);
+    for v in -(half as i64)..=(half as i64) {
+        for u in -(half as i64)..=(half as i64) {
+            if !half_plane(u, v) {
+                continue;
+            }
+            let r = ((u * u + v * v) as f64).sqrt().round() as usize;
+            if r < rings {
+                ring_vals[r].push(smooth[idx(u, v)] as f32);
+            }
+        }
+    }
+    let ring_median: Vec<f64> = ring_vals
+        .iter_mut()
+        .map(|v| stats::median_in_place(v))
+        .collect();
+
+    let mut out = Vec::new();
+    let vmax = r_hi.ceil() as i64;
+    for v in 0..=vmax {
+        for u in -vmax..=vmax {
+            if !half_plane(u, v) {
+                continue;
+            }
+            let r = ((u * u + v * v) as f64).sqrt();
+            if r < r_lo || r > r_hi {
+                continue;
+            }
+            let s = smooth[idx(u, v)];
+            let mut is_max = true;
+            'nb: for dv in -1..=1 {
+                for du in -1..=1 {
+                    if (du, dv) != (0, 0) && smooth[idx(u + du, v + dv)] > s {
+                        is_max = false;
+                        break 'nb;
+                    }
+                }
+            }
+            if !is_max {
+                continue;
+            }
+            let bg = ring_median[r.round() as usize];
+            if bg <= 0.0 {
+                continue;
+            }
+            let prominence = s / bg;
+            if prominence < 2.0 {
+                continue;
+            }
+            // Sub-bin location on the raw power, from its largest bin next to
+            // the smoothed maximum.
+            let (mut pu, mut pv) = (u, v);
+            for dv in -1..=1 {
+                for du in -1..=1 {
+                    if power[idx(u + du, v + dv)] > power[idx(pu, pv)] {
+                        pu = u + du;
+                        pv = v + dv;
+                    }
+                }
+            }
+            let mag = |a: i64, b: i64| power[idx(a, b)].sqrt();
+            let du = hann_peak_offset(mag(pu - 1, pv), mag(pu, pv), mag(pu + 1, pv));
+            let dv = hann_peak_offset(mag(pu, pv - 1), mag(pu, pv), mag(pu, pv + 1));
+            out.push(Peak {
+                fx: (pu as f64 + du) / n as f64,
+                fy: (pv as f64 + dv) / n as f64,
+                prominence,
+            });
+        }
+    }
+    out.sort_by(|a, b| b.prominence.total_cmp(&a.prominence));
+    out.truncate(16);
+    out
+}
+
+/// Robust aggregate of tiles: quality-weighted median; tiles further than
+/// three robust standard deviations (1.4826 MAD) from it are rejected and
+/// the median is taken again. The confidence interval treats the tiles as
+/// n_eff = n x (stride/n)^2 independent samples (half-overlapping tiles share
+/// area) and uses the standard error of a median, 1.2533 s / sqrt(n_eff).
+fn aggregate(mut tiles: Vec<TileResult>, n: usize, params: &FftParams) -> FftOutcome {
+    let analysed = tiles.len();
+    let reliable: Vec<usize> = (0..tiles.len())
+        .filter(|&i| tiles[i].quality >= params.min_quality && tiles[i].spacing_px.is_finite())
+        .collect();
+    if reliable.is_empty() {
+        return FftOutcome::none(
+            format!(
+                "no reliable periodicity: none of {analysed} tiles has a spectral peak of quality >= {}",
+                params.min_quality
+            ),
+            n,
+            tiles,
+            analysed,
+        );
+    }
+    let vals: Vec<f64> = reliable.iter().map(|&i| tiles[i].spacing_px).collect();
+    let wts: Vec<f64> = reliable.iter().map(|&i| tiles[i].quality).collect();
+    let m0 = stats::weighted_median(&vals, &wts).unwrap_or(f64::NAN);
+    let s0 = stats::mad_sd(&vals, m0).unwrap_or(0.0);
+    let limit = (3.0 * s0).max(1e-9 * m0);
+    let kept: Vec<usize> = reliable
+        .iter()
+        .copied()
+        .filter(|&i| (tiles[i].spacing_px - m0).abs() <= limit)
+        .collect();
+    for &i in &kept {
+        tiles[i].used = true;
+    }
+    let kv: Vec<f64> = kept.iter().map(|&i| tiles[i].spacing_px).collect();
+    let kw: Vec<f64> = kept.iter().map(|&i| tiles[i].quality).collect();
+    let value = stats::weighted_median(&kv, &kw);
+    let spread = value.and_then(|m| stats::mad_sd(&kv, m));
+    let overlap = 0.25; // (stride / n)^2 with stride = n / 2
+    let n_eff = (kept.len() as f64 * overlap).max(1.0);
+    let ci = match (value, spread) {
+        (Some(m), Some(s)) if n_eff >= 2.0 => stats::t_quantile(0.975, n_eff - 1.0)
+            .map(|t| {
+                let half = t * 1.2533 * s / n_eff.sqrt();
+                [m - half, m + half]
+            }),
+        _ => None,
+    };
+    let (mut c, mut s) = (0.0, 0.0);
+    let mut wsum = 0.0;
+    for &i in &kept {
+        let a = (2.0 * tiles[i].dir_deg).to_radians();
+        c += tiles[i].quality * a.cos();
+        s += tiles[i].quality * a.sin();
+        wsum += tiles[i].quality;
+    }
+    let (orientation, coherence) = if wsum > 0.0 {
+        (
+            Some((s.atan2(c).to_degrees() / 2.0).rem_euclid(180.0)),
+            Some(c.hypot(s) / wsum),
+        )
+    } else {
+        (None, None)
+    };
+    FftOutcome {
+        value_px: value,
+        ci95_px: ci,
+        spread_px: spread,
+        n_tiles_used: kept.len(),
+        n_tiles_analysed: analysed,
+        window_px: n,
+        orientation_deg: orientation,
+        orientation_coherence: coherence,
+        tiles,
+        reason: None,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::load::GrayImage;
+    use crate::preprocess::{prepare, PreprocessParams};
+
+    fn sinusoid(n: usize, period: f64, angle_deg: f64) -> Vec<f32> {
+        let (c, s) = (angle_deg.to_radians().cos(), angle_deg.to_radians().sin());
+        (0..n * n)
+            .map(|i| {
+                let (x, y) = ((i % n) as f64, (i / n) as f64);
+                // y points down in the image; the angle is counter-clockwise with y up.
+                let t = x * c - y * s;
+                (std::f64::consts::TAU * t / period).cos() as f32
+            })
+            .collect()
+    }
+
+    #[test]
+    fn peak_of_a_pure_sinusoid_at_a_non_integer_bin() {
+        // A pure sinusoid's frequency is known exactly; the interpolated peak
+        // must land within 0.01 bin of it (requirement of the method).
+        let n = 128;
+        for bin in [5.3, 9.5, 17.25, 30.8] {
+            let period = n as f64 / bin;
+            let img = sinusoid(n, period, 0.0);
+            let mut a = SpectrumAnalyser::new(n);
+            let mut p = Vec::new();
+            a.power(&img, n, 0, 0, &mut p);
+            let peak = choose_peak(&p, n, &FftParams::default()).unwrap();
+            let got_bin = peak.freq() * n as f64;
+            assert!((got_bin - bin).abs() < 0.01, "bin {bin}: got {got_bin}");
+        }
+    }
+
+    #[test]
+    fn direction_follows_the_wave_vector() {
+        let n = 128;
+        for angle in [0.0, 30.0, 90.0, 135.0] {
+            let img = sinusoid(n, 10.0, angle);
+            let mut a = SpectrumAnalyser::new(n);
+            let mut p = Vec::new();
+            a.power(&img, n, 0, 0, &mut p);
+            let peak = choose_peak(&p, n, &FftParams::default()).unwrap();
+            assert!(axial_difference(peak.dir_deg(), angle) < 1.0, "{angle}: {}", peak.dir_deg());
+            assert!((peak.period_px() - 10.0).abs() < 0.1);
+        }
+    }
+
+    #[test]
+    fn featureless_images_give_no_value() {
+        let (w, h) = (256, 256);
+        let flat = GrayImage::from_vec(w, h, vec![0.5; w * h]).unwrap();
+        let out = measure(&prepare(&flat, None, &PreprocessParams::default()), &FftParams::default());
+        assert!(out.value_px.is_none() && out.reason.is_some());
+        // Pseudo-random white noise (a fixed linear congruential sequence) has no period.
+        let mut state = 12345u64;
+        let noise: Vec<f32> = (0..w * h)
+            .map(|_| {
+                state = state.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
+                (state >> 40) as f32 / (1u64 << 24) as f32
+            })
+            .collect();
+        let img = GrayImage::from_vec(w, h, noise).unwrap();
+        let out = measure(&prepare(&img, None, &PreprocessParams::default()), &FftParams::default());
+        assert!(out.value_px.is_none(), "noise gave {:?}", out.value_px);
+    }
+}

@@ -1,0 +1,363 @@
+//! The JSON report: its contract (schema "armspace.report/1", documented in
+//! README.md and schema/report.schema.json), its construction from the
+//! pipeline's results, and its atomic writing.
+//!
+//! Later versions add fields; they never remove or retype one.
+
+use crate::methods::fft::FftOutcome;
+use crate::pipeline::{ImageResult, MeasureOptions, Skipped};
+use crate::units::{Pixels, UmPerPx};
+use serde::Serialize;
+use std::io::Write;
+use std::path::Path;
+
+pub const SCHEMA: &str = "armspace.report/1";
+
+/// Carried by every report.
+pub const CAUTION: &str = "armspace results support, and never replace, the judgement of \
+qualified personnel and the applicable specification and codes. Check the calibration and \
+the pictures of what was measured before a result is used for the release of a casting.";
+
+#[derive(Serialize, Debug)]
+pub struct Report {
+    pub schema: &'static str,
+    pub tool: Tool,
+    pub created_utc: String,
+    pub caution: &'static str,
+    pub parameters: Parameters,
+    pub images: Vec<ImageReport>,
+    pub skipped: Vec<SkippedReport>,
+    pub summary: Summary,
+}
+
+#[derive(Serialize, Debug)]
+pub struct Tool {
+    pub name: &'static str,
+    pub version: &'static str,
+}
+
+#[derive(Serialize, Debug)]
+pub struct Parameters {
+    pub inputs: Vec<String>,
+    pub um_per_px: f64,
+    pub methods: Vec<&'static str>,
+    pub max_megapixels: f64,
+    pub preprocess: PreprocessParameters,
+    pub fft: FftParameters,
+}
+
+#[derive(Serialize, Debug)]
+pub struct PreprocessParameters {
+    /// null: chosen per image from its size (reported per image in methods.fft).
+    pub background_sigma_px: Option<f64>,
+}
+
+#[derive(Serialize, Debug)]
+pub struct FftParameters {
+    pub min_period_px: f64,
+    pub periods_per_tile: f64,
+    pub min_quality: f64,
+    pub max_masked_fraction: f64,
+    pub coarse_window_max_px: usize,
+}
+
+#[derive(Serialize, Debug)]
+pub struct ImageReport {
+    pub file: String,
+    pub sha256: Option<String>,
+    pub width: Option<u32>,
+    pub height: Option<u32>,
+    pub bit_depth: Option<u8>,
+    pub calibration: Option<CalibrationReport>,
+    pub sdas_um: SdasReport,
+    pub methods: MethodsReport,
+    pub warnings: Vec<String>,
+    pub error: Option<String>,
+}
+
+#[derive(Serialize, Debug)]
+pub struct CalibrationReport {
+    pub um_per_px: f64,
+    pub source: crate::calibrate::CalibrationSource,
+}
+
+#[derive(Serialize, Debug)]
+pub struct SdasReport {
+    pub value: Option<f64>,
+    pub ci95: Option<[f64; 2]>,
+    pub n: usize,
+    pub methods: Vec<&'static str>,
+    pub reason: Option<String>,
+}
+
+#[derive(Serialize, Debug, Default)]
+pub struct MethodsReport {
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub fft: Option<FftReport>,
+}
+
+#[derive(Serialize, Debug)]
+pub struct FftReport {
+    pub value: Option<f64>,
+    pub ci95: Option<[f64; 2]>,
+    pub spread_um: Option<f64>,
+    pub n_tiles: usize,
+    pub n_tiles_analysed: usize,
+    pub window_px: usize,
+    pub window_um: f64,
+    pub orientation_deg: Option<f64>,
+    pub orientation_coherence: Option<f64>,
+    pub reason: Option<String>,
+    pub tiles: Vec<TileReport>,
+}
+
+#[derive(Serialize, Debug)]
+pub struct TileReport {
+    pub x_um: f64,
+    pub y_um: f64,
+    pub sdas_um: Option<f64>,
+    pub dir_deg: Option<f64>,
+    pub quality: f64,
+    pub used: bool,
+}
+
+#[derive(Serialize, Debug)]
+pub struct SkippedReport {
+    pub file: String,
+    pub reason: String,
+}
+
+#[derive(Serialize, Debug)]
+pub struct Summary {
+    /// Images attempted (skipped files excluded).
+    pub images: usize,
+    /// Images with an SDAS value.
+    pub measured: usize,
+    /// Images read but without a value (nothing reliable to measure).
+    pub without_value: usize,
+    /// Images that could not be read or decoded.
+    pub failed: usize,
+    pub skipped: usize,
+    /// Range of the images' SDAS values, um (null when none was measured).
+    pub sdas_um_min: Option<f64>,
+    pub sdas_um_median: Option<f64>,
+    pub sdas_um_max: Option<f64>,
+}
+
+/// Rounds to `digits` decimals, for a report that reads well and compares
+/// equal across runs.
+pub fn round(x: f64, digits: i32) -> f64 {
+    let f = 10f64.powi(digits);
+    let r = (x * f).round() / f;
+    if r == 0.0 {
+        0.0
+    } else {
+        r
+    }
+}
+
+fn um(cal: UmPerPx, px: f64) -> f64 {
+    round(cal.to_um(Pixels(px)).0, 4)
+}
+
+fn finite(x: f64) -> Option<f64> {
+    x.is_finite().then_some(x)
+}
+
+fn fft_report(f: &FftOutcome, cal: UmPerPx) -> FftReport {
+    FftReport {
+        value: f.value_px.map(|v| um(cal, v)),
+        ci95: f.ci95_px.map(|[a, b]| [um(cal, a), um(cal, b)]),
+        spread_um: f.spread_px.map(|v| um(cal, v)),
+        n_tiles: f.n_tiles_used,
+        n_tiles_analysed: f.n_tiles_analysed,
+        window_px: f.window_px,
+        window_um: um(cal, f.window_px as f64),
+        orientation_deg: f.orientation_deg.map(|v| round(v, 2)),
+        orientation_coherence: f.orientation_coherence.map(|v| round(v, 3)),
+        reason: f.reason.clone(),
+        tiles: f
+            .tiles
+            .iter()
+            .map(|t| TileReport {
+                x_um: um(cal, t.cx_px),
+                y_um: um(cal, t.cy_px),
+                sdas_um: finite(t.spacing_px).map(|v| um(cal, v)),
+                dir_deg: finite(t.dir_deg).map(|v| round(v, 2)),
+                quality: round(t.quality, 3),
+                used: t.used,
+            })
+            .collect(),
+    }
+}
+
+pub fn image_report(r: &ImageResult) -> ImageReport {
+    let cal = r.calibration.map(|c| c.um_per_px);
+    ImageReport {
+        file: r.file.display().to_string(),
+        sha256: r.info.as_ref().map(|i| i.sha256.clone()),
+        width: r.info.as_ref().map(|i| i.width),
+        height: r.info.as_ref().map(|i| i.height),
+        bit_depth: r.info.as_ref().map(|i| i.bit_depth),
+        calibration: r.calibration.map(|c| CalibrationReport {
+            um_per_px: c.um_per_px.get(),
+            source: c.source,
+        }),
+        sdas_um: SdasReport {
+            value: r.sdas.value.map(|v| round(v.0, 4)),
+            ci95: r.sdas.ci95.map(|[a, b]| [round(a.0, 4), round(b.0, 4)]),
+            n: r.sdas.n,
+            methods: r.sdas.methods.iter().map(|m| m.name()).collect(),
+            reason: r.sdas.reason.clone(),
+        },
+        methods: MethodsReport {
+            fft: match (&r.fft, cal) {
+                (Some(f), Some(c)) => Some(fft_report(f, c)),
+                _ => None,
+            },
+        },
+        warnings: r.warnings.clone(),
+        error: r.error.clone(),
+    }
+}
+
+/// Assembles the report of a batch.
+pub fn build(
+    inputs: &[String],
+    opts: &MeasureOptions,
+    results: &[ImageResult],
+    skipped: &[Skipped],
+    created_utc: String,
+) -> Report {
+    let images: Vec<ImageReport> = results.iter().map(image_report).collect();
+    let values: Vec<f64> = images.iter().filter_map(|i| i.sdas_um.value).collect();
+    let failed = results.iter().filter(|r| r.error.is_some()).count();
+    let measured = results.iter().filter(|r| r.measured()).count();
+    let summary = Summary {
+        images: results.len(),
+        measured,
+        without_value: results.len() - measured - failed,
+        failed,
+        skipped: skipped.len(),
+        sdas_um_min: values.iter().copied().reduce(f64::min),
+        sdas_um_median: crate::stats::median(&values).map(|v| round(v, 4)),
+        sdas_um_max: values.iter().copied().reduce(f64::max),
+    };
+    Report {
+        schema: SCHEMA,
+        tool: Tool {
+            name: env!("CARGO_PKG_NAME"),
+            version: env!("CARGO_PKG_VERSION"),
+        },
+        created_utc,
+        caution: CAUTION,
+        parameters: Parameters {
+            inputs: inputs.to_vec(),
+            um_per_px: opts.um_per_px.get(),
+            methods: opts.methods.iter().map(|m| m.name()).collect(),
+            max_megapixels: opts.load.max_megapixels,
+            preprocess: PreprocessParameters {
+                background_sigma_px: opts.preprocess.background_sigma_px,
+            },
+            fft: FftParameters {
+                min_period_px: opts.fft.min_period_px,
+                periods_per_tile: opts.fft.periods_per_tile,
+                min_quality: opts.fft.min_quality,
+                max_masked_fraction: opts.fft.max_masked_fraction,
+                coarse_window_max_px: opts.fft.coarse_window_max_px,
+            },
+        },
+        images,
+        skipped: skipped
+            .iter()
+            .map(|s| SkippedReport {
+                file: s.file.display().to_string(),
+                reason: s.reason.clone(),
+            })
+            .collect(),
+        summary,
+    }
+}
+
+/// Current time as RFC 3339 UTC, or the time given by the SOURCE_DATE_EPOCH
+/// environment variable (reproducible builds convention) when it is set.
+pub fn now_utc() -> String {
+    let t = std::env::var("SOURCE_DATE_EPOCH")
+        .ok()
+        .and_then(|s| s.trim().parse::<u64>().ok())
+        .map(|s| std::time::UNIX_EPOCH + std::time::Duration::from_secs(s))
+        .unwrap_or_else(std::time::SystemTime::now);
+    humantime::format_rfc3339_seconds(t).to_string()
+}
+
+/// Pretty-printed JSON with a final newline.
+pub fn to_json(report: &Report) -> String {
+    let mut s = serde_json::to_string_pretty(report).unwrap_or_else(|e| {
+        // Serialising plain structs of numbers and strings cannot fail; if it
+        // ever did, say so in the output rather than panic.
+        format!("{{\"error\": \"report serialisation failed: {e}\"}}")
+    });
+    s.push('\n');
+    s
+}
+
+/// Writes a file atomically: to a temporary file in the same folder, flushed
+/// to disk, then renamed over the target. A failure leaves no partial file.
+pub fn write_atomic(path: &Path, bytes: &[u8]) -> crate::Result<()> {
+    let err = |source: std::io::Error| crate::Error::Write {
+        path: path.to_path_buf(),
+        source,
+    };
+    let dir = match path.parent() {
+        Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
+        _ => std::path::PathBuf::from("."),
+    };
+    if !dir.is_dir() {
+        return Err(err(std::io::Error::new(
+            std::io::ErrorKind::NotFound,
+            format!("folder {} does not exist", dir.display()),
+        )));
+    }
+    let name = path
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_else(|| "output".into());
+    let tmp = dir.join(format!(".{name}.tmp-{}", std::process::id()));
+    let result = (|| {
+        let mut f = std::fs::File::create(&tmp)?;
+        f.write_all(bytes)?;
+        f.sync_all()?;
+        std::fs::rename(&tmp, path)
+    })();
+    if let Err(e) = result {
+        let _ = std::fs::remove_file(&tmp);
+        return Err(err(e));
+    }
+    Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn rounding() {
+        assert_eq!(round(1.234_56, 2), 1.23);
+        assert_eq!(round(-0.000_01, 2), 0.0);
+        assert!(round(-0.000_01, 2).is_sign_positive());
+    }
+
+    #[test]
+    fn atomic_write_replaces_and_cleans_up() {
+        let dir = tempfile::tempdir().unwrap();
+        let p = dir.path().join("r.json");
+        write_atomic(&p, b"one").unwrap();
+        write_atomic(&p, b"two").unwrap();
+        assert_eq!(std::fs::read(&p).unwrap(), b"two");
+        let names: Vec<_> = std::fs::read_dir(dir.path()).unwrap().collect();
+        assert_eq!(names.len(), 1, "temporary file left behind");
+        let missing = dir.path().join("no-such-dir").join("r.json");
+        let e = write_atomic(&missing, b"x").unwrap_err().to_string();
+        assert!(e.contains("no-such-dir") && e.contains("does not exist"), "{e}");
+    }
+}

@@ -1,0 +1,164 @@
+//! Statistics shared by all methods: medians, robust spread, Student's t
+//! confidence intervals and percent relative accuracy.
+
+use serde::Serialize;
+use statrs::distribution::{ContinuousCDF, StudentsT};
+
+/// Median of a slice, reordering it. Returns 0 for an empty slice.
+pub fn median_in_place(v: &mut [f32]) -> f64 {
+    if v.is_empty() {
+        return 0.0;
+    }
+    let n = v.len();
+    let mid = n / 2;
+    let (_, m, _) = v.select_nth_unstable_by(mid, |a, b| a.total_cmp(b));
+    let upper = *m as f64;
+    if n % 2 == 1 {
+        upper
+    } else {
+        let lower = v[..mid].iter().copied().fold(f32::NEG_INFINITY, f32::max) as f64;
+        0.5 * (lower + upper)
+    }
+}
+
+/// Median of values (not reordered).
+pub fn median(values: &[f64]) -> Option<f64> {
+    if values.is_empty() {
+        return None;
+    }
+    let mut v = values.to_vec();
+    v.sort_by(|a, b| a.total_cmp(b));
+    let n = v.len();
+    Some(if n % 2 == 1 {
+        v[n / 2]
+    } else {
+        0.5 * (v[n / 2 - 1] + v[n / 2])
+    })
+}
+
+/// Weighted median: the smallest value at which the cumulative weight reaches
+/// half the total; the midpoint when it lands exactly on half.
+pub fn weighted_median(values: &[f64], weights: &[f64]) -> Option<f64> {
+    let mut pairs: Vec<(f64, f64)> = values
+        .iter()
+        .zip(weights)
+        .filter(|(v, w)| v.is_finite() && w.is_finite() && **w > 0.0)
+        .map(|(v, w)| (*v, *w))
+        .collect();
+    if pairs.is_empty() {
+        return None;
+    }
+    pairs.sort_by(|a, b| a.0.total_cmp(&b.0));
+    let total: f64 = pairs.iter().map(|p| p.1).sum();
+    let half = 0.5 * total;
+    let mut acc = 0.0;
+    for (i, (v, w)) in pairs.iter().enumerate() {
+        acc += w;
+        if (acc - half).abs() <= 1e-12 * total {
+            return Some(pairs.get(i + 1).map_or(*v, |n| 0.5 * (v + n.0)));
+        }
+        if acc > half {
+            return Some(*v);
+        }
+    }
+    pairs.last().map(|p| p.0)
+}
+
+/// Median absolute deviation about `center`, scaled by 1.4826 to estimate a
+/// normal standard deviation.
+pub fn mad_sd(values: &[f64], center: f64) -> Option<f64> {
+    let dev: Vec<f64> = values.iter().map(|v| (v - center).abs()).collect();
+    median(&dev).map(|m| 1.4826 * m)
+}
+
+/// Quantile of Student's t distribution with `dof` degrees of freedom.
+pub fn t_quantile(p: f64, dof: f64) -> Option<f64> {
+    if !(0.0..1.0).contains(&p) || p == 0.0 || dof <= 0.0 || !dof.is_finite() {
+        return None;
+    }
+    StudentsT::new(0.0, 1.0, dof).ok().map(|t| t.inverse_cdf(p))
+}
+
+/// Sample statistics of independent measurements (lines, fields, tiles).
+#[derive(Clone, Copy, Debug, PartialEq, Serialize)]
+pub struct Summary {
+    pub n: usize,
+    pub mean: f64,
+    /// Sample standard deviation (n - 1 in the denominator).
+    pub sd: f64,
+    /// Half-width of the 95% confidence interval of the mean: t(0.975, n-1) s / sqrt(n).
+    pub ci95_half_width: f64,
+    /// Percent relative accuracy, 100 x half-width / mean (ASTM E112 practice).
+    pub rel_accuracy_pct: f64,
+}
+
+impl Summary {
+    /// Statistics of at least two finite values.
+    pub fn of(values: &[f64]) -> Option<Self> {
+        let n = values.len();
+        if n < 2 || values.iter().any(|v| !v.is_finite()) {
+            return None;
+        }
+        let nf = n as f64;
+        let mean = values.iter().sum::<f64>() / nf;
+        let var = values.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (nf - 1.0);
+        let sd = var.sqrt();
+        let t = t_quantile(0.975, nf - 1.0)?;
+        let half = t * sd / nf.sqrt();
+        Some(Self {
+            n,
+            mean,
+            sd,
+            ci95_half_width: half,
+            rel_accuracy_pct: if mean != 0.0 {
+                100.0 * half / mean.abs()
+            } else {
+                f64::INFINITY
+            },
+        })
+    }
+
+    pub fn ci95(&self) -> [f64; 2] {
+        [self.mean - self.ci95_half_width, self.mean + self.ci95_half_width]
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn t_quantiles_match_published_table() {
+        // Two-sided 95% critical values of Student's t, NIST/SEMATECH
+        // e-Handbook of Statistical Methods, section 1.3.6.7.2 (table of
+        // upper critical values, column 0.025).
+        for (dof, t) in [(1.0, 12.706), (4.0, 2.776), (9.0, 2.262), (29.0, 2.045), (100.0, 1.984)] {
+            let q = t_quantile(0.975, dof).unwrap();
+            assert!((q - t).abs() < 1e-3, "dof {dof}: {q} vs {t}");
+        }
+    }
+
+    #[test]
+    fn summary_of_a_worked_sample() {
+        // Worked by hand: values 10, 12, 14, 16, 18: mean 14, s = sqrt(10) = 3.1623,
+        // t(0.975, 4) = 2.776 (NIST table above), half-width = 2.776 * 3.1623 / sqrt(5) = 3.926,
+        // %RA = 100 * 3.926 / 14 = 28.04.
+        let s = Summary::of(&[10.0, 12.0, 14.0, 16.0, 18.0]).unwrap();
+        assert!((s.mean - 14.0).abs() < 1e-12);
+        assert!((s.sd - 10f64.sqrt()).abs() < 1e-12);
+        assert!((s.ci95_half_width - 3.926).abs() < 2e-3);
+        assert!((s.rel_accuracy_pct - 28.04).abs() < 0.02);
+        assert!(Summary::of(&[1.0]).is_none());
+    }
+
+    #[test]
+    fn medians() {
+        assert_eq!(median(&[3.0, 1.0, 2.0]), Some(2.0));
+        assert_eq!(median(&[4.0, 1.0, 3.0, 2.0]), Some(2.5));
+        let mut v = [4.0f32, 1.0, 3.0, 2.0];
+        assert_eq!(median_in_place(&mut v), 2.5);
+        assert_eq!(weighted_median(&[1.0, 2.0, 3.0], &[1.0, 1.0, 5.0]), Some(3.0));
+        assert_eq!(weighted_median(&[1.0, 2.0], &[1.0, 1.0]), Some(1.5));
+        assert_eq!(weighted_median(&[], &[]), None);
+    }
+}

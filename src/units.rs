@@ -1,0 +1,85 @@
+//! Quantities that carry their unit in their type.
+//!
+//! A spacing in micrometres and one in pixels are different types, so that a
+//! pixel count can never be reported as a length by mistake. Conversion needs
+//! an explicit [`UmPerPx`] calibration.
+
+use serde::{Deserialize, Serialize};
+use std::fmt;
+
+/// A length in micrometres.
+#[derive(Clone, Copy, Debug, PartialEq, PartialOrd, Serialize, Deserialize)]
+#[serde(transparent)]
+pub struct Micrometres(pub f64);
+
+/// A length in pixels of the image being measured.
+#[derive(Clone, Copy, Debug, PartialEq, PartialOrd, Serialize, Deserialize)]
+#[serde(transparent)]
+pub struct Pixels(pub f64);
+
+/// An image calibration: micrometres per pixel. Always finite and positive.
+#[derive(Clone, Copy, Debug, PartialEq, PartialOrd, Serialize)]
+#[serde(transparent)]
+pub struct UmPerPx(f64);
+
+impl UmPerPx {
+    /// Checks that the value is a usable calibration.
+    pub fn new(value: f64) -> Result<Self, String> {
+        if !value.is_finite() {
+            return Err(format!("{value} is not a finite number"));
+        }
+        if value <= 0.0 {
+            return Err(format!("{value} is not positive"));
+        }
+        if !(1e-6..=1e6).contains(&value) {
+            return Err(format!(
+                "{value} um/px is outside the plausible range 1e-6 to 1e6"
+            ));
+        }
+        Ok(Self(value))
+    }
+
+    pub fn get(self) -> f64 {
+        self.0
+    }
+
+    pub fn to_um(self, px: Pixels) -> Micrometres {
+        Micrometres(px.0 * self.0)
+    }
+
+    pub fn to_px(self, um: Micrometres) -> Pixels {
+        Pixels(um.0 / self.0)
+    }
+}
+
+impl fmt::Display for Micrometres {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(f, "{:.3} um", self.0)
+    }
+}
+
+impl fmt::Display for Pixels {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(f, "{:.3} px", self.0)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn conversion_round_trips() {
+        let cal = UmPerPx::new(0.345).unwrap();
+        let um = cal.to_um(Pixels(100.0));
+        assert!((um.0 - 34.5).abs() < 1e-12);
+        assert!((cal.to_px(um).0 - 100.0).abs() < 1e-12);
+    }
+
+    #[test]
+    fn rejects_unusable_calibrations() {
+        for bad in [0.0, -1.0, f64::NAN, f64::INFINITY, 1e9] {
+            assert!(UmPerPx::new(bad).is_err(), "{bad} accepted");
+        }
+    }
+}
