@@ -1,0 +1,128 @@
+//! Writing images and truth sets (the only module doing I/O).
+
+use super::{random_spec, render, FieldSpec, Gray16, SynthError, Truth};
+use image::{DynamicImage, ImageBuffer, ImageFormat, Luma};
+use rand::SeedableRng;
+use rand_chacha::ChaCha8Rng;
+use rayon::prelude::*;
+use serde::Serialize;
+use std::io::{Cursor, Write};
+use std::path::{Path, PathBuf};
+
+/// Schema tag of `truth.json`.
+pub const TRUTH_SCHEMA: &str = "armspace.synth-truth/1";
+
+/// Sample depth written to disk.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum BitDepth {
+    Eight,
+    Sixteen,
+}
+
+fn io_err(path: &Path) -> impl FnOnce(std::io::Error) -> SynthError + '_ {
+    move |source| SynthError::Io {
+        path: path.to_path_buf(),
+        source,
+    }
+}
+
+/// Write `bytes` to `path` atomically: temp file in the same directory, then rename.
+fn write_atomic(path: &Path, bytes: &[u8]) -> Result<(), SynthError> {
+    let dir = match path.parent() {
+        Some(d) if !d.as_os_str().is_empty() => d.to_path_buf(),
+        _ => PathBuf::from("."),
+    };
+    let name = path
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_else(|| "out".to_string());
+    let tmp = dir.join(format!(".{name}.tmp-{}", std::process::id()));
+    let result = (|| {
+        let mut f = std::fs::File::create(&tmp).map_err(io_err(&tmp))?;
+        f.write_all(bytes).map_err(io_err(&tmp))?;
+        f.sync_all().map_err(io_err(&tmp))?;
+        drop(f);
+        std::fs::rename(&tmp, path).map_err(io_err(path))
+    })();
+    if result.is_err() {
+        // Best effort cleanup; the original error is what matters.
+        let _ = std::fs::remove_file(&tmp);
+    }
+    result
+}
+
+fn to_u8(img: &Gray16) -> ImageBuffer<Luma<u8>, Vec<u8>> {
+    let data: Vec<u8> = img
+        .as_raw()
+        .iter()
+        .map(|&v| ((v as u32 * 255 + 32_767) / 65_535) as u8)
+        .collect();
+    ImageBuffer::from_raw(img.width(), img.height(), data)
+        .unwrap_or_else(|| ImageBuffer::new(img.width(), img.height()))
+}
+
+/// Encode `img` as PNG or TIFF (chosen by the extension of `path`: `.png`,
+/// `.tif`, `.tiff`) at the requested depth and write it atomically.
+pub fn write_image(path: &Path, img: &Gray16, depth: BitDepth) -> Result<(), SynthError> {
+    let ext = path
+        .extension()
+        .map(|e| e.to_string_lossy().to_ascii_lowercase())
+        .unwrap_or_default();
+    let format = match ext.as_str() {
+        "png" => ImageFormat::Png,
+        "tif" | "tiff" => ImageFormat::Tiff,
+        _ => return Err(SynthError::UnsupportedFormat(path.to_path_buf())),
+    };
+    let dynimg = match depth {
+        BitDepth::Eight => DynamicImage::ImageLuma8(to_u8(img)),
+        BitDepth::Sixteen => DynamicImage::ImageLuma16(img.clone()),
+    };
+    let mut buf = Cursor::new(Vec::new());
+    dynimg
+        .write_to(&mut buf, format)
+        .map_err(|source| SynthError::Encode {
+            path: path.to_path_buf(),
+            source,
+        })?;
+    write_atomic(path, buf.get_ref())
+}
+
+#[derive(Serialize)]
+struct TruthFile<'a> {
+    schema: &'a str,
+    seed: u64,
+    images: &'a [Truth],
+}
+
+/// Render `count` random specs (seeded from `seed`) into `outdir`:
+/// `img_NNN.png` (8-bit) or, for every third image, `img_NNN.tif` (16-bit),
+/// plus `truth.json`. Returns the truth records in image order.
+pub fn write_set(outdir: &Path, seed: u64, count: usize) -> Result<Vec<Truth>, SynthError> {
+    std::fs::create_dir_all(outdir).map_err(io_err(outdir))?;
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let specs: Vec<FieldSpec> = (0..count).map(|i| random_spec(&mut rng, i)).collect();
+    let truths: Vec<Truth> = specs
+        .par_iter()
+        .enumerate()
+        .map(|(i, spec)| {
+            let (img, mut truth) = render(spec)?;
+            let (name, depth) = if i % 3 == 2 {
+                (format!("img_{i:03}.tif"), BitDepth::Sixteen)
+            } else {
+                (format!("img_{i:03}.png"), BitDepth::Eight)
+            };
+            write_image(&outdir.join(&name), &img, depth)?;
+            truth.file = name;
+            Ok(truth)
+        })
+        .collect::<Result<Vec<_>, SynthError>>()?;
+    let doc = TruthFile {
+        schema: TRUTH_SCHEMA,
+        seed,
+        images: &truths,
+    };
+    let mut json = serde_json::to_vec_pretty(&doc)?;
+    json.push(b'\n');
+    write_atomic(&outdir.join("truth.json"), &json)?;
+    Ok(truths)
+}

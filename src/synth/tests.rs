@@ -1,0 +1,125 @@
+use super::*;
+
+fn base(morphology: Morphology, style: Style) -> FieldSpec {
+    FieldSpec {
+        width: 300,
+        height: 240,
+        morphology,
+        style,
+        sdas_px: 12.0,
+        um_per_px: 0.5,
+        primary_angle_deg: 30.0,
+        primary_spacing_px: 50.0,
+        spacing_jitter: 0.1,
+        missing_arm_fraction: 0.05,
+        invert: false,
+        noise_sd: 0.02,
+        blur_sigma_px: 1.0,
+        illumination: 0.1,
+        scale_bar: Some(ScaleBarSpec {
+            length_um: 20.0,
+            thickness_px: 4,
+            polarity: Polarity::LightOnDark,
+            corner: Corner::BottomRight,
+            backing_box: true,
+        }),
+        seed: 7,
+    }
+}
+
+#[test]
+fn synth_render_is_deterministic_for_all_kinds() {
+    for m in [Morphology::Columnar, Morphology::Equiaxed] {
+        for s in [Style::Clean, Style::Etched] {
+            let spec = base(m, s);
+            let (a, ta) = render(&spec).expect("render a");
+            let (b, tb) = render(&spec).expect("render b");
+            assert_eq!(a.as_raw(), b.as_raw(), "{m:?} {s:?}");
+            assert_eq!(ta, tb);
+        }
+    }
+}
+
+#[test]
+fn synth_different_seeds_differ() {
+    let spec = base(Morphology::Columnar, Style::Etched);
+    let mut other = spec.clone();
+    other.seed = 8;
+    let (a, _) = render(&spec).expect("render");
+    let (b, _) = render(&other).expect("render");
+    assert_ne!(a.as_raw(), b.as_raw());
+}
+
+#[test]
+fn synth_truth_spacing_close_to_request() {
+    for m in [Morphology::Columnar, Morphology::Equiaxed] {
+        let mut spec = base(m, Style::Clean);
+        spec.width = 600;
+        spec.height = 600;
+        let (_, t) = render(&spec).expect("render");
+        assert!(t.sdas_count > 20, "{m:?}: {}", t.sdas_count);
+        assert!(
+            (t.sdas_px / 12.0 - 1.0).abs() < 0.06,
+            "{m:?}: {}",
+            t.sdas_px
+        );
+        assert!((t.sdas_um - t.sdas_px * 0.5).abs() < 1e-8);
+    }
+}
+
+#[test]
+fn synth_invalid_specs_are_rejected() {
+    let good = base(Morphology::Columnar, Style::Clean);
+    let mut cases = Vec::new();
+    let mut s = good.clone();
+    s.sdas_px = f64::NAN;
+    cases.push(s);
+    let mut s = good.clone();
+    s.width = 4;
+    cases.push(s);
+    let mut s = good.clone();
+    s.primary_spacing_px = 12.0;
+    cases.push(s);
+    let mut s = good.clone();
+    s.um_per_px = 0.0;
+    cases.push(s);
+    let mut s = good.clone();
+    if let Some(b) = s.scale_bar.as_mut() {
+        b.length_um = 1e6;
+    }
+    cases.push(s);
+    let mut s = good.clone();
+    s.noise_sd = -1.0;
+    cases.push(s);
+    for c in cases {
+        assert!(
+            matches!(render(&c), Err(SynthError::InvalidSpec(_))),
+            "{c:?}"
+        );
+    }
+}
+
+#[test]
+fn synth_random_specs_render() {
+    use rand::SeedableRng;
+    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(3);
+    for i in 0..8 {
+        let mut spec = random_spec(&mut rng, i);
+        // keep the unit test quick
+        spec.width = spec.width.min(512);
+        spec.height = spec.height.min(512);
+        spec.sdas_px = spec.sdas_px.min(40.0);
+        spec.primary_spacing_px = spec.sdas_px * 4.0;
+        spec.scale_bar = None;
+        let (img, t) = render(&spec).expect("random spec renders");
+        assert_eq!(img.width(), spec.width);
+        assert!(t.sdas_px > 0.0 && t.dendrite_area_fraction > 0.1);
+    }
+}
+
+#[test]
+fn synth_serde_names() {
+    let j = serde_json::to_string(&(Morphology::Equiaxed, Style::Etched, Polarity::DarkOnLight))
+        .expect("json");
+    assert_eq!(j, r#"["equiaxed","etched","dark-on-light"]"#);
+}
