@@ -113,6 +113,8 @@ pub struct Peak {
     pub fx: f64,
     pub fy: f64,
     pub prominence: f64,
+    /// Smoothed power at the peak.
+    pub power: f64,
 }
 
 impl Peak {
@@ -250,43 +252,119 @@ fn masked_fraction(img: &Prepared, x0: usize, y0: usize, n: usize) -> f64 {
     count as f64 / (n * n) as f64
 }
 
-/// Finds the spectral peaks of a power spectrum and applies the harmonic and
-/// primary-spacing checks; `None` when there is no candidate at all.
+/// Finds the spectral peaks of a power spectrum, keeps those along the
+/// spectrum's dominant orientation when it has one, and returns the
+/// fundamental of the strongest; `None` when there is no candidate at all.
 pub fn choose_peak(power: &[f64], n: usize, params: &FftParams) -> Option<Peak> {
-    let cands = candidates(power, n, params);
-    let first = *cands.first()?;
-    let mut best = fundamental_of(first, &cands, params);
-    let perpendicular = cands
+    let (cands, orient) = candidates(power, n, params);
+    let aligned = |p: &&Peak| {
+        orient.anisotropy < MIN_ANISOTROPY
+            || axial_difference(p.dir_deg(), orient.dir_deg) <= MAX_OFF_AXIS_DEG
+    };
+    // Among reliable aligned peaks the one of most power: a row of arms puts
+    // most of its power in its fundamental, while the ring background, which
+    // sets prominence, falls steeply with frequency and would favour the
+    // side lobes of the arms' width.
+    let first = cands
         .iter()
-        .filter(|c| {
-            let d = axial_difference(c.dir_deg(), best.dir_deg());
-            (d - 90.0).abs() < 20.0
-                && c.freq() > 1.2 * best.freq()
-                && c.prominence >= params.min_quality.max(0.35 * best.prominence)
-        })
-        .max_by(|a, b| a.prominence.total_cmp(&b.prominence))
-        .copied();
-    if let Some(p) = perpendicular {
-        best = fundamental_of(p, &cands, params);
-    }
-    Some(best)
+        .filter(aligned)
+        .filter(|p| p.prominence >= params.min_quality)
+        .max_by(|a, b| a.power.total_cmp(&b.power))
+        .or(cands.first())
+        .copied()?;
+    Some(fundamental_of(first, &cands, n, params))
 }
 
-/// The fundamental of `peak`: a candidate near half its frequency vector
-/// that is itself reliable, or `peak` itself.
-fn fundamental_of(peak: Peak, cands: &[Peak], params: &FftParams) -> Peak {
-    let (hx, hy) = (peak.fx / 2.0, peak.fy / 2.0);
-    let tol = 0.15 * peak.freq() / 2.0;
-    cands
-        .iter()
-        .filter(|c| {
-            let d1 = (c.fx - hx).hypot(c.fy - hy);
-            let d2 = (c.fx + hx).hypot(c.fy + hy);
-            d1.min(d2) < tol && c.prominence >= params.min_quality.max(0.25 * peak.prominence)
+/// The dominant orientation of a spectrum's excess power (power above its
+/// ring background), from the second-moment tensor of the excess over the
+/// searched band: the spectral form of the structure tensor. Secondary arms
+/// carry most of a columnar dendrite's edges, so this direction is the one
+/// along which they repeat (the trunk direction); the primary spacing lies
+/// across it.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Orientation {
+    /// Degrees counter-clockwise from +x with y up, in [0, 180).
+    pub dir_deg: f64,
+    /// (largest - smallest eigenvalue) / (sum): 0 isotropic, 1 one direction.
+    pub anisotropy: f64,
+}
+
+/// Below this anisotropy a spectrum has no dominant orientation.
+const MIN_ANISOTROPY: f64 = 0.2;
+
+/// Largest angle between a peak and the dominant orientation for the peak
+/// to count as aligned with it.
+const MAX_OFF_AXIS_DEG: f64 = 30.0;
+
+/// Lowest smoothed power along the ray from the origin through (u, v),
+/// between r / 2 and 2 r, sampled every half bin by bilinear interpolation.
+/// Between a periodic peak and its neighbours on the ray (its harmonics, or
+/// the low frequencies) the power falls to the floor; along the streak that
+/// long straight edges (trunks, grain boundaries) draw across a spectrum it
+/// does not, so such a streak gets no prominence.
+fn ray_floor(smooth: &[f64], n: usize, u: i64, v: i64) -> f64 {
+    let r = ((u * u + v * v) as f64).sqrt();
+    let (cu, cv) = (u as f64 / r, v as f64 / r);
+    let ni = n as i64;
+    let g = |a: i64, b: i64| smooth[(b.rem_euclid(ni) as usize) * n + a.rem_euclid(ni) as usize];
+    let at = |x: f64, y: f64| -> f64 {
+        let (x0, y0) = (x.floor(), y.floor());
+        let (fx, fy) = (x - x0, y - y0);
+        let (xi, yi) = (x0 as i64, y0 as i64);
+        g(xi, yi) * (1.0 - fx) * (1.0 - fy)
+            + g(xi + 1, yi) * fx * (1.0 - fy)
+            + g(xi, yi + 1) * (1.0 - fx) * fy
+            + g(xi + 1, yi + 1) * fx * fy
+    };
+    let (lo, hi) = (r / 2.0, (2.0 * r).min(n as f64 / 2.0 - 1.0));
+    let steps = ((hi - lo) / 0.5).ceil().max(1.0) as usize;
+    (0..=steps)
+        .map(|i| {
+            let t = lo + (hi - lo) * i as f64 / steps as f64;
+            at(t * cu, t * cv)
         })
-        .max_by(|a, b| a.prominence.total_cmp(&b.prominence))
-        .copied()
-        .unwrap_or(peak)
+        .fold(f64::INFINITY, f64::min)
+}
+
+/// Most candidates kept per spectrum.
+const MAX_CANDIDATES: usize = 64;
+
+/// Highest harmonic order searched below a peak.
+const MAX_HARMONIC: usize = 32;
+
+/// The fundamental of `peak`: the lowest-frequency candidate c such that
+/// `peak` lies at k c (k = 2..32, either sign), within (0.75 + k/2) bins, and
+/// whose own prominence is at least half the quality threshold (the harmonic
+/// relation is itself evidence). Without one, `peak` is its own fundamental.
+/// The result is peak / k, with the peak's prominence.
+fn fundamental_of(peak: Peak, cands: &[Peak], n: usize, params: &FftParams) -> Peak {
+    let bin = 1.0 / n as f64;
+    let mut found: Option<usize> = None;
+    for c in cands {
+        if c.prominence < 0.5 * params.min_quality || c.freq() >= 0.75 * peak.freq() {
+            continue;
+        }
+        for k in 2..=MAX_HARMONIC {
+            let kf = k as f64;
+            // c is located to about half a bin, so k c to about k / 2 bins.
+            let tol = (0.75 + 0.5 * kf) * bin;
+            let d1 = (peak.fx - kf * c.fx).hypot(peak.fy - kf * c.fy);
+            let d2 = (peak.fx + kf * c.fx).hypot(peak.fy + kf * c.fy);
+            if d1.min(d2) <= tol && found.is_none_or(|fk| k > fk) {
+                found = Some(k);
+            }
+        }
+    }
+    match found {
+        // The harmonic is located k times more precisely, relative to its
+        // frequency, than the fundamental itself.
+        Some(k) => Peak {
+            fx: peak.fx / k as f64,
+            fy: peak.fy / k as f64,
+            ..peak
+        },
+        None => peak,
+    }
 }
 
 /// Difference of two axial directions (degrees modulo 180), in [0, 90].
@@ -296,12 +374,16 @@ pub fn axial_difference(a: f64, b: f64) -> f64 {
 }
 
 /// Candidate peaks of a power spectrum, strongest prominence first.
-pub fn candidates(power: &[f64], n: usize, params: &FftParams) -> Vec<Peak> {
+pub fn candidates(power: &[f64], n: usize, params: &FftParams) -> (Vec<Peak>, Orientation) {
     let half = n / 2;
     let r_lo = 2.0f64;
     let r_hi = (n as f64 / params.min_period_px).min(half as f64 - 1.0);
+    let isotropic = Orientation {
+        dir_deg: 0.0,
+        anisotropy: 0.0,
+    };
     if r_hi <= r_lo {
-        return vec![];
+        return (vec![], isotropic);
     }
     let idx = |u: i64, v: i64| -> usize {
         let uu = u.rem_euclid(n as i64) as usize;
@@ -321,12 +403,15 @@ pub fn candidates(power: &[f64], n: usize, params: &FftParams) -> Vec<Peak> {
             smooth[idx(u, v)] = s / 9.0;
         }
     }
-    // Median of the smoothed power in each integer frequency ring, over the
-    // half plane (the spectrum of a real image is symmetric).
+    // Background: the median of the smoothed power over each integer
+    // frequency ring (half plane; a real image's spectrum is symmetric). A
+    // peak from aligned arms occupies a small part of its ring and stands
+    // above it; the smooth fall of an image's spectrum and the floor of
+    // noise do not.
     let rings = half + 1;
     let mut ring_vals: Vec<Vec<f32>> = vec![Vec::new(); rings];
     let half_plane = |u: i64, v: i64| v > 0 || (v == 0 && u >= 0);
-    for v in -(half as i64)..=(half as i64) {
+    for v in 0..=(half as i64) {
         for u in -(half as i64)..=(half as i64) {
             if !half_plane(u, v) {
                 continue;
@@ -337,12 +422,13 @@ pub fn candidates(power: &[f64], n: usize, params: &FftParams) -> Vec<Peak> {
             }
         }
     }
-    let ring_median: Vec<f64> = ring_vals
+    let background: Vec<f64> = ring_vals
         .iter_mut()
         .map(|v| stats::median_in_place(v))
         .collect();
 
     let mut out = Vec::new();
+    let (mut txx, mut txy, mut tyy) = (0.0f64, 0.0f64, 0.0f64);
     let vmax = r_hi.ceil() as i64;
     for v in 0..=vmax {
         for u in -vmax..=vmax {
@@ -354,6 +440,14 @@ pub fn candidates(power: &[f64], n: usize, params: &FftParams) -> Vec<Peak> {
                 continue;
             }
             let s = smooth[idx(u, v)];
+            let ring_bg = background[r.round() as usize];
+            if ring_bg > 0.0 {
+                let e = (s / ring_bg - 1.0).max(0.0);
+                let (cu, cv) = (u as f64 / r, v as f64 / r);
+                txx += e * cu * cu;
+                txy += e * cu * cv;
+                tyy += e * cv * cv;
+            }
             let mut is_max = true;
             'nb: for dv in -1..=1 {
                 for du in -1..=1 {
@@ -366,7 +460,7 @@ pub fn candidates(power: &[f64], n: usize, params: &FftParams) -> Vec<Peak> {
             if !is_max {
                 continue;
             }
-            let bg = ring_median[r.round() as usize];
+            let bg = background[r.round() as usize].max(ray_floor(&smooth, n, u, v));
             if bg <= 0.0 {
                 continue;
             }
@@ -392,12 +486,24 @@ pub fn candidates(power: &[f64], n: usize, params: &FftParams) -> Vec<Peak> {
                 fx: (pu as f64 + du) / n as f64,
                 fy: (pv as f64 + dv) / n as f64,
                 prominence,
+                power: s,
             });
         }
     }
     out.sort_by(|a, b| b.prominence.total_cmp(&a.prominence));
-    out.truncate(16);
-    out
+    out.truncate(MAX_CANDIDATES);
+    let trace = txx + tyy;
+    let orient = if trace > 0.0 {
+        let phi = 0.5 * (2.0 * txy).atan2(txx - tyy);
+        Orientation {
+            // (cos phi, sin phi) is in image axes (y down); flip y.
+            dir_deg: (-phi.to_degrees()).rem_euclid(180.0),
+            anisotropy: ((txx - tyy).powi(2) + 4.0 * txy * txy).sqrt() / trace,
+        }
+    } else {
+        isotropic
+    };
+    (out, orient)
 }
 
 /// Robust aggregate of tiles: quality-weighted median; tiles further than
@@ -422,7 +528,7 @@ fn aggregate(mut tiles: Vec<TileResult>, n: usize, params: &FftParams) -> FftOut
         );
     }
     let vals: Vec<f64> = reliable.iter().map(|&i| tiles[i].spacing_px).collect();
-    let wts: Vec<f64> = reliable.iter().map(|&i| tiles[i].quality).collect();
+    let wts: Vec<f64> = reliable.iter().map(|&i| tiles[i].quality.ln()).collect();
     let m0 = stats::weighted_median(&vals, &wts).unwrap_or(f64::NAN);
     let s0 = stats::mad_sd(&vals, m0).unwrap_or(0.0);
     let limit = (3.0 * s0).max(1e-9 * m0);
@@ -435,7 +541,7 @@ fn aggregate(mut tiles: Vec<TileResult>, n: usize, params: &FftParams) -> FftOut
         tiles[i].used = true;
     }
     let kv: Vec<f64> = kept.iter().map(|&i| tiles[i].spacing_px).collect();
-    let kw: Vec<f64> = kept.iter().map(|&i| tiles[i].quality).collect();
+    let kw: Vec<f64> = kept.iter().map(|&i| tiles[i].quality.ln()).collect();
     let value = stats::weighted_median(&kv, &kw);
     let spread = value.and_then(|m| stats::mad_sd(&kv, m));
     let overlap = 0.25; // (stride / n)^2 with stride = n / 2
