@@ -286,11 +286,21 @@ fn synth_render_speed_1024() {
     }
 }
 
+/// 3x nearest-neighbour zoom of a central 260x200 crop.
+fn write_zoom(path: &std::path::Path, img: &Gray16) {
+    let crop = image::imageops::crop_imm(img, 250, 200, 260, 200).to_image();
+    let zoom = image::imageops::resize(&crop, 780, 600, image::imageops::FilterType::Nearest);
+    write_image(path, &zoom, BitDepth::Eight).expect("write zoom");
+}
+
 /// Writes example images for eyeballing; run with
 /// `SYNTH_EXAMPLES_DIR=/some/dir cargo test --release synth_examples -- --ignored`.
 #[test]
 #[ignore]
 fn synth_examples() {
+    if let Ok(set) = std::env::var("SYNTH_SET_DIR") {
+        write_set(std::path::Path::new(&set), 1, 12).expect("write set");
+    }
     let Ok(dir) = std::env::var("SYNTH_EXAMPLES_DIR") else {
         return;
     };
@@ -316,11 +326,13 @@ fn synth_examples() {
     });
     let (img, _) = render(&spec).expect("render");
     write_image(&dir.join("columnar_etched.png"), &img, BitDepth::Eight).expect("write");
+    write_zoom(&dir.join("zoom_columnar_etched.png"), &img);
     spec.morphology = Morphology::Equiaxed;
     spec.primary_spacing_px = 90.0;
     spec.seed = 5;
     let (img, _) = render(&spec).expect("render");
     write_image(&dir.join("equiaxed_etched.png"), &img, BitDepth::Eight).expect("write");
+    write_zoom(&dir.join("zoom_equiaxed_etched.png"), &img);
     spec.style = Style::Clean;
     spec.morphology = Morphology::Columnar;
     spec.primary_spacing_px = 60.0;

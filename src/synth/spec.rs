@@ -99,12 +99,13 @@ pub fn random_spec(rng: &mut impl Rng, index: usize) -> FieldSpec {
     let width: u32 = rng.random_range(384..=1024);
     let height: u32 = rng.random_range(384..=1024);
     let min_side = width.min(height) as f64;
-    let sdas_hi = (min_side / 8.0).min(80.0);
-    let sdas_px = q((rng.random_range(6f64.ln()..sdas_hi.ln())).exp(), 4);
     let ratio = match morphology {
         Morphology::Columnar => rng.random_range(3.0..5.5),
-        Morphology::Equiaxed => rng.random_range(4.0..7.0),
+        Morphology::Equiaxed => rng.random_range(5.0..8.0),
     };
+    // at least ~8 arm spacings and ~2 grains / 2.5 trunks across the short side
+    let sdas_hi = (min_side / 8.0).min(min_side / (2.2 * ratio)).min(80.0);
+    let sdas_px = q((rng.random_range(6f64.ln()..sdas_hi.ln())).exp(), 4);
     let sdas_um: f64 = (rng.random_range(5f64.ln()..120f64.ln())).exp();
     let um_per_px = q((sdas_um / sdas_px).clamp(0.05, 10.0), 6);
     let blur_sigma_px = if rng.random_bool(0.3) {
