@@ -111,21 +111,24 @@ fn dominant_period(profile: &[f64], min_period: f64) -> f64 {
 
 #[test]
 fn synth_projection_recovers_recorded_spacing() {
-    for &sdas in &[10.0, 17.0] {
-        for &angle in &[0.0, 30.0, 90.0, 137.0] {
-            let spec = clean_columnar(angle, sdas, 11 + angle as u64);
-            let (img, truth) = render(&spec).expect("render");
-            assert_eq!(truth.primary_angle_deg, Some(angle));
-            let profile = along_trunk_profile(&img, angle);
-            let period = dominant_period(&profile, 3.0);
-            // independent check: projection of the drawn field along the trunk
-            // recovers the recorded spacing (common practice, no single source)
-            let rel = (period - truth.sdas_px).abs() / truth.sdas_px;
-            assert!(
-                rel < 0.02,
-                "angle {angle} sdas {sdas}: period {period:.3} vs truth {:.3}",
-                truth.sdas_px
-            );
+    for style in [Style::Clean, Style::Etched] {
+        for sdas in [10.0, 17.0] {
+            for angle in [0.0, 30.0, 90.0, 137.0] {
+                let mut spec = clean_columnar(angle, sdas, 11 + angle as u64);
+                spec.style = style;
+                let (img, truth) = render(&spec).expect("render");
+                assert_eq!(truth.primary_angle_deg, Some(angle));
+                let profile = along_trunk_profile(&img, angle);
+                let period = dominant_period(&profile, 3.0);
+                // independent check: projection of the drawn field along the trunk
+                // recovers the recorded spacing (common practice, no single source)
+                let rel = (period - truth.sdas_px).abs() / truth.sdas_px;
+                assert!(
+                    rel < 0.02,
+                    "{style:?} angle {angle} sdas {sdas}: period {period:.3} vs truth {:.3}",
+                    truth.sdas_px
+                );
+            }
         }
     }
 }
@@ -267,6 +270,37 @@ fn synth_write_set_is_deterministic_and_parses_back() {
 }
 
 #[test]
+fn synth_write_image_depths_round_trip() {
+    let mut spec = clean_columnar(10.0, 8.0, 3);
+    spec.width = 96;
+    spec.height = 64;
+    spec.noise_sd = 0.05;
+    let (img, _) = render(&spec).expect("render");
+    let dir = unique_dir("img");
+    std::fs::create_dir_all(&dir).expect("mkdir");
+    for (name, depth) in [
+        ("a.png", BitDepth::Sixteen),
+        ("a.tif", BitDepth::Sixteen),
+        ("b.png", BitDepth::Eight),
+    ] {
+        let path = dir.join(name);
+        write_image(&path, &img, depth).expect("write");
+        let back = image::open(&path).expect("open");
+        match depth {
+            BitDepth::Sixteen => assert_eq!(back.into_luma16().as_raw(), img.as_raw(), "{name}"),
+            BitDepth::Eight => {
+                let b8 = back.into_luma8();
+                for (a, b) in img.as_raw().iter().zip(b8.as_raw()) {
+                    assert!((*a as f64 / 257.0 - *b as f64).abs() <= 0.5 + 1e-9);
+                }
+            }
+        }
+    }
+    assert!(write_image(&dir.join("c.jpg"), &img, BitDepth::Eight).is_err());
+    let _ = std::fs::remove_dir_all(&dir);
+}
+
+#[test]
 fn synth_render_speed_1024() {
     let mut spec = clean_columnar(33.0, 9.0, 1);
     spec.width = 1024;
@@ -286,11 +320,21 @@ fn synth_render_speed_1024() {
     }
 }
 
+/// 3x nearest-neighbour zoom of a central 260x200 crop.
+fn write_zoom(path: &std::path::Path, img: &Gray16) {
+    let crop = image::imageops::crop_imm(img, 250, 200, 260, 200).to_image();
+    let zoom = image::imageops::resize(&crop, 780, 600, image::imageops::FilterType::Nearest);
+    write_image(path, &zoom, BitDepth::Eight).expect("write zoom");
+}
+
 /// Writes example images for eyeballing; run with
 /// `SYNTH_EXAMPLES_DIR=/some/dir cargo test --release synth_examples -- --ignored`.
 #[test]
 #[ignore]
 fn synth_examples() {
+    if let Ok(set) = std::env::var("SYNTH_SET_DIR") {
+        write_set(std::path::Path::new(&set), 1, 12).expect("write set");
+    }
     let Ok(dir) = std::env::var("SYNTH_EXAMPLES_DIR") else {
         return;
     };
@@ -316,11 +360,13 @@ fn synth_examples() {
     });
     let (img, _) = render(&spec).expect("render");
     write_image(&dir.join("columnar_etched.png"), &img, BitDepth::Eight).expect("write");
+    write_zoom(&dir.join("zoom_columnar_etched.png"), &img);
     spec.morphology = Morphology::Equiaxed;
     spec.primary_spacing_px = 90.0;
     spec.seed = 5;
     let (img, _) = render(&spec).expect("render");
     write_image(&dir.join("equiaxed_etched.png"), &img, BitDepth::Eight).expect("write");
+    write_zoom(&dir.join("zoom_equiaxed_etched.png"), &img);
     spec.style = Style::Clean;
     spec.morphology = Morphology::Columnar;
     spec.primary_spacing_px = 60.0;

@@ -62,8 +62,8 @@ pub(crate) enum Shape {
         t0: f32,
         wob: Wobble,
     },
-    /// Ellipse centred at `(cx, cy)`, semi-axis `a` along unit `(dx, dy)`,
-    /// semi-axis `b` across it.
+    /// Ellipse centred at `(cx, cy)`, semi-axis `a` along unit `(dx, dy)`
+    /// (scaled by `sqrt(k)`), semi-axis `b` across it (scaled by `k`).
     Blob {
         cx: f32,
         cy: f32,
@@ -78,6 +78,35 @@ pub(crate) enum Shape {
 pub(crate) struct Item {
     pub shape: Shape,
     pub grain: u32,
+    /// Stems (trunks, primary arms) follow the width scale only as `sqrt(k)`,
+    /// so area tuning mostly acts on the secondary arms.
+    pub stem: bool,
+}
+
+impl Item {
+    pub fn arm(shape: Shape, grain: u32) -> Item {
+        Item {
+            shape,
+            grain,
+            stem: false,
+        }
+    }
+
+    pub fn stem(shape: Shape, grain: u32) -> Item {
+        Item {
+            shape,
+            grain,
+            stem: true,
+        }
+    }
+
+    fn scale(&self, k: f32) -> f32 {
+        if self.stem {
+            k.sqrt()
+        } else {
+            k
+        }
+    }
 }
 
 impl Shape {
@@ -106,7 +135,7 @@ impl Shape {
                 )
             }
             Shape::Blob { cx, cy, a, b, .. } => {
-                let m = a.max(b) * k + 1.5;
+                let m = (a * k.max(k.sqrt())).max(b * k) + 1.5;
                 (cx - m, cy - m, cx + m, cy + m)
             }
         };
@@ -166,7 +195,8 @@ impl Shape {
                 let ry = py - cy;
                 let u = rx * dx + ry * dy;
                 let v = -rx * dy + ry * dx;
-                let aa = (a * k).max(0.25);
+                // width follows k, length only sqrt(k): rows of blobs stay rows
+                let aa = (a * k.sqrt()).max(0.25);
                 let bb = (b * k).max(0.25);
                 let e = ((u / aa).powi(2) + (v / bb).powi(2)).sqrt();
                 if e < 1e-6 {
@@ -195,8 +225,10 @@ pub(crate) fn rasterize(
     clip: Option<&[u32]>,
 ) -> (Vec<f32>, Vec<u32>) {
     let nbands = h.div_ceil(BAND);
-    let boxes: Vec<Option<(usize, usize, usize, usize)>> =
-        items.iter().map(|it| it.shape.bbox(k, w, h)).collect();
+    let boxes: Vec<Option<(usize, usize, usize, usize)>> = items
+        .iter()
+        .map(|it| it.shape.bbox(it.scale(k), w, h))
+        .collect();
     let mut buckets: Vec<Vec<u32>> = vec![Vec::new(); nbands];
     for (i, bb) in boxes.iter().enumerate() {
         if let Some((_, y0, _, y1)) = bb {
@@ -220,6 +252,7 @@ pub(crate) fn rasterize(
                     continue;
                 };
                 let item = &items[i];
+                let ki = item.scale(k);
                 let ya = y0.max(ys);
                 let yb = y1.min(ys + rows - 1);
                 for y in ya..=yb {
@@ -230,7 +263,7 @@ pub(crate) fn rasterize(
                                 continue;
                             }
                         }
-                        let d = item.shape.sdf(x as f32, y as f32, k);
+                        let d = item.shape.sdf(x as f32, y as f32, ki);
                         if d >= 0.5 {
                             continue;
                         }
@@ -253,8 +286,8 @@ mod tests {
 
     #[test]
     fn synth_disc_area_matches_pi_r2() {
-        let items = [Item {
-            shape: Shape::Blob {
+        let items = [Item::arm(
+            Shape::Blob {
                 cx: 50.3,
                 cy: 49.6,
                 dx: 1.0,
@@ -262,8 +295,8 @@ mod tests {
                 a: 20.0,
                 b: 20.0,
             },
-            grain: 0,
-        }];
+            0,
+        )];
         let (ph, _) = rasterize(&items, 1.0, 100, 100, None);
         let area: f64 = ph.iter().map(|&v| v as f64).sum();
         let expect = std::f64::consts::PI * 400.0;
@@ -272,8 +305,8 @@ mod tests {
 
     #[test]
     fn synth_capsule_area() {
-        let items = [Item {
-            shape: Shape::Arm {
+        let items = [Item::stem(
+            Shape::Arm {
                 ax: 20.0,
                 ay: 50.0,
                 dx: 0.6,
@@ -284,8 +317,8 @@ mod tests {
                 t0: 0.0,
                 wob: Wobble::NONE,
             },
-            grain: 0,
-        }];
+            0,
+        )];
         let (ph, _) = rasterize(&items, 1.0, 120, 120, None);
         let area: f64 = ph.iter().map(|&v| v as f64).sum();
         let expect = 30.0 * 10.0 + std::f64::consts::PI * 25.0;

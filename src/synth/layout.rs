@@ -73,14 +73,32 @@ fn wobble<R: Rng + ?Sized>(rng: &mut R, ctx: &Ctx, strength: f64) -> Wobble {
     }
 }
 
+/// Slow width and centre-line undulation of a stem (trunk or primary arm).
+fn stem_wobble<R: Rng + ?Sized>(rng: &mut R, ctx: &Ctx) -> Wobble {
+    if !ctx.etched {
+        return Wobble::NONE;
+    }
+    let s = ctx.sdas;
+    Wobble {
+        w_amp: rng.random_range(0.12..0.25) as f32,
+        w_k1: (TAU / (s * rng.random_range(2.5..6.0))) as f32,
+        w_p1: rng.random_range(0.0..TAU) as f32,
+        w_k2: (TAU / (s * rng.random_range(0.8..1.6))) as f32,
+        w_p2: rng.random_range(0.0..TAU) as f32,
+        c_amp: (s * rng.random_range(0.08..0.22)) as f32,
+        c_k: (TAU / (s * rng.random_range(5.0..14.0))) as f32,
+        c_p: rng.random_range(0.0..TAU) as f32,
+    }
+}
+
 fn pick_cut<R: Rng + ?Sized>(rng: &mut R, etched: bool) -> Cut {
     if !etched {
         return Cut::Whole;
     }
     let r: f64 = rng.random();
-    if r < 0.42 {
+    if r < 0.45 {
         Cut::Whole
-    } else if r < 0.77 {
+    } else if r < 0.75 {
         Cut::Blobs
     } else {
         Cut::Partial(rng.random_range(0.25..0.7))
@@ -144,26 +162,26 @@ fn emit_arm<R: Rng + ?Sized>(items: &mut Vec<Item>, rng: &mut R, ctx: &Ctx, a: &
     if cont_len > 0.0 {
         let r_end = a.r0 + (a.r1 - a.r0) * (cont_len / a.len);
         let wob = wobble(rng, ctx, 1.0);
-        items.push(Item {
-            shape: capsule(a.x, a.y, a.dx, a.dy, cont_len, a.r0, r_end, 0.0, wob),
-            grain: a.grain,
-        });
+        items.push(Item::arm(
+            capsule(a.x, a.y, a.dx, a.dy, cont_len, a.r0, r_end, 0.0, wob),
+            a.grain,
+        ));
     }
     let rest = a.len - blob_from;
     if rest <= 0.25 * ctx.sdas {
         return;
     }
-    let nb = ((rest / (ctx.sdas * rng.random_range(0.9..1.6))).round() as usize).max(1);
+    let nb = ((rest / (ctx.sdas * rng.random_range(1.1..2.0))).round() as usize).max(1);
     let seg = rest / nb as f64;
     for j in 0..nb {
         let t = blob_from + (j as f64 + 0.5 + rng.random_range(-0.12..0.12)) * seg;
         let frac = (t / a.len).clamp(0.0, 1.0);
         let r = a.r0 + (a.r1 - a.r0) * frac;
-        let b = r * rng.random_range(0.85..1.35);
-        let along = (0.5 * seg * rng.random_range(0.55..0.95)).max(0.75 * b);
+        let b = r * rng.random_range(1.0..1.45);
+        let along = (0.5 * seg * rng.random_range(0.72..1.0)).max(0.8 * b);
         let (bdx, bdy) = rotate(a.dx, a.dy, rng.random_range(-0.25..0.25));
-        items.push(Item {
-            shape: Shape::Blob {
+        items.push(Item::arm(
+            Shape::Blob {
                 cx: (a.x + a.dx * t) as f32,
                 cy: (a.y + a.dy * t) as f32,
                 dx: bdx as f32,
@@ -171,16 +189,25 @@ fn emit_arm<R: Rng + ?Sized>(items: &mut Vec<Item>, rng: &mut R, ctx: &Ctx, a: &
                 a: along as f32,
                 b: b as f32,
             },
-            grain: a.grain,
-        });
+            a.grain,
+        ));
     }
 }
 
 /// Secondary arm radii (root, tip) for the style.
 fn arm_radii<R: Rng + ?Sized>(rng: &mut R, ctx: &Ctx) -> (f64, f64) {
     if ctx.etched {
-        let r0 = ctx.sdas * rng.random_range(0.2..0.32);
-        (r0, r0 * rng.random_range(0.7..1.1))
+        // coarsening: some arms grew at the expense of thinner neighbours
+        let c: f64 = rng.random();
+        let coarsen = if c < 0.15 {
+            rng.random_range(1.15..1.35)
+        } else if c < 0.27 {
+            rng.random_range(0.65..0.85)
+        } else {
+            1.0
+        };
+        let r0 = ctx.sdas * rng.random_range(0.23..0.33) * coarsen;
+        (r0, r0 * rng.random_range(0.75..1.15))
     } else {
         let r0 = ctx.sdas * rng.random_range(0.225..0.3);
         (r0, r0 * rng.random_range(0.8..0.95))
@@ -203,6 +230,7 @@ fn arms_along<R: Rng + ?Sized>(
     cuts: [Cut; 2],
     grain: u32,
     len_of: &dyn Fn(f64, &mut R) -> f64,
+    fit: &dyn Fn(f64, f64, f64, f64, f64, f64) -> f64,
 ) {
     let (nx, ny) = (-uy, ux);
     let wobble_rad = if ctx.etched { 8f64 } else { 4f64 }.to_radians();
@@ -215,6 +243,11 @@ fn arms_along<R: Rng + ?Sized>(
             let ang = rng.random_range(-1.0..1.0) * wobble_rad;
             let (dx, dy) = rotate(nx * sg, ny * sg, ang);
             let (r0, r1) = arm_radii(rng, ctx);
+            let len = if absent {
+                len
+            } else {
+                fit(rx, ry, dx, dy, len, r1)
+            };
             if absent || len < 0.4 * ctx.sdas {
                 prev[side] = None;
                 continue;
@@ -245,15 +278,15 @@ fn arms_along<R: Rng + ?Sized>(
             // just outside the stem.
             if ctx.etched && cuts[side] != Cut::Blobs {
                 if let Some((px, py)) = prev[side] {
-                    if rng.random_bool(0.3) {
-                        let off = stem_r + ctx.sdas * rng.random_range(0.1..0.3);
+                    if rng.random_bool(0.2) {
+                        let off = stem_r + ctx.sdas * rng.random_range(0.05..0.45);
                         let (ox, oy) = (nx * sg * off, ny * sg * off);
                         let (ddx, ddy) = (rx - px, ry - py);
                         let l = ddx.hypot(ddy);
                         if l > 1e-6 {
-                            let r = ctx.sdas * rng.random_range(0.14..0.22);
-                            items.push(Item {
-                                shape: capsule(
+                            let r = ctx.sdas * rng.random_range(0.12..0.2);
+                            items.push(Item::arm(
+                                capsule(
                                     px + ox,
                                     py + oy,
                                     ddx / l,
@@ -265,7 +298,7 @@ fn arms_along<R: Rng + ?Sized>(
                                     Wobble::NONE,
                                 ),
                                 grain,
-                            });
+                            ));
                         }
                     }
                 }
@@ -307,16 +340,16 @@ pub(crate) fn columnar<R: Rng + ?Sized>(spec: &FieldSpec, rng: &mut R) -> Layout
         let both_cut = cuts[0] == Cut::Blobs && cuts[1] == Cut::Blobs;
         let trunk_visible = !both_cut || rng.random_bool(0.5);
         if trunk_visible {
-            let wob = wobble(rng, &ctx, 0.6);
+            let wob = stem_wobble(rng, &ctx);
             let seg = (4.0 * sdas).max(48.0);
             let mut s = -r_ext;
             while s < r_ext {
                 let (ax, ay) = (bx + ux * s, by + uy * s);
                 if ctx.visible(ax, ay, ax + ux * seg, ay + uy * seg, 2.0 * rt + 2.0) {
-                    items.push(Item {
-                        shape: capsule(ax, ay, ux, uy, seg, rt, rt, s + r_ext, wob),
+                    items.push(Item::stem(
+                        capsule(ax, ay, ux, uy, seg, rt, rt, s + r_ext, wob),
                         grain,
-                    });
+                    ));
                 }
                 s += seg;
             }
@@ -349,6 +382,7 @@ pub(crate) fn columnar<R: Rng + ?Sized>(spec: &FieldSpec, rng: &mut R) -> Layout
             cuts,
             grain,
             &len_of,
+            &|_, _, _, _, len, _| len,
         );
 
         left_in_grain -= 1;
@@ -391,34 +425,45 @@ pub(crate) fn equiaxed<R: Rng + ?Sized>(spec: &FieldSpec, rng: &mut R) -> Layout
         }
     }
 
-    // Voronoi grain map (nearest nucleus; ties go to the lower id).
-    let mut clip = vec![0u32; w * h];
-    clip.par_chunks_mut(w).enumerate().for_each(|(y, row)| {
-        let yf = y as f64;
+    // Nearest nucleus (ties go to the lower id); the nucleus of cell (i, j)
+    // is within 0.4 g of its cell centre, so a 5x5 search is exhaustive.
+    let nearest = |xf: f64, yf: f64| -> u32 {
+        let ci = (xf / g).floor() as i64 + 1;
         let cj = (yf / g).floor() as i64 + 1;
-        for (x, out) in row.iter_mut().enumerate() {
-            let xf = x as f64;
-            let ci = (xf / g).floor() as i64 + 1;
-            let mut best = (f64::INFINITY, 0u32);
-            for j in (cj - 2).max(0)..=(cj + 2).min(rows as i64 - 1) {
-                for i in (ci - 2).max(0)..=(ci + 2).min(cols as i64 - 1) {
-                    let id = j as usize * cols + i as usize;
-                    let (nx, ny) = nuclei[id];
-                    let d = (nx - xf).powi(2) + (ny - yf).powi(2);
-                    if d < best.0 {
-                        best = (d, id as u32);
-                    }
+        let mut best = (f64::INFINITY, 0u32);
+        for j in (cj - 2).max(0)..=(cj + 2).min(rows as i64 - 1) {
+            for i in (ci - 2).max(0)..=(ci + 2).min(cols as i64 - 1) {
+                let id = j as usize * cols + i as usize;
+                let (nx, ny) = nuclei[id];
+                let d = (nx - xf).powi(2) + (ny - yf).powi(2);
+                if d < best.0 {
+                    best = (d, id as u32);
                 }
             }
-            *out = best.1;
+        }
+        best.1
+    };
+    // Grain map: shapes only paint pixels of their own grain.
+    let mut clip = vec![0u32; w * h];
+    clip.par_chunks_mut(w).enumerate().for_each(|(y, row)| {
+        for (x, out) in row.iter_mut().enumerate() {
+            *out = nearest(x as f64, y as f64);
         }
     });
-    let in_grain = |x: f64, y: f64, id: u32| -> bool {
-        if !ctx.inside(x, y) {
-            return false;
+    let in_grain = |x: f64, y: f64, id: u32| -> bool { ctx.inside(x, y) && nearest(x, y) == id };
+    // Impingement: shorten an arm so its rounded tip stops short of the grain
+    // boundary instead of being sliced by it.
+    let fit_in = |id: u32, x: f64, y: f64, dx: f64, dy: f64, len: f64, r_tip: f64| -> f64 {
+        let gap = 0.6 * r_tip;
+        let reach = len + gap;
+        let mut t = 0.0;
+        while t <= reach {
+            if nearest(x + dx * t, y + dy * t) != id {
+                return (t - gap).max(0.0).min(len);
+            }
+            t += 1.0;
         }
-        let (xi, yi) = (x.round() as usize, y.round() as usize);
-        clip[yi * w + xi] == id
+        len
     };
 
     let mut items = Vec::new();
@@ -431,8 +476,8 @@ pub(crate) fn equiaxed<R: Rng + ?Sized>(spec: &FieldSpec, rng: &mut R) -> Layout
         let phi = rng.random_range(0.0..FRAC_PI_2);
         if ctx.etched {
             let r = sdas * rng.random_range(0.45..0.65);
-            items.push(Item {
-                shape: Shape::Blob {
+            items.push(Item::stem(
+                Shape::Blob {
                     cx: gx as f32,
                     cy: gy as f32,
                     dx: 1.0,
@@ -440,23 +485,31 @@ pub(crate) fn equiaxed<R: Rng + ?Sized>(spec: &FieldSpec, rng: &mut R) -> Layout
                     a: r as f32,
                     b: r as f32,
                 },
-                grain: id,
-            });
+                id,
+            ));
         }
         for k in 0..4 {
             let (ux, uy) = (phi + k as f64 * FRAC_PI_2).sin_cos();
             let (ux, uy) = (uy, ux);
-            let lp = g * rng.random_range(0.6..0.9);
             let rp = if ctx.etched {
                 sdas * rng.random_range(0.3..0.42)
             } else {
                 sdas * rng.random_range(0.2..0.28)
             };
-            let wob = wobble(rng, &ctx, 0.6);
-            items.push(Item {
-                shape: capsule(gx, gy, ux, uy, lp, rp, rp * 0.65, 0.0, wob),
-                grain: id,
-            });
+            let lp = fit_in(
+                id,
+                gx,
+                gy,
+                ux,
+                uy,
+                g * rng.random_range(0.6..0.9),
+                rp * 0.65,
+            );
+            let wob = stem_wobble(rng, &ctx);
+            items.push(Item::stem(
+                capsule(gx, gy, ux, uy, lp, rp, rp * 0.65, 0.0, wob),
+                id,
+            ));
             let cuts = [pick_cut(rng, ctx.etched), pick_cut(rng, ctx.etched)];
             let mut pos = Vec::new();
             let mut t = rp + sdas * rng.random_range(0.3..0.7);
@@ -471,10 +524,22 @@ pub(crate) fn equiaxed<R: Rng + ?Sized>(spec: &FieldSpec, rng: &mut R) -> Layout
                     spacings.push(pair[1] - pair[0]);
                 }
             }
+            // Envelope: arms reach towards the quadrant diagonal (where the
+            // neighbouring primary arm's secondaries come from) and, in the
+            // clean style, shorten towards the primary tip.
+            let etched = ctx.etched;
             let len_of = move |t: f64, r: &mut R| {
-                let diag = t * r.random_range(0.8..0.95);
-                let tip = (lp - t) * r.random_range(1.0..1.5) + 0.6 * sdas;
-                diag.min(tip).min(0.55 * g)
+                if etched {
+                    // packed grains: arms grow until they impinge (the grain
+                    // boundary trims them in `fit_in`)
+                    let diag = t * r.random_range(0.8..0.97);
+                    let tip = (lp - t) * r.random_range(2.0..4.0) + 1.5 * sdas;
+                    diag.min(tip).min(0.9 * g)
+                } else {
+                    let diag = t * r.random_range(0.6..0.92);
+                    let tip = (lp - t) * r.random_range(1.0..1.5) + 0.6 * sdas;
+                    diag.min(tip).min(0.55 * g)
+                }
             };
             arms_along(
                 &mut items,
@@ -488,6 +553,7 @@ pub(crate) fn equiaxed<R: Rng + ?Sized>(spec: &FieldSpec, rng: &mut R) -> Layout
                 cuts,
                 id,
                 &len_of,
+                &|x, y, dx, dy, len, r| fit_in(id, x, y, dx, dy, len, r),
             );
         }
     }

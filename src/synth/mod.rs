@@ -207,7 +207,7 @@ pub fn render(spec: &FieldSpec) -> Result<(Gray16, Truth), SynthError> {
     let excluded = bar.as_ref().map(|b| b.overlay_rect());
     let clip = lay.clip.as_deref();
     let (phase, owner, fraction) = if etched {
-        let target = rng.random_range(0.60..0.70);
+        let target = rng.random_range(0.58..0.68);
         let mut k = 1.0f32;
         let mut best: Option<(Vec<f32>, Vec<u32>, f64)> = None;
         for _ in 0..10 {

@@ -51,7 +51,7 @@ impl Looks {
             dendrite,
             eutectic,
             grain_amp: if etched {
-                rng.random_range(0.04..0.08)
+                rng.random_range(0.05..0.09)
             } else {
                 0.0
             },

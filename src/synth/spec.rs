@@ -3,12 +3,23 @@
 use super::{q, Corner, FieldSpec, Morphology, Polarity, ScaleBarSpec, Style, SynthError};
 use rand::Rng;
 
-/// Reject specs that cannot be rendered meaningfully.
+const MAX_SIDE: u32 = 8192;
+const MAX_PIXELS: u64 = 8192 * 4096;
+const MAX_ARMS: f64 = 4.0e6;
+
+/// Reject specs that cannot be rendered meaningfully (or would need
+/// unreasonable memory).
 pub(crate) fn validate(s: &FieldSpec) -> Result<(), SynthError> {
     let bad = |m: String| Err(SynthError::InvalidSpec(m));
-    if !(16..=16_384).contains(&s.width) || !(16..=16_384).contains(&s.height) {
+    if !(16..=MAX_SIDE).contains(&s.width) || !(16..=MAX_SIDE).contains(&s.height) {
         return bad(format!(
-            "image size {}x{} outside 16..=16384",
+            "image size {}x{} outside 16..={MAX_SIDE}",
+            s.width, s.height
+        ));
+    }
+    if s.width as u64 * s.height as u64 > MAX_PIXELS {
+        return bad(format!(
+            "image of {}x{} pixels exceeds the {MAX_PIXELS} pixel limit",
             s.width, s.height
         ));
     }
@@ -43,6 +54,14 @@ pub(crate) fn validate(s: &FieldSpec) -> Result<(), SynthError> {
         return bad(format!(
             "primary_spacing_px {} must be 2..=20 times sdas_px {}",
             s.primary_spacing_px, s.sdas_px
+        ));
+    }
+    // Rough number of secondary arms (two per lattice position per stem);
+    // bounds memory for shape lists.
+    let arms = 2.0 * s.width as f64 * s.height as f64 / (s.sdas_px * s.primary_spacing_px) * 2.0;
+    if arms > MAX_ARMS {
+        return bad(format!(
+            "about {arms:.0} arms would be drawn (limit {MAX_ARMS}); increase sdas_px or primary_spacing_px"
         ));
     }
     let ranges = [
@@ -99,12 +118,13 @@ pub fn random_spec(rng: &mut impl Rng, index: usize) -> FieldSpec {
     let width: u32 = rng.random_range(384..=1024);
     let height: u32 = rng.random_range(384..=1024);
     let min_side = width.min(height) as f64;
-    let sdas_hi = (min_side / 8.0).min(80.0);
-    let sdas_px = q((rng.random_range(6f64.ln()..sdas_hi.ln())).exp(), 4);
     let ratio = match morphology {
         Morphology::Columnar => rng.random_range(3.0..5.5),
-        Morphology::Equiaxed => rng.random_range(4.0..7.0),
+        Morphology::Equiaxed => rng.random_range(5.0..8.0),
     };
+    // at least ~8 arm spacings and ~2 grains / 2.5 trunks across the short side
+    let sdas_hi = (min_side / 8.0).min(min_side / (2.2 * ratio)).min(80.0);
+    let sdas_px = q((rng.random_range(6f64.ln()..sdas_hi.ln())).exp(), 4);
     let sdas_um: f64 = (rng.random_range(5f64.ln()..120f64.ln())).exp();
     let um_per_px = q((sdas_um / sdas_px).clamp(0.05, 10.0), 6);
     let blur_sigma_px = if rng.random_bool(0.3) {

@@ -91,6 +91,12 @@ fn synth_invalid_specs_are_rejected() {
     let mut s = good.clone();
     s.noise_sd = -1.0;
     cases.push(s);
+    let mut s = good.clone();
+    s.width = 9000;
+    cases.push(s);
+    let mut s = good.clone();
+    (s.width, s.height, s.sdas_px, s.primary_spacing_px) = (8000, 4000, 3.0, 6.0);
+    cases.push(s);
     for c in cases {
         assert!(
             matches!(render(&c), Err(SynthError::InvalidSpec(_))),
