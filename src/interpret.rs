@@ -21,7 +21,9 @@ pub struct PowerLaw {
 impl PowerLaw {
     pub fn new(coefficient: f64, exponent: f64) -> Result<Self, String> {
         if !(coefficient.is_finite() && coefficient > 0.0) {
-            return Err(format!("coefficient {coefficient} must be a positive number"));
+            return Err(format!(
+                "coefficient {coefficient} must be a positive number"
+            ));
         }
         if !(exponent.is_finite() && exponent != 0.0) {
             return Err(format!("exponent {exponent} must be a non-zero number"));
@@ -57,7 +59,12 @@ mod tests {
 
     #[test]
     fn forward_then_inverse_round_trips() {
-        for (c, e) in [(50.0, -1.0 / 3.0), (7.5, 0.39), (97.0, -0.4935), (35.5, -0.31)] {
+        for (c, e) in [
+            (50.0, -1.0 / 3.0),
+            (7.5, 0.39),
+            (97.0, -0.4935),
+            (35.5, -0.31),
+        ] {
             let law = PowerLaw::new(c, e).unwrap();
             for x in [0.01, 0.7, 1.0, 12.0, 3000.0] {
                 let l = law.predict(x).unwrap();

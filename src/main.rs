@@ -77,6 +77,10 @@ struct SynthArgs {
     /// Number of images.
     #[arg(long, default_value_t = 8, value_parser = clap::value_parser!(u32).range(1..=10000))]
     count: u32,
+    /// Render the fields described in this JSON file instead of random ones
+    /// ({"images": [{"file": "a.png", "spec": {...}}]}; see DEVELOPERS.md).
+    #[arg(long, conflicts_with_all = ["seed", "count"])]
+    specs: Option<PathBuf>,
 }
 
 fn parse_positive(s: &str) -> Result<f64, String> {
@@ -145,7 +149,10 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
                     .ci95
                     .map(|[a, b]| format!(" (95% CI {a:.2} to {b:.2})"))
                     .unwrap_or_default();
-                eprintln!("measured {}: SDAS {v:.2} um{ci}, n = {}", img.file, img.sdas_um.n);
+                eprintln!(
+                    "measured {}: SDAS {v:.2} um{ci}, n = {}",
+                    img.file, img.sdas_um.n
+                );
             }
             (None, None) => eprintln!(
                 "no value {}: {}",
@@ -183,7 +190,21 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
 }
 
 fn run_synth(args: SynthArgs) -> ExitCode {
-    match armspace::synth::write_set(&args.outdir, args.seed, args.count as usize) {
+    let result = match &args.specs {
+        None => armspace::synth::write_set(&args.outdir, args.seed, args.count as usize)
+            .map_err(|e| e.to_string()),
+        Some(path) => std::fs::read_to_string(path)
+            .map_err(|e| format!("{}: cannot read: {e}", path.display()))
+            .and_then(|text| {
+                serde_json::from_str::<armspace::synth::SpecFile>(&text)
+                    .map_err(|e| format!("{}: not a valid spec file: {e}", path.display()))
+            })
+            .and_then(|file| {
+                armspace::synth::write_specs(&args.outdir, &file.images, None)
+                    .map_err(|e| format!("{}: {e}", path.display()))
+            }),
+    };
+    match result {
         Ok(truths) => {
             eprintln!(
                 "wrote {} image(s) and truth.json to {}",

@@ -282,7 +282,10 @@ mod tests {
         let p = prepare(&img, None, &PreprocessParams::default());
         for (a, b) in [(200, 304), (201, 297), (250, 330)] {
             let (va, vb) = (p.image.get(a, 32), p.image.get(b, 32));
-            assert!((va - vb).abs() < 0.02 * va.abs().max(1.0), "{a}: {va} vs {b}: {vb}");
+            assert!(
+                (va - vb).abs() < 0.02 * va.abs().max(1.0),
+                "{a}: {va} vs {b}: {vb}"
+            );
         }
     }
 }

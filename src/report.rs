@@ -358,6 +358,9 @@ mod tests {
         assert_eq!(names.len(), 1, "temporary file left behind");
         let missing = dir.path().join("no-such-dir").join("r.json");
         let e = write_atomic(&missing, b"x").unwrap_err().to_string();
-        assert!(e.contains("no-such-dir") && e.contains("does not exist"), "{e}");
+        assert!(
+            e.contains("no-such-dir") && e.contains("does not exist"),
+            "{e}"
+        );
     }
 }

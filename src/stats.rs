@@ -119,7 +119,10 @@ impl Summary {
     }
 
     pub fn ci95(&self) -> [f64; 2] {
-        [self.mean - self.ci95_half_width, self.mean + self.ci95_half_width]
+        [
+            self.mean - self.ci95_half_width,
+            self.mean + self.ci95_half_width,
+        ]
     }
 }
 
@@ -132,7 +135,13 @@ mod tests {
         // Two-sided 95% critical values of Student's t, NIST/SEMATECH
         // e-Handbook of Statistical Methods, section 1.3.6.7.2 (table of
         // upper critical values, column 0.025).
-        for (dof, t) in [(1.0, 12.706), (4.0, 2.776), (9.0, 2.262), (29.0, 2.045), (100.0, 1.984)] {
+        for (dof, t) in [
+            (1.0, 12.706),
+            (4.0, 2.776),
+            (9.0, 2.262),
+            (29.0, 2.045),
+            (100.0, 1.984),
+        ] {
             let q = t_quantile(0.975, dof).unwrap();
             assert!((q - t).abs() < 1e-3, "dof {dof}: {q} vs {t}");
         }
@@ -157,7 +166,10 @@ mod tests {
         assert_eq!(median(&[4.0, 1.0, 3.0, 2.0]), Some(2.5));
         let mut v = [4.0f32, 1.0, 3.0, 2.0];
         assert_eq!(median_in_place(&mut v), 2.5);
-        assert_eq!(weighted_median(&[1.0, 2.0, 3.0], &[1.0, 1.0, 5.0]), Some(3.0));
+        assert_eq!(
+            weighted_median(&[1.0, 2.0, 3.0], &[1.0, 1.0, 5.0]),
+            Some(3.0)
+        );
         assert_eq!(weighted_median(&[1.0, 2.0], &[1.0, 1.0]), Some(1.5));
         assert_eq!(weighted_median(&[], &[]), None);
     }

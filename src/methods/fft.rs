@@ -204,7 +204,12 @@ fn origins(len: usize, n: usize, stride: usize) -> Vec<usize> {
 }
 
 /// Analyses every tile of size n on a grid of about `stride` spacing.
-pub fn analyse_tiles(img: &Prepared, n: usize, stride: usize, params: &FftParams) -> Vec<TileResult> {
+pub fn analyse_tiles(
+    img: &Prepared,
+    n: usize,
+    stride: usize,
+    params: &FftParams,
+) -> Vec<TileResult> {
     let (w, h) = (img.image.width, img.image.height);
     let xs = origins(w, n, stride);
     let ys = origins(h, n, stride);
@@ -247,7 +252,12 @@ fn masked_fraction(img: &Prepared, x0: usize, y0: usize, n: usize) -> f64 {
     let Some(mask) = &img.mask else { return 0.0 };
     let w = img.image.width;
     let count: usize = (y0..y0 + n)
-        .map(|y| mask[y * w + x0..y * w + x0 + n].iter().filter(|m| **m).count())
+        .map(|y| {
+            mask[y * w + x0..y * w + x0 + n]
+                .iter()
+                .filter(|m| **m)
+                .count()
+        })
         .sum();
     count as f64 / (n * n) as f64
 }
@@ -547,11 +557,10 @@ fn aggregate(mut tiles: Vec<TileResult>, n: usize, params: &FftParams) -> FftOut
     let overlap = 0.25; // (stride / n)^2 with stride = n / 2
     let n_eff = (kept.len() as f64 * overlap).max(1.0);
     let ci = match (value, spread) {
-        (Some(m), Some(s)) if n_eff >= 2.0 => stats::t_quantile(0.975, n_eff - 1.0)
-            .map(|t| {
-                let half = t * 1.2533 * s / n_eff.sqrt();
-                [m - half, m + half]
-            }),
+        (Some(m), Some(s)) if n_eff >= 2.0 => stats::t_quantile(0.975, n_eff - 1.0).map(|t| {
+            let half = t * 1.2533 * s / n_eff.sqrt();
+            [m - half, m + half]
+        }),
         _ => None,
     };
     let (mut c, mut s) = (0.0, 0.0);
@@ -628,7 +637,11 @@ mod tests {
             let mut p = Vec::new();
             a.power(&img, n, 0, 0, &mut p);
             let peak = choose_peak(&p, n, &FftParams::default()).unwrap();
-            assert!(axial_difference(peak.dir_deg(), angle) < 1.0, "{angle}: {}", peak.dir_deg());
+            assert!(
+                axial_difference(peak.dir_deg(), angle) < 1.0,
+                "{angle}: {}",
+                peak.dir_deg()
+            );
             assert!((peak.period_px() - 10.0).abs() < 0.1);
         }
     }
@@ -637,18 +650,26 @@ mod tests {
     fn featureless_images_give_no_value() {
         let (w, h) = (256, 256);
         let flat = GrayImage::from_vec(w, h, vec![0.5; w * h]).unwrap();
-        let out = measure(&prepare(&flat, None, &PreprocessParams::default()), &FftParams::default());
+        let out = measure(
+            &prepare(&flat, None, &PreprocessParams::default()),
+            &FftParams::default(),
+        );
         assert!(out.value_px.is_none() && out.reason.is_some());
         // Pseudo-random white noise (a fixed linear congruential sequence) has no period.
         let mut state = 12345u64;
         let noise: Vec<f32> = (0..w * h)
             .map(|_| {
-                state = state.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
+                state = state
+                    .wrapping_mul(6364136223846793005)
+                    .wrapping_add(1442695040888963407);
                 (state >> 40) as f32 / (1u64 << 24) as f32
             })
             .collect();
         let img = GrayImage::from_vec(w, h, noise).unwrap();
-        let out = measure(&prepare(&img, None, &PreprocessParams::default()), &FftParams::default());
+        let out = measure(
+            &prepare(&img, None, &PreprocessParams::default()),
+            &FftParams::default(),
+        );
         assert!(out.value_px.is_none(), "noise gave {:?}", out.value_px);
     }
 }

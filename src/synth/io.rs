@@ -5,7 +5,7 @@ use image::{DynamicImage, ImageBuffer, ImageFormat, Luma};
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 use std::io::{Cursor, Write};
 use std::path::{Path, PathBuf};
 
@@ -90,7 +90,7 @@ pub fn write_image(path: &Path, img: &Gray16, depth: BitDepth) -> Result<(), Syn
 #[derive(Serialize)]
 struct TruthFile<'a> {
     schema: &'a str,
-    seed: u64,
+    seed: Option<u64>,
     images: &'a [Truth],
 }
 
@@ -98,21 +98,65 @@ struct TruthFile<'a> {
 /// `img_NNN.png` (8-bit) or, for every third image, `img_NNN.tif` (16-bit),
 /// plus `truth.json`. Returns the truth records in image order.
 pub fn write_set(outdir: &Path, seed: u64, count: usize) -> Result<Vec<Truth>, SynthError> {
-    std::fs::create_dir_all(outdir).map_err(io_err(outdir))?;
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
-    let specs: Vec<FieldSpec> = (0..count).map(|i| random_spec(&mut rng, i)).collect();
-    let truths: Vec<Truth> = specs
-        .par_iter()
-        .enumerate()
-        .map(|(i, spec)| {
-            let (img, mut truth) = render(spec)?;
-            let (name, depth) = if i % 3 == 2 {
-                (format!("img_{i:03}.tif"), BitDepth::Sixteen)
+    let named: Vec<NamedSpec> = (0..count)
+        .map(|i| NamedSpec {
+            file: if i % 3 == 2 {
+                format!("img_{i:03}.tif")
             } else {
-                (format!("img_{i:03}.png"), BitDepth::Eight)
+                format!("img_{i:03}.png")
+            },
+            spec: random_spec(&mut rng, i),
+        })
+        .collect();
+    write_specs(outdir, &named, Some(seed))
+}
+
+/// One image of a spec file: the file name to write (`.png` is written with
+/// 8-bit samples, `.tif`/`.tiff` with 16-bit) and what to draw.
+#[derive(Serialize, Deserialize, Clone, Debug, PartialEq)]
+pub struct NamedSpec {
+    pub file: String,
+    pub spec: FieldSpec,
+}
+
+/// A spec file: `{"images": [{"file": ..., "spec": {...}}, ...]}`.
+#[derive(Serialize, Deserialize, Clone, Debug, PartialEq)]
+pub struct SpecFile {
+    pub images: Vec<NamedSpec>,
+}
+
+/// Render the given specs into `outdir` with `truth.json` (its "seed" is the
+/// set's seed when there is one, else null).
+pub fn write_specs(
+    outdir: &Path,
+    named: &[NamedSpec],
+    seed: Option<u64>,
+) -> Result<Vec<Truth>, SynthError> {
+    for n in named {
+        let plain = Path::new(&n.file)
+            .file_name()
+            .is_some_and(|f| f == n.file.as_str());
+        if !plain || n.file.starts_with('.') {
+            return Err(SynthError::InvalidSpec(format!(
+                "file name '{}' must be a plain, visible file name",
+                n.file
+            )));
+        }
+    }
+    std::fs::create_dir_all(outdir).map_err(io_err(outdir))?;
+    let truths: Vec<Truth> = named
+        .par_iter()
+        .map(|n| {
+            let (img, mut truth) = render(&n.spec)?;
+            let lower = n.file.to_ascii_lowercase();
+            let depth = if lower.ends_with(".png") {
+                BitDepth::Eight
+            } else {
+                BitDepth::Sixteen
             };
-            write_image(&outdir.join(&name), &img, depth)?;
-            truth.file = name;
+            write_image(&outdir.join(&n.file), &img, depth)?;
+            truth.file = n.file.clone();
             Ok(truth)
         })
         .collect::<Result<Vec<_>, SynthError>>()?;

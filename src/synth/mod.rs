@@ -28,7 +28,7 @@ use rand_chacha::ChaCha8Rng;
 use serde::{Deserialize, Serialize};
 use std::path::PathBuf;
 
-pub use io::{write_image, write_set, BitDepth, TRUTH_SCHEMA};
+pub use io::{write_image, write_set, write_specs, BitDepth, NamedSpec, SpecFile, TRUTH_SCHEMA};
 pub use spec::random_spec;
 
 /// 16-bit grey image as produced by [`render`].

@@ -1,0 +1,315 @@
+//! The `measure` command end to end: bad input, exit statuses, the report's
+//! contract, atomic output, and determinism.
+
+mod common;
+use common::*;
+use serde_json::Value;
+
+fn report(run: &Run) -> Value {
+    serde_json::from_str(&run.stdout)
+        .unwrap_or_else(|e| panic!("stdout is not JSON ({e}); stderr: {}", run.stderr))
+}
+
+#[test]
+fn bad_inputs_are_named_and_the_rest_of_the_batch_is_measured() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let good = d.join("good.png");
+    write_comb_png(&good, 256, 256, 16.0);
+    // A truncated PNG: the first half of a valid file.
+    let bytes = std::fs::read(&good).unwrap();
+    std::fs::write(d.join("truncated.png"), &bytes[..bytes.len() / 2]).unwrap();
+    // Text with an image extension.
+    std::fs::write(d.join("notes.png"), b"not an image at all\n").unwrap();
+    // An empty file.
+    std::fs::write(d.join("empty.tif"), b"").unwrap();
+    // A 1x1 image.
+    image::GrayImage::from_pixel(1, 1, image::Luma([128]))
+        .save(d.join("dot.png"))
+        .unwrap();
+    let missing = d.join("no-such-file.png");
+
+    let args: Vec<String> = [
+        "good.png",
+        "truncated.png",
+        "notes.png",
+        "empty.tif",
+        "dot.png",
+    ]
+    .iter()
+    .map(|f| path_str(&d.join(f)))
+    .chain([path_str(&missing)])
+    .collect();
+    let mut argv: Vec<&str> = vec!["measure"];
+    argv.extend(args.iter().map(|s| s.as_str()));
+    argv.extend(["--um-per-px", "0.5"]);
+    let run = armspace(&argv);
+    // Exit status 3: at least one image could not be measured (README).
+    assert_eq!(run.code, 3, "stderr: {}", run.stderr);
+    let rep = report(&run);
+    let images = rep["images"].as_array().unwrap();
+    assert_eq!(images.len(), 6);
+    // Input order is kept.
+    for (img, arg) in images.iter().zip(&args) {
+        assert_eq!(img["file"], arg.as_str());
+    }
+    assert!(images[0]["error"].is_null());
+    assert!(images[0]["sdas_um"]["value"].as_f64().unwrap() > 0.0);
+    let expect = [
+        (1, "damaged or truncated"),
+        (2, "not a supported image"),
+        (3, "empty"),
+        (4, "too small"),
+        (5, "does not exist"),
+    ];
+    for (i, words) in expect {
+        let e = images[i]["error"]
+            .as_str()
+            .unwrap_or_else(|| panic!("image {i} has no error"));
+        assert!(e.contains(words), "image {i}: {e}");
+        assert!(
+            e.contains(args[i].as_str()),
+            "message does not name the file: {e}"
+        );
+        assert!(images[i]["sdas_um"]["value"].is_null());
+        // Every failure is also said on stderr.
+        assert!(run.stderr.contains(e), "stderr lacks: {e}");
+    }
+    assert_eq!(rep["summary"]["failed"], 5);
+    assert_eq!(rep["summary"]["measured"], 1);
+}
+
+#[test]
+fn absurd_calibrations_are_usage_errors() {
+    let dir = tempfile::tempdir().unwrap();
+    let img = dir.path().join("a.png");
+    write_comb_png(&img, 64, 64, 8.0);
+    let p = path_str(&img);
+    for bad in ["0", "-0.4", "abc", "nan", "1e12"] {
+        let run = armspace(&["measure", &p, "--um-per-px", bad]);
+        assert_eq!(run.code, 2, "{bad}: {}", run.stderr);
+        assert!(run.stderr.contains("--um-per-px"), "{bad}: {}", run.stderr);
+        assert!(run.stdout.is_empty());
+    }
+    let run = armspace(&["measure", &p, "--um-per-px", "1", "--max-megapixels", "-3"]);
+    assert_eq!(run.code, 2);
+}
+
+#[test]
+fn images_over_the_pixel_limit_are_refused() {
+    let dir = tempfile::tempdir().unwrap();
+    let img = dir.path().join("big.png");
+    write_comb_png(&img, 300, 200, 10.0);
+    let run = armspace(&[
+        "measure",
+        &path_str(&img),
+        "--um-per-px",
+        "1",
+        "--max-megapixels",
+        "0.05",
+    ]);
+    assert_eq!(run.code, 3);
+    let e = report(&run)["images"][0]["error"]
+        .as_str()
+        .unwrap()
+        .to_string();
+    assert!(
+        e.contains("over the limit") && e.contains("--max-megapixels"),
+        "{e}"
+    );
+}
+
+#[test]
+fn folders_are_walked_sorted_with_hidden_files_ignored_and_others_noted() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    std::fs::create_dir_all(d.join("b/inner")).unwrap();
+    std::fs::create_dir_all(d.join(".hidden")).unwrap();
+    write_comb_png(&d.join("b/inner/z.png"), 96, 96, 12.0);
+    write_comb_png(&d.join("b/a.PNG"), 96, 96, 12.0);
+    write_comb_png(&d.join("c.png"), 96, 96, 12.0);
+    write_comb_png(&d.join(".hidden/x.png"), 96, 96, 12.0);
+    write_comb_png(&d.join(".dotfile.png"), 96, 96, 12.0);
+    std::fs::write(d.join("b/readme.txt"), "lab notes").unwrap();
+    let run = armspace(&["measure", &path_str(d), "--um-per-px", "1"]);
+    let rep = report(&run);
+    let files: Vec<&str> = rep["images"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|i| i["file"].as_str().unwrap())
+        .collect();
+    let rel: Vec<String> = files
+        .iter()
+        .map(|f| {
+            f.trim_start_matches(&path_str(d))
+                .trim_start_matches('/')
+                .to_string()
+        })
+        .collect();
+    assert_eq!(rel, ["b/a.PNG", "b/inner/z.png", "c.png"]);
+    let skipped = rep["skipped"].as_array().unwrap();
+    assert_eq!(skipped.len(), 1);
+    assert!(skipped[0]["file"]
+        .as_str()
+        .unwrap()
+        .ends_with("b/readme.txt"));
+    assert!(skipped[0]["reason"]
+        .as_str()
+        .unwrap()
+        .contains("not an image"));
+}
+
+#[test]
+fn unwritable_output_fails_cleanly_and_leaves_no_file() {
+    let dir = tempfile::tempdir().unwrap();
+    let img = dir.path().join("a.png");
+    write_comb_png(&img, 128, 128, 10.0);
+    let target = dir.path().join("missing-folder").join("report.json");
+    let run = armspace(&[
+        "measure",
+        &path_str(&img),
+        "--um-per-px",
+        "1",
+        "--out",
+        &path_str(&target),
+    ]);
+    assert_eq!(run.code, 1, "{}", run.stderr);
+    assert!(run.stderr.contains("missing-folder"), "{}", run.stderr);
+    assert!(!target.exists());
+    // The output path is an existing folder: cannot be replaced by a file.
+    let run = armspace(&[
+        "measure",
+        &path_str(&img),
+        "--um-per-px",
+        "1",
+        "--out",
+        &path_str(dir.path()),
+    ]);
+    assert_eq!(run.code, 1, "{}", run.stderr);
+    let leftovers: Vec<_> = std::fs::read_dir(dir.path())
+        .unwrap()
+        .filter_map(|e| e.ok())
+        .filter(|e| e.file_name().to_string_lossy().contains(".tmp-"))
+        .collect();
+    assert!(leftovers.is_empty(), "temporary files left: {leftovers:?}");
+}
+
+fn without_timestamp(text: &str) -> String {
+    text.lines()
+        .filter(|l| !l.trim_start().starts_with("\"created_utc\""))
+        .collect::<Vec<_>>()
+        .join("\n")
+}
+
+#[test]
+fn reports_are_identical_across_runs_and_thread_counts() {
+    let demo = path_str(&repo_file("fixtures/demo"));
+    let dir = tempfile::tempdir().unwrap();
+    let outs: Vec<std::path::PathBuf> = (0..3)
+        .map(|i| dir.path().join(format!("r{i}.json")))
+        .collect();
+    let jobs = ["1", "2", "2"];
+    for (out, j) in outs.iter().zip(jobs) {
+        let run = armspace(&[
+            "measure",
+            &demo,
+            "--um-per-px",
+            "1.25",
+            "--jobs",
+            j,
+            "--out",
+            &path_str(out),
+        ]);
+        assert!(run.code == 0 || run.code == 3, "{}", run.stderr);
+    }
+    let texts: Vec<String> = outs
+        .iter()
+        .map(|p| std::fs::read_to_string(p).unwrap())
+        .collect();
+    let a = without_timestamp(&texts[0]);
+    assert!(a.len() > 1000);
+    assert_eq!(a, without_timestamp(&texts[1]), "jobs 1 and jobs 2 differ");
+    assert_eq!(a, without_timestamp(&texts[2]), "two runs differ");
+}
+
+#[test]
+fn the_report_validates_against_its_schema() {
+    let schema: Value = serde_json::from_str(
+        &std::fs::read_to_string(repo_file("schema/report.schema.json")).unwrap(),
+    )
+    .unwrap();
+    let validator = jsonschema::validator_for(&schema).expect("the schema itself is valid");
+    // A report with measured images, failed ones and skipped files.
+    let dir = tempfile::tempdir().unwrap();
+    std::fs::write(dir.path().join("broken.png"), b"\x89PNG\r\n\x1a\n broken").unwrap();
+    let demo = path_str(&repo_file("fixtures/demo"));
+    let broken = path_str(&dir.path().join("broken.png"));
+    let flat = dir.path().join("flat.png");
+    image::GrayImage::from_pixel(128, 128, image::Luma([90]))
+        .save(&flat)
+        .unwrap();
+    let run = armspace(&[
+        "measure",
+        &demo,
+        &broken,
+        &path_str(&flat),
+        "--um-per-px",
+        "1.25",
+    ]);
+    let rep = report(&run);
+    let errors: Vec<String> = validator
+        .iter_errors(&rep)
+        .map(|e| format!("{e} at {}", e.instance_path))
+        .collect();
+    assert!(errors.is_empty(), "schema violations: {errors:#?}");
+    // The flat image has nothing to measure: a null with its reason, not an error.
+    let flat_img = rep["images"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|i| i["file"].as_str().unwrap().ends_with("flat.png"))
+        .unwrap();
+    assert!(flat_img["error"].is_null());
+    assert!(flat_img["sdas_um"]["value"].is_null());
+    assert!(flat_img["sdas_um"]["reason"]
+        .as_str()
+        .unwrap()
+        .contains("no reliable periodicity"));
+    // The caution travels with every report.
+    assert!(rep["caution"]
+        .as_str()
+        .unwrap()
+        .contains("qualified personnel"));
+    // A report that breaks the contract is caught by the schema.
+    let mut bad = rep.clone();
+    bad["images"][0]["sdas_um"]["value"] = Value::String("12".into());
+    assert!(!validator.is_valid(&bad));
+}
+
+#[test]
+fn synth_writes_images_and_truth() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("set");
+    let run = armspace(&["synth", &path_str(&out), "--seed", "3", "--count", "3"]);
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    let truth: Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("truth.json")).unwrap()).unwrap();
+    assert_eq!(truth["images"].as_array().unwrap().len(), 3);
+    // A spec file that names a path outside the folder is refused.
+    let specs = dir.path().join("specs.json");
+    let mut doc: Value = serde_json::from_str(
+        &std::fs::read_to_string(repo_file("fixtures/demo-specs.json")).unwrap(),
+    )
+    .unwrap();
+    doc["images"][0]["file"] = Value::String("../escape.png".into());
+    std::fs::write(&specs, doc.to_string()).unwrap();
+    let run = armspace(&[
+        "synth",
+        &path_str(&dir.path().join("x")),
+        "--specs",
+        &path_str(&specs),
+    ]);
+    assert_eq!(run.code, 1);
+    assert!(run.stderr.contains("plain"), "{}", run.stderr);
+}
