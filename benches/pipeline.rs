@@ -1,0 +1,86 @@
+//! Throughput of the measurement pipeline, in megapixels per second on one
+//! core (the design target is at least 10 MP/s per core end to end).
+//!
+//!     cargo bench --bench pipeline
+//!
+//! Each case renders a synthetic etched micrograph once (src/synth), encodes
+//! it as PNG, and times decode + preprocess + FFT measurement + statistics on
+//! a single-threaded rayon pool. Criterion reports the time per image and the
+//! throughput in elements (pixels) per second.
+
+use armspace::load::{load_bytes, LoadOptions};
+use armspace::methods::fft::{self, FftParams};
+use armspace::preprocess::{prepare, PreprocessParams};
+use armspace::synth::{render, Corner, FieldSpec, Morphology, Polarity, ScaleBarSpec, Style};
+use criterion::{criterion_group, criterion_main, BenchmarkId, Criterion, Throughput};
+use std::io::Cursor;
+use std::path::Path;
+
+fn spec(side: u32, morphology: Morphology, sdas_px: f64) -> FieldSpec {
+    FieldSpec {
+        width: side,
+        height: side,
+        morphology,
+        style: Style::Etched,
+        sdas_px,
+        um_per_px: 0.5,
+        primary_angle_deg: 35.0,
+        primary_spacing_px: 4.0 * sdas_px,
+        spacing_jitter: 0.1,
+        missing_arm_fraction: 0.03,
+        invert: false,
+        noise_sd: 0.02,
+        blur_sigma_px: 0.8,
+        illumination: 0.05,
+        scale_bar: Some(ScaleBarSpec {
+            length_um: 100.0,
+            thickness_px: 6,
+            polarity: Polarity::DarkOnLight,
+            corner: Corner::BottomRight,
+            backing_box: true,
+        }),
+        seed: 11,
+    }
+}
+
+fn png_bytes(s: &FieldSpec) -> Vec<u8> {
+    let (img, _) = render(s).expect("benchmark field renders");
+    let gray8 = image::DynamicImage::ImageLuma16(img).to_luma8();
+    let mut buf = Cursor::new(Vec::new());
+    gray8
+        .write_to(&mut buf, image::ImageFormat::Png)
+        .expect("PNG encodes");
+    buf.into_inner()
+}
+
+fn bench(c: &mut Criterion) {
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(1)
+        .build()
+        .expect("thread pool");
+    let mut group = c.benchmark_group("measure_one_core");
+    group.sample_size(10);
+    for (side, morph, sdas) in [
+        (1024, Morphology::Columnar, 14.0),
+        (2048, Morphology::Columnar, 20.0),
+        (1024, Morphology::Equiaxed, 14.0),
+    ] {
+        let bytes = png_bytes(&spec(side, morph, sdas));
+        group.throughput(Throughput::Elements((side * side) as u64));
+        let id = BenchmarkId::new(format!("{morph:?}").to_lowercase(), format!("{side}px"));
+        group.bench_with_input(id, &bytes, |b, bytes| {
+            b.iter(|| {
+                pool.install(|| {
+                    let l = load_bytes(Path::new("bench.png"), bytes, &LoadOptions::default())
+                        .expect("decodes");
+                    let p = prepare(&l.image, None, &PreprocessParams::default());
+                    fft::measure(&p, &FftParams::default())
+                })
+            })
+        });
+    }
+    group.finish();
+}
+
+criterion_group!(benches, bench);
+criterion_main!(benches);

@@ -1,0 +1,60 @@
+//! Accuracy of `measure` against synthetic micrographs of known SDAS
+//! (src/synth; its truth is checked independently in tests/synth_truth.rs).
+
+use armspace::load::LoadOptions;
+use armspace::methods::fft::FftParams;
+use armspace::pipeline::{measure_file, MeasureOptions, Method};
+use armspace::preprocess::PreprocessParams;
+use armspace::synth::{write_set, Morphology, Truth};
+use armspace::units::UmPerPx;
+
+/// Relative errors (measured / true - 1) of the images of a synthetic set,
+/// with the truth record of each; `None` where no value was given.
+fn relative_errors(seed: u64, count: usize) -> Vec<(Truth, Option<f64>)> {
+    let dir = tempfile::tempdir().unwrap();
+    let truths = write_set(dir.path(), seed, count).unwrap();
+    truths
+        .into_iter()
+        .map(|t| {
+            let opts = MeasureOptions {
+                um_per_px: UmPerPx::new(t.um_per_px).unwrap(),
+                load: LoadOptions::default(),
+                preprocess: PreprocessParams::default(),
+                fft: FftParams::default(),
+                methods: vec![Method::Fft],
+            };
+            let r = measure_file(&dir.path().join(&t.file), &opts);
+            assert!(r.error.is_none(), "{}: {:?}", t.file, r.error);
+            let err = r.sdas.value.map(|v| v.0 / t.sdas_um - 1.0);
+            (t, err)
+        })
+        .collect()
+}
+
+#[test]
+fn columnar_fields_are_within_15_percent() {
+    // The foundation's acceptance figure for a first measurement: every
+    // columnar image of the set (clean and etched, with noise, blur, uneven
+    // illumination, inversion and a scale bar) within 15 % of its truth.
+    let results = relative_errors(2026, 24);
+    let columnar: Vec<&(Truth, Option<f64>)> = results
+        .iter()
+        .filter(|(t, _)| t.morphology == Morphology::Columnar)
+        .collect();
+    assert_eq!(columnar.len(), 12);
+    let mut worst = 0.0f64;
+    for (t, e) in &columnar {
+        let e = e.unwrap_or_else(|| panic!("{}: no value", t.file));
+        eprintln!(
+            "{} {:?} {:?} true {:.2} px: error {:+.2} %",
+            t.file,
+            t.morphology,
+            t.style,
+            t.sdas_px,
+            100.0 * e
+        );
+        worst = worst.max(e.abs());
+        assert!(e.abs() <= 0.15, "{}: {:+.1} %", t.file, 100.0 * e);
+    }
+    eprintln!("columnar worst error {:.2} %", 100.0 * worst);
+}

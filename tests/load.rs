@@ -1,0 +1,127 @@
+//! Loading: formats, bit depths, colour reduction, multi-page TIFF, and the
+//! pixel limit checked from the header before decoding.
+
+mod common;
+use armspace::load::{load, load_bytes, LoadOptions};
+use armspace::Error;
+use common::repo_file;
+use std::path::Path;
+
+#[test]
+fn sixteen_bit_tiff_from_an_outside_writer_keeps_every_level() {
+    // fixtures/loader/ramp16.tif was written by tifffile
+    // (scripts/make_tiff_fixtures.py): value (x * 1021 + y * 37) mod 65536.
+    let l = load(&repo_file("fixtures/loader/ramp16.tif"), &LoadOptions::default()).unwrap();
+    assert_eq!((l.image.width, l.image.height, l.bit_depth), (64, 48, 16));
+    for y in 0..48 {
+        for x in 0..64 {
+            let expected = ((x * 1021 + y * 37) % 65536) as f32;
+            let got = l.image.get(x, y) * 65535.0;
+            assert_eq!(got.round(), expected, "at ({x}, {y})");
+        }
+    }
+    assert!(l.warnings.is_empty());
+}
+
+#[test]
+fn sixteen_bit_round_trip_through_our_own_writer() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("r.tif");
+    // Every 16-bit level that is odd and above 255: lost by any 8-bit path.
+    let img = image::ImageBuffer::<image::Luma<u16>, Vec<u16>>::from_fn(256, 128, |x, y| {
+        image::Luma([(((y * 256 + x) * 2 + 257) % 65536) as u16])
+    });
+    img.save(&path).unwrap();
+    let l = load(&path, &LoadOptions::default()).unwrap();
+    assert_eq!(l.bit_depth, 16);
+    for (i, v) in img.as_raw().iter().enumerate() {
+        assert_eq!((l.image.data[i] * 65535.0).round() as u16, *v);
+    }
+}
+
+#[test]
+fn multi_page_tiff_measures_the_first_page_with_a_warning() {
+    let l = load(&repo_file("fixtures/loader/two_pages16.tif"), &LoadOptions::default()).unwrap();
+    assert_eq!((l.image.data[0] * 65535.0).round(), 1000.0);
+    assert!(l.warnings.iter().any(|w| w.contains("multi-page")), "{:?}", l.warnings);
+}
+
+#[test]
+fn colour_is_reduced_to_bt709_luminance() {
+    // Pure red in a 16-bit RGB TIFF (tifffile): Y = 0.2126 (ITU-R BT.709-6, item 3.2).
+    let l = load(&repo_file("fixtures/loader/rgb16.tif"), &LoadOptions::default()).unwrap();
+    assert_eq!(l.bit_depth, 16);
+    assert!((l.image.data[0] - 0.2126).abs() < 1e-4);
+    // RGBA PNG: alpha is ignored; pure green gives Y = 0.7152.
+    let dir = tempfile::tempdir().unwrap();
+    let p = dir.path().join("g.png");
+    image::RgbaImage::from_pixel(40, 40, image::Rgba([0, 255, 0, 10])).save(&p).unwrap();
+    let l = load(&p, &LoadOptions::default()).unwrap();
+    assert_eq!(l.bit_depth, 8);
+    assert!((l.image.data[0] - 0.7152).abs() < 1e-4);
+}
+
+#[test]
+fn bmp_and_jpeg_load() {
+    let dir = tempfile::tempdir().unwrap();
+    let grey = image::GrayImage::from_fn(64, 40, |x, _| image::Luma([(x * 4) as u8]));
+    let bmp = dir.path().join("a.bmp");
+    let jpg = dir.path().join("a.jpg");
+    image::DynamicImage::ImageLuma8(grey.clone()).to_rgb8().save(&bmp).unwrap();
+    grey.save(&jpg).unwrap();
+    let b = load(&bmp, &LoadOptions::default()).unwrap();
+    assert_eq!((b.image.width, b.image.height), (64, 40));
+    assert!((b.image.get(10, 5) - 40.0 / 255.0).abs() < 1e-3);
+    let j = load(&jpg, &LoadOptions::default()).unwrap();
+    // JPEG is lossy: within a few grey levels.
+    assert!((j.image.get(10, 5) - 40.0 / 255.0).abs() < 6.0 / 255.0);
+}
+
+/// A PNG signature and IHDR chunk claiming a huge image, then an empty IDAT
+/// and IEND: no pixel data.
+fn png_header_only(width: u32, height: u32) -> Vec<u8> {
+    let mut ihdr = Vec::new();
+    ihdr.extend_from_slice(b"IHDR");
+    ihdr.extend_from_slice(&width.to_be_bytes());
+    ihdr.extend_from_slice(&height.to_be_bytes());
+    ihdr.extend_from_slice(&[8, 0, 0, 0, 0]); // 8-bit grey, no interlace
+    let crc = crc32(&ihdr);
+    let mut out = b"\x89PNG\r\n\x1a\n".to_vec();
+    out.extend_from_slice(&13u32.to_be_bytes());
+    out.extend_from_slice(&ihdr);
+    out.extend_from_slice(&crc.to_be_bytes());
+    for name in [b"IDAT", b"IEND"] {
+        out.extend_from_slice(&0u32.to_be_bytes());
+        out.extend_from_slice(name);
+        out.extend_from_slice(&crc32(name).to_be_bytes());
+    }
+    out
+}
+
+/// CRC-32 (ISO-HDLC), as the PNG specification (ISO/IEC 15948, annex D) defines it.
+fn crc32(data: &[u8]) -> u32 {
+    let mut c = 0xFFFF_FFFFu32;
+    for b in data {
+        c ^= *b as u32;
+        for _ in 0..8 {
+            c = if c & 1 != 0 { 0xEDB8_8320 ^ (c >> 1) } else { c >> 1 };
+        }
+    }
+    !c
+}
+
+#[test]
+fn the_pixel_limit_is_checked_from_the_header_before_decoding() {
+    // CRC-32 check value of "123456789" is 0xCBF43926 (the catalogue of CRC
+    // parameter sets, CRC-32/ISO-HDLC).
+    assert_eq!(crc32(b"123456789"), 0xCBF4_3926);
+    // 50000 x 50000 = 2500 megapixels, with no pixel data at all: refused as
+    // too large, which proves the size was read before any decoding.
+    let bytes = png_header_only(50_000, 50_000);
+    let e = load_bytes(Path::new("huge.png"), &bytes, &LoadOptions::default()).unwrap_err();
+    assert!(matches!(e, Error::TooLarge { .. }), "{e}");
+    assert!(e.to_string().contains("huge.png") && e.to_string().contains("2500.0 megapixels"));
+    // Under a raised limit the same file is refused for what it is: truncated.
+    let e = load_bytes(Path::new("huge.png"), &bytes, &LoadOptions { max_megapixels: 5000.0 }).unwrap_err();
+    assert!(matches!(e, Error::Decode { .. }), "{e}");
+}
