@@ -11,7 +11,11 @@ use std::path::Path;
 fn sixteen_bit_tiff_from_an_outside_writer_keeps_every_level() {
     // fixtures/loader/ramp16.tif was written by tifffile
     // (scripts/make_tiff_fixtures.py): value (x * 1021 + y * 37) mod 65536.
-    let l = load(&repo_file("fixtures/loader/ramp16.tif"), &LoadOptions::default()).unwrap();
+    let l = load(
+        &repo_file("fixtures/loader/ramp16.tif"),
+        &LoadOptions::default(),
+    )
+    .unwrap();
     assert_eq!((l.image.width, l.image.height, l.bit_depth), (64, 48, 16));
     for y in 0..48 {
         for x in 0..64 {
@@ -41,21 +45,35 @@ fn sixteen_bit_round_trip_through_our_own_writer() {
 
 #[test]
 fn multi_page_tiff_measures_the_first_page_with_a_warning() {
-    let l = load(&repo_file("fixtures/loader/two_pages16.tif"), &LoadOptions::default()).unwrap();
+    let l = load(
+        &repo_file("fixtures/loader/two_pages16.tif"),
+        &LoadOptions::default(),
+    )
+    .unwrap();
     assert_eq!((l.image.data[0] * 65535.0).round(), 1000.0);
-    assert!(l.warnings.iter().any(|w| w.contains("multi-page")), "{:?}", l.warnings);
+    assert!(
+        l.warnings.iter().any(|w| w.contains("multi-page")),
+        "{:?}",
+        l.warnings
+    );
 }
 
 #[test]
 fn colour_is_reduced_to_bt709_luminance() {
     // Pure red in a 16-bit RGB TIFF (tifffile): Y = 0.2126 (ITU-R BT.709-6, item 3.2).
-    let l = load(&repo_file("fixtures/loader/rgb16.tif"), &LoadOptions::default()).unwrap();
+    let l = load(
+        &repo_file("fixtures/loader/rgb16.tif"),
+        &LoadOptions::default(),
+    )
+    .unwrap();
     assert_eq!(l.bit_depth, 16);
     assert!((l.image.data[0] - 0.2126).abs() < 1e-4);
     // RGBA PNG: alpha is ignored; pure green gives Y = 0.7152.
     let dir = tempfile::tempdir().unwrap();
     let p = dir.path().join("g.png");
-    image::RgbaImage::from_pixel(40, 40, image::Rgba([0, 255, 0, 10])).save(&p).unwrap();
+    image::RgbaImage::from_pixel(40, 40, image::Rgba([0, 255, 0, 10]))
+        .save(&p)
+        .unwrap();
     let l = load(&p, &LoadOptions::default()).unwrap();
     assert_eq!(l.bit_depth, 8);
     assert!((l.image.data[0] - 0.7152).abs() < 1e-4);
@@ -67,7 +85,10 @@ fn bmp_and_jpeg_load() {
     let grey = image::GrayImage::from_fn(64, 40, |x, _| image::Luma([(x * 4) as u8]));
     let bmp = dir.path().join("a.bmp");
     let jpg = dir.path().join("a.jpg");
-    image::DynamicImage::ImageLuma8(grey.clone()).to_rgb8().save(&bmp).unwrap();
+    image::DynamicImage::ImageLuma8(grey.clone())
+        .to_rgb8()
+        .save(&bmp)
+        .unwrap();
     grey.save(&jpg).unwrap();
     let b = load(&bmp, &LoadOptions::default()).unwrap();
     assert_eq!((b.image.width, b.image.height), (64, 40));
@@ -104,7 +125,11 @@ fn crc32(data: &[u8]) -> u32 {
     for b in data {
         c ^= *b as u32;
         for _ in 0..8 {
-            c = if c & 1 != 0 { 0xEDB8_8320 ^ (c >> 1) } else { c >> 1 };
+            c = if c & 1 != 0 {
+                0xEDB8_8320 ^ (c >> 1)
+            } else {
+                c >> 1
+            };
         }
     }
     !c
@@ -122,6 +147,13 @@ fn the_pixel_limit_is_checked_from_the_header_before_decoding() {
     assert!(matches!(e, Error::TooLarge { .. }), "{e}");
     assert!(e.to_string().contains("huge.png") && e.to_string().contains("2500.0 megapixels"));
     // Under a raised limit the same file is refused for what it is: truncated.
-    let e = load_bytes(Path::new("huge.png"), &bytes, &LoadOptions { max_megapixels: 5000.0 }).unwrap_err();
+    let e = load_bytes(
+        Path::new("huge.png"),
+        &bytes,
+        &LoadOptions {
+            max_megapixels: 5000.0,
+        },
+    )
+    .unwrap_err();
     assert!(matches!(e, Error::Decode { .. }), "{e}");
 }
