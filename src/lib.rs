@@ -11,6 +11,7 @@ pub mod error;
 pub mod interpret;
 pub mod load;
 pub mod methods;
+pub mod overlay;
 pub mod pipeline;
 pub mod preprocess;
 pub mod report;

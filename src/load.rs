@@ -64,6 +64,8 @@ pub struct Loaded {
     /// Lowercase hexadecimal SHA-256 of the file's bytes.
     pub sha256: String,
     pub format: ImageFormat,
+    /// TIFF resolution tags: (XResolution, YResolution, ResolutionUnit), when present.
+    pub resolution: Option<(f64, f64, u16)>,
     pub warnings: Vec<String>,
 }
 
@@ -192,8 +194,13 @@ pub fn load_bytes(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loade
     check_size(path, width, height, opts)?;
 
     let mut warnings = Vec::new();
-    if format == ImageFormat::Tiff && tiff_has_more_pages(bytes) {
-        warnings.push("multi-page TIFF: only the first page is measured".to_string());
+    let mut resolution = None;
+    if format == ImageFormat::Tiff {
+        let info = tiff_info(bytes);
+        if info.more_pages {
+            warnings.push("multi-page TIFF: only the first page is measured".to_string());
+        }
+        resolution = info.resolution;
     }
 
     let mut reader = ImageReader::with_format(Cursor::new(bytes), format);
@@ -212,6 +219,7 @@ pub fn load_bytes(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loade
         bit_depth,
         sha256,
         format,
+        resolution,
         warnings,
     })
 }
@@ -237,10 +245,43 @@ fn check_size(path: &Path, width: u32, height: u32, opts: &LoadOptions) -> Resul
     Ok(())
 }
 
-fn tiff_has_more_pages(bytes: &[u8]) -> bool {
-    tiff::decoder::Decoder::new(Cursor::new(bytes))
-        .map(|d| d.more_images())
-        .unwrap_or(false)
+struct TiffInfo {
+    more_pages: bool,
+    resolution: Option<(f64, f64, u16)>,
+}
+
+/// Page count and resolution tags of a TIFF's first page (TIFF 6.0,
+/// section 8: XResolution, YResolution as RATIONAL, ResolutionUnit as SHORT,
+/// default 2 = inch).
+fn tiff_info(bytes: &[u8]) -> TiffInfo {
+    use tiff::decoder::ifd::Value;
+    use tiff::tags::Tag;
+    let Ok(mut d) = tiff::decoder::Decoder::new(Cursor::new(bytes)) else {
+        return TiffInfo {
+            more_pages: false,
+            resolution: None,
+        };
+    };
+    let rational = |v: Option<Value>| -> Option<f64> {
+        match v? {
+            Value::Rational(n, den) if den != 0 => Some(n as f64 / den as f64),
+            Value::Float(f) => Some(f as f64),
+            Value::Double(f) => Some(f),
+            _ => None,
+        }
+    };
+    let x = rational(d.find_tag(Tag::XResolution).ok().flatten());
+    let y = rational(d.find_tag(Tag::YResolution).ok().flatten());
+    let unit = d
+        .find_tag(Tag::ResolutionUnit)
+        .ok()
+        .flatten()
+        .and_then(|v| v.into_u16().ok())
+        .unwrap_or(2);
+    TiffInfo {
+        more_pages: d.more_images(),
+        resolution: x.map(|x| (x, y.unwrap_or(x), unit)),
+    }
 }
 
 /// SHA-256 of a file's bytes, as lowercase hexadecimal.

@@ -1,6 +1,6 @@
 //! The `armspace` command: parses arguments, calls the library, prints.
 
-use armspace::calibrate::parse_um_per_px;
+use armspace::calibrate::{self, parse_length, parse_um_per_px, BarLength, CalibrationRequest};
 use armspace::load::{collect_inputs, LoadOptions, DEFAULT_MAX_MEGAPIXELS};
 use armspace::methods::fft::FftParams;
 use armspace::pipeline::{measure_batch, MeasureOptions, Method};
@@ -35,6 +35,8 @@ struct Cli {
 enum Command {
     /// Measure SDAS in images and folders of images and write a JSON report.
     Measure(MeasureArgs),
+    /// Find the scale bar in images and print the calibration it gives, as JSON.
+    Calibrate(CalibrateArgs),
     /// Write synthetic dendritic micrographs of known SDAS and their truth.json.
     Synth(SynthArgs),
 }
@@ -44,9 +46,8 @@ struct MeasureArgs {
     /// Image files or folders (walked recursively, sorted, hidden entries ignored).
     #[arg(required = true)]
     paths: Vec<PathBuf>,
-    /// Calibration: micrometres per pixel.
-    #[arg(long, value_parser = parse_um_per_px)]
-    um_per_px: armspace::units::UmPerPx,
+    #[command(flatten)]
+    calibration: CalibrationArgs,
     /// Write the JSON report here (atomically); without it the report goes to stdout.
     #[arg(long)]
     out: Option<PathBuf>,
@@ -59,6 +60,70 @@ struct MeasureArgs {
     /// Worker threads (default: one per core).
     #[arg(long, value_parser = clap::value_parser!(u16).range(1..))]
     jobs: Option<u16>,
+}
+
+/// Calibration sources. Precedence: --um-per-px, then --profile, then the
+/// scale bar, then TIFF resolution tags.
+#[derive(clap::Args)]
+struct CalibrationArgs {
+    /// Calibration: micrometres per pixel (takes precedence over every other source).
+    #[arg(long, value_parser = parse_um_per_px)]
+    um_per_px: Option<armspace::units::UmPerPx>,
+    /// Physical length of the scale bar burned into the images, with its unit (100um, 0.1mm, 500nm).
+    #[arg(long, value_parser = parse_length)]
+    scale_bar: Option<armspace::units::Micrometres>,
+    /// Stated relative uncertainty of the scale bar itself, in percent.
+    #[arg(long, value_parser = parse_percent, requires = "scale_bar")]
+    scale_bar_uncertainty_pct: Option<f64>,
+    /// Calibration profile file (JSON, named profiles per objective or camera).
+    #[arg(long, requires = "profile")]
+    profiles: Option<PathBuf>,
+    /// Name of the profile to use from --profiles.
+    #[arg(long, requires = "profiles")]
+    profile: Option<String>,
+}
+
+impl CalibrationArgs {
+    fn request(&self) -> Result<CalibrationRequest, String> {
+        let profile = match (&self.profiles, &self.profile) {
+            (Some(file), Some(name)) => Some(calibrate::profile::load(file, name)?),
+            _ => None,
+        };
+        Ok(CalibrationRequest {
+            manual: self.um_per_px,
+            profile,
+            scale_bar: self.scale_bar.map(|length| BarLength {
+                length,
+                rel_uncertainty: self.scale_bar_uncertainty_pct.unwrap_or(0.0) / 100.0,
+            }),
+        })
+    }
+}
+
+#[derive(clap::Args)]
+struct CalibrateArgs {
+    /// Image files.
+    #[arg(required = true)]
+    images: Vec<PathBuf>,
+    /// Physical length of the scale bar, with its unit (100um, 0.1mm, 500nm).
+    #[arg(long, value_parser = parse_length)]
+    scale_bar: armspace::units::Micrometres,
+    /// Stated relative uncertainty of the scale bar itself, in percent.
+    #[arg(long, value_parser = parse_percent)]
+    scale_bar_uncertainty_pct: Option<f64>,
+    /// Write a PNG per image with the detected bar outlined into this folder.
+    #[arg(long)]
+    overlay: Option<PathBuf>,
+    /// Refuse images with more megapixels than this (checked before decoding).
+    #[arg(long, default_value_t = DEFAULT_MAX_MEGAPIXELS, value_parser = parse_positive)]
+    max_megapixels: f64,
+}
+
+fn parse_percent(s: &str) -> Result<f64, String> {
+    match s.trim().trim_end_matches('%').parse::<f64>() {
+        Ok(v) if v.is_finite() && (0.0..100.0).contains(&v) => Ok(v),
+        _ => Err(format!("'{s}' is not a percentage from 0 to 100")),
+    }
 }
 
 #[derive(Clone, Copy, ValueEnum)]
@@ -100,6 +165,7 @@ fn main() -> ExitCode {
     };
     match cli.command {
         Command::Measure(args) => run_measure(args),
+        Command::Calibrate(args) => run_calibrate(args),
         Command::Synth(args) => run_synth(args),
     }
 }
@@ -108,8 +174,15 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
     let methods = match args.method {
         MethodArg::Fft | MethodArg::All => vec![Method::Fft],
     };
+    let calibration = match args.calibration.request() {
+        Ok(c) => c,
+        Err(e) => {
+            eprintln!("armspace: {e}");
+            return ExitCode::from(EXIT_USAGE);
+        }
+    };
     let opts = MeasureOptions {
-        um_per_px: args.um_per_px,
+        calibration,
         load: LoadOptions {
             max_megapixels: args.max_megapixels,
         },
@@ -187,6 +260,85 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
     } else {
         ExitCode::from(EXIT_NOT_MEASURED)
     }
+}
+
+fn run_calibrate(args: CalibrateArgs) -> ExitCode {
+    use armspace::load::{load, LoadOptions};
+    let req = CalibrationRequest {
+        manual: None,
+        profile: None,
+        scale_bar: Some(BarLength {
+            length: args.scale_bar,
+            rel_uncertainty: args.scale_bar_uncertainty_pct.unwrap_or(0.0) / 100.0,
+        }),
+    };
+    if let Some(dir) = &args.overlay {
+        if let Err(e) = std::fs::create_dir_all(dir) {
+            eprintln!(
+                "armspace: {}: cannot create the overlay folder: {e}",
+                dir.display()
+            );
+            return ExitCode::from(EXIT_FATAL);
+        }
+    }
+    let opts = LoadOptions {
+        max_megapixels: args.max_megapixels,
+    };
+    let mut all_ok = true;
+    let mut out = Vec::new();
+    for path in &args.images {
+        let mut entry = serde_json::json!({"file": path.display().to_string()});
+        match load(path, &opts) {
+            Err(e) => {
+                entry["error"] = e.to_string().into();
+                all_ok = false;
+            }
+            Ok(loaded) => {
+                let detected = calibrate::scale_bar::detect(&loaded.image);
+                match calibrate::resolve(&req, Some(&detected), None) {
+                    Ok((c, warnings)) => {
+                        entry["um_per_px"] = c.um_per_px.get().into();
+                        entry["rel_uncertainty"] =
+                            c.rel_uncertainty.map(|u| report::round(u, 6)).into();
+                        entry["bar"] =
+                            serde_json::to_value(c.bar.as_ref().map(report::BarReport::of))
+                                .unwrap_or_default();
+                        entry["warnings"] = warnings.into();
+                        entry["error"] = serde_json::Value::Null;
+                    }
+                    Err(e) => {
+                        entry["error"] = format!("{}: {e}", path.display()).into();
+                        all_ok = false;
+                    }
+                }
+                if let Some(dir) = &args.overlay {
+                    let stem = path
+                        .file_stem()
+                        .map(|s| s.to_string_lossy().into_owned())
+                        .unwrap_or_else(|| "image".into());
+                    let target = dir.join(format!("{stem}.calibration.png"));
+                    let picture =
+                        armspace::overlay::calibration(&loaded.image, detected.as_ref().ok());
+                    if let Err(e) = armspace::overlay::write_png(&target, &picture) {
+                        eprintln!("armspace: {e}");
+                        return ExitCode::from(EXIT_FATAL);
+                    }
+                }
+            }
+        }
+        if let Some(e) = entry["error"].as_str() {
+            eprintln!("error    {e}");
+        }
+        out.push(entry);
+    }
+    match serde_json::to_string_pretty(&out) {
+        Ok(s) => println!("{s}"),
+        Err(e) => {
+            eprintln!("armspace: {e}");
+            return ExitCode::from(EXIT_FATAL);
+        }
+    }
+    ExitCode::from(if all_ok { EXIT_OK } else { EXIT_NOT_MEASURED })
 }
 
 fn run_synth(args: SynthArgs) -> ExitCode {

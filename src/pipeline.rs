@@ -4,11 +4,12 @@
 //! Each image is measured independently, so a batch can run in parallel and
 //! still give results identical to a serial run, in input order.
 
-use crate::calibrate::Calibration;
+use crate::calibrate::scale_bar::{self, ScaleBar};
+use crate::calibrate::{self as cal, Calibration, CalibrationRequest};
 use crate::load::{self, Input, LoadOptions};
 use crate::methods::fft::{self, FftOutcome, FftParams};
 use crate::preprocess::{self, PreprocessParams};
-use crate::units::{Micrometres, UmPerPx};
+use crate::units::{Micrometres, Pixels, UmPerPx};
 use rayon::prelude::*;
 use std::path::PathBuf;
 
@@ -29,7 +30,7 @@ impl Method {
 /// Everything that determines a measurement, so that it can be repeated.
 #[derive(Clone, Debug)]
 pub struct MeasureOptions {
-    pub um_per_px: UmPerPx,
+    pub calibration: CalibrationRequest,
     pub load: LoadOptions,
     pub preprocess: PreprocessParams,
     pub fft: FftParams,
@@ -62,6 +63,11 @@ pub struct ImageResult {
     pub file: PathBuf,
     pub info: Option<ImageInfo>,
     pub calibration: Option<Calibration>,
+    /// Scale bar found in the image (used for calibration or not); its
+    /// region is excluded from measurement.
+    pub bar: Option<ScaleBar>,
+    /// Rectangles excluded from measurement, [x0, y0, x1, y1] inclusive px.
+    pub excluded: Vec<[u32; 4]>,
     pub fft: Option<FftOutcome>,
     pub sdas: Estimate,
     pub warnings: Vec<String>,
@@ -74,6 +80,8 @@ impl ImageResult {
             file,
             info: None,
             calibration: None,
+            bar: None,
+            excluded: vec![],
             fft: None,
             sdas: Estimate {
                 value: None,
@@ -112,10 +120,48 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         height: loaded.image.height as u32,
         bit_depth: loaded.bit_depth,
     };
-    let calibration = Calibration::manual(opts.um_per_px);
     let mut warnings = loaded.warnings;
-    let prepared = preprocess::prepare(&loaded.image, None, &opts.preprocess);
-    let cal = calibration.um_per_px;
+    let detected = scale_bar::detect(&loaded.image);
+    let metadata =
+        loaded
+            .resolution
+            .and_then(|(x, y, unit)| match cal::from_resolution(x, y, unit) {
+                Ok((v, notes)) => {
+                    warnings.extend(notes);
+                    Some(v)
+                }
+                Err(note) => {
+                    warnings.push(format!("TIFF resolution tags not used: {note}"));
+                    None
+                }
+            });
+    let calibration = match cal::resolve(&opts.calibration, Some(&detected), metadata) {
+        Ok((c, w)) => {
+            warnings.extend(w);
+            c
+        }
+        Err(e) => {
+            let mut r = ImageResult::failed(path.to_path_buf(), format!("{}: {e}", path.display()));
+            r.info = Some(info);
+            r.bar = detected.ok();
+            r.warnings = warnings;
+            return r;
+        }
+    };
+    let bar = detected.ok();
+    let (mask, excluded) = match &bar {
+        Some(b) => (
+            Some(scale_bar::mask_of(
+                b,
+                loaded.image.width,
+                loaded.image.height,
+            )),
+            vec![b.mask],
+        ),
+        None => (None, vec![]),
+    };
+    let prepared = preprocess::prepare(&loaded.image, mask, &opts.preprocess);
+    let um_per_px = calibration.um_per_px;
 
     let fft = opts
         .methods
@@ -138,11 +184,13 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         }
     }
 
-    let sdas = combine(fft.as_ref(), cal);
+    let sdas = combine(fft.as_ref(), um_per_px, calibration.rel_uncertainty);
     ImageResult {
         file: path.to_path_buf(),
         info: Some(info),
         calibration: Some(calibration),
+        bar,
+        excluded,
         fft,
         sdas,
         warnings,
@@ -150,17 +198,39 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
     }
 }
 
+/// Coverage factor of a 95 % interval under a normal distribution.
+const K95: f64 = 1.959_963_984_540_054;
+
 /// The image's SDAS from the methods that gave a value.
-fn combine(fft: Option<&FftOutcome>, cal: UmPerPx) -> Estimate {
-    let to_um = |px: f64| cal.to_um(crate::units::Pixels(px));
+///
+/// The calibration's relative standard uncertainty u is a systematic factor
+/// common to every tile and line, so it widens the interval rather than
+/// averaging out: the half-width becomes sqrt(h^2 + (k u x)^2) with h the
+/// statistical half-width, x the value and k = 1.96 (uncorrelated
+/// contributions combined in quadrature, JCGM 100:2008, 5.1.2).
+fn combine(fft: Option<&FftOutcome>, cal: UmPerPx, cal_rel_u: Option<f64>) -> Estimate {
+    let to_um = |px: f64| cal.to_um(Pixels(px));
     match fft {
-        Some(f) if f.value_px.is_some() => Estimate {
-            value: f.value_px.map(to_um),
-            ci95: f.ci95_px.map(|[a, b]| [to_um(a), to_um(b)]),
-            n: f.n_tiles_used,
-            methods: vec![Method::Fft],
-            reason: None,
-        },
+        Some(f) if f.value_px.is_some() => {
+            let value = f.value_px.map(to_um);
+            let ci95 = match (value, f.ci95_px) {
+                (Some(v), Some([a, b])) => {
+                    let (lo, hi) = (to_um(a).0, to_um(b).0);
+                    let u = cal_rel_u.unwrap_or(0.0) * K95 * v.0;
+                    let below = ((v.0 - lo).powi(2) + u * u).sqrt();
+                    let above = ((hi - v.0).powi(2) + u * u).sqrt();
+                    Some([Micrometres(v.0 - below), Micrometres(v.0 + above)])
+                }
+                _ => None,
+            };
+            Estimate {
+                value,
+                ci95,
+                n: f.n_tiles_used,
+                methods: vec![Method::Fft],
+                reason: None,
+            }
+        }
         Some(f) => Estimate {
             value: None,
             ci95: None,

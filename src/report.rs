@@ -39,11 +39,24 @@ pub struct Tool {
 #[derive(Serialize, Debug)]
 pub struct Parameters {
     pub inputs: Vec<String>,
-    pub um_per_px: f64,
+    /// --um-per-px, when given.
+    pub um_per_px: Option<f64>,
+    /// --profile: the profile's name, value and stated uncertainty.
+    pub profile: Option<ProfileParameters>,
+    /// --scale-bar: the bar's stated length (um) and relative uncertainty.
+    pub scale_bar_um: Option<f64>,
+    pub scale_bar_rel_uncertainty: Option<f64>,
     pub methods: Vec<&'static str>,
     pub max_megapixels: f64,
     pub preprocess: PreprocessParameters,
     pub fft: FftParameters,
+}
+
+#[derive(Serialize, Debug)]
+pub struct ProfileParameters {
+    pub name: String,
+    pub um_per_px: f64,
+    pub rel_uncertainty: Option<f64>,
 }
 
 #[derive(Serialize, Debug)]
@@ -69,6 +82,9 @@ pub struct ImageReport {
     pub height: Option<u32>,
     pub bit_depth: Option<u8>,
     pub calibration: Option<CalibrationReport>,
+    /// Rectangles excluded from measurement (scale bar, its box and label
+    /// room), [x0, y0, x1, y1] in inclusive pixel indices.
+    pub excluded_px: Vec<[u32; 4]>,
     pub sdas_um: SdasReport,
     pub methods: MethodsReport,
     pub warnings: Vec<String>,
@@ -79,6 +95,59 @@ pub struct ImageReport {
 pub struct CalibrationReport {
     pub um_per_px: f64,
     pub source: crate::calibrate::CalibrationSource,
+    /// Relative standard uncertainty of um_per_px, when known.
+    pub rel_uncertainty: Option<f64>,
+    /// The scale bar, when the calibration came from it.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub bar: Option<BarReport>,
+    /// The value each available source gave, by source name.
+    pub sources: std::collections::BTreeMap<&'static str, f64>,
+}
+
+/// A detected scale bar, pixel coordinates from the top-left corner
+/// (inclusive indices).
+#[derive(Serialize, Debug)]
+pub struct BarReport {
+    pub length_px: f64,
+    pub x0: u32,
+    pub y0: u32,
+    pub x1: u32,
+    pub y1: u32,
+    pub thickness_px: u32,
+    pub polarity: crate::calibrate::scale_bar::Polarity,
+    pub confidence: f64,
+    pub backing_box: Option<[u32; 4]>,
+}
+
+impl BarReport {
+    pub fn of(b: &crate::calibrate::scale_bar::ScaleBar) -> Self {
+        Self {
+            length_px: round(b.length_px, 3),
+            x0: b.x0,
+            y0: b.y0,
+            x1: b.x1,
+            y1: b.y1,
+            thickness_px: b.thickness_px,
+            polarity: b.polarity,
+            confidence: round(b.confidence, 3),
+            backing_box: b.backing_box,
+        }
+    }
+}
+
+/// The calibration as reported.
+pub fn calibration_report(c: &crate::calibrate::Calibration) -> CalibrationReport {
+    CalibrationReport {
+        um_per_px: c.um_per_px.get(),
+        source: c.source,
+        rel_uncertainty: c.rel_uncertainty.map(|u| round(u, 6)),
+        bar: c.bar.as_ref().map(BarReport::of),
+        sources: c
+            .offers
+            .iter()
+            .map(|o| (o.source.name(), o.um_per_px.get()))
+            .collect(),
+    }
 }
 
 #[derive(Serialize, Debug)]
@@ -192,17 +261,15 @@ fn fft_report(f: &FftOutcome, cal: UmPerPx) -> FftReport {
 }
 
 pub fn image_report(r: &ImageResult) -> ImageReport {
-    let cal = r.calibration.map(|c| c.um_per_px);
+    let cal = r.calibration.as_ref().map(|c| c.um_per_px);
     ImageReport {
         file: r.file.display().to_string(),
         sha256: r.info.as_ref().map(|i| i.sha256.clone()),
         width: r.info.as_ref().map(|i| i.width),
         height: r.info.as_ref().map(|i| i.height),
         bit_depth: r.info.as_ref().map(|i| i.bit_depth),
-        calibration: r.calibration.map(|c| CalibrationReport {
-            um_per_px: c.um_per_px.get(),
-            source: c.source,
-        }),
+        calibration: r.calibration.as_ref().map(calibration_report),
+        excluded_px: r.excluded.clone(),
         sdas_um: SdasReport {
             value: r.sdas.value.map(|v| round(v.0, 4)),
             ci95: r.sdas.ci95.map(|[a, b]| [round(a.0, 4), round(b.0, 4)]),
@@ -253,7 +320,18 @@ pub fn build(
         caution: CAUTION,
         parameters: Parameters {
             inputs: inputs.to_vec(),
-            um_per_px: opts.um_per_px.get(),
+            um_per_px: opts.calibration.manual.map(|v| v.get()),
+            profile: opts
+                .calibration
+                .profile
+                .as_ref()
+                .map(|p| ProfileParameters {
+                    name: p.name.clone(),
+                    um_per_px: p.um_per_px.get(),
+                    rel_uncertainty: p.rel_uncertainty,
+                }),
+            scale_bar_um: opts.calibration.scale_bar.map(|b| b.length.0),
+            scale_bar_rel_uncertainty: opts.calibration.scale_bar.map(|b| b.rel_uncertainty),
             methods: opts.methods.iter().map(|m| m.name()).collect(),
             max_megapixels: opts.load.max_megapixels,
             preprocess: PreprocessParameters {

@@ -1,0 +1,310 @@
+//! Calibration: how many micrometres one pixel spans, where that came from,
+//! and how uncertain it is.
+//!
+//! Sources, in order of precedence (the first one available is used):
+//! 1. `manual`: `--um-per-px`, the user's explicit value;
+//! 2. `profile`: a named entry of a calibration profile file (per objective
+//!    or camera);
+//! 3. `scale-bar`: the bar burned into the image, measured in pixels, with
+//!    its physical length given by `--scale-bar`;
+//! 4. `file-metadata`: TIFF resolution tags.
+//!
+//! Every source that gave a value is reported; when one differs from the
+//! value used by more than 2 %, the image carries a warning.
+
+pub mod profile;
+pub mod scale_bar;
+
+use crate::units::{Micrometres, UmPerPx};
+use scale_bar::ScaleBar;
+use serde::Serialize;
+
+/// Where a calibration came from.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord, Serialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum CalibrationSource {
+    Manual,
+    Profile,
+    ScaleBar,
+    FileMetadata,
+}
+
+impl CalibrationSource {
+    pub fn name(self) -> &'static str {
+        match self {
+            Self::Manual => "manual",
+            Self::Profile => "profile",
+            Self::ScaleBar => "scale-bar",
+            Self::FileMetadata => "file-metadata",
+        }
+    }
+}
+
+/// A calibration value offered by one source.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Offer {
+    pub source: CalibrationSource,
+    pub um_per_px: UmPerPx,
+    /// Relative standard uncertainty, when the source states or allows one.
+    pub rel_uncertainty: Option<f64>,
+}
+
+/// The calibration applied to one image.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Calibration {
+    pub um_per_px: UmPerPx,
+    pub source: CalibrationSource,
+    pub rel_uncertainty: Option<f64>,
+    /// The bar, when the calibration came from it.
+    pub bar: Option<ScaleBar>,
+    /// Every source that offered a value, in order of precedence.
+    pub offers: Vec<Offer>,
+}
+
+impl Calibration {
+    /// A calibration from a given value alone.
+    pub fn manual(um_per_px: UmPerPx) -> Self {
+        let offer = Offer {
+            source: CalibrationSource::Manual,
+            um_per_px,
+            rel_uncertainty: None,
+        };
+        Self {
+            um_per_px,
+            source: CalibrationSource::Manual,
+            rel_uncertainty: None,
+            bar: None,
+            offers: vec![offer],
+        }
+    }
+}
+
+/// The physical length of the scale bar, as the user states it.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct BarLength {
+    pub length: Micrometres,
+    /// Relative standard uncertainty of the bar itself (from its certificate
+    /// or the software that drew it); 0 when not stated.
+    pub rel_uncertainty: f64,
+}
+
+/// What the user asked for.
+#[derive(Clone, Debug, PartialEq, Default)]
+pub struct CalibrationRequest {
+    pub manual: Option<UmPerPx>,
+    pub profile: Option<profile::Profile>,
+    pub scale_bar: Option<BarLength>,
+}
+
+/// Sources whose values differ by more than this (relative) are reported.
+pub const DISAGREEMENT: f64 = 0.02;
+
+/// A bar shorter than this many pixels limits the calibration to about 1 %.
+pub const SHORT_BAR_PX: f64 = 100.0;
+
+/// Standard uncertainty of one end of a bar located by half-contrast: a
+/// rectangular distribution of +-0.5 px, i.e. 0.5 / sqrt(3) px (JCGM 100:2008,
+/// GUM 4.3.7).
+pub const END_UNCERTAINTY_PX: f64 = 0.288_675_134_594_812_9;
+
+/// The calibration a detected bar gives, with its relative standard
+/// uncertainty: both ends' localisation, the spread of the per-row lengths
+/// (as a standard error), and the bar's own stated uncertainty, combined in
+/// quadrature (GUM 5.1.2, uncorrelated inputs).
+pub fn from_bar(bar: &ScaleBar, length: &BarLength) -> Result<Offer, String> {
+    if bar.length_px <= 0.0 {
+        return Err("the scale bar has no length".into());
+    }
+    let um = UmPerPx::new(length.length.0 / bar.length_px)?;
+    let u_px = (2.0 * END_UNCERTAINTY_PX * END_UNCERTAINTY_PX
+        + bar.length_sd_px.powi(2) / bar.rows.max(1) as f64)
+        .sqrt();
+    let rel = ((u_px / bar.length_px).powi(2) + length.rel_uncertainty.powi(2)).sqrt();
+    Ok(Offer {
+        source: CalibrationSource::ScaleBar,
+        um_per_px: um,
+        rel_uncertainty: Some(rel),
+    })
+}
+
+/// Picks the calibration by precedence and lists disagreements. `bar` is the
+/// detection result (used only when the request names the bar's length);
+/// `metadata` is what the file's resolution tags give.
+pub fn resolve(
+    req: &CalibrationRequest,
+    bar: Option<&Result<ScaleBar, String>>,
+    metadata: Option<UmPerPx>,
+) -> Result<(Calibration, Vec<String>), String> {
+    let mut offers = Vec::new();
+    let mut warnings = Vec::new();
+    if let Some(v) = req.manual {
+        offers.push(Offer {
+            source: CalibrationSource::Manual,
+            um_per_px: v,
+            rel_uncertainty: None,
+        });
+    }
+    if let Some(p) = &req.profile {
+        offers.push(Offer {
+            source: CalibrationSource::Profile,
+            um_per_px: p.um_per_px,
+            rel_uncertainty: p.rel_uncertainty,
+        });
+    }
+    let mut used_bar = None;
+    let mut bar_failure = None;
+    if let Some(len) = &req.scale_bar {
+        match bar {
+            Some(Ok(b)) => {
+                let o = from_bar(b, len)?;
+                if b.length_px < SHORT_BAR_PX {
+                    warnings.push(format!(
+                        "the scale bar is only {:.1} px long: its calibration is uncertain by about 1 % or more",
+                        b.length_px
+                    ));
+                }
+                offers.push(o);
+                used_bar = Some(b.clone());
+            }
+            Some(Err(reason)) => bar_failure = Some(reason.clone()),
+            None => bar_failure = Some("the image was not searched for a scale bar".into()),
+        }
+    }
+    if let Some(v) = metadata {
+        offers.push(Offer {
+            source: CalibrationSource::FileMetadata,
+            um_per_px: v,
+            rel_uncertainty: None,
+        });
+    }
+    offers.sort_by_key(|o| o.source);
+    let Some(chosen) = offers.first().copied() else {
+        return Err(match bar_failure {
+            Some(reason) => format!(
+                "no scale bar found with confidence ({reason}); pass --um-per-px or --profile"
+            ),
+            None => "no calibration: give --um-per-px, --profile or --scale-bar (the file has no usable resolution tags)".into(),
+        });
+    };
+    if let Some(reason) = bar_failure {
+        warnings.push(format!(
+            "no scale bar found with confidence ({reason}); the {} calibration is used",
+            chosen.source.name()
+        ));
+    }
+    for o in offers.iter().skip(1) {
+        let diff = o.um_per_px.get() / chosen.um_per_px.get() - 1.0;
+        if diff.abs() > DISAGREEMENT {
+            warnings.push(format!(
+                "calibration sources disagree: {} gives {:.6} um/px, {} gives {:.6} um/px ({:+.1} %); {} is used",
+                chosen.source.name(),
+                chosen.um_per_px.get(),
+                o.source.name(),
+                o.um_per_px.get(),
+                100.0 * diff,
+                chosen.source.name()
+            ));
+        }
+    }
+    let bar = (chosen.source == CalibrationSource::ScaleBar)
+        .then_some(used_bar)
+        .flatten();
+    Ok((
+        Calibration {
+            um_per_px: chosen.um_per_px,
+            source: chosen.source,
+            rel_uncertainty: chosen.rel_uncertainty,
+            bar,
+            offers,
+        },
+        warnings,
+    ))
+}
+
+/// Parses a user-given micrometres-per-pixel value, naming the problem.
+pub fn parse_um_per_px(text: &str) -> Result<UmPerPx, String> {
+    let v: f64 = text
+        .trim()
+        .parse()
+        .map_err(|_| format!("'{text}' is not a number"))?;
+    UmPerPx::new(v)
+}
+
+/// Parses a length with its unit: um (also µm with the micro sign or the
+/// Greek mu), nm or mm, with or without a space: "100um", "0.5 mm".
+pub fn parse_length(text: &str) -> Result<Micrometres, String> {
+    let t = text.trim();
+    let split = t
+        .char_indices()
+        .find(|(_, c)| !(c.is_ascii_digit() || matches!(c, '.' | '+' | '-' | 'e' | 'E')))
+        .map(|(i, _)| i)
+        .unwrap_or(t.len());
+    // An exponent letter directly followed by a unit ("1e2um") is fine; a
+    // bare "e" unit is not a unit we accept anyway.
+    let (num, unit) = t.split_at(split);
+    let unit = unit.trim();
+    let value: f64 = num
+        .trim()
+        .parse()
+        .map_err(|_| format!("'{text}': no number before the unit"))?;
+    let factor = match unit {
+        "um" | "\u{00b5}m" | "\u{03bc}m" => 1.0,
+        "nm" => 1e-3,
+        "mm" => 1e3,
+        "" => {
+            return Err(format!(
+                "'{text}' has no unit: write it as 100um, 100µm, 0.1mm or 100000nm"
+            ))
+        }
+        other => {
+            return Err(format!(
+                "'{text}': unknown unit '{other}' (accepted: um, µm, nm, mm)"
+            ))
+        }
+    };
+    let um = value * factor;
+    if !(um.is_finite() && um > 0.0) {
+        return Err(format!("'{text}' is not a positive length"));
+    }
+    Ok(Micrometres(um))
+}
+
+/// Micrometres per pixel from TIFF resolution tags (pixels per unit, with
+/// ResolutionUnit 2 = inch, 3 = centimetre; TIFF 6.0, section 8). Unit 1
+/// (none) carries no physical scale. Values coarser than 50 um/px (under
+/// about 500 pixels per inch) are the screen or print resolutions that image
+/// software writes by default, not a microscope calibration, and are ignored
+/// with a note.
+pub fn from_resolution(
+    x_per_unit: f64,
+    y_per_unit: f64,
+    unit: u16,
+) -> Result<(UmPerPx, Vec<String>), String> {
+    let unit_um = match unit {
+        2 => 25_400.0,
+        3 => 10_000.0,
+        1 => return Err("the resolution tags have no unit (ResolutionUnit = 1)".into()),
+        other => return Err(format!("unknown ResolutionUnit {other}")),
+    };
+    if !(x_per_unit.is_finite() && x_per_unit > 0.0) {
+        return Err(format!("XResolution {x_per_unit} is not usable"));
+    }
+    let um = unit_um / x_per_unit;
+    if um > 50.0 {
+        return Err(format!(
+            "the resolution tags give {um:.1} um/px, a screen or print resolution, not a calibration"
+        ));
+    }
+    let mut notes = Vec::new();
+    if y_per_unit.is_finite() && y_per_unit > 0.0 && (y_per_unit / x_per_unit - 1.0).abs() > 0.01 {
+        notes.push(format!(
+            "the resolution tags give non-square pixels ({:.6} x {:.6} um); the horizontal value is used",
+            um,
+            unit_um / y_per_unit
+        ));
+    }
+    Ok((UmPerPx::new(um)?, notes))
+}
+
+#[cfg(test)]
+mod tests;

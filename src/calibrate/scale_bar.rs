@@ -1,0 +1,573 @@
+//! Detection of a scale bar burned into a micrograph, and its length in
+//! pixels to sub-pixel precision.
+//!
+//! A scale bar is a solid, straight, horizontal rectangle at one extreme of
+//! the grey range (dark on light or light on dark), often on a contrasting
+//! backing box, usually near a corner. Detection, for each polarity:
+//!
+//! 1. pixels within 25 % (then 45 %, for thin bars that blur has lifted) of
+//!    the grey range of the image's extreme are bar candidates;
+//! 2. horizontal runs of candidates, stacked over consecutive rows with ends
+//!    within 2 px, form rectangles;
+//! 3. a rectangle is a bar when it is at least 2 px thick and 4 times longer
+//!    than thick, filled, uniform, clear of the image border, and set off from
+//!    its surroundings above, below and at both ends. Scratches (thin,
+//!    slanted, textured), grain boundaries (not straight) and the image
+//!    border fail these tests;
+//! 4. of the bars found, the longest is taken.
+//!
+//! The length is measured edge to edge on every interior row of the bar: each
+//! end is located at the centroid of the row's step into (or out of) the bar:
+//! the differences of neighbouring pixels with the bar's sign, over the run
+//! around the largest of them. Rows whose length strays more than 1 px from
+//! the rows' median (a feature of the micrograph touching an end) are left
+//! out of the mean. A sharp bar covering pixels x0..=x1 thus
+//! measures x1 - x0 + 1, and a blur that is the same on both sides of an end
+//! (Gaussian, box, defocus) does not move it; a step of the other sign just
+//! beyond (the edge of a backing box) is ignored.
+
+use crate::load::GrayImage;
+use serde::Serialize;
+
+/// Which way the bar contrasts with what surrounds it.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Polarity {
+    DarkOnLight,
+    LightOnDark,
+}
+
+/// A detected scale bar. Pixel coordinates from the top-left corner; the box
+/// corners are inclusive pixel indices.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct ScaleBar {
+    /// Edge-to-edge length, mean over the bar's interior rows.
+    pub length_px: f64,
+    /// Standard deviation of the per-row lengths.
+    pub length_sd_px: f64,
+    pub rows: usize,
+    pub x0: u32,
+    pub y0: u32,
+    pub x1: u32,
+    pub y1: u32,
+    pub thickness_px: u32,
+    pub polarity: Polarity,
+    /// 0 to 1: the weakest of the fill, uniformity and edge-contrast tests.
+    pub confidence: f64,
+    /// Contrasting box behind the bar, when there is one: [x0, y0, x1, y1].
+    pub backing_box: Option<[u32; 4]>,
+    /// Region excluded from measurement: bar, box and room for a label.
+    pub mask: [u32; 4],
+}
+
+/// Smallest confidence for a bar to be used.
+pub const MIN_CONFIDENCE: f64 = 0.7;
+
+/// Candidate thresholds tried, as fractions of the grey range from the
+/// extreme: the second catches thin bars whose level blur has lifted.
+const CANDIDATE_FRACTIONS: [f32; 2] = [0.25, 0.45];
+const END_TOLERANCE_PX: i64 = 2;
+
+#[derive(Clone, Debug)]
+struct Group {
+    y0: usize,
+    starts: Vec<usize>,
+    ends: Vec<usize>,
+}
+
+impl Group {
+    fn last_y(&self) -> usize {
+        self.y0 + self.starts.len() - 1
+    }
+}
+
+/// Finds the scale bar, or says why there is none.
+pub fn detect(img: &GrayImage) -> Result<ScaleBar, String> {
+    let (w, h) = (img.width, img.height);
+    if w < 16 || h < 8 {
+        return Err("the image is too small to hold a scale bar".into());
+    }
+    let (lo, hi) = img
+        .data
+        .iter()
+        .fold((f32::INFINITY, f32::NEG_INFINITY), |(a, b), v| {
+            (a.min(*v), b.max(*v))
+        });
+    let range = hi - lo;
+    if range < 0.05 {
+        return Err("the image has too little contrast to show a scale bar".into());
+    }
+    let mut found: Vec<ScaleBar> = Vec::new();
+    for fraction in CANDIDATE_FRACTIONS {
+        for polarity in [Polarity::DarkOnLight, Polarity::LightOnDark] {
+            let is_cand = |v: f32| match polarity {
+                Polarity::DarkOnLight => v <= lo + fraction * range,
+                Polarity::LightOnDark => v >= hi - fraction * range,
+            };
+            found.extend(
+                groups(img, &is_cand)
+                    .iter()
+                    .filter_map(|g| examine(img, g, polarity, &is_cand, range)),
+            );
+        }
+    }
+    // A strip of a backing box above or below a bar looks like a bar of the
+    // opposite polarity, longer than the bar. A box is always larger than the
+    // bar it backs, so a candidate that spans a vertically adjacent candidate
+    // of opposite polarity is a piece of that one's box.
+    let is_box_strip = |a: &ScaleBar| {
+        found.iter().any(|b| {
+            b.polarity != a.polarity
+                && b.x0 >= a.x0
+                && b.x1 <= a.x1
+                && (b.y0.saturating_sub(a.y1) <= 4 && b.y0 > a.y1
+                    || a.y0.saturating_sub(b.y1) <= 4 && a.y0 > b.y1)
+        })
+    };
+    let mut best: Option<&ScaleBar> = None;
+    for bar in found.iter().filter(|a| !is_box_strip(a)) {
+        let better = match best {
+            None => true,
+            Some(b) => {
+                bar.length_px > b.length_px + 0.5
+                    || ((bar.length_px - b.length_px).abs() <= 0.5 && bar.confidence > b.confidence)
+            }
+        };
+        if better {
+            best = Some(bar);
+        }
+    }
+    best.cloned()
+        .ok_or_else(|| "no solid horizontal bar stands out from the image".to_string())
+}
+
+/// Stacks of horizontal candidate runs with nearly equal ends.
+fn groups(img: &GrayImage, is_cand: &dyn Fn(f32) -> bool) -> Vec<Group> {
+    let (w, h) = (img.width, img.height);
+    let min_len = 16usize.max(w / 64);
+    let mut open: Vec<Group> = Vec::new();
+    let mut done: Vec<Group> = Vec::new();
+    for y in 0..h {
+        let row = img.row(y);
+        let mut runs = Vec::new();
+        let mut x = 0;
+        while x < w {
+            if is_cand(row[x]) {
+                let s = x;
+                while x < w && is_cand(row[x]) {
+                    x += 1;
+                }
+                if x - s >= min_len {
+                    runs.push((s, x - 1));
+                }
+            } else {
+                x += 1;
+            }
+        }
+        let mut next_open = Vec::new();
+        let mut used = vec![false; runs.len()];
+        for mut g in open.drain(..) {
+            let (ls, le) = (*g.starts.last().unwrap_or(&0), *g.ends.last().unwrap_or(&0));
+            let m = runs.iter().enumerate().find(|(i, (s, e))| {
+                !used[*i]
+                    && (*s as i64 - ls as i64).abs() <= END_TOLERANCE_PX
+                    && (*e as i64 - le as i64).abs() <= END_TOLERANCE_PX
+            });
+            match m {
+                Some((i, (s, e))) => {
+                    used[i] = true;
+                    g.starts.push(*s);
+                    g.ends.push(*e);
+                    next_open.push(g);
+                }
+                None => done.push(g),
+            }
+        }
+        for (i, (s, e)) in runs.iter().enumerate() {
+            if !used[i] {
+                next_open.push(Group {
+                    y0: y,
+                    starts: vec![*s],
+                    ends: vec![*e],
+                });
+            }
+        }
+        open = next_open;
+    }
+    done.extend(open);
+    done.retain(|g| g.starts.len() >= 2);
+    done
+}
+
+fn median_usize(v: &[usize]) -> usize {
+    let mut s = v.to_vec();
+    s.sort_unstable();
+    s[s.len() / 2]
+}
+
+fn median_f32(mut v: Vec<f32>) -> Option<f32> {
+    if v.is_empty() {
+        return None;
+    }
+    Some(crate::stats::median_in_place(&mut v) as f32)
+}
+
+fn examine(
+    img: &GrayImage,
+    g: &Group,
+    polarity: Polarity,
+    is_cand: &dyn Fn(f32) -> bool,
+    range: f32,
+) -> Option<ScaleBar> {
+    let (w, h) = (img.width, img.height);
+    let x0 = median_usize(&g.starts);
+    let x1 = median_usize(&g.ends);
+    let (y0, y1) = (g.y0, g.last_y());
+    let thickness = y1 - y0 + 1;
+    let length = x1 - x0 + 1;
+    // Straight ends.
+    if g.starts
+        .iter()
+        .chain(&g.ends)
+        .zip(g.starts.iter().map(|_| x0).chain(g.ends.iter().map(|_| x1)))
+        .any(|(a, b)| (*a as i64 - b as i64).abs() > END_TOLERANCE_PX)
+    {
+        return None;
+    }
+    // Shape: thick enough to be drawn on purpose, much longer than thick,
+    // not spanning the image, clear of the border (a frame is no bar).
+    if thickness < 2 || length < 4 * thickness || length as f64 > 0.9 * w as f64 {
+        return None;
+    }
+    if x0 < 9 || x1 + 9 >= w || y0 < 4 || y1 + 4 >= h {
+        return None;
+    }
+    // Fill of the rectangle, and uniformity of its interior rows (the top
+    // and bottom rows of a thick bar carry the blur of its edges).
+    let fill = (y0..=y1)
+        .flat_map(|y| img.row(y)[x0..=x1].iter())
+        .filter(|v| is_cand(**v))
+        .count() as f64
+        / (thickness * length) as f64;
+    let (iy0, iy1) = if thickness >= 3 {
+        (y0 + 1, y1 - 1)
+    } else {
+        (y0, y1)
+    };
+    let interior: Vec<f32> = (iy0..=iy1)
+        .flat_map(|y| img.row(y)[x0 + 1..x1].iter().copied())
+        .collect();
+    let mean = interior.iter().map(|v| *v as f64).sum::<f64>() / interior.len() as f64;
+    let sd = (interior
+        .iter()
+        .map(|v| (*v as f64 - mean).powi(2))
+        .sum::<f64>()
+        / interior.len() as f64)
+        .sqrt();
+    let uniformity = (1.0 - sd / (0.1 * range as f64)).clamp(0.0, 1.0);
+    // Set off above and below: some row two to four rows out (past any blur
+    // of the edge) is, along the whole bar, at least 90 % unlike the bar's
+    // own level. A strip of a larger region (a backing box around a bar of
+    // the other polarity) is not: its neighbouring row continues at its level
+    // beyond the bar it frames.
+    let level_tol = (0.1 * range as f64).max(4.0 * sd);
+    let unlike = |y: usize| {
+        let row = &img.row(y)[x0..=x1];
+        row.iter()
+            .filter(|v| (**v as f64 - mean).abs() > level_tol)
+            .count() as f64
+            / row.len() as f64
+    };
+    let above = (2..=4)
+        .filter_map(|d| y0.checked_sub(d))
+        .map(unlike)
+        .fold(0.0, f64::max);
+    let below = (2..=4)
+        .map(|d| y1 + d)
+        .filter(|&y| y < h)
+        .map(unlike)
+        .fold(0.0, f64::max);
+    if above < 0.9 || below < 0.9 {
+        return None;
+    }
+    // Set off at both ends.
+    let ends_clear = {
+        let mut clear = 0usize;
+        for y in y0..=y1 {
+            let row = img.row(y);
+            clear += usize::from(!is_cand(row[x0 - 3])) + usize::from(!is_cand(row[x1 + 3]));
+        }
+        clear as f64 / (2 * thickness) as f64
+    };
+    let confidence = fill.min(uniformity).min(ends_clear);
+    if confidence < MIN_CONFIDENCE {
+        return None;
+    }
+
+    // Sub-pixel length on interior rows.
+    let rows: Vec<usize> = if thickness >= 3 {
+        (y0 + 1..y1).collect()
+    } else {
+        (y0..=y1).collect()
+    };
+    let mut lengths = Vec::new();
+    let mut lefts = Vec::new();
+    let mut rights = Vec::new();
+    // Entering a dark bar the profile falls; leaving it, it rises.
+    let into = match polarity {
+        Polarity::DarkOnLight => -1.0,
+        Polarity::LightOnDark => 1.0,
+    };
+    let at_level = |v: f32| (v as f64 - mean).abs() <= level_tol;
+    for &y in &rows {
+        let row = img.row(y);
+        // Walk out from the bar's middle while the row keeps the bar's level:
+        // the bar's own step is where it leaves it, even when a feature of
+        // the micrograph of similar darkness touches the end.
+        let mid = (x0 + x1) / 2;
+        let mut l = mid;
+        while l > 1 && at_level(row[l - 1]) {
+            l -= 1;
+        }
+        let mut r = mid;
+        while r + 2 < w && at_level(row[r + 1]) {
+            r += 1;
+        }
+        let xl = edge(row, l.saturating_sub(2), l, into)?;
+        let xr = edge(row, r, (r + 2).min(w - 2), -into)?;
+        lengths.push(xr - xl);
+        lefts.push(xl);
+        rights.push(xr);
+    }
+    if lengths.is_empty() {
+        return None;
+    }
+    let mid = crate::stats::median(&lengths)?;
+    let keep: Vec<bool> = lengths.iter().map(|l| (l - mid).abs() <= 1.0).collect();
+    let pick = |v: &[f64]| -> Vec<f64> {
+        v.iter()
+            .zip(&keep)
+            .filter(|(_, k)| **k)
+            .map(|(x, _)| *x)
+            .collect()
+    };
+    let (lengths, lefts, rights) = (pick(&lengths), pick(&lefts), pick(&rights));
+    let mean_of = |v: &[f64]| v.iter().sum::<f64>() / v.len() as f64;
+    // The bar's box from its measured ends.
+    let x0 = (mean_of(&lefts) + 0.5).round().max(0.0) as usize;
+    let x1 = (mean_of(&rights) - 0.5).round().max(x0 as f64) as usize;
+    let n = lengths.len() as f64;
+    let mean_len = lengths.iter().sum::<f64>() / n;
+    let sd_len = (lengths.iter().map(|l| (l - mean_len).powi(2)).sum::<f64>() / n).sqrt();
+
+    // Backing box: grow from the bar while the new line is mostly the
+    // surround's level.
+    let surround = median_f32(
+        [y0 - 2, y1 + 2]
+            .iter()
+            .flat_map(|&y| img.row(y)[x0..=x1].iter().copied())
+            .collect(),
+    )?;
+    let backing_box = grow_box(img, [x0, y0, x1, y1], surround, 0.15 * range);
+    let (pad_x, pad_y) = ((2 * thickness).max(8), (5 * thickness).max(16));
+    let mut mask = [
+        x0.saturating_sub(pad_x),
+        y0.saturating_sub(pad_y),
+        (x1 + pad_x).min(w - 1),
+        (y1 + pad_y).min(h - 1),
+    ];
+    if let Some(b) = backing_box {
+        mask = [
+            mask[0].min(b[0]),
+            mask[1].min(b[1]),
+            mask[2].max(b[2]),
+            mask[3].max(b[3]),
+        ];
+    }
+    let u = |v: usize| v as u32;
+    Some(ScaleBar {
+        length_px: mean_len,
+        length_sd_px: sd_len,
+        rows: lengths.len(),
+        x0: u(x0),
+        y0: u(y0),
+        x1: u(x1),
+        y1: u(y1),
+        thickness_px: u(thickness),
+        polarity,
+        confidence,
+        backing_box: backing_box.map(|b| b.map(u)),
+        mask: mask.map(u),
+    })
+}
+
+/// Position, in pixel-centre coordinates, of a step of a row whose largest
+/// difference lies between samples a and b, going in the direction `sign`
+/// (+1 rising, -1 falling): the centroid of the differences
+/// d(x) = sign (row[x + 1] - row[x]), each placed at x + 0.5, over the
+/// contiguous run, at most 2 px either side of the largest, where d is at
+/// least half of it (the core of the step; a feature just beyond the end of a
+/// bar lying on the micrograph adds only a weaker tail).
+fn edge(row: &[f32], a: usize, b: usize, sign: f64) -> Option<f64> {
+    let n = row.len();
+    if n < 2 || a >= b || b + 1 >= n {
+        return None;
+    }
+    let d = |x: usize| sign * (row[x + 1] - row[x]) as f64;
+    let peak = (a..=b).max_by(|p, q| d(*p).total_cmp(&d(*q)))?;
+    let top = d(peak);
+    if top <= 0.0 {
+        return None;
+    }
+    let floor = 0.5 * top;
+    let mut lo = peak;
+    while lo > 0 && lo + 2 > peak && d(lo - 1) >= floor {
+        lo -= 1;
+    }
+    let mut hi = peak;
+    while hi + 2 < n && hi < peak + 2 && d(hi + 1) >= floor {
+        hi += 1;
+    }
+    let (mut sum, mut moment) = (0.0, 0.0);
+    for x in lo..=hi {
+        sum += d(x);
+        moment += d(x) * (x as f64 + 0.5);
+    }
+    Some(moment / sum)
+}
+
+/// The largest rectangle around `bar` whose border lines are at least 75 %
+/// within `tol` of `level`, when it extends at least 3 px beyond the bar on
+/// every side; `None` otherwise.
+fn grow_box(img: &GrayImage, bar: [usize; 4], level: f32, tol: f32) -> Option<[usize; 4]> {
+    let (w, h) = (img.width, img.height);
+    let near = |v: f32| (v - level).abs() <= tol;
+    let [mut x0, mut y0, mut x1, mut y1] = bar;
+    let line_ok = |pixels: &mut dyn Iterator<Item = f32>| {
+        let (mut ok, mut n) = (0usize, 0usize);
+        for v in pixels {
+            n += 1;
+            ok += usize::from(near(v));
+        }
+        n > 0 && ok as f64 >= 0.75 * n as f64
+    };
+    let mut grown = true;
+    while grown {
+        grown = false;
+        if y0 > 0 && line_ok(&mut img.row(y0 - 1)[x0..=x1].iter().copied()) {
+            y0 -= 1;
+            grown = true;
+        }
+        if y1 + 1 < h && line_ok(&mut img.row(y1 + 1)[x0..=x1].iter().copied()) {
+            y1 += 1;
+            grown = true;
+        }
+        if x0 > 0 && line_ok(&mut (y0..=y1).map(|y| img.get(x0 - 1, y))) {
+            x0 -= 1;
+            grown = true;
+        }
+        if x1 + 1 < w && line_ok(&mut (y0..=y1).map(|y| img.get(x1 + 1, y))) {
+            x1 += 1;
+            grown = true;
+        }
+        // A box never covers most of the image.
+        if (x1 - x0) > w / 2 || (y1 - y0) > h / 2 {
+            return None;
+        }
+    }
+    let margin = 3;
+    (bar[0] >= x0 + margin
+        && bar[1] >= y0 + margin
+        && x1 >= bar[2] + margin
+        && y1 >= bar[3] + margin)
+        .then_some([x0, y0, x1, y1])
+}
+
+/// Marks the scale bar's mask region in a mask of the image's size.
+pub fn mask_of(bar: &ScaleBar, width: usize, height: usize) -> Vec<bool> {
+    let mut m = vec![false; width * height];
+    let [x0, y0, x1, y1] = bar.mask.map(|v| v as usize);
+    for y in y0..=y1.min(height.saturating_sub(1)) {
+        for x in x0..=x1.min(width.saturating_sub(1)) {
+            m[y * width + x] = true;
+        }
+    }
+    m
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn field(w: usize, h: usize) -> GrayImage {
+        // A textured mid-grey field (deterministic).
+        let data = (0..w * h)
+            .map(|i| 0.45 + 0.1 * (((i * 7919) % 97) as f32 / 97.0 - 0.5))
+            .collect();
+        GrayImage::from_vec(w, h, data).unwrap()
+    }
+
+    fn draw(img: &mut GrayImage, x0: usize, y0: usize, x1: usize, y1: usize, v: f32) {
+        for y in y0..=y1 {
+            for x in x0..=x1 {
+                img.data[y * img.width + x] = v;
+            }
+        }
+    }
+
+    #[test]
+    fn sharp_bar_measures_its_pixel_count() {
+        let mut img = field(400, 300);
+        draw(&mut img, 250, 270, 369, 275, 0.0);
+        let bar = detect(&img).unwrap();
+        assert!((bar.length_px - 120.0).abs() < 1e-9, "{}", bar.length_px);
+        assert_eq!(
+            (bar.x0, bar.y0, bar.x1, bar.y1, bar.thickness_px),
+            (250, 270, 369, 275, 6)
+        );
+        assert_eq!(bar.polarity, Polarity::DarkOnLight);
+        assert!(bar.backing_box.is_none());
+    }
+
+    #[test]
+    fn light_bar_on_a_dark_box() {
+        let mut img = field(400, 300);
+        draw(&mut img, 20, 240, 160, 290, 0.02);
+        draw(&mut img, 40, 262, 139, 265, 1.0);
+        let bar = detect(&img).unwrap();
+        assert_eq!(bar.polarity, Polarity::LightOnDark);
+        assert!((bar.length_px - 100.0).abs() < 1e-9);
+        assert_eq!(bar.backing_box, Some([20, 240, 160, 290]));
+        assert!(bar.mask[0] <= 20 && bar.mask[3] >= 290);
+    }
+
+    #[test]
+    fn no_bar_in_a_plain_field() {
+        assert!(detect(&field(300, 200)).is_err());
+    }
+
+    #[test]
+    fn the_image_border_is_no_bar() {
+        let mut img = field(300, 200);
+        draw(&mut img, 0, 190, 299, 199, 0.0);
+        assert!(detect(&img).is_err());
+    }
+
+    #[test]
+    fn edges_of_sharp_and_blurred_steps() {
+        // A sharp rising step between samples 2 and 3 sits at 2.5.
+        let row = [0.0f32, 0.0, 0.0, 1.0, 1.0, 1.0];
+        assert!((edge(&row, 0, 4, 1.0).unwrap() - 2.5).abs() < 1e-12);
+        // Looked for as a falling step, it is not there.
+        assert!(edge(&row, 0, 4, -1.0).is_none());
+        // A box-blurred step (a linear ramp over three pixels) is centred.
+        let row = [0.0f32, 0.0, 1.0 / 3.0, 2.0 / 3.0, 1.0, 1.0, 1.0];
+        assert!((edge(&row, 0, 5, 1.0).unwrap() - 2.5).abs() < 1e-6);
+        // A falling step with a rising one (a box's edge) just before it.
+        let row = [0.4f32, 0.9, 0.9, 0.9, 0.6, 0.3, 0.0, 0.0];
+        assert!((edge(&row, 0, 6, -1.0).unwrap() - 4.5).abs() < 1e-6);
+        // A weaker fall just before the bar's own step leaves it in place.
+        let row = [0.9f32, 0.8, 0.7, 0.7, 0.0, 0.0, 0.0];
+        assert!((edge(&row, 0, 5, -1.0).unwrap() - 3.5).abs() < 1e-6);
+    }
+}
