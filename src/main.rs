@@ -55,7 +55,7 @@ struct MeasureArgs {
     #[arg(long, value_enum, default_value = "all")]
     method: MethodArg,
     /// Refuse images with more megapixels than this (checked before decoding).
-    #[arg(long, default_value_t = DEFAULT_MAX_MEGAPIXELS, value_parser = parse_positive)]
+    #[arg(long, default_value_t = DEFAULT_MAX_MEGAPIXELS, value_parser = parse_positive, allow_negative_numbers = true)]
     max_megapixels: f64,
     /// Worker threads (default: one per core).
     #[arg(long, value_parser = clap::value_parser!(u16).range(1..))]
@@ -67,10 +67,10 @@ struct MeasureArgs {
 #[derive(clap::Args)]
 struct CalibrationArgs {
     /// Calibration: micrometres per pixel (takes precedence over every other source).
-    #[arg(long, value_parser = parse_um_per_px)]
+    #[arg(long, value_parser = parse_um_per_px, allow_negative_numbers = true)]
     um_per_px: Option<armspace::units::UmPerPx>,
     /// Physical length of the scale bar burned into the images, with its unit (100um, 0.1mm, 500nm).
-    #[arg(long, value_parser = parse_length)]
+    #[arg(long, value_parser = parse_length, allow_hyphen_values = true)]
     scale_bar: Option<armspace::units::Micrometres>,
     /// Stated relative uncertainty of the scale bar itself, in percent.
     #[arg(long, value_parser = parse_percent, requires = "scale_bar")]
@@ -106,7 +106,7 @@ struct CalibrateArgs {
     #[arg(required = true)]
     images: Vec<PathBuf>,
     /// Physical length of the scale bar, with its unit (100um, 0.1mm, 500nm).
-    #[arg(long, value_parser = parse_length)]
+    #[arg(long, value_parser = parse_length, allow_hyphen_values = true)]
     scale_bar: armspace::units::Micrometres,
     /// Stated relative uncertainty of the scale bar itself, in percent.
     #[arg(long, value_parser = parse_percent)]
@@ -115,7 +115,7 @@ struct CalibrateArgs {
     #[arg(long)]
     overlay: Option<PathBuf>,
     /// Refuse images with more megapixels than this (checked before decoding).
-    #[arg(long, default_value_t = DEFAULT_MAX_MEGAPIXELS, value_parser = parse_positive)]
+    #[arg(long, default_value_t = DEFAULT_MAX_MEGAPIXELS, value_parser = parse_positive, allow_negative_numbers = true)]
     max_megapixels: f64,
 }
 

@@ -1,6 +1,7 @@
 //! Accuracy of `measure` against synthetic micrographs of known SDAS
 //! (src/synth; its truth is checked independently in tests/synth_truth.rs).
 
+use armspace::calibrate::CalibrationRequest;
 use armspace::load::LoadOptions;
 use armspace::methods::fft::FftParams;
 use armspace::pipeline::{measure_file, MeasureOptions, Method};
@@ -17,7 +18,10 @@ fn relative_errors(seed: u64, count: usize) -> Vec<(Truth, Option<f64>)> {
         .into_iter()
         .map(|t| {
             let opts = MeasureOptions {
-                um_per_px: UmPerPx::new(t.um_per_px).unwrap(),
+                calibration: CalibrationRequest {
+                    manual: Some(UmPerPx::new(t.um_per_px).unwrap()),
+                    ..Default::default()
+                },
                 load: LoadOptions::default(),
                 preprocess: PreprocessParams::default(),
                 fft: FftParams::default(),

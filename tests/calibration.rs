@@ -308,8 +308,7 @@ fn profiles_and_missing_calibration() {
     );
     // Units: a bare number or an unknown unit is a usage error.
     for bad in ["100", "100 inch", "-3um"] {
-        let flag = format!("--scale-bar={bad}");
-        let run = armspace(&["measure", &img, &flag]);
+        let run = armspace(&["measure", &img, "--scale-bar", bad]);
         assert_eq!(run.code, 2, "{bad}");
         assert!(run.stderr.contains("--scale-bar"), "{}", run.stderr);
     }
