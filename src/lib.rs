@@ -10,6 +10,7 @@ pub mod calibrate;
 pub mod error;
 pub mod interpret;
 pub mod load;
+pub mod manual;
 pub mod methods;
 pub mod overlay;
 pub mod pipeline;

@@ -37,6 +37,8 @@ enum Command {
     Measure(MeasureArgs),
     /// Find the scale bar in images and print the calibration it gives, as JSON.
     Calibrate(CalibrateArgs),
+    /// Statistics of lines measured by hand (CSV with columns length_um, arms).
+    Stats(StatsArgs),
     /// Write synthetic dendritic micrographs of known SDAS and their truth.json.
     Synth(SynthArgs),
 }
@@ -133,6 +135,15 @@ enum MethodArg {
 }
 
 #[derive(clap::Args)]
+struct StatsArgs {
+    /// CSV file: one row per hand-measured line, columns length_um and arms.
+    file: PathBuf,
+    /// Target percent relative accuracy, for the number of lines it needs.
+    #[arg(long, default_value_t = 10.0, value_parser = parse_percent)]
+    target_ra_pct: f64,
+}
+
+#[derive(clap::Args)]
 struct SynthArgs {
     /// Output folder (created if needed).
     outdir: PathBuf,
@@ -166,6 +177,7 @@ fn main() -> ExitCode {
     match cli.command {
         Command::Measure(args) => run_measure(args),
         Command::Calibrate(args) => run_calibrate(args),
+        Command::Stats(args) => run_stats(args),
         Command::Synth(args) => run_synth(args),
     }
 }
@@ -339,6 +351,43 @@ fn run_calibrate(args: CalibrateArgs) -> ExitCode {
         }
     }
     ExitCode::from(if all_ok { EXIT_OK } else { EXIT_NOT_MEASURED })
+}
+
+fn run_stats(args: StatsArgs) -> ExitCode {
+    let origin = args.file.display().to_string();
+    let result = std::fs::read_to_string(&args.file)
+        .map_err(|e| format!("{origin}: cannot read: {e}"))
+        .and_then(|text| armspace::manual::parse(&text, &origin))
+        .and_then(|lines| armspace::manual::summarise(lines, &origin, args.target_ra_pct));
+    match result {
+        Ok(s) => {
+            eprintln!(
+                "{} lines: SDAS {:.2} um (95% CI {:.2} to {:.2}), sd {:.2} um, %RA {:.1}",
+                s.n_lines, s.mean_um, s.ci95_um[0], s.ci95_um[1], s.sd_um, s.rel_accuracy_pct
+            );
+            if let Some(n) = s.lines_for_target {
+                if n > s.n_lines {
+                    eprintln!(
+                        "about {n} lines in all ({} more) would bring %RA to {}",
+                        n - s.n_lines,
+                        s.target_rel_accuracy_pct
+                    );
+                }
+            }
+            match serde_json::to_string_pretty(&s) {
+                Ok(j) => println!("{j}"),
+                Err(e) => {
+                    eprintln!("armspace: {e}");
+                    return ExitCode::from(EXIT_FATAL);
+                }
+            }
+            ExitCode::from(EXIT_OK)
+        }
+        Err(e) => {
+            eprintln!("armspace: {e}");
+            ExitCode::from(EXIT_NOT_MEASURED)
+        }
+    }
 }
 
 fn run_synth(args: SynthArgs) -> ExitCode {

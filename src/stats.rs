@@ -126,6 +126,37 @@ impl Summary {
     }
 }
 
+/// How many measurements (lines, fields) would bring the percent relative
+/// accuracy of `s` to `target_pct` or below, with the same mean and standard
+/// deviation: the smallest n' with t(0.975, n'-1) s / sqrt(n') <= target x mean
+/// / 100, searched upward from the current n. This is the planning rule of
+/// ASTM E112-style practice (halving %RA takes about four times as many
+/// measurements), with the t quantile kept exact for small n'. `None` when
+/// the mean is not positive.
+pub fn measurements_for_target(s: &Summary, target_pct: f64) -> Option<usize> {
+    if !(s.mean > 0.0 && target_pct > 0.0 && target_pct.is_finite()) {
+        return None;
+    }
+    if s.rel_accuracy_pct <= target_pct {
+        return Some(s.n);
+    }
+    let allowed = target_pct / 100.0 * s.mean;
+    // Large-sample start: n ~ (1.96 s / allowed)^2, then step to the exact one.
+    let mut n = s.n.max(2);
+    let rough = (1.96 * s.sd / allowed).powi(2).ceil();
+    if rough.is_finite() && rough as usize > n {
+        n = (rough as usize).saturating_sub(2).max(n);
+    }
+    for _ in 0..1_000_000 {
+        let t = t_quantile(0.975, (n - 1) as f64)?;
+        if t * s.sd / (n as f64).sqrt() <= allowed {
+            return Some(n);
+        }
+        n += 1;
+    }
+    None
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -158,6 +189,25 @@ mod tests {
         assert!((s.ci95_half_width - 3.926).abs() < 2e-3);
         assert!((s.rel_accuracy_pct - 28.04).abs() < 0.02);
         assert!(Summary::of(&[1.0]).is_none());
+    }
+
+    #[test]
+    fn measurements_needed_for_a_target_accuracy() {
+        // Worked by hand: mean 20, s = 4, n = 5: t(0.975, 4) = 2.776 (NIST
+        // table above), half-width 2.776 * 4 / sqrt(5) = 4.966, %RA 24.8.
+        // For %RA <= 10 the half-width must be <= 2: n = 18 gives
+        // t(0.975, 17) = 2.110, 2.110 * 4 / sqrt(18) = 1.989 <= 2, while
+        // n = 17 gives 2.120 * 4 / sqrt(17) = 2.057 > 2 (t values from the
+        // same table).
+        let s = Summary {
+            n: 5,
+            mean: 20.0,
+            sd: 4.0,
+            ci95_half_width: 4.966,
+            rel_accuracy_pct: 24.83,
+        };
+        assert_eq!(measurements_for_target(&s, 10.0), Some(18));
+        assert_eq!(measurements_for_target(&s, 30.0), Some(5));
     }
 
     #[test]

@@ -1,0 +1,167 @@
+//! Lines measured by hand: a CSV with one test line per row (its length in
+//! micrometres and the number of arms it crosses), so that a lab can set its
+//! manual practice beside the automatic methods, with the same statistics.
+//!
+//! ```text
+//! length_um,arms
+//! 212.5,6
+//! 180,5
+//! ```
+//!
+//! Each line's spacing is length / arms (the line method as usually taught:
+//! the line spans as many arm periods as it crosses arms). Other columns are
+//! ignored; a header row naming `length_um` and `arms` is required.
+
+use crate::stats::{measurements_for_target, Summary};
+use serde::Serialize;
+
+/// One hand-measured line.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize)]
+pub struct ManualLine {
+    pub length_um: f64,
+    pub arms: u32,
+    pub sdas_um: f64,
+}
+
+/// The statistics of a set of hand-measured lines.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct ManualStats {
+    pub file: String,
+    pub convention: &'static str,
+    pub n_lines: usize,
+    pub mean_um: f64,
+    pub sd_um: f64,
+    pub ci95_um: [f64; 2],
+    pub rel_accuracy_pct: f64,
+    pub target_rel_accuracy_pct: f64,
+    /// Lines needed for the target %RA at the same mean and spread.
+    pub lines_for_target: Option<usize>,
+    pub lines: Vec<ManualLine>,
+}
+
+/// Reads lines from CSV text; `origin` names the file in messages.
+pub fn parse(text: &str, origin: &str) -> Result<Vec<ManualLine>, String> {
+    let mut rdr = csv::ReaderBuilder::new()
+        .trim(csv::Trim::All)
+        .flexible(true)
+        .comment(Some(b'#'))
+        .from_reader(text.as_bytes());
+    let headers = rdr
+        .headers()
+        .map_err(|e| format!("{origin}: cannot read the header row: {e}"))?
+        .clone();
+    let col = |name: &str| {
+        headers
+            .iter()
+            .position(|h| h.eq_ignore_ascii_case(name))
+            .ok_or_else(|| {
+                format!(
+                    "{origin}: no '{name}' column (the header row must name length_um and arms; it has: {})",
+                    headers.iter().collect::<Vec<_>>().join(", ")
+                )
+            })
+    };
+    let (li, ai) = (col("length_um")?, col("arms")?);
+    let mut lines = Vec::new();
+    for (k, rec) in rdr.records().enumerate() {
+        let row = k + 2;
+        let rec = rec.map_err(|e| format!("{origin}: row {row}: {e}"))?;
+        let field = |i: usize, name: &str| {
+            rec.get(i)
+                .filter(|s| !s.is_empty())
+                .ok_or_else(|| format!("{origin}: row {row}: no {name} value"))
+        };
+        let length: f64 = field(li, "length_um")?.parse().map_err(|_| {
+            format!(
+                "{origin}: row {row}: length_um '{}' is not a number",
+                &rec[li]
+            )
+        })?;
+        let arms: u32 = field(ai, "arms")?.parse().map_err(|_| {
+            format!(
+                "{origin}: row {row}: arms '{}' is not a whole number",
+                &rec[ai]
+            )
+        })?;
+        if !(length.is_finite() && length > 0.0) {
+            return Err(format!("{origin}: row {row}: length_um must be positive"));
+        }
+        if arms == 0 {
+            return Err(format!("{origin}: row {row}: arms must be at least 1"));
+        }
+        lines.push(ManualLine {
+            length_um: length,
+            arms,
+            sdas_um: length / arms as f64,
+        });
+    }
+    Ok(lines)
+}
+
+/// Statistics of hand-measured lines (at least two).
+pub fn summarise(
+    lines: Vec<ManualLine>,
+    origin: &str,
+    target_pct: f64,
+) -> Result<ManualStats, String> {
+    let values: Vec<f64> = lines.iter().map(|l| l.sdas_um).collect();
+    let s = Summary::of(&values).ok_or_else(|| {
+        format!(
+            "{origin}: at least two lines are needed for an interval ({} given)",
+            values.len()
+        )
+    })?;
+    Ok(ManualStats {
+        file: origin.to_string(),
+        convention: "length / arms",
+        n_lines: s.n,
+        mean_um: s.mean,
+        sd_um: s.sd,
+        ci95_um: s.ci95(),
+        rel_accuracy_pct: s.rel_accuracy_pct,
+        target_rel_accuracy_pct: target_pct,
+        lines_for_target: measurements_for_target(&s, target_pct),
+        lines,
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_worked_set_of_manual_lines() {
+        // Five lines worked by hand: 100/5 = 20, 132/6 = 22, 90/5 = 18,
+        // 84/4 = 21, 95/5 = 19 um. Mean 20, s = sqrt(10/4) = 1.5811,
+        // t(0.975, 4) = 2.776 (NIST/SEMATECH e-Handbook, table 1.3.6.7.2),
+        // half-width 2.776 * 1.5811 / sqrt(5) = 1.963, %RA = 9.81.
+        let text =
+            "length_um,arms,operator\n100,5,A\n132,6,A\n# a comment\n90,5,B\n84,4,B\n95,5,B\n";
+        let s = summarise(parse(text, "m.csv").unwrap(), "m.csv", 10.0).unwrap();
+        assert_eq!(s.n_lines, 5);
+        assert!((s.mean_um - 20.0).abs() < 1e-12);
+        assert!((s.sd_um - 2.5f64.sqrt()).abs() < 1e-12);
+        assert!((s.ci95_um[1] - 21.963).abs() < 2e-3);
+        assert!((s.rel_accuracy_pct - 9.81).abs() < 0.01);
+        assert_eq!(s.lines_for_target, Some(5));
+    }
+
+    #[test]
+    fn bad_files_are_named_with_the_row() {
+        for (text, words) in [
+            ("length,arms\n1,2\n", "no 'length_um' column"),
+            ("length_um,arms\n10,x\n", "row 2: arms 'x'"),
+            ("length_um,arms\n10,3\nabc,3\n", "row 3: length_um 'abc'"),
+            ("length_um,arms\n-4,3\n", "must be positive"),
+            ("length_um,arms\n10,0\n", "at least 1"),
+            ("length_um,arms\n10,\n", "no arms value"),
+        ] {
+            let e = parse(text, "m.csv").unwrap_err();
+            assert!(e.contains("m.csv") && e.contains(words), "{text:?}: {e}");
+        }
+        let one = parse("length_um,arms\n10,2\n", "m.csv").unwrap();
+        assert!(summarise(one, "m.csv", 10.0)
+            .unwrap_err()
+            .contains("at least two"));
+    }
+}
