@@ -59,6 +59,9 @@ struct MeasureArgs {
     /// Refuse images with more megapixels than this (checked before decoding).
     #[arg(long, default_value_t = DEFAULT_MAX_MEGAPIXELS, value_parser = parse_positive, allow_negative_numbers = true)]
     max_megapixels: f64,
+    /// Write a picture per image of what was measured into this folder.
+    #[arg(long)]
+    overlay: Option<PathBuf>,
     /// Worker threads (default: one per core).
     #[arg(long, value_parser = clap::value_parser!(u16).range(1..))]
     jobs: Option<u16>,
@@ -201,7 +204,17 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
         preprocess: PreprocessParams::default(),
         fft: FftParams::default(),
         methods,
+        overlay_dir: args.overlay.clone(),
     };
+    if let Some(dir) = &args.overlay {
+        if let Err(e) = std::fs::create_dir_all(dir) {
+            eprintln!(
+                "armspace: {}: cannot create the overlay folder: {e}",
+                dir.display()
+            );
+            return ExitCode::from(EXIT_FATAL);
+        }
+    }
     let inputs = collect_inputs(&args.paths);
     if !inputs
         .iter()

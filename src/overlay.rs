@@ -1,11 +1,14 @@
 //! Pictures of what was measured, drawn on the micrograph, for the report.
 //!
-//! Colours read on a grey micrograph: calibration features in magenta (the
-//! bar's outline and its measured ends) and yellow (the region excluded from
-//! measurement).
+//! Colours read on a grey micrograph. One caption explains a picture:
+//! "cyan: direction along which the arms repeat in each reliable FFT tile
+//! (short: rejected as an outlier, orange); green: intercept test lines, red
+//! ticks at the arm centres they cross; magenta: the scale bar and its
+//! measured length; yellow: region excluded from measurement".
 
 use crate::calibrate::scale_bar::ScaleBar;
 use crate::load::GrayImage;
+use crate::methods::fft::FftOutcome;
 use image::{Rgb, RgbImage};
 use imageproc::drawing::{draw_hollow_rect_mut, draw_line_segment_mut};
 use imageproc::rect::Rect;
@@ -13,6 +16,10 @@ use std::path::Path;
 
 pub const MAGENTA: Rgb<u8> = Rgb([255, 0, 200]);
 pub const YELLOW: Rgb<u8> = Rgb([255, 220, 0]);
+pub const CYAN: Rgb<u8> = Rgb([0, 230, 255]);
+pub const ORANGE: Rgb<u8> = Rgb([255, 140, 0]);
+pub const GREEN: Rgb<u8> = Rgb([40, 255, 60]);
+pub const RED: Rgb<u8> = Rgb([255, 40, 40]);
 
 /// The grey image as RGB, for drawing on.
 pub fn to_rgb(img: &GrayImage) -> RgbImage {
@@ -33,25 +40,70 @@ fn rect(r: [u32; 4], grow: u32) -> Option<Rect> {
 /// measured length marked by a line under it, and the excluded region.
 pub fn calibration(img: &GrayImage, bar: Option<&ScaleBar>) -> RgbImage {
     let mut out = to_rgb(img);
+    draw_bar(&mut out, bar);
+    out
+}
+
+/// A line segment centred at (cx, cy), `len` long, at `dir_deg`
+/// counter-clockwise from +x with y up (the methods' convention).
+fn segment(out: &mut RgbImage, cx: f64, cy: f64, dir_deg: f64, len: f64, colour: Rgb<u8>) {
+    let (c, s) = (dir_deg.to_radians().cos(), dir_deg.to_radians().sin());
+    let (dx, dy) = (0.5 * len * c, -0.5 * len * s);
+    for off in [-0.5f32, 0.0, 0.5] {
+        // Three parallel strokes, half a pixel apart, for visibility.
+        let (ox, oy) = (off * s as f32, off * c as f32);
+        draw_line_segment_mut(
+            out,
+            ((cx - dx) as f32 + ox, (cy - dy) as f32 + oy),
+            ((cx + dx) as f32 + ox, (cy + dy) as f32 + oy),
+            colour,
+        );
+    }
+}
+
+/// The micrograph with what was measured: the FFT tiles' directions, and the
+/// scale bar and excluded region.
+pub fn measurement(
+    img: &GrayImage,
+    bar: Option<&ScaleBar>,
+    fft: Option<&FftOutcome>,
+    fft_min_quality: f64,
+) -> RgbImage {
+    let mut out = to_rgb(img);
+    if let Some(f) = fft {
+        let len = 0.4 * f.window_px as f64;
+        for t in f.tiles.iter().filter(|t| t.spacing_px.is_finite()) {
+            if t.used {
+                segment(&mut out, t.cx_px, t.cy_px, t.dir_deg, len, CYAN);
+            } else if t.quality >= fft_min_quality {
+                segment(&mut out, t.cx_px, t.cy_px, t.dir_deg, 0.5 * len, ORANGE);
+            }
+        }
+    }
+    draw_bar(&mut out, bar);
+    out
+}
+
+fn draw_bar(out: &mut RgbImage, bar: Option<&ScaleBar>) {
+    let h = out.height();
     if let Some(b) = bar {
         if let Some(r) = rect(b.mask, 0) {
-            draw_hollow_rect_mut(&mut out, r, YELLOW);
+            draw_hollow_rect_mut(out, r, YELLOW);
         }
         for grow in [2, 3] {
             if let Some(r) = rect([b.x0, b.y0, b.x1, b.y1], grow) {
-                draw_hollow_rect_mut(&mut out, r, MAGENTA);
+                draw_hollow_rect_mut(out, r, MAGENTA);
             }
         }
         // The measured length, centred on the bar, drawn below it.
         let cx = 0.5 * (b.x0 + b.x1) as f32;
         let half = 0.5 * b.length_px as f32;
-        let y = (b.y1 + 6).min(img.height as u32 - 1) as f32;
-        draw_line_segment_mut(&mut out, (cx - half, y), (cx + half - 1.0, y), MAGENTA);
+        let y = (b.y1 + 6).min(h.saturating_sub(1)) as f32;
+        draw_line_segment_mut(out, (cx - half, y), (cx + half - 1.0, y), MAGENTA);
         for x in [cx - half, cx + half - 1.0] {
-            draw_line_segment_mut(&mut out, (x, y - 3.0), (x, y + 3.0), MAGENTA);
+            draw_line_segment_mut(out, (x, y - 3.0), (x, y + 3.0), MAGENTA);
         }
     }
-    out
 }
 
 /// Encodes a PNG in memory and writes it atomically.

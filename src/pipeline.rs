@@ -35,6 +35,8 @@ pub struct MeasureOptions {
     pub preprocess: PreprocessParams,
     pub fft: FftParams,
     pub methods: Vec<Method>,
+    /// Folder for a picture per image of what was measured.
+    pub overlay_dir: Option<PathBuf>,
 }
 
 /// File facts known once the image is decoded.
@@ -72,6 +74,8 @@ pub struct ImageResult {
     pub sdas: Estimate,
     pub warnings: Vec<String>,
     pub error: Option<String>,
+    /// The picture of what was measured, when one was written.
+    pub overlay: Option<PathBuf>,
 }
 
 impl ImageResult {
@@ -92,6 +96,7 @@ impl ImageResult {
             },
             warnings: vec![],
             error: Some(error),
+            overlay: None,
         }
     }
 
@@ -185,6 +190,22 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
     }
 
     let sdas = combine(fft.as_ref(), um_per_px, calibration.rel_uncertainty);
+    let overlay = opts.overlay_dir.as_ref().and_then(|dir| {
+        let picture = crate::overlay::measurement(
+            &loaded.image,
+            bar.as_ref(),
+            fft.as_ref(),
+            opts.fft.min_quality,
+        );
+        let target = dir.join(overlay_name(path, &info.sha256));
+        match crate::overlay::write_png(&target, &picture) {
+            Ok(()) => Some(target),
+            Err(e) => {
+                warnings.push(format!("overlay not written: {e}"));
+                None
+            }
+        }
+    });
     ImageResult {
         file: path.to_path_buf(),
         info: Some(info),
@@ -195,7 +216,19 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         sdas,
         warnings,
         error: None,
+        overlay,
     }
+}
+
+/// File name of an image's overlay: its stem and the first eight hex digits
+/// of its SHA-256, so that images of the same name in different folders do
+/// not overwrite each other's pictures.
+pub fn overlay_name(path: &std::path::Path, sha256: &str) -> String {
+    let stem = path
+        .file_stem()
+        .map(|s| s.to_string_lossy().into_owned())
+        .unwrap_or_else(|| "image".into());
+    format!("{stem}-{}.png", &sha256[..sha256.len().min(8)])
 }
 
 /// Coverage factor of a 95 % interval under a normal distribution.

@@ -89,6 +89,8 @@ pub struct ImageReport {
     pub methods: MethodsReport,
     pub warnings: Vec<String>,
     pub error: Option<String>,
+    /// Path of the picture of what was measured (with --overlay), else null.
+    pub overlay: Option<String>,
 }
 
 #[derive(Serialize, Debug)]
@@ -285,6 +287,7 @@ pub fn image_report(r: &ImageResult) -> ImageReport {
         },
         warnings: r.warnings.clone(),
         error: r.error.clone(),
+        overlay: r.overlay.as_ref().map(|p| p.display().to_string()),
     }
 }
 

@@ -26,6 +26,7 @@ fn relative_errors(seed: u64, count: usize) -> Vec<(Truth, Option<f64>)> {
                 preprocess: PreprocessParams::default(),
                 fft: FftParams::default(),
                 methods: vec![Method::Fft],
+                overlay_dir: None,
             };
             let r = measure_file(&dir.path().join(&t.file), &opts);
             assert!(r.error.is_none(), "{}: {:?}", t.file, r.error);
