@@ -38,7 +38,7 @@ pub struct FftParams {
     pub min_quality: f64,
     /// Largest masked fraction of a tile for it to be analysed.
     pub max_masked_fraction: f64,
-    /// Largest side of the windows of the first (coarse) pass, in pixels.
+    /// Largest tile side of the first (coarse) pass's scale ladder, in pixels.
     pub coarse_window_max_px: usize,
 }
 
@@ -147,27 +147,18 @@ pub fn measure(img: &Prepared, params: &FftParams) -> FftOutcome {
         );
     }
 
-    // Coarse pass: large windows give a first period that sets the tile size.
-    let coarse_n = *sizes
-        .iter()
-        .rev()
-        .find(|&&s| s <= params.coarse_window_max_px.max(32))
-        .unwrap_or(&largest);
-    let coarse = analyse_tiles(img, coarse_n, coarse_n, params);
-    let good: Vec<&TileResult> = coarse
-        .iter()
-        .filter(|t| t.quality >= params.min_quality)
-        .collect();
-    let coarse_period = stats::weighted_median(
-        &good.iter().map(|t| t.spacing_px).collect::<Vec<_>>(),
-        &good.iter().map(|t| t.quality).collect::<Vec<_>>(),
-    );
-    let Some(coarse_period) = coarse_period else {
+    // Coarse pass: the period that tiles reproduce across a ladder of scales
+    // sets the tile size (see `ladder_period`).
+    let ladder = scale_ladder(img, &sizes, params);
+    let coarse_n = ladder.last().map_or(largest, |s| s.n);
+    let Some(coarse_period) = ladder_period(&ladder, params) else {
+        let analysed = ladder.iter().map(|s| s.n_tiles).sum();
         return FftOutcome::none(
-            "no reliable periodicity: no spectral peak stands above the background".into(),
+            "no reliable periodicity: no spectral period is reproduced by the tiles across scales"
+                .into(),
             coarse_n,
             vec![],
-            coarse.len(),
+            analysed,
         );
     };
 
@@ -187,6 +178,141 @@ pub fn measure(img: &Prepared, params: &FftParams) -> FftOutcome {
     aggregate(tiles, n, params)
 }
 
+/// Statistics of the tiles of one size in the coarse scale ladder.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct ScaleStat {
+    /// Tile side, pixels.
+    pub n: usize,
+    /// Quality-weighted median period of the reliable tiles (NaN if none).
+    pub period_px: f64,
+    /// Fraction of the analysed tiles that are reliable and agree with
+    /// `period_px` within `LADDER_AGREEMENT`.
+    pub support: f64,
+    /// Number of tiles analysed.
+    pub n_tiles: usize,
+}
+
+/// Ratio between successive tile sizes of the coarse ladder. A factor 1.5
+/// (32, 48, 64, 96, ...) keeps neighbouring scales close enough that a real
+/// period is within the search range of both, and far enough apart that
+/// their spectra differ in resolution (common practice, no single source).
+const LADDER_RATIO: f64 = 1.5;
+
+/// Smallest tile of the ladder: below 32 px a tile cannot hold several
+/// periods of anything above the 3 px search floor with a resolved peak.
+const LADDER_MIN_PX: usize = 32;
+
+/// Relative tolerance for two periods to count as the same: the spacing of
+/// secondary arms itself scatters by 10-20 % along a trunk, and a tile of 4-6
+/// periods locates its peak to about a quarter bin, i.e. 4-6 % (common
+/// practice, no single source).
+const LADDER_AGREEMENT: f64 = 0.15;
+
+/// Smallest fraction of a scale's tiles that must agree on one period for
+/// the scale to support it. Noise alone makes about 1-3 % of tiles reliable
+/// (quality >= 6) and scatters their periods over the whole band, so a
+/// quarter of the tiles agreeing within 15 % is far beyond chance; it still
+/// allows the dendrites to cover only part of the field.
+const MIN_SUPPORT: f64 = 0.25;
+
+/// Fewest periods a tile must span for its period to be supported at that
+/// scale: a Hann window resolves a peak from the zero-frequency leakage (main
+/// lobe half-width 2 bins) from about 4 bins on (Harris 1978).
+const MIN_PERIODS_PER_TILE: f64 = 4.0;
+
+/// The tile sizes of the coarse ladder, from `LADDER_MIN_PX` up to the
+/// largest smooth size that fits, about `LADDER_RATIO` apart.
+fn ladder_sizes(sizes: &[usize]) -> Vec<usize> {
+    let mut out: Vec<usize> = Vec::new();
+    for &s in sizes.iter().filter(|&&s| s >= LADDER_MIN_PX) {
+        match out.last() {
+            Some(&l) if (s as f64) < (l as f64) * LADDER_RATIO * 0.99 => {}
+            _ => out.push(s),
+        }
+    }
+    out
+}
+
+/// Analyses the image at every size of the ladder. Tiles do not overlap
+/// unless that leaves fewer than 16 of them (then they half overlap), which
+/// keeps the cost of the ladder near that of one pass over the image.
+pub fn scale_ladder(img: &Prepared, sizes: &[usize], params: &FftParams) -> Vec<ScaleStat> {
+    let (w, h) = (img.image.width, img.image.height);
+    let cap = params.coarse_window_max_px.max(LADDER_MIN_PX);
+    let capped: Vec<usize> = sizes.iter().copied().filter(|&s| s <= cap).collect();
+    ladder_sizes(&capped)
+        .into_iter()
+        .map(|n| {
+            let full = (w / n) * (h / n);
+            let stride = if full >= 16 { n } else { (n / 2).max(1) };
+            let tiles = analyse_tiles(img, n, stride, params);
+            scale_stat(n, &tiles, params)
+        })
+        .collect()
+}
+
+/// Weighted median period of a scale's reliable tiles and the fraction of
+/// its tiles that agree with it.
+fn scale_stat(n: usize, tiles: &[TileResult], params: &FftParams) -> ScaleStat {
+    let good: Vec<&TileResult> = tiles
+        .iter()
+        .filter(|t| t.quality >= params.min_quality && t.spacing_px.is_finite())
+        .collect();
+    let period = stats::weighted_median(
+        &good.iter().map(|t| t.spacing_px).collect::<Vec<_>>(),
+        &good.iter().map(|t| t.quality.ln()).collect::<Vec<_>>(),
+    )
+    .unwrap_or(f64::NAN);
+    let agree = good
+        .iter()
+        .filter(|t| (t.spacing_px / period - 1.0).abs() <= LADDER_AGREEMENT)
+        .count();
+    ScaleStat {
+        n,
+        period_px: period,
+        support: if tiles.is_empty() {
+            0.0
+        } else {
+            agree as f64 / tiles.len() as f64
+        },
+        n_tiles: tiles.len(),
+    }
+}
+
+/// The period that sets the tile size: the finest period that a scale of the
+/// ladder supports (at least `MIN_SUPPORT` of its tiles agree on it, and its
+/// tiles span at least `MIN_PERIODS_PER_TILE` periods) and that a
+/// neighbouring scale reproduces (supported there too, within
+/// `LADDER_AGREEMENT`).
+///
+/// A real period stays put when the tile grows, while noise peaks and the
+/// side lobes of single features move with the tile's resolution, so
+/// reproduction across scales separates them. The finest such period is
+/// taken because secondary arms are finer than the primary spacing (the
+/// trunk spacing is also reproduced, at the larger scales). Larger tiles
+/// average more periods, so the larger scale's estimate is returned.
+pub fn ladder_period(ladder: &[ScaleStat], _params: &FftParams) -> Option<f64> {
+    let supported = |s: &ScaleStat| s.period_px.is_finite() && s.support >= MIN_SUPPORT;
+    let same = |a: f64, b: f64| (a / b - 1.0).abs() <= LADDER_AGREEMENT;
+    let mut best: Option<f64> = None;
+    for (i, s) in ladder.iter().enumerate() {
+        if !supported(s) || (s.n as f64) < MIN_PERIODS_PER_TILE * s.period_px {
+            continue;
+        }
+        let neighbours = [i.checked_sub(1), Some(i + 1)];
+        for j in neighbours.into_iter().flatten() {
+            let Some(o) = ladder.get(j) else { continue };
+            if supported(o) && same(s.period_px, o.period_px) {
+                let p = if o.n > s.n { o.period_px } else { s.period_px };
+                if best.is_none_or(|b| p < b) {
+                    best = Some(p);
+                }
+            }
+        }
+    }
+    best
+}
+
 /// Tile origins along one axis: evenly spread, about `stride` apart, covering
 /// [0, len) with tiles of size n.
 fn origins(len: usize, n: usize, stride: usize) -> Vec<usize> {
@@ -204,7 +330,12 @@ fn origins(len: usize, n: usize, stride: usize) -> Vec<usize> {
 }
 
 /// Analyses every tile of size n on a grid of about `stride` spacing.
-pub fn analyse_tiles(img: &Prepared, n: usize, stride: usize, params: &FftParams) -> Vec<TileResult> {
+pub fn analyse_tiles(
+    img: &Prepared,
+    n: usize,
+    stride: usize,
+    params: &FftParams,
+) -> Vec<TileResult> {
     let (w, h) = (img.image.width, img.image.height);
     let xs = origins(w, n, stride);
     let ys = origins(h, n, stride);
@@ -247,7 +378,12 @@ fn masked_fraction(img: &Prepared, x0: usize, y0: usize, n: usize) -> f64 {
     let Some(mask) = &img.mask else { return 0.0 };
     let w = img.image.width;
     let count: usize = (y0..y0 + n)
-        .map(|y| mask[y * w + x0..y * w + x0 + n].iter().filter(|m| **m).count())
+        .map(|y| {
+            mask[y * w + x0..y * w + x0 + n]
+                .iter()
+                .filter(|m| **m)
+                .count()
+        })
         .sum();
     count as f64 / (n * n) as f64
 }
@@ -547,11 +683,10 @@ fn aggregate(mut tiles: Vec<TileResult>, n: usize, params: &FftParams) -> FftOut
     let overlap = 0.25; // (stride / n)^2 with stride = n / 2
     let n_eff = (kept.len() as f64 * overlap).max(1.0);
     let ci = match (value, spread) {
-        (Some(m), Some(s)) if n_eff >= 2.0 => stats::t_quantile(0.975, n_eff - 1.0)
-            .map(|t| {
-                let half = t * 1.2533 * s / n_eff.sqrt();
-                [m - half, m + half]
-            }),
+        (Some(m), Some(s)) if n_eff >= 2.0 => stats::t_quantile(0.975, n_eff - 1.0).map(|t| {
+            let half = t * 1.2533 * s / n_eff.sqrt();
+            [m - half, m + half]
+        }),
         _ => None,
     };
     let (mut c, mut s) = (0.0, 0.0);
@@ -628,7 +763,11 @@ mod tests {
             let mut p = Vec::new();
             a.power(&img, n, 0, 0, &mut p);
             let peak = choose_peak(&p, n, &FftParams::default()).unwrap();
-            assert!(axial_difference(peak.dir_deg(), angle) < 1.0, "{angle}: {}", peak.dir_deg());
+            assert!(
+                axial_difference(peak.dir_deg(), angle) < 1.0,
+                "{angle}: {}",
+                peak.dir_deg()
+            );
             assert!((peak.period_px() - 10.0).abs() < 0.1);
         }
     }
@@ -637,18 +776,26 @@ mod tests {
     fn featureless_images_give_no_value() {
         let (w, h) = (256, 256);
         let flat = GrayImage::from_vec(w, h, vec![0.5; w * h]).unwrap();
-        let out = measure(&prepare(&flat, None, &PreprocessParams::default()), &FftParams::default());
+        let out = measure(
+            &prepare(&flat, None, &PreprocessParams::default()),
+            &FftParams::default(),
+        );
         assert!(out.value_px.is_none() && out.reason.is_some());
         // Pseudo-random white noise (a fixed linear congruential sequence) has no period.
         let mut state = 12345u64;
         let noise: Vec<f32> = (0..w * h)
             .map(|_| {
-                state = state.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
+                state = state
+                    .wrapping_mul(6364136223846793005)
+                    .wrapping_add(1442695040888963407);
                 (state >> 40) as f32 / (1u64 << 24) as f32
             })
             .collect();
         let img = GrayImage::from_vec(w, h, noise).unwrap();
-        let out = measure(&prepare(&img, None, &PreprocessParams::default()), &FftParams::default());
+        let out = measure(
+            &prepare(&img, None, &PreprocessParams::default()),
+            &FftParams::default(),
+        );
         assert!(out.value_px.is_none(), "noise gave {:?}", out.value_px);
     }
 }
