@@ -3,9 +3,16 @@
 //! Rows of secondary arms are periodic along their primary trunk, so the power
 //! spectrum of a window over them peaks at the spatial frequency 1/lambda2 in
 //! the trunk's direction. The image is cut into overlapping square tiles of
-//! about `periods_per_tile` periods (the period first estimated on a few large
-//! windows); each tile gives a spacing, a direction and a quality, and the
-//! image's value is a robust aggregate of the reliable tiles.
+//! about `periods_per_tile` periods; each tile gives a spacing, a direction
+//! and a quality, and the image's value is a robust aggregate of the reliable
+//! tiles that agree with the coarse period.
+//!
+//! The coarse period comes from a ladder of tile sizes (32, 48, 72, ...): the
+//! finest period on which a quarter of a scale's tiles agree and which the
+//! next larger scale reproduces (`ladder_period`). Noise peaks and the side
+//! lobes of single features move with the tile's resolution, and the primary
+//! spacing is coarser than the secondary one; an image in which no period is
+//! reproduced gets no value.
 //!
 //! Peak choice in a tile, in order:
 //! 1. candidates are local maxima of the 3x3-smoothed power spectrum with
@@ -174,7 +181,12 @@ pub fn measure(img: &Prepared, params: &FftParams) -> FftOutcome {
                 .total_cmp(&((*b as f64) - target).abs())
         })
         .unwrap_or(largest);
-    let tiles = analyse_tiles(img, n, (n / 2).max(1), params);
+    let mut tiles = analyse_tiles(img, n, (n / 2).max(1), params);
+    for t in tiles.iter_mut() {
+        if t.spacing_px.is_finite() && !compatible(t.spacing_px, coarse_period) {
+            t.quality = 0.0;
+        }
+    }
     aggregate(tiles, n, params)
 }
 
@@ -281,36 +293,37 @@ fn scale_stat(n: usize, tiles: &[TileResult], params: &FftParams) -> ScaleStat {
 
 /// The period that sets the tile size: the finest period that a scale of the
 /// ladder supports (at least `MIN_SUPPORT` of its tiles agree on it, and its
-/// tiles span at least `MIN_PERIODS_PER_TILE` periods) and that a
-/// neighbouring scale reproduces (supported there too, within
-/// `LADDER_AGREEMENT`).
+/// tiles span at least `MIN_PERIODS_PER_TILE` periods) and that the next
+/// larger scale reproduces (supported there too, within `LADDER_AGREEMENT`).
 ///
 /// A real period stays put when the tile grows, while noise peaks and the
-/// side lobes of single features move with the tile's resolution, so
-/// reproduction across scales separates them. The finest such period is
-/// taken because secondary arms are finer than the primary spacing (the
-/// trunk spacing is also reproduced, at the larger scales). Larger tiles
+/// side lobes of single features (an arm's width) move with the tile's
+/// resolution, so reproduction across scales separates them. The finest such
+/// period is taken because secondary arms are finer than the primary spacing
+/// (the trunk spacing is also reproduced, at the larger scales). Larger tiles
 /// average more periods, so the larger scale's estimate is returned.
 pub fn ladder_period(ladder: &[ScaleStat], _params: &FftParams) -> Option<f64> {
     let supported = |s: &ScaleStat| s.period_px.is_finite() && s.support >= MIN_SUPPORT;
     let same = |a: f64, b: f64| (a / b - 1.0).abs() <= LADDER_AGREEMENT;
-    let mut best: Option<f64> = None;
-    for (i, s) in ladder.iter().enumerate() {
-        if !supported(s) || (s.n as f64) < MIN_PERIODS_PER_TILE * s.period_px {
-            continue;
-        }
-        let neighbours = [i.checked_sub(1), Some(i + 1)];
-        for j in neighbours.into_iter().flatten() {
-            let Some(o) = ladder.get(j) else { continue };
-            if supported(o) && same(s.period_px, o.period_px) {
-                let p = if o.n > s.n { o.period_px } else { s.period_px };
-                if best.is_none_or(|b| p < b) {
-                    best = Some(p);
-                }
-            }
-        }
-    }
-    best
+    ladder
+        .windows(2)
+        .filter(|w| {
+            supported(&w[0])
+                && supported(&w[1])
+                && (w[0].n as f64) >= MIN_PERIODS_PER_TILE * w[0].period_px
+                && same(w[1].period_px, w[0].period_px)
+        })
+        .map(|w| w[1].period_px)
+        .min_by(f64::total_cmp)
+}
+
+/// Whether a tile's period is compatible with the period reproduced across
+/// scales: within a factor sqrt 2, the geometric midpoint between that period
+/// and its second harmonic or sub-harmonic. A tile outside it has locked on a
+/// harmonic, on the primary spacing or on texture, not on the arms the other
+/// scales agree on, so it gives no value.
+fn compatible(spacing: f64, period: f64) -> bool {
+    (spacing / period).ln().abs() <= std::f64::consts::SQRT_2.ln()
 }
 
 /// Tile origins along one axis: evenly spread, about `stride` apart, covering
@@ -797,5 +810,69 @@ mod tests {
             &FftParams::default(),
         );
         assert!(out.value_px.is_none(), "noise gave {:?}", out.value_px);
+    }
+
+    fn stat(n: usize, period_px: f64, support: f64) -> ScaleStat {
+        ScaleStat {
+            n,
+            period_px,
+            support,
+            n_tiles: 20,
+        }
+    }
+
+    #[test]
+    fn ladder_keeps_the_finest_period_reproduced_across_scales() {
+        // Basis: a real period does not move with the analysis window while
+        // resolution artefacts do (common practice, no single source), and
+        // secondary arms are finer than the primary spacing.
+        let p = FftParams::default();
+        let ladder = [
+            stat(32, 4.6, 0.3),  // drifts to 5.4 at the next scale: artefact
+            stat(48, 5.4, 0.3),  // not reproduced at 72
+            stat(72, 13.6, 0.4), // reproduced at 108: secondary arms
+            stat(108, 13.4, 0.5),
+            stat(162, 36.0, 0.6), // reproduced at 250: primary spacing
+            stat(250, 36.5, 0.8),
+        ];
+        let got = ladder_period(&ladder, &p).unwrap();
+        assert!((got - 13.4).abs() < 1e-9, "{got}");
+        // Without enough agreeing tiles no scale supports a period.
+        let weak: Vec<ScaleStat> = ladder.iter().map(|s| stat(s.n, s.period_px, 0.1)).collect();
+        assert!(ladder_period(&weak, &p).is_none());
+        // A tile must span MIN_PERIODS_PER_TILE periods at the finer scale.
+        let coarse = [stat(32, 12.0, 0.5), stat(48, 12.0, 0.5)];
+        assert!(ladder_period(&coarse, &p).is_none());
+    }
+
+    #[test]
+    fn tiles_locked_on_a_harmonic_are_incompatible() {
+        // Basis: sqrt 2 is the geometric midpoint between a period and its
+        // second harmonic (or sub-harmonic).
+        assert!(compatible(13.0, 10.0) && compatible(7.5, 10.0));
+        assert!(!compatible(20.0, 10.0) && !compatible(5.0, 10.0));
+    }
+
+    #[test]
+    fn finer_of_two_crossed_periods_is_measured() {
+        // A strong coarse wave (period 30, as a primary spacing) across a
+        // weaker fine one (period 8, as secondary arms): the finer period is
+        // the one reproduced at the smallest scales and is measured.
+        // Basis: secondary arms are finer than the primary spacing.
+        let n = 384;
+        let coarse = sinusoid(n, 30.0, 0.0);
+        let fine = sinusoid(n, 8.0, 90.0);
+        let data: Vec<f32> = coarse
+            .iter()
+            .zip(&fine)
+            .map(|(a, b)| 0.5 + 0.3 * a + 0.15 * b)
+            .collect();
+        let img = GrayImage::from_vec(n, n, data).unwrap();
+        let out = measure(
+            &prepare(&img, None, &PreprocessParams::default()),
+            &FftParams::default(),
+        );
+        let v = out.value_px.unwrap();
+        assert!((v - 8.0).abs() < 0.2, "{v}");
     }
 }
