@@ -56,7 +56,11 @@ impl SpectrumAnalyser {
                 wxsum += w * *v as f64;
             }
         }
-        let mean = if wsum > 0.0 { (wxsum / wsum) as f32 } else { 0.0 };
+        let mean = if wsum > 0.0 {
+            (wxsum / wsum) as f32
+        } else {
+            0.0
+        };
         for y in 0..n {
             let row = &img[(y0 + y) * stride + x0..(y0 + y) * stride + x0 + n];
             let wy = self.window[y];
@@ -76,7 +80,8 @@ impl SpectrumAnalyser {
         self.fft
             .process_with_scratch(&mut self.buf, &mut self.scratch);
         transpose(&self.buf, &mut self.tr, n);
-        self.fft.process_with_scratch(&mut self.tr, &mut self.scratch);
+        self.fft
+            .process_with_scratch(&mut self.tr, &mut self.scratch);
         transpose(&self.tr, &mut self.buf, n);
     }
 }
@@ -148,7 +153,16 @@ mod tests {
     fn hann_matches_definition() {
         // scipy.signal.get_window("hann", 8) (periodic): 0, 0.14645, 0.5, 0.85355, 1, ...
         let w = hann(8);
-        let expected = [0.0, 0.146_446_6, 0.5, 0.853_553_4, 1.0, 0.853_553_4, 0.5, 0.146_446_6];
+        let expected = [
+            0.0,
+            0.146_446_6,
+            0.5,
+            0.853_553_4,
+            1.0,
+            0.853_553_4,
+            0.5,
+            0.146_446_6,
+        ];
         for (a, b) in w.iter().zip(expected) {
             assert!((*a as f64 - b).abs() < 1e-6);
         }
