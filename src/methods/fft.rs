@@ -411,6 +411,7 @@ pub fn choose_peak(power: &[f64], n: usize, params: &FftParams) -> Option<Peak> 
         orient.anisotropy < MIN_ANISOTROPY
             || axial_difference(p.dir_deg(), orient.dir_deg) <= MAX_OFF_AXIS_DEG
     };
+    let periodic = |p: &&Peak| relative_width(power, n, p) <= MAX_RELATIVE_WIDTH;
     // Among reliable aligned peaks the one of most power: a row of arms puts
     // most of its power in its fundamental, while the ring background, which
     // sets prominence, falls steeply with frequency and would favour the
@@ -418,11 +419,60 @@ pub fn choose_peak(power: &[f64], n: usize, params: &FftParams) -> Option<Peak> 
     let first = cands
         .iter()
         .filter(aligned)
+        .filter(periodic)
         .filter(|p| p.prominence >= params.min_quality)
         .max_by(|a, b| a.power.total_cmp(&b.power))
-        .or(cands.first())
+        .or(cands.iter().find(periodic))
         .copied()?;
     Some(fundamental_of(first, &cands, n, params))
+}
+
+/// Largest relative half-power width (full width / frequency, radially) of a
+/// spectral peak for it to count as a period. N periods under a Hann window
+/// give a peak of half-power full width 1.44 bins (Harris 1978), i.e. a
+/// relative width 1.44 / N: at most 0.48 once a tile holds three periods,
+/// the fewest that make a repetition. The spectrum of a single feature (the
+/// form factor of one arm's width, seen by a tile too small to hold several
+/// arms) is a lobe of relative width of order one, whatever the tile size.
+const MAX_RELATIVE_WIDTH: f64 = 0.5;
+
+/// Relative radial half-power width of a peak: the distance, along the ray
+/// from the origin through the peak, between the points where the raw power
+/// (bilinearly interpolated, sampled every quarter bin) first falls to half
+/// the peak's power on either side, divided by the peak's radius. A side
+/// that never falls to half (before the origin or the Nyquist edge) extends
+/// to that limit.
+pub fn relative_width(power: &[f64], n: usize, peak: &Peak) -> f64 {
+    let (u, v) = (peak.fx * n as f64, peak.fy * n as f64);
+    let r = u.hypot(v);
+    if r <= 0.0 {
+        return f64::INFINITY;
+    }
+    let (cu, cv) = (u / r, v / r);
+    let ni = n as i64;
+    let g = |a: i64, b: i64| power[(b.rem_euclid(ni) as usize) * n + a.rem_euclid(ni) as usize];
+    let at = |t: f64| -> f64 {
+        let (x, y) = (t * cu, t * cv);
+        let (x0, y0) = (x.floor(), y.floor());
+        let (fx, fy) = (x - x0, y - y0);
+        let (xi, yi) = (x0 as i64, y0 as i64);
+        g(xi, yi) * (1.0 - fx) * (1.0 - fy)
+            + g(xi + 1, yi) * fx * (1.0 - fy)
+            + g(xi, yi + 1) * (1.0 - fx) * fy
+            + g(xi + 1, yi + 1) * fx * fy
+    };
+    let half = 0.5 * at(r);
+    let step = 0.25;
+    let mut lo = r;
+    while lo > 0.0 && at(lo) > half {
+        lo -= step;
+    }
+    let edge = n as f64 / 2.0 - 1.0;
+    let mut hi = r;
+    while hi < edge && at(hi) > half {
+        hi += step;
+    }
+    (hi.min(edge) - lo.max(0.0)) / r
 }
 
 /// The dominant orientation of a spectrum's excess power (power above its
@@ -886,5 +936,37 @@ mod tests {
         );
         let v = out.value_px.unwrap();
         assert!((v - 8.0).abs() < 0.2, "{v}");
+    }
+
+    #[test]
+    fn a_single_bar_is_not_a_period() {
+        // Basis: N periods under a Hann window give a peak of relative
+        // half-power width 1.44 / N (Harris 1978); one feature's form factor
+        // gives a lobe of relative width of order one.
+        let n = 64;
+        // One bright bar, 6 px wide, across the tile: no repetition.
+        let bar: Vec<f32> = (0..n * n)
+            .map(|i| {
+                if (29..35).contains(&(i % n)) {
+                    1.0
+                } else {
+                    0.0
+                }
+            })
+            .collect();
+        let mut a = SpectrumAnalyser::new(n);
+        let mut p = Vec::new();
+        a.power(&bar, n, 0, 0, &mut p);
+        let (cands, _) = candidates(&p, n, &FftParams::default());
+        assert!(cands
+            .iter()
+            .all(|c| relative_width(&p, n, c) > MAX_RELATIVE_WIDTH));
+        assert!(choose_peak(&p, n, &FftParams::default()).is_none());
+        // Eight periods of 8 px: a narrow peak.
+        let wave = sinusoid(n, 8.0, 0.0);
+        a.power(&wave, n, 0, 0, &mut p);
+        let peak = choose_peak(&p, n, &FftParams::default()).unwrap();
+        let w = relative_width(&p, n, &peak);
+        assert!(w < 0.3, "{w}");
     }
 }
