@@ -156,9 +156,13 @@ pub fn measure(img: &Prepared, params: &FftParams) -> FftOutcome {
 
     // Coarse pass: the period that tiles reproduce across a ladder of scales
     // sets the tile size (see `ladder_period`).
-    let ladder = scale_ladder(img, &sizes, params);
+    let scales = ladder_tiles(img, &sizes, params);
+    let ladder: Vec<ScaleStat> = scales
+        .iter()
+        .map(|(n, t)| scale_stat(*n, t, params))
+        .collect();
     let coarse_n = ladder.last().map_or(largest, |s| s.n);
-    let Some(coarse_period) = ladder_period(&ladder, params) else {
+    let Some(coarse_period) = resolve_ladder(&ladder, &scales, params) else {
         let analysed = ladder.iter().map(|s| s.n_tiles).sum();
         return FftOutcome::none(
             "no reliable periodicity: no spectral period is reproduced by the tiles across scales"
@@ -250,6 +254,18 @@ fn ladder_sizes(sizes: &[usize]) -> Vec<usize> {
 /// support fraction still rests on several tiles), which keeps the cost of
 /// each scale near that of one pass over the image.
 pub fn scale_ladder(img: &Prepared, sizes: &[usize], params: &FftParams) -> Vec<ScaleStat> {
+    ladder_tiles(img, sizes, params)
+        .iter()
+        .map(|(n, t)| scale_stat(*n, t, params))
+        .collect()
+}
+
+/// The tiles of every size of the ladder (see `scale_ladder`).
+fn ladder_tiles(
+    img: &Prepared,
+    sizes: &[usize],
+    params: &FftParams,
+) -> Vec<(usize, Vec<TileResult>)> {
     let (w, h) = (img.image.width, img.image.height);
     let cap = params.coarse_window_max_px.max(LADDER_MIN_PX);
     let capped: Vec<usize> = sizes.iter().copied().filter(|&s| s <= cap).collect();
@@ -258,8 +274,7 @@ pub fn scale_ladder(img: &Prepared, sizes: &[usize], params: &FftParams) -> Vec<
         .map(|n| {
             let count = |stride: usize| origins(w, n, stride).len() * origins(h, n, stride).len();
             let stride = if count(n) >= 9 { n } else { (n / 2).max(1) };
-            let tiles = analyse_tiles(img, n, stride, params);
-            scale_stat(n, &tiles, params)
+            (n, analyse_tiles(img, n, stride, params))
         })
         .collect()
 }
@@ -304,18 +319,85 @@ fn scale_stat(n: usize, tiles: &[TileResult], params: &FftParams) -> ScaleStat {
 /// (the trunk spacing is also reproduced, at the larger scales). Larger tiles
 /// average more periods, so the larger scale's estimate is returned.
 pub fn ladder_period(ladder: &[ScaleStat], _params: &FftParams) -> Option<f64> {
+    ladder_candidates(ladder).first().map(|c| c.0)
+}
+
+/// Every period reproduced by a pair of neighbouring scales (see
+/// `ladder_period`), finest first: (period at the larger scale, index of the
+/// larger scale).
+fn ladder_candidates(ladder: &[ScaleStat]) -> Vec<(f64, usize)> {
     let supported = |s: &ScaleStat| s.period_px.is_finite() && s.support >= MIN_SUPPORT;
     let same = |a: f64, b: f64| (a / b - 1.0).abs() <= LADDER_AGREEMENT;
-    ladder
-        .windows(2)
-        .filter(|w| {
-            supported(&w[0])
-                && supported(&w[1])
-                && (w[0].n as f64) >= MIN_PERIODS_PER_TILE * w[0].period_px
-                && same(w[1].period_px, w[0].period_px)
+    let mut out: Vec<(f64, usize)> = (1..ladder.len())
+        .filter(|&i| {
+            let (a, b) = (&ladder[i - 1], &ladder[i]);
+            supported(a)
+                && supported(b)
+                && (a.n as f64) >= MIN_PERIODS_PER_TILE * a.period_px
+                && same(b.period_px, a.period_px)
         })
-        .map(|w| w[1].period_px)
-        .min_by(f64::total_cmp)
+        .map(|i| (ladder[i].period_px, i))
+        .collect();
+    out.sort_by(|a, b| a.0.total_cmp(&b.0));
+    out
+}
+
+/// Largest median axial angle between a fine period's tiles and the coarser
+/// period's tiles that contain them for the fine one to count as parallel:
+/// 45 degrees, midway between parallel and perpendicular.
+const PARALLEL_DEG: f64 = 45.0;
+
+/// The ladder period, with a check on direction: the finest reproduced
+/// period is dropped when, where a coarser reproduced period is seen, it
+/// repeats in the same direction as that coarser one.
+///
+/// Secondary arms repeat along their trunk, while the primary spacing repeats
+/// across the trunks, perpendicular to it; a finer period parallel to a
+/// coarser one at the same place is instead a feature of the same rows (a
+/// harmonic whose fundamental the small tile could not resolve, or a side
+/// lobe of the arms' width), not a finer spacing. Without tiles to compare
+/// (no coarser period, or none overlapping), the finest period stands.
+fn resolve_ladder(
+    ladder: &[ScaleStat],
+    scales: &[(usize, Vec<TileResult>)],
+    params: &FftParams,
+) -> Option<f64> {
+    let cands = ladder_candidates(ladder);
+    let agreeing = |i: usize, p: f64| -> Vec<&TileResult> {
+        scales.get(i).map_or(vec![], |(_, tiles)| {
+            tiles
+                .iter()
+                .filter(|t| {
+                    t.quality >= params.min_quality
+                        && (t.spacing_px / p - 1.0).abs() <= LADDER_AGREEMENT
+                })
+                .collect()
+        })
+    };
+    'fine: for (k, &(p, i)) in cands.iter().enumerate() {
+        let fine = agreeing(i, p);
+        for &(q, j) in &cands[k + 1..] {
+            if q <= p * (1.0 + LADDER_AGREEMENT) || ladder[j].n < ladder[i].n {
+                continue;
+            }
+            let reach = (ladder[j].n - ladder[i].n) as f64 / 2.0;
+            let mut diffs: Vec<f64> = Vec::new();
+            for big in agreeing(j, q) {
+                for small in &fine {
+                    if (small.cx_px - big.cx_px).abs() <= reach
+                        && (small.cy_px - big.cy_px).abs() <= reach
+                    {
+                        diffs.push(axial_difference(small.dir_deg, big.dir_deg));
+                    }
+                }
+            }
+            if diffs.len() >= 3 && stats::median(&diffs).is_some_and(|m| m < PARALLEL_DEG) {
+                continue 'fine;
+            }
+        }
+        return Some(p);
+    }
+    None
 }
 
 /// Whether a tile's period is compatible with the period reproduced across
@@ -431,9 +513,10 @@ pub fn choose_peak(power: &[f64], n: usize, params: &FftParams) -> Option<Peak> 
 /// spectral peak for it to count as a period. N periods under a Hann window
 /// give a peak of half-power full width 1.44 bins (Harris 1978), i.e. a
 /// relative width 1.44 / N: at most 0.48 once a tile holds three periods,
-/// the fewest that make a repetition. The spectrum of a single feature (the
-/// form factor of one arm's width, seen by a tile too small to hold several
-/// arms) is a lobe of relative width of order one, whatever the tile size.
+/// the fewest that make a repetition. A tile holding fewer repeats, or a
+/// spacing too irregular to be one period, gives a broader peak, as does the
+/// main lobe of a single feature's form factor (its side lobes are narrower;
+/// `resolve_ladder` deals with those).
 const MAX_RELATIVE_WIDTH: f64 = 0.5;
 
 /// Relative radial half-power width of a peak: the distance, along the ray
@@ -974,5 +1057,43 @@ mod tests {
         let peak = choose_peak(&p, n, &FftParams::default()).unwrap();
         let w = relative_width(&p, n, &peak);
         assert!(w < 0.3, "{w}");
+    }
+
+    #[test]
+    fn finer_period_parallel_to_a_coarser_one_is_dropped() {
+        // Basis: secondary arms repeat along the trunk and the primary
+        // spacing across it (perpendicular); a finer period along the same
+        // direction as a coarser one at the same place belongs to the same
+        // rows (harmonic or side lobe). Common practice, no single source.
+        let p = FftParams::default();
+        let tile = |cx: f64, cy: f64, spacing_px: f64, dir_deg: f64| TileResult {
+            cx_px: cx,
+            cy_px: cy,
+            spacing_px,
+            dir_deg,
+            quality: 20.0,
+            used: false,
+        };
+        let build = |coarse_dir: f64| {
+            let mut scales = Vec::new();
+            for (n, per, dir) in [
+                (32usize, 5.0, 30.0),
+                (48, 5.1, 30.0),
+                (72, 14.0, coarse_dir),
+                (108, 14.2, coarse_dir),
+            ] {
+                let tiles: Vec<TileResult> = (0..9)
+                    .map(|k| tile(100.0 + 5.0 * k as f64, 100.0, per, dir))
+                    .collect();
+                scales.push((n, tiles));
+            }
+            let ladder: Vec<ScaleStat> =
+                scales.iter().map(|(n, t)| scale_stat(*n, t, &p)).collect();
+            resolve_ladder(&ladder, &scales, &p)
+        };
+        // Parallel: the fine period is a feature of the coarser rows.
+        assert!((build(35.0).unwrap() - 14.2).abs() < 1e-9);
+        // Perpendicular: the fine period is the secondary spacing.
+        assert!((build(120.0).unwrap() - 5.1).abs() < 1e-9);
     }
 }
