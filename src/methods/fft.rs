@@ -500,9 +500,9 @@ pub fn choose_peak(power: &[f64], n: usize, params: &FftParams) -> Option<Peak> 
     // side lobes of the arms' width.
     let first = cands
         .iter()
+        .filter(|p| p.prominence >= params.min_quality)
         .filter(aligned)
         .filter(periodic)
-        .filter(|p| p.prominence >= params.min_quality)
         .max_by(|a, b| a.power.total_cmp(&b.power))
         .or(cands.iter().find(periodic))
         .copied()?;
