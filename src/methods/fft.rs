@@ -9,21 +9,26 @@
 //!
 //! The coarse period comes from a ladder of tile sizes (32, 48, 72, ...): the
 //! finest period on which a quarter of a scale's tiles agree and which the
-//! next larger scale reproduces (`ladder_period`). Noise peaks and the side
-//! lobes of single features move with the tile's resolution, and the primary
-//! spacing is coarser than the secondary one; an image in which no period is
-//! reproduced gets no value.
+//! next larger scale reproduces (`ladder_period`), unless it repeats parallel
+//! to a coarser reproduced period at the same place (`resolve_ladder`: then
+//! it is a harmonic or side lobe of the same rows). Noise peaks move with the
+//! tile's resolution, and the primary spacing is coarser than the secondary
+//! one and perpendicular to it; an image in which no period is reproduced
+//! gets no value. Fine-pass tiles more than a factor sqrt 2 off the coarse
+//! period give no value.
 //!
 //! Peak choice in a tile, in order:
 //! 1. candidates are local maxima of the 3x3-smoothed power spectrum with
-//!    periods between `min_period_px` and half the tile, ranked by their
-//!    prominence over the median power of their frequency ring;
-//! 2. if a candidate lies near half the strongest one's frequency vector, the
-//!    strongest was a harmonic and the fundamental is taken;
-//! 3. if a strong candidate lies roughly perpendicular at a clearly higher
-//!    frequency, the strongest was the primary (trunk) spacing, and the
-//!    perpendicular, finer period is taken: secondary arms are finer than the
-//!    primary spacing and perpendicular to it.
+//!    periods between `min_period_px` and half the tile, with their
+//!    prominence over the larger of their frequency ring's median and the
+//!    floor along their ray;
+//! 2. when the spectrum has a dominant orientation, only candidates aligned
+//!    with it are considered (secondary arms carry most of the edges);
+//! 3. among reliable (prominence >= `min_quality`), narrow (relative
+//!    half-power width <= 0.5: at least three repeats) candidates, the most
+//!    powerful is taken;
+//! 4. if a candidate lies near 1/k of its frequency vector, it was a harmonic
+//!    and the fundamental is taken.
 //!
 //! The quality of a tile is the chosen peak's prominence. Under white noise
 //! the smoothed spectrum's maximum prominence rarely exceeds 3, so the default
