@@ -3,20 +3,32 @@
 //! Rows of secondary arms are periodic along their primary trunk, so the power
 //! spectrum of a window over them peaks at the spatial frequency 1/lambda2 in
 //! the trunk's direction. The image is cut into overlapping square tiles of
-//! about `periods_per_tile` periods (the period first estimated on a few large
-//! windows); each tile gives a spacing, a direction and a quality, and the
-//! image's value is a robust aggregate of the reliable tiles.
+//! about `periods_per_tile` periods; each tile gives a spacing, a direction
+//! and a quality, and the image's value is a robust aggregate of the reliable
+//! tiles that agree with the coarse period.
+//!
+//! The coarse period comes from a ladder of tile sizes (32, 48, 72, ...): the
+//! finest period on which a quarter of a scale's tiles agree and which the
+//! next larger scale reproduces (`ladder_period`), unless it repeats parallel
+//! to a coarser reproduced period at the same place (`resolve_ladder`: then
+//! it is a harmonic or side lobe of the same rows). Noise peaks move with the
+//! tile's resolution, and the primary spacing is coarser than the secondary
+//! one and perpendicular to it; an image in which no period is reproduced
+//! gets no value. Fine-pass tiles more than a factor sqrt 2 off the coarse
+//! period give no value.
 //!
 //! Peak choice in a tile, in order:
 //! 1. candidates are local maxima of the 3x3-smoothed power spectrum with
-//!    periods between `min_period_px` and half the tile, ranked by their
-//!    prominence over the median power of their frequency ring;
-//! 2. if a candidate lies near half the strongest one's frequency vector, the
-//!    strongest was a harmonic and the fundamental is taken;
-//! 3. if a strong candidate lies roughly perpendicular at a clearly higher
-//!    frequency, the strongest was the primary (trunk) spacing, and the
-//!    perpendicular, finer period is taken: secondary arms are finer than the
-//!    primary spacing and perpendicular to it.
+//!    periods between `min_period_px` and half the tile, with their
+//!    prominence over the larger of their frequency ring's median and the
+//!    floor along their ray;
+//! 2. when the spectrum has a dominant orientation, only candidates aligned
+//!    with it are considered (secondary arms carry most of the edges);
+//! 3. among reliable (prominence >= `min_quality`), narrow (relative
+//!    half-power width <= 0.5: at least three repeats) candidates, the most
+//!    powerful is taken;
+//! 4. if a candidate lies near 1/k of its frequency vector, it was a harmonic
+//!    and the fundamental is taken.
 //!
 //! The quality of a tile is the chosen peak's prominence. Under white noise
 //! the smoothed spectrum's maximum prominence rarely exceeds 3, so the default
@@ -38,7 +50,7 @@ pub struct FftParams {
     pub min_quality: f64,
     /// Largest masked fraction of a tile for it to be analysed.
     pub max_masked_fraction: f64,
-    /// Largest side of the windows of the first (coarse) pass, in pixels.
+    /// Largest tile side of the first (coarse) pass's scale ladder, in pixels.
     pub coarse_window_max_px: usize,
 }
 
@@ -147,27 +159,22 @@ pub fn measure(img: &Prepared, params: &FftParams) -> FftOutcome {
         );
     }
 
-    // Coarse pass: large windows give a first period that sets the tile size.
-    let coarse_n = *sizes
+    // Coarse pass: the period that tiles reproduce across a ladder of scales
+    // sets the tile size (see `ladder_period`).
+    let scales = ladder_tiles(img, &sizes, params);
+    let ladder: Vec<ScaleStat> = scales
         .iter()
-        .rev()
-        .find(|&&s| s <= params.coarse_window_max_px.max(32))
-        .unwrap_or(&largest);
-    let coarse = analyse_tiles(img, coarse_n, coarse_n, params);
-    let good: Vec<&TileResult> = coarse
-        .iter()
-        .filter(|t| t.quality >= params.min_quality)
+        .map(|(n, t)| scale_stat(*n, t, params))
         .collect();
-    let coarse_period = stats::weighted_median(
-        &good.iter().map(|t| t.spacing_px).collect::<Vec<_>>(),
-        &good.iter().map(|t| t.quality).collect::<Vec<_>>(),
-    );
-    let Some(coarse_period) = coarse_period else {
+    let coarse_n = ladder.last().map_or(largest, |s| s.n);
+    let Some(coarse_period) = resolve_ladder(&ladder, &scales, params) else {
+        let analysed = ladder.iter().map(|s| s.n_tiles).sum();
         return FftOutcome::none(
-            "no reliable periodicity: no spectral peak stands above the background".into(),
+            "no reliable periodicity: no spectral period is reproduced by the tiles across scales"
+                .into(),
             coarse_n,
             vec![],
-            coarse.len(),
+            analysed,
         );
     };
 
@@ -183,8 +190,228 @@ pub fn measure(img: &Prepared, params: &FftParams) -> FftOutcome {
                 .total_cmp(&((*b as f64) - target).abs())
         })
         .unwrap_or(largest);
-    let tiles = analyse_tiles(img, n, (n / 2).max(1), params);
+    let mut tiles = analyse_tiles(img, n, (n / 2).max(1), params);
+    for t in tiles.iter_mut() {
+        if t.spacing_px.is_finite() && !compatible(t.spacing_px, coarse_period) {
+            t.quality = 0.0;
+        }
+    }
     aggregate(tiles, n, params)
+}
+
+/// Statistics of the tiles of one size in the coarse scale ladder.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct ScaleStat {
+    /// Tile side, pixels.
+    pub n: usize,
+    /// Quality-weighted median period of the reliable tiles (NaN if none).
+    pub period_px: f64,
+    /// Fraction of the analysed tiles that are reliable and agree with
+    /// `period_px` within `LADDER_AGREEMENT`.
+    pub support: f64,
+    /// Number of tiles analysed.
+    pub n_tiles: usize,
+}
+
+/// Ratio between successive tile sizes of the coarse ladder. A factor 1.5
+/// (32, 48, 64, 96, ...) keeps neighbouring scales close enough that a real
+/// period is within the search range of both, and far enough apart that
+/// their spectra differ in resolution (common practice, no single source).
+const LADDER_RATIO: f64 = 1.5;
+
+/// Smallest tile of the ladder: below 32 px a tile cannot hold several
+/// periods of anything above the 3 px search floor with a resolved peak.
+const LADDER_MIN_PX: usize = 32;
+
+/// Relative tolerance for two periods to count as the same: the spacing of
+/// secondary arms itself scatters by 10-20 % along a trunk, and a tile of 4-6
+/// periods locates its peak to about a quarter bin, i.e. 4-6 % (common
+/// practice, no single source).
+const LADDER_AGREEMENT: f64 = 0.15;
+
+/// Smallest fraction of a scale's tiles that must agree on one period for
+/// the scale to support it. Noise alone makes about 1-3 % of tiles reliable
+/// (quality >= 6) and scatters their periods over the whole band, so a
+/// quarter of the tiles agreeing within 15 % is far beyond chance; it still
+/// allows the dendrites to cover only part of the field.
+const MIN_SUPPORT: f64 = 0.25;
+
+/// Fewest periods a tile must span for its period to be supported at that
+/// scale: a Hann window resolves a peak from the zero-frequency leakage (main
+/// lobe half-width 2 bins) from about 4 bins on (Harris 1978).
+const MIN_PERIODS_PER_TILE: f64 = 4.0;
+
+/// The tile sizes of the coarse ladder, from `LADDER_MIN_PX` up to the
+/// largest smooth size that fits, about `LADDER_RATIO` apart.
+fn ladder_sizes(sizes: &[usize]) -> Vec<usize> {
+    let mut out: Vec<usize> = Vec::new();
+    for &s in sizes.iter().filter(|&&s| s >= LADDER_MIN_PX) {
+        match out.last() {
+            Some(&l) if (s as f64) < (l as f64) * LADDER_RATIO * 0.99 => {}
+            _ => out.push(s),
+        }
+    }
+    out
+}
+
+/// Analyses the image at every size of the ladder. Tiles do not overlap
+/// unless that leaves fewer than 9 of them (then they half overlap, so a
+/// support fraction still rests on several tiles), which keeps the cost of
+/// each scale near that of one pass over the image.
+pub fn scale_ladder(img: &Prepared, sizes: &[usize], params: &FftParams) -> Vec<ScaleStat> {
+    ladder_tiles(img, sizes, params)
+        .iter()
+        .map(|(n, t)| scale_stat(*n, t, params))
+        .collect()
+}
+
+/// The tiles of every size of the ladder (see `scale_ladder`).
+fn ladder_tiles(
+    img: &Prepared,
+    sizes: &[usize],
+    params: &FftParams,
+) -> Vec<(usize, Vec<TileResult>)> {
+    let (w, h) = (img.image.width, img.image.height);
+    let cap = params.coarse_window_max_px.max(LADDER_MIN_PX);
+    let capped: Vec<usize> = sizes.iter().copied().filter(|&s| s <= cap).collect();
+    ladder_sizes(&capped)
+        .into_iter()
+        .map(|n| {
+            let count = |stride: usize| origins(w, n, stride).len() * origins(h, n, stride).len();
+            let stride = if count(n) >= 9 { n } else { (n / 2).max(1) };
+            (n, analyse_tiles(img, n, stride, params))
+        })
+        .collect()
+}
+
+/// Weighted median period of a scale's reliable tiles and the fraction of
+/// its tiles that agree with it.
+fn scale_stat(n: usize, tiles: &[TileResult], params: &FftParams) -> ScaleStat {
+    let good: Vec<&TileResult> = tiles
+        .iter()
+        .filter(|t| t.quality >= params.min_quality && t.spacing_px.is_finite())
+        .collect();
+    let period = stats::weighted_median(
+        &good.iter().map(|t| t.spacing_px).collect::<Vec<_>>(),
+        &good.iter().map(|t| t.quality.ln()).collect::<Vec<_>>(),
+    )
+    .unwrap_or(f64::NAN);
+    let agree = good
+        .iter()
+        .filter(|t| (t.spacing_px / period - 1.0).abs() <= LADDER_AGREEMENT)
+        .count();
+    ScaleStat {
+        n,
+        period_px: period,
+        support: if tiles.is_empty() {
+            0.0
+        } else {
+            agree as f64 / tiles.len() as f64
+        },
+        n_tiles: tiles.len(),
+    }
+}
+
+/// The period that sets the tile size: the finest period that a scale of the
+/// ladder supports (at least `MIN_SUPPORT` of its tiles agree on it, and its
+/// tiles span at least `MIN_PERIODS_PER_TILE` periods) and that the next
+/// larger scale reproduces (supported there too, within `LADDER_AGREEMENT`).
+///
+/// A real period stays put when the tile grows, while noise peaks and the
+/// side lobes of single features (an arm's width) move with the tile's
+/// resolution, so reproduction across scales separates them. The finest such
+/// period is taken because secondary arms are finer than the primary spacing
+/// (the trunk spacing is also reproduced, at the larger scales). Larger tiles
+/// average more periods, so the larger scale's estimate is returned.
+pub fn ladder_period(ladder: &[ScaleStat], _params: &FftParams) -> Option<f64> {
+    ladder_candidates(ladder).first().map(|c| c.0)
+}
+
+/// Every period reproduced by a pair of neighbouring scales (see
+/// `ladder_period`), finest first: (period at the larger scale, index of the
+/// larger scale).
+fn ladder_candidates(ladder: &[ScaleStat]) -> Vec<(f64, usize)> {
+    let supported = |s: &ScaleStat| s.period_px.is_finite() && s.support >= MIN_SUPPORT;
+    let same = |a: f64, b: f64| (a / b - 1.0).abs() <= LADDER_AGREEMENT;
+    let mut out: Vec<(f64, usize)> = (1..ladder.len())
+        .filter(|&i| {
+            let (a, b) = (&ladder[i - 1], &ladder[i]);
+            supported(a)
+                && supported(b)
+                && (a.n as f64) >= MIN_PERIODS_PER_TILE * a.period_px
+                && same(b.period_px, a.period_px)
+        })
+        .map(|i| (ladder[i].period_px, i))
+        .collect();
+    out.sort_by(|a, b| a.0.total_cmp(&b.0));
+    out
+}
+
+/// Largest median axial angle between a fine period's tiles and the coarser
+/// period's tiles that contain them for the fine one to count as parallel:
+/// 45 degrees, midway between parallel and perpendicular.
+const PARALLEL_DEG: f64 = 45.0;
+
+/// The ladder period, with a check on direction: the finest reproduced
+/// period is dropped when, where a coarser reproduced period is seen, it
+/// repeats in the same direction as that coarser one.
+///
+/// Secondary arms repeat along their trunk, while the primary spacing repeats
+/// across the trunks, perpendicular to it; a finer period parallel to a
+/// coarser one at the same place is instead a feature of the same rows (a
+/// harmonic whose fundamental the small tile could not resolve, or a side
+/// lobe of the arms' width), not a finer spacing. Without tiles to compare
+/// (no coarser period, or none overlapping), the finest period stands.
+fn resolve_ladder(
+    ladder: &[ScaleStat],
+    scales: &[(usize, Vec<TileResult>)],
+    params: &FftParams,
+) -> Option<f64> {
+    let cands = ladder_candidates(ladder);
+    let agreeing = |i: usize, p: f64| -> Vec<&TileResult> {
+        scales.get(i).map_or(vec![], |(_, tiles)| {
+            tiles
+                .iter()
+                .filter(|t| {
+                    t.quality >= params.min_quality
+                        && (t.spacing_px / p - 1.0).abs() <= LADDER_AGREEMENT
+                })
+                .collect()
+        })
+    };
+    'fine: for (k, &(p, i)) in cands.iter().enumerate() {
+        let fine = agreeing(i, p);
+        for &(q, j) in &cands[k + 1..] {
+            if q <= p * (1.0 + LADDER_AGREEMENT) || ladder[j].n < ladder[i].n {
+                continue;
+            }
+            let reach = (ladder[j].n - ladder[i].n) as f64 / 2.0;
+            let mut diffs: Vec<f64> = Vec::new();
+            for big in agreeing(j, q) {
+                for small in &fine {
+                    if (small.cx_px - big.cx_px).abs() <= reach
+                        && (small.cy_px - big.cy_px).abs() <= reach
+                    {
+                        diffs.push(axial_difference(small.dir_deg, big.dir_deg));
+                    }
+                }
+            }
+            if diffs.len() >= 3 && stats::median(&diffs).is_some_and(|m| m < PARALLEL_DEG) {
+                continue 'fine;
+            }
+        }
+        return Some(p);
+    }
+    None
+}
+
+/// Whether a tile's period is compatible with the period reproduced across
+/// scales: within a factor sqrt 2, the geometric midpoint between that period
+/// and its second harmonic or sub-harmonic. A tile outside it has locked on a
+/// harmonic, on the primary spacing or on texture, not on the arms the other
+/// scales agree on, so it gives no value.
+fn compatible(spacing: f64, period: f64) -> bool {
+    (spacing / period).ln().abs() <= std::f64::consts::SQRT_2.ln()
 }
 
 /// Tile origins along one axis: evenly spread, about `stride` apart, covering
@@ -271,18 +498,69 @@ pub fn choose_peak(power: &[f64], n: usize, params: &FftParams) -> Option<Peak> 
         orient.anisotropy < MIN_ANISOTROPY
             || axial_difference(p.dir_deg(), orient.dir_deg) <= MAX_OFF_AXIS_DEG
     };
+    let periodic = |p: &&Peak| relative_width(power, n, p) <= MAX_RELATIVE_WIDTH;
     // Among reliable aligned peaks the one of most power: a row of arms puts
     // most of its power in its fundamental, while the ring background, which
     // sets prominence, falls steeply with frequency and would favour the
     // side lobes of the arms' width.
     let first = cands
         .iter()
-        .filter(aligned)
         .filter(|p| p.prominence >= params.min_quality)
+        .filter(aligned)
+        .filter(periodic)
         .max_by(|a, b| a.power.total_cmp(&b.power))
-        .or(cands.first())
+        .or(cands.iter().find(periodic))
         .copied()?;
     Some(fundamental_of(first, &cands, n, params))
+}
+
+/// Largest relative half-power width (full width / frequency, radially) of a
+/// spectral peak for it to count as a period. N periods under a Hann window
+/// give a peak of half-power full width 1.44 bins (Harris 1978), i.e. a
+/// relative width 1.44 / N: at most 0.48 once a tile holds three periods,
+/// the fewest that make a repetition. A tile holding fewer repeats, or a
+/// spacing too irregular to be one period, gives a broader peak, as does the
+/// main lobe of a single feature's form factor (its side lobes are narrower;
+/// `resolve_ladder` deals with those).
+const MAX_RELATIVE_WIDTH: f64 = 0.5;
+
+/// Relative radial half-power width of a peak: the distance, along the ray
+/// from the origin through the peak, between the points where the raw power
+/// (bilinearly interpolated, sampled every quarter bin) first falls to half
+/// the peak's power on either side, divided by the peak's radius. A side
+/// that never falls to half (before the origin or the Nyquist edge) extends
+/// to that limit.
+pub fn relative_width(power: &[f64], n: usize, peak: &Peak) -> f64 {
+    let (u, v) = (peak.fx * n as f64, peak.fy * n as f64);
+    let r = u.hypot(v);
+    if r <= 0.0 {
+        return f64::INFINITY;
+    }
+    let (cu, cv) = (u / r, v / r);
+    let ni = n as i64;
+    let g = |a: i64, b: i64| power[(b.rem_euclid(ni) as usize) * n + a.rem_euclid(ni) as usize];
+    let at = |t: f64| -> f64 {
+        let (x, y) = (t * cu, t * cv);
+        let (x0, y0) = (x.floor(), y.floor());
+        let (fx, fy) = (x - x0, y - y0);
+        let (xi, yi) = (x0 as i64, y0 as i64);
+        g(xi, yi) * (1.0 - fx) * (1.0 - fy)
+            + g(xi + 1, yi) * fx * (1.0 - fy)
+            + g(xi, yi + 1) * (1.0 - fx) * fy
+            + g(xi + 1, yi + 1) * fx * fy
+    };
+    let half = 0.5 * at(r);
+    let step = 0.25;
+    let mut lo = r;
+    while lo > 0.0 && at(lo) > half {
+        lo -= step;
+    }
+    let edge = n as f64 / 2.0 - 1.0;
+    let mut hi = r;
+    while hi < edge && at(hi) > half {
+        hi += step;
+    }
+    (hi.min(edge) - lo.max(0.0)) / r
 }
 
 /// The dominant orientation of a spectrum's excess power (power above its
@@ -400,17 +678,21 @@ pub fn candidates(power: &[f64], n: usize, params: &FftParams) -> (Vec<Peak>, Or
         let vv = v.rem_euclid(n as i64) as usize;
         vv * n + uu
     };
-    // 3x3 box smoothing on the periodic spectrum.
+    // 3x3 box smoothing on the periodic spectrum, separable: rows, then
+    // columns (same sums as the 3x3 box, in 6 instead of 9 additions).
+    let mut rows = vec![0.0f64; n * n];
+    for v in 0..n {
+        let row = &power[v * n..(v + 1) * n];
+        for u in 0..n {
+            let (l, r) = ((u + n - 1) % n, (u + 1) % n);
+            rows[v * n + u] = row[l] + row[u] + row[r];
+        }
+    }
     let mut smooth = vec![0.0f64; n * n];
-    for v in 0..n as i64 {
-        for u in 0..n as i64 {
-            let mut s = 0.0;
-            for dv in -1..=1 {
-                for du in -1..=1 {
-                    s += power[idx(u + du, v + dv)];
-                }
-            }
-            smooth[idx(u, v)] = s / 9.0;
+    for v in 0..n {
+        let (up, down) = ((v + n - 1) % n, (v + 1) % n);
+        for u in 0..n {
+            smooth[v * n + u] = (rows[up * n + u] + rows[v * n + u] + rows[down * n + u]) / 9.0;
         }
     }
     // Background: the median of the smoothed power over each integer
@@ -458,6 +740,13 @@ pub fn candidates(power: &[f64], n: usize, params: &FftParams) -> (Vec<Peak>, Or
                 txy += e * cu * cv;
                 tyy += e * cv * cv;
             }
+            // The ring alone bounds the prominence from above (the background
+            // is the larger of ring and ray floor), so bins that cannot reach
+            // the candidate threshold of 2 are skipped before the costlier
+            // tests.
+            if ring_bg <= 0.0 || s < 2.0 * ring_bg {
+                continue;
+            }
             let mut is_max = true;
             'nb: for dv in -1..=1 {
                 for du in -1..=1 {
@@ -470,7 +759,7 @@ pub fn candidates(power: &[f64], n: usize, params: &FftParams) -> (Vec<Peak>, Or
             if !is_max {
                 continue;
             }
-            let bg = background[r.round() as usize].max(ray_floor(&smooth, n, u, v));
+            let bg = ring_bg.max(ray_floor(&smooth, n, u, v));
             if bg <= 0.0 {
                 continue;
             }
@@ -671,5 +960,145 @@ mod tests {
             &FftParams::default(),
         );
         assert!(out.value_px.is_none(), "noise gave {:?}", out.value_px);
+    }
+
+    fn stat(n: usize, period_px: f64, support: f64) -> ScaleStat {
+        ScaleStat {
+            n,
+            period_px,
+            support,
+            n_tiles: 20,
+        }
+    }
+
+    #[test]
+    fn ladder_keeps_the_finest_period_reproduced_across_scales() {
+        // Basis: a real period does not move with the analysis window while
+        // resolution artefacts do (common practice, no single source), and
+        // secondary arms are finer than the primary spacing.
+        let p = FftParams::default();
+        let ladder = [
+            stat(32, 4.6, 0.3),  // drifts to 5.4 at the next scale: artefact
+            stat(48, 5.4, 0.3),  // not reproduced at 72
+            stat(72, 13.6, 0.4), // reproduced at 108: secondary arms
+            stat(108, 13.4, 0.5),
+            stat(162, 36.0, 0.6), // reproduced at 250: primary spacing
+            stat(250, 36.5, 0.8),
+        ];
+        let got = ladder_period(&ladder, &p).unwrap();
+        assert!((got - 13.4).abs() < 1e-9, "{got}");
+        // Without enough agreeing tiles no scale supports a period.
+        let weak: Vec<ScaleStat> = ladder.iter().map(|s| stat(s.n, s.period_px, 0.1)).collect();
+        assert!(ladder_period(&weak, &p).is_none());
+        // A tile must span MIN_PERIODS_PER_TILE periods at the finer scale.
+        let coarse = [stat(32, 12.0, 0.5), stat(48, 12.0, 0.5)];
+        assert!(ladder_period(&coarse, &p).is_none());
+    }
+
+    #[test]
+    fn tiles_locked_on_a_harmonic_are_incompatible() {
+        // Basis: sqrt 2 is the geometric midpoint between a period and its
+        // second harmonic (or sub-harmonic).
+        assert!(compatible(13.0, 10.0) && compatible(7.5, 10.0));
+        assert!(!compatible(20.0, 10.0) && !compatible(5.0, 10.0));
+    }
+
+    #[test]
+    fn finer_of_two_crossed_periods_is_measured() {
+        // A strong coarse wave (period 30, as a primary spacing) across a
+        // weaker fine one (period 8, as secondary arms): the finer period is
+        // the one reproduced at the smallest scales and is measured.
+        // Basis: secondary arms are finer than the primary spacing.
+        let n = 384;
+        let coarse = sinusoid(n, 30.0, 0.0);
+        let fine = sinusoid(n, 8.0, 90.0);
+        let data: Vec<f32> = coarse
+            .iter()
+            .zip(&fine)
+            .map(|(a, b)| 0.5 + 0.3 * a + 0.15 * b)
+            .collect();
+        let img = GrayImage::from_vec(n, n, data).unwrap();
+        let out = measure(
+            &prepare(&img, None, &PreprocessParams::default()),
+            &FftParams::default(),
+        );
+        let v = out.value_px.unwrap();
+        assert!((v - 8.0).abs() < 0.2, "{v}");
+    }
+
+    #[test]
+    fn a_single_bar_is_not_a_period() {
+        // Basis: N periods under a Hann window give a peak of relative
+        // half-power width 1.44 / N (Harris 1978); one feature's form factor
+        // gives a lobe of relative width of order one.
+        let n = 64;
+        // One bright bar, 6 px wide, across the tile: no repetition.
+        let bar: Vec<f32> = (0..n * n)
+            .map(|i| {
+                if (29..35).contains(&(i % n)) {
+                    1.0
+                } else {
+                    0.0
+                }
+            })
+            .collect();
+        let mut a = SpectrumAnalyser::new(n);
+        let mut p = Vec::new();
+        a.power(&bar, n, 0, 0, &mut p);
+        // Its strongest lobe (the first side lobe of its sinc-squared form
+        // factor; higher lobes are relatively narrower but far weaker) is
+        // broad and is not taken as a period.
+        let (cands, _) = candidates(&p, n, &FftParams::default());
+        let strongest = cands
+            .iter()
+            .max_by(|a, b| a.power.total_cmp(&b.power))
+            .unwrap();
+        assert!(relative_width(&p, n, strongest) > MAX_RELATIVE_WIDTH);
+        let chosen = choose_peak(&p, n, &FftParams::default());
+        assert!(chosen.is_none_or(|c| c.power < strongest.power));
+        // Eight periods of 8 px: a narrow peak.
+        let wave = sinusoid(n, 8.0, 0.0);
+        a.power(&wave, n, 0, 0, &mut p);
+        let peak = choose_peak(&p, n, &FftParams::default()).unwrap();
+        let w = relative_width(&p, n, &peak);
+        assert!(w < 0.3, "{w}");
+    }
+
+    #[test]
+    fn finer_period_parallel_to_a_coarser_one_is_dropped() {
+        // Basis: secondary arms repeat along the trunk and the primary
+        // spacing across it (perpendicular); a finer period along the same
+        // direction as a coarser one at the same place belongs to the same
+        // rows (harmonic or side lobe). Common practice, no single source.
+        let p = FftParams::default();
+        let tile = |cx: f64, cy: f64, spacing_px: f64, dir_deg: f64| TileResult {
+            cx_px: cx,
+            cy_px: cy,
+            spacing_px,
+            dir_deg,
+            quality: 20.0,
+            used: false,
+        };
+        let build = |coarse_dir: f64| {
+            let mut scales = Vec::new();
+            for (n, per, dir) in [
+                (32usize, 5.0, 30.0),
+                (48, 5.1, 30.0),
+                (72, 14.0, coarse_dir),
+                (108, 14.2, coarse_dir),
+            ] {
+                let tiles: Vec<TileResult> = (0..9)
+                    .map(|k| tile(100.0 + 5.0 * k as f64, 100.0, per, dir))
+                    .collect();
+                scales.push((n, tiles));
+            }
+            let ladder: Vec<ScaleStat> =
+                scales.iter().map(|(n, t)| scale_stat(*n, t, &p)).collect();
+            resolve_ladder(&ladder, &scales, &p)
+        };
+        // Parallel: the fine period is a feature of the coarser rows.
+        assert!((build(35.0).unwrap() - 14.2).abs() < 1e-9);
+        // Perpendicular: the fine period is the secondary spacing.
+        assert!((build(120.0).unwrap() - 5.1).abs() < 1e-9);
     }
 }
