@@ -312,10 +312,11 @@ fn scale_stat(n: usize, tiles: &[TileResult], params: &FftParams) -> ScaleStat {
     }
 }
 
-/// The period that sets the tile size: the finest period that a scale of the
-/// ladder supports (at least `MIN_SUPPORT` of its tiles agree on it, and its
-/// tiles span at least `MIN_PERIODS_PER_TILE` periods) and that the next
-/// larger scale reproduces (supported there too, within `LADDER_AGREEMENT`).
+/// The period that sets the tile size: the finest period that two
+/// neighbouring scales of the ladder agree on (within `LADDER_AGREEMENT`),
+/// one of them supporting it with at least `MIN_SUPPORT` of its tiles and the
+/// other with at least half that, the smaller one's tiles spanning at least
+/// `MIN_PERIODS_PER_TILE` periods.
 ///
 /// A real period stays put when the tile grows, while noise peaks and the
 /// side lobes of single features (an arm's width) move with the tile's
@@ -331,13 +332,17 @@ pub fn ladder_period(ladder: &[ScaleStat], _params: &FftParams) -> Option<f64> {
 /// `ladder_period`), finest first: (period at the larger scale, index of the
 /// larger scale).
 fn ladder_candidates(ladder: &[ScaleStat]) -> Vec<(f64, usize)> {
-    let supported = |s: &ScaleStat| s.period_px.is_finite() && s.support >= MIN_SUPPORT;
+    let supported = |s: &ScaleStat, min: f64| s.period_px.is_finite() && s.support >= min;
     let same = |a: f64, b: f64| (a / b - 1.0).abs() <= LADDER_AGREEMENT;
+    // One scale of the pair must carry the full support; its neighbour, which
+    // only has to confirm the period, half of it (noise gives a few per cent
+    // of scattered tiles, far below either).
+    let weak = 0.5 * MIN_SUPPORT;
     let mut out: Vec<(f64, usize)> = (1..ladder.len())
         .filter(|&i| {
             let (a, b) = (&ladder[i - 1], &ladder[i]);
-            supported(a)
-                && supported(b)
+            ((supported(a, MIN_SUPPORT) && supported(b, weak))
+                || (supported(a, weak) && supported(b, MIN_SUPPORT)))
                 && (a.n as f64) >= MIN_PERIODS_PER_TILE * a.period_px
                 && same(b.period_px, a.period_px)
         })
