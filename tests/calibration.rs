@@ -210,9 +210,9 @@ fn a_scratch_longer_than_the_bar_is_not_taken_for_it() {
 
 #[test]
 fn measure_calibrates_from_the_bar_and_reports_disagreement() {
-    // The demo images carry a 100 um bar drawn at 1.25 um/px (fixtures/README.md).
+    // The demo images carry a 200 um bar drawn at 1.25 um/px (fixtures/README.md).
     let img = path_str(&repo_file("fixtures/demo/plate-CVF-SP4-step12mm.png"));
-    let run = armspace(&["measure", &img, "--scale-bar", "100um"]);
+    let run = armspace(&["measure", &img, "--scale-bar", "200um"]);
     let rep: serde_json::Value = serde_json::from_str(&run.stdout).unwrap();
     let c = &rep["images"][0]["calibration"];
     assert_eq!(c["source"], "scale-bar");
