@@ -4,19 +4,11 @@
 use crate::load::GrayImage;
 
 /// Parameters of preprocessing.
-#[derive(Clone, Copy, Debug, PartialEq)]
+#[derive(Clone, Copy, Debug, PartialEq, Default)]
 pub struct PreprocessParams {
     /// Standard deviation, in pixels, of the Gaussian that estimates the
     /// illumination background. `None` chooses one from the image size.
     pub background_sigma_px: Option<f64>,
-}
-
-impl Default for PreprocessParams {
-    fn default() -> Self {
-        Self {
-            background_sigma_px: None,
-        }
-    }
 }
 
 /// An image ready for measurement: background removed, contrast normalised

@@ -194,16 +194,16 @@ fn a_scratch_longer_than_the_bar_is_not_taken_for_it() {
             (0.05 * w + 3.0 * tb.length_px.min(0.28 * w), 0.6 * h),
             0.0,
         );
-        match detect(&g) {
-            Ok(b) => assert!(
+        // A clear failure is acceptable; a wrong bar is not.
+        if let Ok(b) = detect(&g) {
+            assert!(
                 b.x0.abs_diff(tb.x0) <= 2
                     && b.y0.abs_diff(tb.y0) <= 2
                     && (b.length_px - tb.length_px).abs() <= 0.5,
                 "image {i}: took {b:?} for the bar at {},{}",
                 tb.x0,
                 tb.y0
-            ),
-            Err(_) => {} // A clear failure is acceptable; a wrong bar is not.
+            );
         }
     }
 }
