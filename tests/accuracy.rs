@@ -63,3 +63,45 @@ fn columnar_fields_are_within_15_percent() {
     }
     eprintln!("columnar worst error {:.2} %", 100.0 * worst);
 }
+
+/// |relative error| quantile (nearest rank) with images without a value
+/// counted as failures (infinite error).
+fn quantile(errors: &[Option<f64>], q: f64) -> f64 {
+    let mut e: Vec<f64> = errors
+        .iter()
+        .map(|e| e.map_or(f64::INFINITY, f64::abs))
+        .collect();
+    e.sort_by(|a, b| a.total_cmp(b));
+    let k = ((q * e.len() as f64).ceil() as usize).clamp(1, e.len()) - 1;
+    e[k]
+}
+
+#[test]
+fn fft_accuracy_on_a_48_image_set() {
+    // The FFT method's acceptance figures for columnar fields: median
+    // |relative error| <= 2 % and 90th percentile <= 5 %, over clean and
+    // etched fields with spacings of 6 to 80 px, noise, blur, uneven
+    // illumination, inversion and scale bars; an image without a value counts
+    // as a failure. Equiaxed figures are printed (their target, 4 % and 10 %,
+    // is not met yet: etched equiaxed fields mostly give no value).
+    let results = relative_errors(4040, 48);
+    for morph in [Morphology::Columnar, Morphology::Equiaxed] {
+        let errs: Vec<Option<f64>> = results
+            .iter()
+            .filter(|(t, _)| t.morphology == morph)
+            .map(|(_, e)| *e)
+            .collect();
+        let nulls = errs.iter().filter(|e| e.is_none()).count();
+        let (median, p90) = (quantile(&errs, 0.5), quantile(&errs, 0.9));
+        eprintln!(
+            "{morph:?}: n {} median {:.2} % p90 {:.2} % without value {nulls}",
+            errs.len(),
+            100.0 * median,
+            100.0 * p90
+        );
+        if morph == Morphology::Columnar {
+            assert!(median <= 0.02, "columnar median {:.2} %", 100.0 * median);
+            assert!(p90 <= 0.05, "columnar p90 {:.2} %", 100.0 * p90);
+        }
+    }
+}

@@ -315,7 +315,7 @@ fn scale_stat(n: usize, tiles: &[TileResult], params: &FftParams) -> ScaleStat {
 /// The period that sets the tile size: the finest period that two
 /// neighbouring scales of the ladder agree on (within `LADDER_AGREEMENT`),
 /// one of them supporting it with at least `MIN_SUPPORT` of its tiles and the
-/// other with at least half that, the smaller one's tiles spanning at least
+/// other with at least a tenth, the smaller one's tiles spanning at least
 /// `MIN_PERIODS_PER_TILE` periods.
 ///
 /// A real period stays put when the tile grows, while noise peaks and the
@@ -335,9 +335,10 @@ fn ladder_candidates(ladder: &[ScaleStat]) -> Vec<(f64, usize)> {
     let supported = |s: &ScaleStat, min: f64| s.period_px.is_finite() && s.support >= min;
     let same = |a: f64, b: f64| (a / b - 1.0).abs() <= LADDER_AGREEMENT;
     // One scale of the pair must carry the full support; its neighbour, which
-    // only has to confirm the period, half of it (noise gives a few per cent
-    // of scattered tiles, far below either).
-    let weak = 0.5 * MIN_SUPPORT;
+    // only has to confirm the period, a tenth of its tiles (noise gives 1-3 %
+    // of tiles, scattered over the whole band, so even that is several times
+    // what chance gives, and at the same period as the other scale).
+    let weak = 0.1;
     let mut out: Vec<(f64, usize)> = (1..ladder.len())
         .filter(|&i| {
             let (a, b) = (&ladder[i - 1], &ladder[i]);
