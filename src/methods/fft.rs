@@ -265,6 +265,9 @@ pub fn scale_ladder(img: &Prepared, sizes: &[usize], params: &FftParams) -> Vec<
         .collect()
 }
 
+/// Most tiles analysed at one scale of the ladder.
+const LADDER_MAX_TILES: usize = 64;
+
 /// The tiles of every size of the ladder (see `scale_ladder`).
 fn ladder_tiles(
     img: &Prepared,
@@ -278,7 +281,13 @@ fn ladder_tiles(
         .into_iter()
         .map(|n| {
             let count = |stride: usize| origins(w, n, stride).len() * origins(h, n, stride).len();
-            let stride = if count(n) >= 9 { n } else { (n / 2).max(1) };
+            let mut stride = if count(n) >= 9 { n } else { (n / 2).max(1) };
+            // A scale's support is a fraction of its tiles; about 64 tiles
+            // spread evenly over the field estimate it to a few per cent, so
+            // the small scales need not cover every pixel.
+            while count(stride) > LADDER_MAX_TILES {
+                stride += stride / 2;
+            }
             (n, analyse_tiles(img, n, stride, params))
         })
         .collect()
