@@ -147,11 +147,24 @@ fn columnar_targets_on_seed_2026() {
 #[test]
 #[ignore = "survey over several seed sets; run with --ignored --nocapture"]
 fn survey_seed_sets() {
-    let params = InterceptParams::default();
+    let mut params = InterceptParams::default();
+    if let Ok(c) = std::env::var("MINCOH") {
+        params.min_coherence = c.parse().unwrap();
+    }
+    if let Ok(c) = std::env::var("MINRUN") {
+        params.min_run_px = c.parse().unwrap();
+    }
+    let seeds: Vec<u64> = std::env::var("SEEDS")
+        .unwrap_or("7,11,23,2026".into())
+        .split(',')
+        .map(|s| s.parse().unwrap())
+        .collect();
     let mut all = Vec::new();
-    for seed in [7u64, 11, 23, 2026] {
+    for seed in seeds {
         let results = run(seed, 24, &params);
-        print_all(&results);
+        if std::env::var("VERBOSE").is_ok() {
+            print_all(&results);
+        }
         for (m, s) in [
             (Morphology::Columnar, Style::Etched),
             (Morphology::Columnar, Style::Clean),

@@ -141,14 +141,14 @@ impl Default for InterceptParams {
             convention: Convention::CentreToCentre,
             expected_spacing_px: None,
             direction_hint_deg: None,
-            min_coherence: 0.5,
+            min_coherence: 0.3,
             max_turn_deg: 20.0,
             tensor_sigma_spacings: 1.0,
             max_line_spacings: 12.0,
             min_arms: 4,
             line_separation_spacings: 2.0,
             max_period_cv: 0.4,
-            min_run_px: 2.0,
+            min_run_px: 1.0,
             min_run_fraction: 0.15,
         }
     }
@@ -234,20 +234,64 @@ pub fn measure(img: &Prepared, params: &InterceptParams) -> InterceptOutcome {
             vec![],
         );
     }
-    let mut lines = lay_lines(img, &seg, lambda0, params);
-    if std::env::var("ARMSPACE_DEBUG").is_ok() {
-        eprintln!("DBG lambda0 {lambda0:.2} fraction {:.3} inverted {} lines {}", seg.fraction, seg.inverted, lines.len());
-    }
-    if hint.is_none() {
-        // Repeat once at the measured scale when the first estimate was off
-        // by more than the +-20 % within which the window sizes do not matter.
-        let spacings: Vec<f64> = lines.iter().map(|l| l.spacing_px).collect();
-        if let Some(m) = stats::median(&spacings) {
-            if (m / lambda0 - 1.0).abs() > 0.2 && (2.0..=max_scale).contains(&m) {
-                lines = lay_lines(img, &seg, m, params);
+    let field = phase_field(&seg, params.segment.smooth_sigma_px);
+    let median_of = |lines: &[Line]| -> Option<f64> {
+        if lines.len() < 2 {
+            return None;
+        }
+        stats::median(&lines.iter().map(|l| l.spacing_px).collect::<Vec<_>>())
+    };
+    // Scale search (without a hint). The crossing estimate counts the whole
+    // field, including trunks and interdendritic pools without crossings, so
+    // it overestimates the spacing by up to about 2x (an isotropic field also
+    // reads sqrt 2 high); the windows are therefore tried at lambda0,
+    // lambda0/sqrt 2 and lambda0/2, and the scale kept is the one whose
+    // lines' median spacing agrees best with it (self-consistency). Within
+    // +-20 % the window sizes do not matter and the search stops.
+    let scales: Vec<f64> = match hint {
+        Some(s) => vec![s],
+        None => [1.0, std::f64::consts::FRAC_1_SQRT_2, 0.5]
+            .iter()
+            .map(|f| f * lambda0)
+            .filter(|s| *s >= 2.0)
+            .collect(),
+    };
+    let mut best: Option<(f64, f64, Vec<Line>)> = None;
+    let mut fallback: Vec<Line> = Vec::new();
+    for &scale in &scales {
+        let lines = lay_lines(img, &field, scale, params);
+        let Some(m) = median_of(&lines) else {
+            if lines.len() > fallback.len() {
+                fallback = lines;
             }
+            continue;
+        };
+        let misfit = (m / scale).ln().abs();
+        let better = best.as_ref().map_or(true, |b| misfit < b.0);
+        let done = misfit <= 1.2f64.ln();
+        if better {
+            best = Some((misfit, m, lines));
+        }
+        if done {
+            break;
         }
     }
+    let lines = match best {
+        Some((misfit, m, lines)) => {
+            if hint.is_none() && misfit > 1.2f64.ln() && (2.0..=max_scale).contains(&m) {
+                // Repeat at the measured scale.
+                let again = lay_lines(img, &field, m, params);
+                if again.len() >= 2 {
+                    again
+                } else {
+                    lines
+                }
+            } else {
+                lines
+            }
+        }
+        None => fallback,
+    };
     aggregate(lines)
 }
 
@@ -427,11 +471,57 @@ fn axial_diff(a: f64, b: f64) -> f64 {
 }
 
 /// Lays and counts the test lines at scale `lambda`.
-fn lay_lines(img: &Prepared, seg: &Segmentation, lambda: f64, p: &InterceptParams) -> Vec<Line> {
-    let (w, h) = (seg.width, seg.height);
+/// The foreground indicator (1 arm phase, 0 other or masked) smoothed by
+/// the segmentation's pre-smoothing Gaussian. Lines are sampled on it and
+/// the structure tensor is computed from it, rather than from the grey
+/// image: texture inside a phase (the granular eutectic of an etched
+/// section, polishing marks) is removed by the segmentation and its
+/// clean-up, and would otherwise add isotropic gradient energy that hides
+/// the arms' orientation. Smoothing restores sub-pixel boundary positions
+/// (the 0.5 level of a blurred step lies on the step).
+///
+/// Alongside, the smoothed grey values with the arm phase made bright
+/// (`grey`), used to find necks between touching arms (see [`split_necks`]),
+/// and the neck depth: half the contrast between the arm phase's median
+/// level and the threshold.
+struct PhaseField {
+    w: usize,
+    h: usize,
+    v: Vec<f32>,
+    grey: Vec<f32>,
+    neck_depth: f32,
+}
+
+fn phase_field(seg: &Segmentation, sigma: f64) -> PhaseField {
+    let ind: Vec<f32> = seg
+        .foreground
+        .iter()
+        .map(|&f| if f { 1.0 } else { 0.0 })
+        .collect();
+    let sign = if seg.inverted { -1.0f32 } else { 1.0 };
+    let grey: Vec<f32> = seg.smoothed.iter().map(|v| sign * v).collect();
+    let mut arm: Vec<f32> = grey
+        .iter()
+        .zip(&seg.foreground)
+        .filter(|(_, &f)| f)
+        .map(|(g, _)| *g)
+        .step_by(7)
+        .collect();
+    let level = stats::median_in_place(&mut arm) as f32;
+    PhaseField {
+        w: seg.width,
+        h: seg.height,
+        v: gaussian_blur(&ind, seg.width, seg.height, sigma.max(0.5)),
+        grey,
+        neck_depth: 0.5 * (level - sign * seg.threshold).max(0.0),
+    }
+}
+
+fn lay_lines(img: &Prepared, seg: &PhaseField, lambda: f64, p: &InterceptParams) -> Vec<Line> {
+    let (w, h) = (seg.w, seg.h);
     let mask = img.mask.as_deref().filter(|m| m.len() == w * h);
     let tensor = Tensor::new(
-        &seg.smoothed,
+        &seg.v,
         mask,
         w,
         h,
@@ -526,7 +616,25 @@ fn lay_lines(img: &Prepared, seg: &Segmentation, lambda: f64, p: &InterceptParam
         lines.push(line);
     }
     if dbg {
-        let ncoh = (0..h).step_by(4).flat_map(|y| (0..w).step_by(4).map(move |x| (x, y))).filter(|&(x, y)| tensor.at(x, y).1 >= p.min_coherence).count();
+        let mut cs: Vec<f64> = (0..h)
+            .step_by(4)
+            .flat_map(|y| (0..w).step_by(4).map(move |x| (x, y)))
+            .map(|(x, y)| tensor.at(x, y).1)
+            .collect();
+        cs.sort_by(|a, b| a.total_cmp(b));
+        let q = |f: f64| cs[((cs.len() - 1) as f64 * f) as usize];
+        eprintln!(
+            "DBG coherence p25 {:.2} p50 {:.2} p75 {:.2} p90 {:.2}",
+            q(0.25),
+            q(0.5),
+            q(0.75),
+            q(0.9)
+        );
+        let ncoh = (0..h)
+            .step_by(4)
+            .flat_map(|y| (0..w).step_by(4).map(move |x| (x, y)))
+            .filter(|&(x, y)| tensor.at(x, y).1 >= p.min_coherence)
+            .count();
         eprintln!("DBG lambda {lambda:.2} cands {} short {n_short} bad {n_bad} lines {} coherent-frac {:.3}", cands.len(), lines.len(), ncoh as f64 / ((w / 4 + 1) * (h / 4 + 1)) as f64);
     }
     lines
@@ -678,6 +786,91 @@ pub struct Count {
 /// Counts arms on a run sequence (module docs, steps 5-7); `line_len` is the
 /// sampled length. Returns the longest valid piece, or `None`.
 pub fn count_runs(runs: &[Run], line_len: f64, p: &InterceptParams) -> Option<Count> {
+    count_runs_with_necks(runs, None, line_len, p)
+}
+
+/// A grey profile along a line (arm phase bright, samples `step` apart) and
+/// the least depth of a neck between two touching arms.
+#[derive(Clone, Copy)]
+struct Necks<'a> {
+    grey: &'a [f32],
+    step: f64,
+    depth: f32,
+}
+
+/// Splits foreground runs at necks: touching arms (coarsened, or merged by
+/// the optical blur when the channel between them is narrower than the
+/// resolution) still show a valley in grey between two crests. A run is
+/// split at its deepest interior minimum when both crests either side rise
+/// above it by at least `depth` (half the arm-to-threshold contrast, so the
+/// valley is a real fall towards the other phase and not noise on a
+/// plateau), recursively. Split runs abut.
+fn split_necks(runs: &[Run], necks: Necks, min_len: f64) -> Vec<Run> {
+    let mut out = Vec::with_capacity(runs.len());
+    for r in runs {
+        if !r.fg {
+            out.push(*r);
+            continue;
+        }
+        let mut stack = vec![*r];
+        let mut pieces = Vec::new();
+        while let Some(q) = stack.pop() {
+            match deepest_neck(&q, necks, min_len) {
+                Some(pos) => {
+                    // Right piece pushed first so the left one is done first.
+                    stack.push(Run {
+                        start: pos,
+                        end: q.end,
+                        fg: true,
+                    });
+                    stack.push(Run {
+                        start: q.start,
+                        end: pos,
+                        fg: true,
+                    });
+                }
+                None => pieces.push(q),
+            }
+        }
+        out.extend(pieces);
+    }
+    out
+}
+
+fn deepest_neck(r: &Run, n: Necks, min_len: f64) -> Option<f64> {
+    let k0 = (r.start / n.step).ceil() as usize;
+    let k1 = ((r.end / n.step).floor() as usize).min(n.grey.len().checked_sub(1)?);
+    if k1 < k0 + 2 {
+        return None;
+    }
+    let seg = &n.grey[k0..=k1];
+    let (imin, vmin) = seg
+        .iter()
+        .enumerate()
+        .min_by(|a, b| a.1.total_cmp(b.1))
+        .map(|(i, v)| (i, *v))?;
+    let left = seg[..=imin]
+        .iter()
+        .copied()
+        .fold(f32::NEG_INFINITY, f32::max);
+    let right = seg[imin..]
+        .iter()
+        .copied()
+        .fold(f32::NEG_INFINITY, f32::max);
+    let pos = (k0 + imin) as f64 * n.step;
+    let ok = left.min(right) - vmin >= n.depth
+        && n.depth > 0.0
+        && pos - r.start >= min_len
+        && r.end - pos >= min_len;
+    ok.then_some(pos)
+}
+
+fn count_runs_with_necks(
+    runs: &[Run],
+    necks: Option<Necks>,
+    line_len: f64,
+    p: &InterceptParams,
+) -> Option<Count> {
     let mut runs = runs.to_vec();
     merge_short_runs(&mut runs, p.min_run_px);
     // Median period from the complete foreground runs, then the relative
@@ -688,7 +881,11 @@ pub fn count_runs(runs: &[Run], line_len: f64, p: &InterceptParams) -> Option<Co
         stats::median(&d)
     };
     let m0 = period(&runs)?;
-    merge_short_runs(&mut runs, (p.min_run_fraction * m0).max(p.min_run_px));
+    let min_len = (p.min_run_fraction * m0).max(p.min_run_px);
+    merge_short_runs(&mut runs, min_len);
+    if let Some(nk) = necks {
+        runs = split_necks(&runs, nk, min_len);
+    }
     let wmed = stats::median(&complete_fg(&runs).map(|r| r.len()).collect::<Vec<_>>())?;
     let n = runs.len();
     let gaps: Vec<f64> = runs
@@ -836,13 +1033,8 @@ fn complete_fg(runs: &[Run]) -> impl Iterator<Item = &Run> {
 }
 
 /// Samples the line every half pixel, counts it and returns it as a [`Line`].
-fn count_line(
-    seg: &Segmentation,
-    a: (f64, f64),
-    b: (f64, f64),
-    p: &InterceptParams,
-) -> Option<Line> {
-    let (w, h) = (seg.width, seg.height);
+fn count_line(seg: &PhaseField, a: (f64, f64), b: (f64, f64), p: &InterceptParams) -> Option<Line> {
+    let (w, h) = (seg.w, seg.h);
     let len = (b.0 - a.0).hypot(b.1 - a.1);
     // Half-pixel steps: the sampling is finer than the 1 px pre-smoothing,
     // so no boundary is skipped.
@@ -855,12 +1047,23 @@ fn count_line(
     let values: Vec<f32> = (0..n)
         .map(|k| {
             let s = k as f64 * step;
-            bilinear(&seg.smoothed, w, h, a.0 + s * ux, a.1 + s * uy)
+            bilinear(&seg.v, w, h, a.0 + s * ux, a.1 + s * uy)
         })
         .collect();
-    let runs = runs_of_profile(&values, step, seg.threshold, seg.inverted);
+    let grey: Vec<f32> = (0..n)
+        .map(|k| {
+            let s = k as f64 * step;
+            bilinear(&seg.grey, w, h, a.0 + s * ux, a.1 + s * uy)
+        })
+        .collect();
+    let runs = runs_of_profile(&values, step, 0.5, false);
     let sampled = (n - 1) as f64 * step;
-    let c = count_runs(&runs, sampled, p)?;
+    let necks = Necks {
+        grey: &grey,
+        step,
+        depth: seg.neck_depth,
+    };
+    let c = count_runs_with_necks(&runs, Some(necks), sampled, p)?;
     let spacing = match p.convention {
         Convention::CentreToCentre => c.centre_to_centre,
         Convention::LengthOverCount => c.length_over_count,
