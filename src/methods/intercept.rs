@@ -235,11 +235,11 @@ pub fn measure(img: &Prepared, params: &InterceptParams) -> InterceptOutcome {
         );
     }
     let field = phase_field(&seg, params.segment.smooth_sigma_px);
-    let median_of = |lines: &[Line]| -> Option<f64> {
+    let median_of = |lines: &[Traced]| -> Option<f64> {
         if lines.len() < 2 {
             return None;
         }
-        stats::median(&lines.iter().map(|l| l.spacing_px).collect::<Vec<_>>())
+        stats::median(&lines.iter().map(|l| l.line.spacing_px).collect::<Vec<_>>())
     };
     // Scale search (without a hint). The crossing estimate counts the whole
     // field, including trunks and interdendritic pools without crossings, so
@@ -256,8 +256,8 @@ pub fn measure(img: &Prepared, params: &InterceptParams) -> InterceptOutcome {
             .filter(|s| *s >= 2.0)
             .collect(),
     };
-    let mut best: Option<(f64, f64, Vec<Line>)> = None;
-    let mut fallback: Vec<Line> = Vec::new();
+    let mut best: Option<(f64, f64, Vec<Traced>)> = None;
+    let mut fallback: Vec<Traced> = Vec::new();
     for &scale in &scales {
         let lines = lay_lines(img, &field, scale, params);
         let Some(m) = median_of(&lines) else {
@@ -292,7 +292,29 @@ pub fn measure(img: &Prepared, params: &InterceptParams) -> InterceptOutcome {
         }
         None => fallback,
     };
-    aggregate(lines)
+    aggregate(recount_pooled(&field, lines, params))
+}
+
+/// Recounts every line with the arm run length and period pooled over all
+/// lines of the image (medians of the lines' single-arm run lengths and of
+/// all their periods). One line holds a handful of arms, so its own medians
+/// are easily pulled by two or three merged or missing arms, and then the
+/// split and gap rules (module docs, step 6) misjudge; the image's medians,
+/// over hundreds of arms, are not. Lines that no longer pass are dropped.
+fn recount_pooled(field: &PhaseField, lines: Vec<Traced>, p: &InterceptParams) -> Vec<Line> {
+    let w = stats::median(&lines.iter().map(|t| t.count.arm_run_px).collect::<Vec<_>>());
+    let periods: Vec<f64> = lines
+        .iter()
+        .flat_map(|t| t.count.periods_px.iter().copied())
+        .collect();
+    let m = stats::median(&periods);
+    match (w, m) {
+        (Some(w), Some(m)) if lines.len() >= 2 && m > 0.0 && w > 0.0 && w < m => lines
+            .iter()
+            .filter_map(|t| count_line(field, t.a, t.b, p, Some((w, m))).map(|(l, _)| l))
+            .collect(),
+        _ => lines.into_iter().map(|t| t.line).collect(),
+    }
 }
 
 fn aggregate(lines: Vec<Line>) -> InterceptOutcome {
@@ -517,7 +539,15 @@ fn phase_field(seg: &Segmentation, sigma: f64) -> PhaseField {
     }
 }
 
-fn lay_lines(img: &Prepared, seg: &PhaseField, lambda: f64, p: &InterceptParams) -> Vec<Line> {
+/// A counted line with the traced segment it was sampled on.
+struct Traced {
+    line: Line,
+    a: (f64, f64),
+    b: (f64, f64),
+    count: Count,
+}
+
+fn lay_lines(img: &Prepared, seg: &PhaseField, lambda: f64, p: &InterceptParams) -> Vec<Traced> {
     let (w, h) = (seg.w, seg.h);
     let mask = img.mask.as_deref().filter(|m| m.len() == w * h);
     let tensor = Tensor::new(
@@ -608,12 +638,17 @@ fn lay_lines(img: &Prepared, seg: &PhaseField, lambda: f64, p: &InterceptParams)
         }
         let (x0, y0) = (cx as f64 + a * ux, cy as f64 + a * uy);
         let (x1, y1) = (cx as f64 + b * ux, cy as f64 + b * uy);
-        let Some(line) = count_line(seg, (x0, y0), (x1, y1), p) else {
+        let Some((line, count)) = count_line(seg, (x0, y0), (x1, y1), p, None) else {
             n_bad += 1;
             continue;
         };
         mark_band(&mut occupied, w, h, (x0, y0), (x1, y1), band);
-        lines.push(line);
+        lines.push(Traced {
+            line,
+            a: (x0, y0),
+            b: (x1, y1),
+            count,
+        });
     }
     if dbg {
         let mut cs: Vec<f64> = (0..h)
@@ -781,12 +816,16 @@ pub struct Count {
     pub period_cv: f64,
     /// Arm positions inferred (missing) or split out of merged runs.
     pub inferred: usize,
+    /// Median length of the complete single arm runs used, pixels.
+    pub arm_run_px: f64,
+    /// Periods between consecutive centres, each divided by its k.
+    pub periods_px: Vec<f64>,
 }
 
 /// Counts arms on a run sequence (module docs, steps 5-7); `line_len` is the
 /// sampled length. Returns the longest valid piece, or `None`.
 pub fn count_runs(runs: &[Run], line_len: f64, p: &InterceptParams) -> Option<Count> {
-    count_runs_with_necks(runs, None, line_len, p)
+    count_runs_with_necks(runs, None, line_len, p, None)
 }
 
 /// A grey profile along a line (arm phase bright, samples `step` apart) and
@@ -865,11 +904,14 @@ fn deepest_neck(r: &Run, n: Necks, min_len: f64) -> Option<f64> {
     ok.then_some(pos)
 }
 
+/// `pooled`: the arm run length and period (w, m) pooled over all the
+/// image's lines, used instead of the line's own medians when given.
 fn count_runs_with_necks(
     runs: &[Run],
     necks: Option<Necks>,
     line_len: f64,
     p: &InterceptParams,
+    pooled: Option<(f64, f64)>,
 ) -> Option<Count> {
     let mut runs = runs.to_vec();
     merge_short_runs(&mut runs, p.min_run_px);
@@ -880,22 +922,29 @@ fn count_runs_with_necks(
         let d: Vec<f64> = c.windows(2).map(|v| v[1] - v[0]).collect();
         stats::median(&d)
     };
-    let m0 = period(&runs)?;
+    let m0 = match pooled {
+        Some((_, m)) => m,
+        None => period(&runs)?,
+    };
     let min_len = (p.min_run_fraction * m0).max(p.min_run_px);
     merge_short_runs(&mut runs, min_len);
     if let Some(nk) = necks {
         runs = split_necks(&runs, nk, min_len);
     }
-    let wmed = stats::median(&complete_fg(&runs).map(|r| r.len()).collect::<Vec<_>>())?;
     let n = runs.len();
-    let gaps: Vec<f64> = runs
-        .iter()
-        .enumerate()
-        .filter(|(i, r)| !r.fg && *i > 0 && *i + 1 < n)
-        .map(|(_, r)| r.len())
-        .collect();
-    let gmed = stats::median(&gaps)?;
-    let m = wmed + gmed;
+    let (wmed, m) = match pooled {
+        Some(wm) => wm,
+        None => {
+            let wmed = stats::median(&complete_fg(&runs).map(|r| r.len()).collect::<Vec<_>>())?;
+            let gaps: Vec<f64> = runs
+                .iter()
+                .enumerate()
+                .filter(|(i, r)| !r.fg && *i > 0 && *i + 1 < n)
+                .map(|(_, r)| r.len())
+                .collect();
+            (wmed, wmed + stats::median(&gaps)?)
+        }
+    };
     if m <= 0.0 {
         return None;
     }
@@ -1013,6 +1062,8 @@ fn count_runs_with_necks(
             extent: (a, b),
             period_cv: cv,
             inferred,
+            arm_run_px: wmed,
+            periods_px: normalised.clone(),
         };
         if best
             .as_ref()
@@ -1033,7 +1084,13 @@ fn complete_fg(runs: &[Run]) -> impl Iterator<Item = &Run> {
 }
 
 /// Samples the line every half pixel, counts it and returns it as a [`Line`].
-fn count_line(seg: &PhaseField, a: (f64, f64), b: (f64, f64), p: &InterceptParams) -> Option<Line> {
+fn count_line(
+    seg: &PhaseField,
+    a: (f64, f64),
+    b: (f64, f64),
+    p: &InterceptParams,
+    pooled: Option<(f64, f64)>,
+) -> Option<(Line, Count)> {
     let (w, h) = (seg.w, seg.h);
     let len = (b.0 - a.0).hypot(b.1 - a.1);
     // Half-pixel steps: the sampling is finer than the 1 px pre-smoothing,
@@ -1063,7 +1120,7 @@ fn count_line(seg: &PhaseField, a: (f64, f64), b: (f64, f64), p: &InterceptParam
         step,
         depth: seg.neck_depth,
     };
-    let c = count_runs_with_necks(&runs, Some(necks), sampled, p)?;
+    let c = count_runs_with_necks(&runs, Some(necks), sampled, p, pooled)?;
     let spacing = match p.convention {
         Convention::CentreToCentre => c.centre_to_centre,
         Convention::LengthOverCount => c.length_over_count,
@@ -1074,7 +1131,7 @@ fn count_line(seg: &PhaseField, a: (f64, f64), b: (f64, f64), p: &InterceptParam
     let at = |s: f64| (a.0 + s * ux, a.1 + s * uy);
     let (s0, s1) = c.extent;
     let (p0, p1) = (at(s0), at(s1));
-    Some(Line {
+    let line = Line {
         x0_px: p0.0,
         y0_px: p0.1,
         x1_px: p1.0,
@@ -1082,5 +1139,6 @@ fn count_line(seg: &PhaseField, a: (f64, f64), b: (f64, f64), p: &InterceptParam
         arms: c.positions,
         spacing_px: spacing,
         arm_centres_px: c.centres.iter().map(|&s| at(s)).collect(),
-    })
+    };
+    Some((line, c))
 }
