@@ -90,6 +90,12 @@ pub struct Segmentation {
     pub inverted: bool,
     /// Foreground fraction of the unmasked pixels, after the clean-up.
     pub fraction: f64,
+    /// Otsu's separability measure eta = between-class variance / total
+    /// variance at the threshold (Otsu 1979, eq. 12 and section III), on the
+    /// smoothed values before the clean-up: 1 for two sharp levels, 0.75 for
+    /// a uniform histogram, 2/pi = 0.64 for a single Gaussian (split at its
+    /// mean: class means +-sigma sqrt(2/pi)).
+    pub separability: f64,
     /// The smoothed prepared values that were thresholded (masked pixels 0).
     pub smoothed: Vec<f32>,
 }
@@ -202,6 +208,7 @@ pub fn segment(img: &Prepared, params: &SegmentParams) -> Option<Segmentation> {
     let smoothed = gaussian_blur(&img.image.data, w, h, params.smooth_sigma_px.max(0.0));
     let threshold = otsu_threshold(&smoothed, mask)?;
     let excluded = |i: usize| mask.is_some_and(|m| m[i]);
+    let separability = separability(&smoothed, mask, threshold)?;
     let mut bright: Vec<bool> = (0..w * h)
         .map(|i| !excluded(i) && smoothed[i] > threshold)
         .collect();
@@ -240,8 +247,36 @@ pub fn segment(img: &Prepared, params: &SegmentParams) -> Option<Segmentation> {
         threshold,
         inverted,
         fraction,
+        separability,
         smoothed,
     })
+}
+
+/// Between-class over total variance of the unmasked values split at `t`
+/// (upper class: values > t). `None` without variance.
+pub fn separability(values: &[f32], mask: Option<&[bool]>, t: f32) -> Option<f64> {
+    let (mut n, mut s, mut s2, mut n1, mut s1) = (0.0f64, 0.0f64, 0.0f64, 0.0f64, 0.0f64);
+    for v in unmasked(values, mask) {
+        let x = v as f64;
+        n += 1.0;
+        s += x;
+        s2 += x * x;
+        if v > t {
+            n1 += 1.0;
+            s1 += x;
+        }
+    }
+    let n0 = n - n1;
+    if n0 <= 0.0 || n1 <= 0.0 {
+        return None;
+    }
+    let mean = s / n;
+    let total = s2 / n - mean * mean;
+    if total <= 0.0 {
+        return None;
+    }
+    let d = s1 / n1 - (s - s1) / n0;
+    Some((n0 / n) * (n1 / n) * d * d / total)
 }
 
 /// Gives connected components (4-connectivity) of either phase smaller than

@@ -1,63 +1,73 @@
 //! SDAS by line intercept, automated the way a metallographer measures it.
 //!
 //! The manual practice (common practice, no single source; see e.g. the
-//! linear-intercept counting of ASTM E112 and the SDAS line method of
-//! Vandersluis & Ravindran, Metallogr. Microstruct. Anal. 6 (2017) 89-94):
-//! lay a line along a primary trunk across a run of parallel secondary arms,
-//! count the arms, and divide the length by the count. Here:
+//! linear-intercept counting of ASTM E112 and the comparison of SDAS methods
+//! by E. Vandersluis & C. Ravindran, Metallogr. Microstruct. Anal. 6 (2017)
+//! 89-94, cited from memory): lay a line along a primary trunk across a run
+//! of parallel secondary arms, count the arms, and divide the length by the
+//! count. Here:
 //!
 //! 1. **Segmentation** ([`crate::segment`]): Otsu's threshold on the lightly
 //!    smoothed prepared image; the foreground is the phase carrying the arms.
+//!    An image whose grey levels are not two phases (Otsu's separability
+//!    below `min_separability`) gets no value. Lines are sampled, and the
+//!    structure tensor computed, on the cleaned foreground indicator smoothed
+//!    by the same 1 px Gaussian (the "phase field"): texture inside a phase
+//!    is gone, and the 0.5 level gives sub-pixel boundaries.
 //! 2. **Scale**: a first spacing scale `lambda0` is the `expected_spacing_px`
 //!    hint when given, else the phase-boundary crossing density of the
 //!    segmentation: for a row of parallel bands of period lambda at any angle,
 //!    crossings per unit length along x and y are P_x = 2|cos a|/lambda and
 //!    P_y = 2|sin a|/lambda, so lambda = 2 / sqrt(P_x^2 + P_y^2) exactly
-//!    (stereology of lamellar structures; for an isotropic structure the same
-//!    formula gives the mean intercept period / sqrt 2). It only sizes the
-//!    windows below; when the measured spacing differs from it by more than
-//!    20 % the whole measurement is repeated once at the measured scale.
+//!    (stereology of lamellar structures). Regions without crossings (trunks,
+//!    pools) make it read high, so the windows are tried at lambda0,
+//!    lambda0/sqrt 2 and lambda0/2 and the scale whose lines' median spacing
+//!    agrees best with it is kept (and repeated at the measured spacing when
+//!    they still differ by more than 20 %).
 //! 3. **Where arms run**: the structure tensor (J. Bigun & G. Granlund,
 //!    "Optimal orientation detection of linear symmetry", Proc. 1st ICCV,
-//!    1987, 433-438): products of the image gradient smoothed by a Gaussian
-//!    of `tensor_sigma_spacings x lambda0`. Its dominant eigenvector is the
+//!    1987, 433-438): products of the gradient smoothed by a Gaussian of
+//!    `tensor_sigma_spacings` spacings. Its dominant eigenvector is the
 //!    dominant gradient direction; secondary arms are elongated across their
 //!    trunk, so in a row of parallel arms that direction runs along the
 //!    trunk, across the arms: the direction of a test line. The coherence
-//!    (l1 - l2) / (l1 + l2) of the eigenvalues says how one-directional the
-//!    neighbourhood is.
-//! 4. **Test lines**: candidate centres on a grid of pitch `lambda0`, taken in
-//!    order of decreasing coherence; from each, a straight line is traced both
-//!    ways along the local direction while the neighbourhood stays coherent,
-//!    the direction stays within `max_turn_deg`, the image border and the
-//!    mask are clear, and no earlier line lies within
-//!    `line_separation_spacings x lambda0` (so lines sample different arms and
-//!    count as independent measurements); at most `max_line_spacings x lambda0`
-//!    long.
-//! 5. **Counting**: the smoothed image is sampled every half pixel along the
-//!    line (bilinear) and compared with the threshold; phase boundaries are
-//!    placed at the linear-interpolated crossing. Runs of either phase shorter
-//!    than `min_run_px`, and then than `min_run_fraction` of the line's median
-//!    period, are noise and are merged into their neighbours. Arm centres are
-//!    the centres of the complete foreground runs (runs cut by the line's ends
-//!    are not complete and have no centre).
+//!    (l1 - l2) / (l1 + l2) says how one-directional the neighbourhood is.
+//! 4. **Test lines**: candidate centres on a grid of pitch one spacing, taken
+//!    in order of decreasing coherence; from each, a straight line is traced
+//!    both ways along the local direction while the neighbourhood stays
+//!    coherent, the direction stays within `max_turn_deg`, the image border
+//!    and the mask are clear, and no earlier line lies within
+//!    `line_separation_spacings` (so lines sample different arms and count
+//!    as independent measurements); at most `max_line_spacings` long.
+//! 5. **Counting**: the phase field is sampled every half pixel along the
+//!    line (bilinear); boundaries are the linear-interpolated crossings of
+//!    0.5. Runs of either phase shorter than `min_run_px`, and then than
+//!    `min_run_fraction` of the line's median period, are noise and are
+//!    merged into their neighbours. Touching arms are split at necks in the
+//!    grey profile (see `split_necks`). Arm centres are the centres of the
+//!    complete foreground runs (runs cut by the line's ends have no centre).
 //! 6. **Merged and missing arms** (correcting the cause, not the count): with
-//!    w the median arm run, g the median gap and m = w + g the period, a run
-//!    longer than w + m/2 (nearer a merged pair, m + w, than a single arm)
-//!    holds k = 1 + round((r - w)/m) arms, whose centres are spread evenly
-//!    over it; a gap between consecutive centres of p ~ k m (k = 2, 3) holds
-//!    k - 1 arms out of the section plane, counted as positions without a
-//!    centre. Beyond three periods the line has left the row (a trunk, a grain
+//!    w the median arm run and m the median period, a run longer than
+//!    w + m/2 (nearer a merged pair, m + w, than a single arm) holds
+//!    k = 1 + round((r - w)/m) arms, whose centres are spread evenly over it;
+//!    a gap between consecutive centres of p ~ k m (k = 2, 3) holds k - 1
+//!    arms out of the section plane, counted as positions without a centre.
+//!    Beyond three periods the line has left the row (a trunk, a grain
 //!    boundary, an interdendritic pool): it is cut there and the longest
 //!    piece is kept. A line is rejected when more than a third of its
-//!    positions are inferred (the median period itself is then in doubt), or
-//!    when the coefficient of variation of its periods exceeds `max_period_cv`.
-//! 7. **Spacing of a line** ([`Convention`]): centre-to-centre
-//!    L/(n-1), the distance between the first and last arm centres over the
-//!    number of spacings between them, or L/n, the line length over the
-//!    number of arms crossed, where an arm cut by an end of the line counts
-//!    one half (the ASTM E112 rule for a line ending inside a grain), which
-//!    makes L/n unbiased for a randomly placed line.
+//!    positions are inferred (the period itself is then in doubt), or when
+//!    the coefficient of variation of its periods exceeds `max_period_cv`.
+//!    Each line is counted first with its own w and m (w + median gap), then
+//!    recounted with w and m pooled over all the image's lines, which a few
+//!    merged or missing arms cannot pull.
+//! 7. **Spacing of a line** ([`Convention`]): centre-to-centre L/(n-1), the
+//!    distance between the first and last arm centres over the number of
+//!    spacings between them; or L/n, the length of a line drawn from the
+//!    middle of the gap before the first arm to the middle of the gap after
+//!    the last (L/(n-1) span plus one period m) over the n arms it crosses.
+//!    Traced lines end where the arm row ends, not at random, so the ASTM
+//!    E112 half-count rule for randomly ended lines does not apply; gap-to-gap
+//!    ends make L/n unbiased for a regular row.
 //! 8. **Image value**: lines farther than 3.5 robust standard deviations
 //!    (1.4826 MAD) from the median line are dropped (the modified z-score
 //!    rule of B. Iglewicz & D. C. Hoaglin, "How to Detect and Handle
@@ -86,6 +96,14 @@ pub enum Convention {
 pub struct InterceptParams {
     pub segment: SegmentParams,
     pub convention: Convention,
+    /// Least Otsu separability (between-class / total variance at the
+    /// threshold, `Segmentation::separability`) for the image to count as
+    /// two phases. A single Gaussian population gives 2/pi = 0.64 and a
+    /// uniform one 0.75; the default 0.69 lies half way, so smoothed white
+    /// noise or a featureless field is refused before any line is laid,
+    /// where the line checks alone would, over thousands of candidates,
+    /// occasionally pass a chance run of regular-looking noise.
+    pub min_separability: f64,
     /// A spacing scale from elsewhere (e.g. the FFT method), pixels. Only
     /// sizes the windows; the measured value does not depend on it directly.
     pub expected_spacing_px: Option<f64>,
@@ -95,10 +113,13 @@ pub struct InterceptParams {
     /// `max_turn_deg` of it.
     pub direction_hint_deg: Option<f64>,
     /// Smallest structure-tensor coherence for a line centre and along a
-    /// line. 0.5 means the dominant eigenvalue is three times the other
+    /// line. 0.3 means the dominant eigenvalue is 1.9 times the other
     /// (l1/l2 = (1 + c)/(1 - c)); for isotropic noise averaged over the
     /// tensor window (hundreds of pixels) the coherence is of order
-    /// 1/sqrt(pixels), about 0.1.
+    /// 1/sqrt(pixels), about 0.1. It is deliberately permissive: rows of
+    /// rounded, sectioned arms beside their trunk's edges (whose gradients
+    /// point the other way) rarely reach 0.5, and the line checks that
+    /// follow (regular periods, at least four arms) do the real selection.
     pub min_coherence: f64,
     /// Largest angle between the local direction and the line, degrees.
     /// Beyond 20 deg the measured spacing would exceed the perpendicular
@@ -125,8 +146,9 @@ pub struct InterceptParams {
     /// spacings along a trunk scatter with CV about 0.1-0.3 (from memory);
     /// beyond 0.4 the line is not crossing one regular row.
     pub max_period_cv: f64,
-    /// Runs shorter than this, pixels, are noise: after the 1 px
-    /// pre-smoothing a run narrower than two samples is below resolution.
+    /// Runs shorter than this, pixels, are not crossings: specks were
+    /// already removed by the segmentation's clean-up, so a run under one
+    /// pixel is a grazing contact with the edge of a particle.
     pub min_run_px: f64,
     /// Runs shorter than this fraction of the line's median period are
     /// noise: an arm row with phase fraction f has runs f x lambda and gaps
@@ -139,6 +161,7 @@ impl Default for InterceptParams {
         Self {
             segment: SegmentParams::default(),
             convention: Convention::CentreToCentre,
+            min_separability: 0.69,
             expected_spacing_px: None,
             direction_hint_deg: None,
             min_coherence: 0.3,
@@ -230,6 +253,15 @@ pub fn measure(img: &Prepared, params: &InterceptParams) -> InterceptOutcome {
         return InterceptOutcome::none(
             format!(
                 "no reliable arm rows: spacing scale {lambda0:.1} px is outside 2..{max_scale:.0} px for this image"
+            ),
+            vec![],
+        );
+    }
+    if seg.separability < params.min_separability {
+        return InterceptOutcome::none(
+            format!(
+                "no reliable arm rows: the grey levels do not form two phases (Otsu separability {:.2} < {:.2})",
+                seg.separability, params.min_separability
             ),
             vec![],
         );
@@ -587,8 +619,6 @@ fn lay_lines(img: &Prepared, seg: &PhaseField, lambda: f64, p: &InterceptParams)
     }
     // Most coherent first; ties by raster position, so the order is total.
     cands.sort_by(|a, b| b.0.total_cmp(&a.0).then((a.2, a.1).cmp(&(b.2, b.1))));
-    let dbg = std::env::var("ARMSPACE_DEBUG").is_ok();
-    let (mut n_short, mut n_bad) = (0, 0);
 
     let mut occupied = vec![false; w * h];
     let half_max = 0.5 * p.max_line_spacings * lambda;
@@ -633,13 +663,11 @@ fn lay_lines(img: &Prepared, seg: &PhaseField, lambda: f64, p: &InterceptParams)
         }
         let (a, b) = (-ends[0], ends[1]);
         if b - a < min_len {
-            n_short += 1;
             continue;
         }
         let (x0, y0) = (cx as f64 + a * ux, cy as f64 + a * uy);
         let (x1, y1) = (cx as f64 + b * ux, cy as f64 + b * uy);
         let Some((line, count)) = count_line(seg, (x0, y0), (x1, y1), p, None) else {
-            n_bad += 1;
             continue;
         };
         mark_band(&mut occupied, w, h, (x0, y0), (x1, y1), band);
@@ -649,28 +677,6 @@ fn lay_lines(img: &Prepared, seg: &PhaseField, lambda: f64, p: &InterceptParams)
             b: (x1, y1),
             count,
         });
-    }
-    if dbg {
-        let mut cs: Vec<f64> = (0..h)
-            .step_by(4)
-            .flat_map(|y| (0..w).step_by(4).map(move |x| (x, y)))
-            .map(|(x, y)| tensor.at(x, y).1)
-            .collect();
-        cs.sort_by(|a, b| a.total_cmp(b));
-        let q = |f: f64| cs[((cs.len() - 1) as f64 * f) as usize];
-        eprintln!(
-            "DBG coherence p25 {:.2} p50 {:.2} p75 {:.2} p90 {:.2}",
-            q(0.25),
-            q(0.5),
-            q(0.75),
-            q(0.9)
-        );
-        let ncoh = (0..h)
-            .step_by(4)
-            .flat_map(|y| (0..w).step_by(4).map(move |x| (x, y)))
-            .filter(|&(x, y)| tensor.at(x, y).1 >= p.min_coherence)
-            .count();
-        eprintln!("DBG lambda {lambda:.2} cands {} short {n_short} bad {n_bad} lines {} coherent-frac {:.3}", cands.len(), lines.len(), ncoh as f64 / ((w / 4 + 1) * (h / 4 + 1)) as f64);
     }
     lines
 }
@@ -948,18 +954,17 @@ fn count_runs_with_necks(
     if m <= 0.0 {
         return None;
     }
-    // Arm positions: (centre, observed, inferred-before) with cuts where the
-    // line leaves the row.
+    // Arm positions along the line, in pieces (with the stretch of line each
+    // covers) cut where the line leaves the row.
     #[derive(Clone, Copy)]
     struct Pos {
         c: f64,
         /// An extra arm split out of a merged run (not its first).
         extra: bool,
     }
-    let mut pieces: Vec<(Vec<Pos>, f64, f64, bool, bool)> = Vec::new();
+    let mut pieces: Vec<(Vec<Pos>, f64, f64)> = Vec::new();
     let mut cur: Vec<Pos> = Vec::new();
     let mut piece_start = 0.0;
-    let mut start_cut_fg = runs.first().is_some_and(|r| r.fg);
     for (i, r) in runs.iter().enumerate() {
         if !r.fg || i == 0 || i + 1 == n {
             continue;
@@ -971,15 +976,8 @@ fn count_runs_with_necks(
         };
         if k > 3 {
             // Not merged arms: a trunk or other body; the row ends here.
-            pieces.push((
-                std::mem::take(&mut cur),
-                piece_start,
-                r.start,
-                start_cut_fg,
-                false,
-            ));
+            pieces.push((std::mem::take(&mut cur), piece_start, r.start));
             piece_start = r.end;
-            start_cut_fg = false;
             continue;
         }
         if k == 1 {
@@ -997,31 +995,28 @@ fn count_runs_with_necks(
             }
         }
     }
-    let end_cut_fg = runs.last().is_some_and(|r| r.fg);
-    pieces.push((cur, piece_start, line_len, start_cut_fg, end_cut_fg));
+    pieces.push((cur, piece_start, line_len));
 
     // Cut pieces further at gaps of more than three periods.
-    let mut cut: Vec<(Vec<Pos>, f64, f64, bool, bool)> = Vec::new();
-    for (ps, a, b, sa, sb) in pieces {
+    let mut cut: Vec<(Vec<Pos>, f64, f64)> = Vec::new();
+    for (ps, a, b) in pieces {
         let mut acc: Vec<Pos> = Vec::new();
         let mut a_cur = a;
-        let mut sa_cur = sa;
         for q in ps {
             if let Some(last) = acc.last() {
                 if ((q.c - last.c) / m).round() > 3.0 {
                     let end = last.c + 0.5 * m;
-                    cut.push((std::mem::take(&mut acc), a_cur, end, sa_cur, false));
+                    cut.push((std::mem::take(&mut acc), a_cur, end));
                     a_cur = q.c - 0.5 * m;
-                    sa_cur = false;
                 }
             }
             acc.push(q);
         }
-        cut.push((acc, a_cur, b, sa_cur, sb));
+        cut.push((acc, a_cur, b));
     }
 
     let mut best: Option<Count> = None;
-    for (ps, a, b, sa, sb) in cut {
+    for (ps, a, b) in cut {
         if ps.len() < 2 {
             continue;
         }
@@ -1052,14 +1047,15 @@ fn count_runs_with_necks(
             continue;
         }
         let (c0, c1) = (ps[0].c, ps[ps.len() - 1].c);
-        let half_counts = 0.5 * (sa as u8 + sb as u8) as f64;
         let count = Count {
             centres: ps.iter().map(|q| q.c).collect(),
             positions,
             spacings,
             centre_to_centre: (c1 - c0) / spacings as f64,
-            length_over_count: (b - a) / (positions as f64 + half_counts),
-            extent: (a, b),
+            // The line from the middle of the gap before the first arm to
+            // the middle of the gap after the last spans n periods.
+            length_over_count: (c1 - c0 + m) / positions as f64,
+            extent: ((c0 - 0.5 * m).max(a), (c1 + 0.5 * m).min(b)),
             period_cv: cv,
             inferred,
             arm_run_px: wmed,
