@@ -193,3 +193,35 @@ fn survey_seed_sets() {
         report(&format!("all {m:?} {s:?}"), &errors(&all, m, s));
     }
 }
+
+#[test]
+#[ignore = "timing report, not a check; run in release with --ignored --nocapture"]
+fn timing_of_a_1024_square_image() {
+    // The method runs on one thread (no rayon inside `measure`).
+    let mut rng = ChaCha8Rng::seed_from_u64(99);
+    for i in 0..4 {
+        let mut spec = random_spec(&mut rng, i);
+        spec.width = 1024;
+        spec.height = 1024;
+        let (p, t) = prepared_of(&spec);
+        let params = InterceptParams::default();
+        let _ = measure(&p, &params);
+        let t0 = std::time::Instant::now();
+        let reps = 3;
+        let mut o = None;
+        for _ in 0..reps {
+            o = Some(measure(&p, &params));
+        }
+        let dt = t0.elapsed().as_secs_f64() / reps as f64;
+        let o = o.unwrap();
+        eprintln!(
+            "{:?} {:?} 1024x1024, true {:.2} px: {:.1} ms, value {:?}, {} lines",
+            t.morphology,
+            t.style,
+            t.sdas_px,
+            1e3 * dt,
+            o.value_px.map(|v| (v * 100.0).round() / 100.0),
+            o.n_lines
+        );
+    }
+}
