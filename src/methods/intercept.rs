@@ -98,10 +98,12 @@ pub struct InterceptParams {
     pub convention: Convention,
     /// Least Otsu separability (between-class / total variance at the
     /// threshold, `Segmentation::separability`) for the image to count as
-    /// two phases. A single Gaussian population gives 2/pi = 0.64 and a
-    /// uniform one 0.75; the default 0.69 lies half way, so smoothed white
-    /// noise or a featureless field is refused before any line is laid,
-    /// where the line checks alone would, over thousands of candidates,
+    /// two phases. A single Gaussian population (what smoothed white noise
+    /// becomes) gives 2/pi = 0.637 and a uniform one 0.75; the default 0.66
+    /// asks for clearly more than one Gaussian, allowing a few hundredths
+    /// for sampling, while fine blurred two-phase fields (period ~7 px,
+    /// 1-2 px optical blur) can fall as low as about 0.67. Without the gate
+    /// the line checks alone would, over thousands of candidates,
     /// occasionally pass a chance run of regular-looking noise.
     pub min_separability: f64,
     /// A spacing scale from elsewhere (e.g. the FFT method), pixels. Only
@@ -161,7 +163,7 @@ impl Default for InterceptParams {
         Self {
             segment: SegmentParams::default(),
             convention: Convention::CentreToCentre,
-            min_separability: 0.69,
+            min_separability: 0.66,
             expected_spacing_px: None,
             direction_hint_deg: None,
             min_coherence: 0.3,
