@@ -117,12 +117,14 @@ pub fn otsu_threshold(values: &[f32], mask: Option<&[bool]>) -> Option<f32> {
     if sample.is_empty() {
         return None;
     }
-    sample.sort_by(|a, b| a.total_cmp(b));
-    let pct = |p: f64| -> f32 {
+    // Nearest-rank percentiles by selection (linear time, no full sort).
+    let mut pct = |p: f64| -> f32 {
         let i = ((p / 100.0) * (sample.len() - 1) as f64).round() as usize;
-        sample[i.min(sample.len() - 1)]
+        let i = i.min(sample.len() - 1);
+        *sample.select_nth_unstable_by(i, |a, b| a.total_cmp(b)).1
     };
-    let (lo, hi) = (pct(OTSU_RANGE_PERCENTILES.0), pct(OTSU_RANGE_PERCENTILES.1));
+    let lo = pct(OTSU_RANGE_PERCENTILES.0);
+    let hi = pct(OTSU_RANGE_PERCENTILES.1);
     otsu_threshold_binned(values, mask, lo, hi, OTSU_BINS)
 }
 
