@@ -16,6 +16,7 @@ pub mod overlay;
 pub mod pipeline;
 pub mod preprocess;
 pub mod report;
+pub mod segment;
 pub mod stats;
 pub mod synth;
 pub mod units;

@@ -3,4 +3,5 @@
 //! micrometres happens in the pipeline, once.
 
 pub mod fft;
+pub mod intercept;
 pub mod spectrum;
