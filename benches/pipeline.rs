@@ -3,18 +3,22 @@
 //!
 //!     cargo bench --bench pipeline
 //!
-//! Each case renders a synthetic etched micrograph once (src/synth), encodes
-//! it as PNG, and times decode + preprocess + FFT measurement + statistics on
-//! a single-threaded rayon pool. Criterion reports the time per image and the
-//! throughput in elements (pixels) per second.
+//! Each case renders a synthetic etched micrograph once (src/synth), writes it
+//! as PNG, and times the whole per-image pipeline on a single-threaded rayon
+//! pool: read, hash, decode, scale-bar search, calibration, preprocessing,
+//! both methods (FFT and intercept) and their statistics. Criterion reports
+//! the time per image and the throughput in elements (pixels) per second.
 
-use armspace::load::{load_bytes, LoadOptions};
-use armspace::methods::fft::{self, FftParams};
-use armspace::preprocess::{prepare, PreprocessParams};
+use armspace::calibrate::CalibrationRequest;
+use armspace::load::LoadOptions;
+use armspace::methods::fft::FftParams;
+use armspace::methods::intercept::InterceptParams;
+use armspace::pipeline::{measure_file, MeasureOptions, Method};
+use armspace::preprocess::PreprocessParams;
 use armspace::synth::{render, Corner, FieldSpec, Morphology, Polarity, ScaleBarSpec, Style};
+use armspace::units::UmPerPx;
 use criterion::{criterion_group, criterion_main, BenchmarkId, Criterion, Throughput};
 use std::io::Cursor;
-use std::path::Path;
 
 fn spec(side: u32, morphology: Morphology, sdas_px: f64) -> FieldSpec {
     FieldSpec {
@@ -58,6 +62,21 @@ fn bench(c: &mut Criterion) {
         .num_threads(1)
         .build()
         .expect("thread pool");
+    let dir = std::env::temp_dir().join(format!("armspace-bench-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).expect("scratch folder");
+    let opts = MeasureOptions {
+        calibration: CalibrationRequest {
+            manual: Some(UmPerPx::new(0.5).expect("valid")),
+            ..Default::default()
+        },
+        load: LoadOptions::default(),
+        preprocess: PreprocessParams::default(),
+        fft: FftParams::default(),
+        intercept: InterceptParams::default(),
+        target_rel_accuracy_pct: 10.0,
+        methods: vec![Method::Fft, Method::Intercept],
+        overlay_dir: None,
+    };
     let mut group = c.benchmark_group("measure_one_core");
     group.sample_size(10);
     for (side, morph, sdas) in [
@@ -65,21 +84,16 @@ fn bench(c: &mut Criterion) {
         (2048, Morphology::Columnar, 20.0),
         (1024, Morphology::Equiaxed, 14.0),
     ] {
-        let bytes = png_bytes(&spec(side, morph, sdas));
+        let path = dir.join(format!("{morph:?}-{side}.png"));
+        std::fs::write(&path, png_bytes(&spec(side, morph, sdas))).expect("bench image written");
         group.throughput(Throughput::Elements((side * side) as u64));
         let id = BenchmarkId::new(format!("{morph:?}").to_lowercase(), format!("{side}px"));
-        group.bench_with_input(id, &bytes, |b, bytes| {
-            b.iter(|| {
-                pool.install(|| {
-                    let l = load_bytes(Path::new("bench.png"), bytes, &LoadOptions::default())
-                        .expect("decodes");
-                    let p = prepare(&l.image, None, &PreprocessParams::default());
-                    fft::measure(&p, &FftParams::default())
-                })
-            })
+        group.bench_with_input(id, &path, |b, path| {
+            b.iter(|| pool.install(|| measure_file(path, &opts)))
         });
     }
     group.finish();
+    let _ = std::fs::remove_dir_all(&dir);
 }
 
 criterion_group!(benches, bench);

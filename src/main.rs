@@ -3,6 +3,7 @@
 use armspace::calibrate::{self, parse_length, parse_um_per_px, BarLength, CalibrationRequest};
 use armspace::load::{collect_inputs, LoadOptions, DEFAULT_MAX_MEGAPIXELS};
 use armspace::methods::fft::FftParams;
+use armspace::methods::intercept::{Convention, InterceptParams};
 use armspace::pipeline::{measure_batch, MeasureOptions, Method};
 use armspace::preprocess::PreprocessParams;
 use armspace::report;
@@ -59,6 +60,12 @@ struct MeasureArgs {
     /// Refuse images with more megapixels than this (checked before decoding).
     #[arg(long, default_value_t = DEFAULT_MAX_MEGAPIXELS, value_parser = parse_positive, allow_negative_numbers = true)]
     max_megapixels: f64,
+    /// How an intercept line's spacing is computed from its arm count.
+    #[arg(long, value_enum, default_value = "centre-to-centre")]
+    convention: ConventionArg,
+    /// Target percent relative accuracy of the intercept lines (reports how many lines reach it).
+    #[arg(long, default_value_t = 10.0, value_parser = parse_percent)]
+    target_ra_pct: f64,
     /// Write a picture per image of what was measured into this folder.
     #[arg(long)]
     overlay: Option<PathBuf>,
@@ -134,7 +141,16 @@ fn parse_percent(s: &str) -> Result<f64, String> {
 #[derive(Clone, Copy, ValueEnum)]
 enum MethodArg {
     Fft,
+    Intercept,
     All,
+}
+
+#[derive(Clone, Copy, ValueEnum)]
+enum ConventionArg {
+    /// Distance between the first and last arm centres / (arms - 1).
+    CentreToCentre,
+    /// Line length / arms crossed.
+    LengthOverCount,
 }
 
 #[derive(clap::Args)]
@@ -187,7 +203,9 @@ fn main() -> ExitCode {
 
 fn run_measure(args: MeasureArgs) -> ExitCode {
     let methods = match args.method {
-        MethodArg::Fft | MethodArg::All => vec![Method::Fft],
+        MethodArg::Fft => vec![Method::Fft],
+        MethodArg::Intercept => vec![Method::Intercept],
+        MethodArg::All => vec![Method::Fft, Method::Intercept],
     };
     let calibration = match args.calibration.request() {
         Ok(c) => c,
@@ -203,6 +221,14 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
         },
         preprocess: PreprocessParams::default(),
         fft: FftParams::default(),
+        intercept: InterceptParams {
+            convention: match args.convention {
+                ConventionArg::CentreToCentre => Convention::CentreToCentre,
+                ConventionArg::LengthOverCount => Convention::LengthOverCount,
+            },
+            ..InterceptParams::default()
+        },
+        target_rel_accuracy_pct: args.target_ra_pct,
         methods,
         overlay_dir: args.overlay.clone(),
     };

@@ -9,6 +9,7 @@
 use crate::calibrate::scale_bar::ScaleBar;
 use crate::load::GrayImage;
 use crate::methods::fft::FftOutcome;
+use crate::methods::intercept::InterceptOutcome;
 use image::{Rgb, RgbImage};
 use imageproc::drawing::{draw_hollow_rect_mut, draw_line_segment_mut};
 use imageproc::rect::Rect;
@@ -61,13 +62,15 @@ fn segment(out: &mut RgbImage, cx: f64, cy: f64, dir_deg: f64, len: f64, colour:
     }
 }
 
-/// The micrograph with what was measured: the FFT tiles' directions, and the
-/// scale bar and excluded region.
+/// The micrograph with what was measured: the FFT tiles' directions, the
+/// intercept lines with their arm centres, and the scale bar and excluded
+/// region.
 pub fn measurement(
     img: &GrayImage,
     bar: Option<&ScaleBar>,
     fft: Option<&FftOutcome>,
     fft_min_quality: f64,
+    intercept: Option<&InterceptOutcome>,
 ) -> RgbImage {
     let mut out = to_rgb(img);
     if let Some(f) = fft {
@@ -77,6 +80,24 @@ pub fn measurement(
                 segment(&mut out, t.cx_px, t.cy_px, t.dir_deg, len, CYAN);
             } else if t.quality >= fft_min_quality {
                 segment(&mut out, t.cx_px, t.cy_px, t.dir_deg, 0.5 * len, ORANGE);
+            }
+        }
+    }
+    if let Some(i) = intercept {
+        for l in &i.lines {
+            let (x0, y0, x1, y1) = (
+                l.x0_px as f32,
+                l.y0_px as f32,
+                l.x1_px as f32,
+                l.y1_px as f32,
+            );
+            draw_line_segment_mut(&mut out, (x0, y0), (x1, y1), GREEN);
+            // Ticks across the line at each arm centre.
+            let len = ((x1 - x0).hypot(y1 - y0)).max(1e-3);
+            let (nx, ny) = (-(y1 - y0) / len * 3.0, (x1 - x0) / len * 3.0);
+            for &(cx, cy) in &l.arm_centres_px {
+                let (cx, cy) = (cx as f32, cy as f32);
+                draw_line_segment_mut(&mut out, (cx - nx, cy - ny), (cx + nx, cy + ny), RED);
             }
         }
     }

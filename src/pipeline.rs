@@ -8,6 +8,7 @@ use crate::calibrate::scale_bar::{self, ScaleBar};
 use crate::calibrate::{self as cal, Calibration, CalibrationRequest};
 use crate::load::{self, Input, LoadOptions};
 use crate::methods::fft::{self, FftOutcome, FftParams};
+use crate::methods::intercept::{self, InterceptOutcome, InterceptParams};
 use crate::preprocess::{self, PreprocessParams};
 use crate::units::{Micrometres, Pixels, UmPerPx};
 use rayon::prelude::*;
@@ -17,15 +18,22 @@ use std::path::PathBuf;
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
 pub enum Method {
     Fft,
+    Intercept,
 }
 
 impl Method {
     pub fn name(self) -> &'static str {
         match self {
             Method::Fft => "fft",
+            Method::Intercept => "intercept",
         }
     }
 }
+
+/// Relative difference between the two methods above which the image
+/// carries a warning: 10 %, the agreement expected of two sound estimates of
+/// the same spacing (each typically within a few per cent).
+pub const METHOD_DISAGREEMENT: f64 = 0.10;
 
 /// Everything that determines a measurement, so that it can be repeated.
 #[derive(Clone, Debug)]
@@ -34,6 +42,9 @@ pub struct MeasureOptions {
     pub load: LoadOptions,
     pub preprocess: PreprocessParams,
     pub fft: FftParams,
+    pub intercept: InterceptParams,
+    /// Target percent relative accuracy, for the number of lines it needs.
+    pub target_rel_accuracy_pct: f64,
     pub methods: Vec<Method>,
     /// Folder for a picture per image of what was measured.
     pub overlay_dir: Option<PathBuf>,
@@ -71,6 +82,7 @@ pub struct ImageResult {
     /// Rectangles excluded from measurement, [x0, y0, x1, y1] inclusive px.
     pub excluded: Vec<[u32; 4]>,
     pub fft: Option<FftOutcome>,
+    pub intercept: Option<InterceptOutcome>,
     pub sdas: Estimate,
     pub warnings: Vec<String>,
     pub error: Option<String>,
@@ -87,6 +99,7 @@ impl ImageResult {
             bar: None,
             excluded: vec![],
             fft: None,
+            intercept: None,
             sdas: Estimate {
                 value: None,
                 ci95: None,
@@ -189,13 +202,37 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         }
     }
 
-    let sdas = combine(fft.as_ref(), um_per_px, calibration.rel_uncertainty);
+    let intercept = opts
+        .methods
+        .contains(&Method::Intercept)
+        .then(|| intercept::measure(&prepared, &opts.intercept));
+    if let (Some(a), Some(b)) = (
+        fft.as_ref().and_then(|f| f.value_px),
+        intercept.as_ref().and_then(|i| i.value_px),
+    ) {
+        let diff = b / a - 1.0;
+        if diff.abs() > METHOD_DISAGREEMENT {
+            warnings.push(format!(
+                "the methods disagree: intercept {:.2} um against fft {:.2} um ({:+.1} %); look at the overlay before using the value",
+                um_per_px.to_um(Pixels(b)).0,
+                um_per_px.to_um(Pixels(a)).0,
+                100.0 * diff
+            ));
+        }
+    }
+    let sdas = combine(
+        fft.as_ref(),
+        intercept.as_ref(),
+        um_per_px,
+        calibration.rel_uncertainty,
+    );
     let overlay = opts.overlay_dir.as_ref().and_then(|dir| {
         let picture = crate::overlay::measurement(
             &loaded.image,
             bar.as_ref(),
             fft.as_ref(),
             opts.fft.min_quality,
+            intercept.as_ref(),
         );
         let target = dir.join(overlay_name(path, &info.sha256));
         match crate::overlay::write_png(&target, &picture) {
@@ -213,6 +250,7 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         bar,
         excluded,
         fft,
+        intercept,
         sdas,
         warnings,
         error: None,
@@ -234,50 +272,107 @@ pub fn overlay_name(path: &std::path::Path, sha256: &str) -> String {
 /// Coverage factor of a 95 % interval under a normal distribution.
 const K95: f64 = 1.959_963_984_540_054;
 
+/// One method's contribution to the image's value, in pixels.
+struct Part {
+    method: Method,
+    value: f64,
+    ci: Option<[f64; 2]>,
+    n: usize,
+}
+
 /// The image's SDAS from the methods that gave a value.
+///
+/// With two values, each with a 95 % interval, the image's value is their
+/// inverse-variance weighted mean (weights 1 / h^2, h the half-width; the
+/// methods are independent: one counts arms on lines, the other reads
+/// spectra) and its half-width 1 / sqrt(sum of weights) (JCGM 100:2008,
+/// 5.1.2 with the sensitivity of a weighted mean). A value without an
+/// interval cannot be weighted and is not combined with one that has one.
 ///
 /// The calibration's relative standard uncertainty u is a systematic factor
 /// common to every tile and line, so it widens the interval rather than
-/// averaging out: the half-width becomes sqrt(h^2 + (k u x)^2) with h the
-/// statistical half-width, x the value and k = 1.96 (uncorrelated
-/// contributions combined in quadrature, JCGM 100:2008, 5.1.2).
-fn combine(fft: Option<&FftOutcome>, cal: UmPerPx, cal_rel_u: Option<f64>) -> Estimate {
-    let to_um = |px: f64| cal.to_um(Pixels(px));
-    match fft {
-        Some(f) if f.value_px.is_some() => {
-            let value = f.value_px.map(to_um);
-            let ci95 = match (value, f.ci95_px) {
-                (Some(v), Some([a, b])) => {
-                    let (lo, hi) = (to_um(a).0, to_um(b).0);
-                    let u = cal_rel_u.unwrap_or(0.0) * K95 * v.0;
-                    let below = ((v.0 - lo).powi(2) + u * u).sqrt();
-                    let above = ((hi - v.0).powi(2) + u * u).sqrt();
-                    Some([Micrometres(v.0 - below), Micrometres(v.0 + above)])
-                }
-                _ => None,
-            };
-            Estimate {
-                value,
-                ci95,
+/// averaging out: the half-width becomes sqrt(h^2 + (k u x)^2) with x the
+/// value and k = 1.96 (uncorrelated contributions combined in quadrature,
+/// JCGM 100:2008, 5.1.2).
+fn combine(
+    fft: Option<&FftOutcome>,
+    intercept: Option<&InterceptOutcome>,
+    cal: UmPerPx,
+    cal_rel_u: Option<f64>,
+) -> Estimate {
+    let mut parts = Vec::new();
+    let mut reasons = Vec::new();
+    if let Some(f) = fft {
+        match f.value_px {
+            Some(v) => parts.push(Part {
+                method: Method::Fft,
+                value: v,
+                ci: f.ci95_px,
                 n: f.n_tiles_used,
-                methods: vec![Method::Fft],
-                reason: None,
-            }
+            }),
+            None => reasons.push(format!(
+                "fft: {}",
+                f.reason.as_deref().unwrap_or("no value")
+            )),
         }
-        Some(f) => Estimate {
+    }
+    if let Some(i) = intercept {
+        match i.value_px {
+            Some(v) => parts.push(Part {
+                method: Method::Intercept,
+                value: v,
+                ci: i.ci95_px,
+                n: i.n_lines,
+            }),
+            None => reasons.push(format!(
+                "intercept: {}",
+                i.reason.as_deref().unwrap_or("no value")
+            )),
+        }
+    }
+    if parts.is_empty() {
+        return Estimate {
             value: None,
             ci95: None,
             n: 0,
             methods: vec![],
-            reason: f.reason.clone(),
-        },
-        None => Estimate {
-            value: None,
-            ci95: None,
-            n: 0,
-            methods: vec![],
-            reason: Some("no method was run".into()),
-        },
+            reason: Some(if reasons.is_empty() {
+                "no method was run".into()
+            } else {
+                reasons.join("; ")
+            }),
+        };
+    }
+    let with_ci: Vec<&Part> = parts.iter().filter(|p| p.ci.is_some()).collect();
+    let (value, half, used): (f64, Option<f64>, Vec<&Part>) = if with_ci.is_empty() {
+        let v = parts.iter().map(|p| p.value).sum::<f64>() / parts.len() as f64;
+        (v, None, parts.iter().collect())
+    } else {
+        let mut wsum = 0.0;
+        let mut wv = 0.0;
+        for p in &with_ci {
+            let [lo, hi] = p.ci.unwrap_or([p.value, p.value]);
+            let h = (0.5 * (hi - lo)).max(1e-9 * p.value.abs().max(1e-9));
+            let w = 1.0 / (h * h);
+            wsum += w;
+            wv += w * p.value;
+        }
+        (wv / wsum, Some(1.0 / wsum.sqrt()), with_ci)
+    };
+    let to_um = |px: f64| cal.to_um(Pixels(px)).0;
+    let x = to_um(value);
+    let ci95 = half.map(|h| {
+        let h = to_um(h);
+        let u = cal_rel_u.unwrap_or(0.0) * K95 * x;
+        let total = (h * h + u * u).sqrt();
+        [Micrometres(x - total), Micrometres(x + total)]
+    });
+    Estimate {
+        value: Some(Micrometres(x)),
+        ci95,
+        n: used.iter().map(|p| p.n).sum(),
+        methods: used.iter().map(|p| p.method).collect(),
+        reason: None,
     }
 }
 

@@ -5,6 +5,7 @@
 //! Later versions add fields; they never remove or retype one.
 
 use crate::methods::fft::FftOutcome;
+use crate::methods::intercept::{Convention, InterceptOutcome};
 use crate::pipeline::{ImageResult, MeasureOptions, Skipped};
 use crate::units::{Pixels, UmPerPx};
 use serde::Serialize;
@@ -50,6 +51,21 @@ pub struct Parameters {
     pub max_megapixels: f64,
     pub preprocess: PreprocessParameters,
     pub fft: FftParameters,
+    pub intercept: InterceptParameters,
+}
+
+#[derive(Serialize, Debug)]
+pub struct InterceptParameters {
+    /// "centre-to-centre" (L/(n-1)) or "length-over-count" (L/n).
+    pub convention: &'static str,
+    pub target_rel_accuracy_pct: f64,
+}
+
+pub fn convention_name(c: Convention) -> &'static str {
+    match c {
+        Convention::CentreToCentre => "centre-to-centre",
+        Convention::LengthOverCount => "length-over-count",
+    }
 }
 
 #[derive(Serialize, Debug)]
@@ -165,6 +181,32 @@ pub struct SdasReport {
 pub struct MethodsReport {
     #[serde(skip_serializing_if = "Option::is_none")]
     pub fft: Option<FftReport>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub intercept: Option<InterceptReport>,
+}
+
+#[derive(Serialize, Debug)]
+pub struct InterceptReport {
+    pub value: Option<f64>,
+    pub ci95: Option<[f64; 2]>,
+    pub n_lines: usize,
+    pub sd: Option<f64>,
+    pub rel_accuracy_pct: Option<f64>,
+    /// Lines in all that would bring %RA to the target, at the same spread.
+    pub lines_for_target: Option<usize>,
+    pub convention: &'static str,
+    pub reason: Option<String>,
+    pub lines: Vec<LineReport>,
+}
+
+#[derive(Serialize, Debug)]
+pub struct LineReport {
+    pub x0_um: f64,
+    pub y0_um: f64,
+    pub x1_um: f64,
+    pub y1_um: f64,
+    pub arms: usize,
+    pub sdas_um: f64,
 }
 
 #[derive(Serialize, Debug)]
@@ -235,6 +277,39 @@ fn finite(x: f64) -> Option<f64> {
     x.is_finite().then_some(x)
 }
 
+fn intercept_report(
+    i: &InterceptOutcome,
+    cal: UmPerPx,
+    convention: Convention,
+    target_pct: f64,
+) -> InterceptReport {
+    let spacings: Vec<f64> = i.lines.iter().map(|l| l.spacing_px).collect();
+    let lines_for_target = crate::stats::Summary::of(&spacings)
+        .and_then(|s| crate::stats::measurements_for_target(&s, target_pct));
+    InterceptReport {
+        value: i.value_px.map(|v| um(cal, v)),
+        ci95: i.ci95_px.map(|[a, b]| [um(cal, a), um(cal, b)]),
+        n_lines: i.n_lines,
+        sd: i.sd_px.map(|v| um(cal, v)),
+        rel_accuracy_pct: i.rel_accuracy_pct.map(|v| round(v, 2)),
+        lines_for_target,
+        convention: convention_name(convention),
+        reason: i.reason.clone(),
+        lines: i
+            .lines
+            .iter()
+            .map(|l| LineReport {
+                x0_um: um(cal, l.x0_px),
+                y0_um: um(cal, l.y0_px),
+                x1_um: um(cal, l.x1_px),
+                y1_um: um(cal, l.y1_px),
+                arms: l.arms,
+                sdas_um: um(cal, l.spacing_px),
+            })
+            .collect(),
+    }
+}
+
 fn fft_report(f: &FftOutcome, cal: UmPerPx) -> FftReport {
     FftReport {
         value: f.value_px.map(|v| um(cal, v)),
@@ -262,7 +337,7 @@ fn fft_report(f: &FftOutcome, cal: UmPerPx) -> FftReport {
     }
 }
 
-pub fn image_report(r: &ImageResult) -> ImageReport {
+pub fn image_report(r: &ImageResult, opts: &MeasureOptions) -> ImageReport {
     let cal = r.calibration.as_ref().map(|c| c.um_per_px);
     ImageReport {
         file: r.file.display().to_string(),
@@ -284,6 +359,15 @@ pub fn image_report(r: &ImageResult) -> ImageReport {
                 (Some(f), Some(c)) => Some(fft_report(f, c)),
                 _ => None,
             },
+            intercept: match (&r.intercept, cal) {
+                (Some(i), Some(c)) => Some(intercept_report(
+                    i,
+                    c,
+                    opts.intercept.convention,
+                    opts.target_rel_accuracy_pct,
+                )),
+                _ => None,
+            },
         },
         warnings: r.warnings.clone(),
         error: r.error.clone(),
@@ -299,7 +383,7 @@ pub fn build(
     skipped: &[Skipped],
     created_utc: String,
 ) -> Report {
-    let images: Vec<ImageReport> = results.iter().map(image_report).collect();
+    let images: Vec<ImageReport> = results.iter().map(|r| image_report(r, opts)).collect();
     let values: Vec<f64> = images.iter().filter_map(|i| i.sdas_um.value).collect();
     let failed = results.iter().filter(|r| r.error.is_some()).count();
     let measured = results.iter().filter(|r| r.measured()).count();
@@ -346,6 +430,10 @@ pub fn build(
                 min_quality: opts.fft.min_quality,
                 max_masked_fraction: opts.fft.max_masked_fraction,
                 coarse_window_max_px: opts.fft.coarse_window_max_px,
+            },
+            intercept: InterceptParameters {
+                convention: convention_name(opts.intercept.convention),
+                target_rel_accuracy_pct: opts.target_rel_accuracy_pct,
             },
         },
         images,

@@ -126,35 +126,61 @@ impl Summary {
     }
 }
 
-/// How many measurements (lines, fields) would bring the percent relative
-/// accuracy of `s` to `target_pct` or below, with the same mean and standard
-/// deviation: the smallest n' with t(0.975, n'-1) s / sqrt(n') <= target x mean
-/// / 100, searched upward from the current n. This is the planning rule of
-/// ASTM E112-style practice (halving %RA takes about four times as many
-/// measurements), with the t quantile kept exact for small n'. `None` when
-/// the mean is not positive.
-pub fn measurements_for_target(s: &Summary, target_pct: f64) -> Option<usize> {
-    if !(s.mean > 0.0 && target_pct > 0.0 && target_pct.is_finite()) {
+/// Number of measurements (lines, fields) that would bring the percent
+/// relative accuracy of the mean under `target_rel_accuracy_pct`, assuming
+/// the standard deviation and the mean stay as in `summary`. Halving %RA
+/// takes about four times as many measurements.
+///
+/// %RA(n) = 100 t(0.975, n-1) s / (sqrt(n) mean) (ASTM E112 practice). The
+/// first guess n' = n (RA/target)^2 keeps t fixed; since t(0.975, n-1) falls
+/// as n grows, n' is then iterated as n' = (100 t(0.975, n'-1) s / (mean
+/// target))^2, rounded up, and finally checked and stepped up until
+/// %RA(n') <= target. The result is the total number of lines (at least 2;
+/// it may be less than `summary.n` when the target is already met). `None`
+/// for a non-positive target or mean, or beyond ten million lines.
+pub fn measurements_for_target(summary: &Summary, target_rel_accuracy_pct: f64) -> Option<usize> {
+    let (s, mean, t) = (summary.sd, summary.mean, target_rel_accuracy_pct);
+    if !(t > 0.0 && mean > 0.0 && s.is_finite() && s >= 0.0) {
         return None;
     }
-    if s.rel_accuracy_pct <= target_pct {
-        return Some(s.n);
+    const LIMIT: usize = 10_000_000;
+    let ra = |n: usize| -> Option<f64> {
+        let nf = n as f64;
+        Some(100.0 * t_quantile(0.975, nf - 1.0)? * s / (nf.sqrt() * mean))
+    };
+    if s == 0.0 {
+        return Some(2);
     }
-    let allowed = target_pct / 100.0 * s.mean;
-    // Large-sample start: n ~ (1.96 s / allowed)^2, then step to the exact one.
-    let mut n = s.n.max(2);
-    let rough = (1.96 * s.sd / allowed).powi(2).ceil();
-    if rough.is_finite() && rough as usize > n {
-        n = (rough as usize).saturating_sub(2).max(n);
-    }
-    for _ in 0..1_000_000 {
-        let t = t_quantile(0.975, (n - 1) as f64)?;
-        if t * s.sd / (n as f64).sqrt() <= allowed {
-            return Some(n);
+    let n0 = summary.n.max(2);
+    let first = (n0 as f64 * (summary.rel_accuracy_pct / t).powi(2)).ceil();
+    let mut n = if first.is_finite() {
+        (first as usize).clamp(2, LIMIT)
+    } else {
+        n0
+    };
+    for _ in 0..50 {
+        let tq = t_quantile(0.975, n as f64 - 1.0)?;
+        let next = (100.0 * tq * s / (mean * t)).powi(2).ceil();
+        if !next.is_finite() || next > LIMIT as f64 {
+            return None;
         }
-        n += 1;
+        let next = (next as usize).max(2);
+        if next == n {
+            break;
+        }
+        n = next;
     }
-    None
+    // Step down while the target is still met, then up until it is.
+    while n > 2 && ra(n - 1)? <= t {
+        n -= 1;
+    }
+    while ra(n)? > t {
+        n += 1;
+        if n > LIMIT {
+            return None;
+        }
+    }
+    Some(n)
 }
 
 #[cfg(test)]

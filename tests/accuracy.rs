@@ -4,6 +4,7 @@
 use armspace::calibrate::CalibrationRequest;
 use armspace::load::LoadOptions;
 use armspace::methods::fft::FftParams;
+use armspace::methods::intercept::InterceptParams;
 use armspace::pipeline::{measure_file, MeasureOptions, Method};
 use armspace::preprocess::PreprocessParams;
 use armspace::synth::{write_set, Morphology, Truth};
@@ -25,6 +26,8 @@ fn relative_errors(seed: u64, count: usize) -> Vec<(Truth, Option<f64>)> {
                 load: LoadOptions::default(),
                 preprocess: PreprocessParams::default(),
                 fft: FftParams::default(),
+                intercept: InterceptParams::default(),
+                target_rel_accuracy_pct: 10.0,
                 methods: vec![Method::Fft],
                 overlay_dir: None,
             };

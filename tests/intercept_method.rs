@@ -5,10 +5,10 @@
 use armspace::calibrate::scale_bar;
 use armspace::load::GrayImage;
 use armspace::methods::intercept::{
-    count_runs, lines_needed, measure, runs_of_profile, Convention, InterceptParams,
+    count_runs, measure, runs_of_profile, Convention, InterceptParams,
 };
 use armspace::preprocess::{prepare, Prepared, PreprocessParams};
-use armspace::stats::{t_quantile, Summary};
+use armspace::stats::{measurements_for_target, t_quantile, Summary};
 use armspace::synth::{random_spec, render};
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
@@ -211,10 +211,10 @@ fn lines_needed_for_a_target_relative_accuracy() {
     // %RA(22) = 100 x 2.080 x 3.1623 / (4.6904 x 14) = 10.02 > 10, and
     // %RA(23) = 100 x 2.074 x 3.1623 / (4.7958 x 14) = 9.77 <= 10: 23 lines.
     let s = Summary::of(&[10.0, 12.0, 14.0, 16.0, 18.0]).unwrap();
-    assert_eq!(lines_needed(&s, 10.0), Some(23));
+    assert_eq!(measurements_for_target(&s, 10.0), Some(23));
     let ra = |n: f64| 100.0 * t_quantile(0.975, n - 1.0).unwrap() * s.sd / (n.sqrt() * s.mean);
     assert!(ra(23.0) <= 10.0 && ra(22.0) > 10.0);
     // A target already met needs no more than the lines there are.
-    assert!(lines_needed(&s, 30.0).unwrap() <= 5);
-    assert_eq!(lines_needed(&s, 0.0), None);
+    assert!(measurements_for_target(&s, 30.0).unwrap() <= 5);
+    assert_eq!(measurements_for_target(&s, 0.0), None);
 }

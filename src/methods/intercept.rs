@@ -383,62 +383,6 @@ fn aggregate(lines: Vec<Line>) -> InterceptOutcome {
     }
 }
 
-/// Number of lines that would bring the percent relative accuracy of the
-/// mean under `target_rel_accuracy_pct`, assuming the line-to-line standard
-/// deviation and the mean stay as in `summary`.
-///
-/// %RA(n) = 100 t(0.975, n-1) s / (sqrt(n) mean) (ASTM E112 practice). The
-/// first guess n' = n (RA/target)^2 keeps t fixed; since t(0.975, n-1) falls
-/// as n grows, n' is then iterated as n' = (100 t(0.975, n'-1) s / (mean
-/// target))^2, rounded up, and finally checked and stepped up until
-/// %RA(n') <= target. The result is the total number of lines (at least 2;
-/// it may be less than `summary.n` when the target is already met). `None`
-/// for a non-positive target or mean, or beyond ten million lines.
-pub fn lines_needed(summary: &Summary, target_rel_accuracy_pct: f64) -> Option<usize> {
-    let (s, mean, t) = (summary.sd, summary.mean, target_rel_accuracy_pct);
-    if !(t > 0.0 && mean > 0.0 && s.is_finite() && s >= 0.0) {
-        return None;
-    }
-    const LIMIT: usize = 10_000_000;
-    let ra = |n: usize| -> Option<f64> {
-        let nf = n as f64;
-        Some(100.0 * stats::t_quantile(0.975, nf - 1.0)? * s / (nf.sqrt() * mean))
-    };
-    if s == 0.0 {
-        return Some(2);
-    }
-    let n0 = summary.n.max(2);
-    let first = (n0 as f64 * (summary.rel_accuracy_pct / t).powi(2)).ceil();
-    let mut n = if first.is_finite() {
-        (first as usize).clamp(2, LIMIT)
-    } else {
-        n0
-    };
-    for _ in 0..50 {
-        let tq = stats::t_quantile(0.975, n as f64 - 1.0)?;
-        let next = (100.0 * tq * s / (mean * t)).powi(2).ceil();
-        if !next.is_finite() || next > LIMIT as f64 {
-            return None;
-        }
-        let next = (next as usize).max(2);
-        if next == n {
-            break;
-        }
-        n = next;
-    }
-    // Step down while the target is still met, then up until it is.
-    while n > 2 && ra(n - 1)? <= t {
-        n -= 1;
-    }
-    while ra(n)? > t {
-        n += 1;
-        if n > LIMIT {
-            return None;
-        }
-    }
-    Some(n)
-}
-
 /// Spacing scale from the crossing density of the phase boundaries (module
 /// docs, step 2). `None` without crossings in either direction.
 fn crossing_scale(seg: &Segmentation, mask: Option<&[bool]>) -> Option<f64> {
