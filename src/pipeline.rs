@@ -210,15 +210,10 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         fft.as_ref().and_then(|f| f.value_px),
         intercept.as_ref().and_then(|i| i.value_px),
     ) {
-        let diff = b / a - 1.0;
-        if diff.abs() > METHOD_DISAGREEMENT {
-            warnings.push(format!(
-                "the methods disagree: intercept {:.2} um against fft {:.2} um ({:+.1} %); look at the overlay before using the value",
-                um_per_px.to_um(Pixels(b)).0,
-                um_per_px.to_um(Pixels(a)).0,
-                100.0 * diff
-            ));
-        }
+        warnings.extend(disagreement(
+            um_per_px.to_um(Pixels(a)),
+            um_per_px.to_um(Pixels(b)),
+        ));
     }
     let sdas = combine(
         fft.as_ref(),
@@ -271,6 +266,20 @@ pub fn overlay_name(path: &std::path::Path, sha256: &str) -> String {
 
 /// Coverage factor of a 95 % interval under a normal distribution.
 const K95: f64 = 1.959_963_984_540_054;
+
+/// The warning for two methods' values more than `METHOD_DISAGREEMENT`
+/// apart (relative to the FFT value), or `None`.
+pub fn disagreement(fft: Micrometres, intercept: Micrometres) -> Option<String> {
+    let diff = intercept.0 / fft.0 - 1.0;
+    (diff.abs() > METHOD_DISAGREEMENT).then(|| {
+        format!(
+            "the methods disagree: intercept {:.2} um against fft {:.2} um ({:+.1} %); look at the overlay before using the value",
+            intercept.0,
+            fft.0,
+            100.0 * diff
+        )
+    })
+}
 
 /// One method's contribution to the image's value, in pixels.
 struct Part {

@@ -108,3 +108,62 @@ fn fft_accuracy_on_a_48_image_set() {
         }
     }
 }
+
+#[test]
+fn the_two_methods_agree_on_columnar_fields() {
+    // Both methods on the columnar fields of the 48-image set: where both
+    // give a value they must agree within 10 % on at least 90 % of the
+    // images; a larger disagreement is a warning in the report.
+    let dir = tempfile::tempdir().unwrap();
+    let truths = write_set(dir.path(), 4040, 48).unwrap();
+    let (mut both, mut agree) = (0, 0);
+    for t in truths
+        .iter()
+        .filter(|t| t.morphology == Morphology::Columnar)
+    {
+        let opts = MeasureOptions {
+            calibration: CalibrationRequest {
+                manual: Some(UmPerPx::new(t.um_per_px).unwrap()),
+                ..Default::default()
+            },
+            load: LoadOptions::default(),
+            preprocess: PreprocessParams::default(),
+            fft: FftParams::default(),
+            intercept: InterceptParams::default(),
+            target_rel_accuracy_pct: 10.0,
+            methods: vec![Method::Fft, Method::Intercept],
+            overlay_dir: None,
+        };
+        let r = measure_file(&dir.path().join(&t.file), &opts);
+        let f = r.fft.as_ref().and_then(|f| f.value_px);
+        let i = r.intercept.as_ref().and_then(|i| i.value_px);
+        if let (Some(f), Some(i)) = (f, i) {
+            both += 1;
+            let close = (i / f - 1.0).abs() <= 0.10;
+            agree += usize::from(close);
+            let warned = r.warnings.iter().any(|w| w.contains("methods disagree"));
+            assert_eq!(
+                warned, !close,
+                "{}: fft {f:.2} px, intercept {i:.2} px",
+                t.file
+            );
+            eprintln!(
+                "{} fft {f:.2} intercept {i:.2} true {:.2}",
+                t.file, t.sdas_px
+            );
+        }
+    }
+    eprintln!("both methods on {both} columnar images, {agree} within 10 %");
+    assert!(both >= 20, "only {both} images with both values");
+    assert!(agree as f64 >= 0.9 * both as f64, "{agree} of {both} agree");
+}
+
+#[test]
+fn disagreement_warning_threshold() {
+    use armspace::pipeline::disagreement;
+    use armspace::units::Micrometres;
+    assert!(disagreement(Micrometres(30.0), Micrometres(32.9)).is_none());
+    let w = disagreement(Micrometres(30.0), Micrometres(33.3)).unwrap();
+    assert!(w.contains("+11.0 %"), "{w}");
+    assert!(disagreement(Micrometres(30.0), Micrometres(26.7)).is_some());
+}
