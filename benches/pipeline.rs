@@ -9,12 +9,7 @@
 //! both methods (FFT and intercept) and their statistics. Criterion reports
 //! the time per image and the throughput in elements (pixels) per second.
 
-use armspace::calibrate::CalibrationRequest;
-use armspace::load::LoadOptions;
-use armspace::methods::fft::FftParams;
-use armspace::methods::intercept::InterceptParams;
-use armspace::pipeline::{measure_file, MeasureOptions, Method};
-use armspace::preprocess::PreprocessParams;
+use armspace::pipeline::{measure_file, MeasureOptions};
 use armspace::synth::{render, Corner, FieldSpec, Morphology, Polarity, ScaleBarSpec, Style};
 use armspace::units::UmPerPx;
 use criterion::{criterion_group, criterion_main, BenchmarkId, Criterion, Throughput};
@@ -64,19 +59,7 @@ fn bench(c: &mut Criterion) {
         .expect("thread pool");
     let dir = std::env::temp_dir().join(format!("armspace-bench-{}", std::process::id()));
     std::fs::create_dir_all(&dir).expect("scratch folder");
-    let opts = MeasureOptions {
-        calibration: CalibrationRequest {
-            manual: Some(UmPerPx::new(0.5).expect("valid")),
-            ..Default::default()
-        },
-        load: LoadOptions::default(),
-        preprocess: PreprocessParams::default(),
-        fft: FftParams::default(),
-        intercept: InterceptParams::default(),
-        target_rel_accuracy_pct: 10.0,
-        methods: vec![Method::Fft, Method::Intercept],
-        overlay_dir: None,
-    };
+    let opts = MeasureOptions::manual(UmPerPx::new(0.5).expect("valid"));
     let mut group = c.benchmark_group("measure_one_core");
     group.sample_size(10);
     for (side, morph, sdas) in [

@@ -50,6 +50,25 @@ pub struct MeasureOptions {
     pub overlay_dir: Option<PathBuf>,
 }
 
+impl MeasureOptions {
+    /// Every parameter at its default, both methods, a manual calibration.
+    pub fn manual(um_per_px: UmPerPx) -> Self {
+        Self {
+            calibration: CalibrationRequest {
+                manual: Some(um_per_px),
+                ..Default::default()
+            },
+            load: LoadOptions::default(),
+            preprocess: PreprocessParams::default(),
+            fft: FftParams::default(),
+            intercept: InterceptParams::default(),
+            target_rel_accuracy_pct: 10.0,
+            methods: vec![Method::Fft, Method::Intercept],
+            overlay_dir: None,
+        }
+    }
+}
+
 /// File facts known once the image is decoded.
 #[derive(Clone, Debug, PartialEq)]
 pub struct ImageInfo {

@@ -193,7 +193,7 @@ fn unmasked<'a>(values: &'a [f32], mask: Option<&'a [bool]>) -> impl Iterator<It
         .iter()
         .enumerate()
         .filter(move |(i, v)| {
-            v.is_finite() && !mask.is_some_and(|m| m.get(*i).copied() == Some(true))
+            v.is_finite() && mask.is_none_or(|m| m.get(*i).copied() != Some(true))
         })
         .map(|(_, v)| *v)
 }

@@ -1,12 +1,7 @@
 //! Accuracy of `measure` against synthetic micrographs of known SDAS
 //! (src/synth; its truth is checked independently in tests/synth_truth.rs).
 
-use armspace::calibrate::CalibrationRequest;
-use armspace::load::LoadOptions;
-use armspace::methods::fft::FftParams;
-use armspace::methods::intercept::InterceptParams;
 use armspace::pipeline::{measure_file, MeasureOptions, Method};
-use armspace::preprocess::PreprocessParams;
 use armspace::synth::{write_set, Morphology, Truth};
 use armspace::units::UmPerPx;
 
@@ -19,17 +14,8 @@ fn relative_errors(seed: u64, count: usize) -> Vec<(Truth, Option<f64>)> {
         .into_iter()
         .map(|t| {
             let opts = MeasureOptions {
-                calibration: CalibrationRequest {
-                    manual: Some(UmPerPx::new(t.um_per_px).unwrap()),
-                    ..Default::default()
-                },
-                load: LoadOptions::default(),
-                preprocess: PreprocessParams::default(),
-                fft: FftParams::default(),
-                intercept: InterceptParams::default(),
-                target_rel_accuracy_pct: 10.0,
                 methods: vec![Method::Fft],
-                overlay_dir: None,
+                ..MeasureOptions::manual(UmPerPx::new(t.um_per_px).unwrap())
             };
             let r = measure_file(&dir.path().join(&t.file), &opts);
             assert!(r.error.is_none(), "{}: {:?}", t.file, r.error);
@@ -121,19 +107,7 @@ fn the_two_methods_agree_on_columnar_fields() {
         .iter()
         .filter(|t| t.morphology == Morphology::Columnar)
     {
-        let opts = MeasureOptions {
-            calibration: CalibrationRequest {
-                manual: Some(UmPerPx::new(t.um_per_px).unwrap()),
-                ..Default::default()
-            },
-            load: LoadOptions::default(),
-            preprocess: PreprocessParams::default(),
-            fft: FftParams::default(),
-            intercept: InterceptParams::default(),
-            target_rel_accuracy_pct: 10.0,
-            methods: vec![Method::Fft, Method::Intercept],
-            overlay_dir: None,
-        };
+        let opts = MeasureOptions::manual(UmPerPx::new(t.um_per_px).unwrap());
         let r = measure_file(&dir.path().join(&t.file), &opts);
         let f = r.fft.as_ref().and_then(|f| f.value_px);
         let i = r.intercept.as_ref().and_then(|i| i.value_px);

@@ -93,7 +93,7 @@ fn errors(
 ) -> Vec<Option<f64>> {
     results
         .iter()
-        .filter(|(t, _)| t.morphology == m && s.map_or(true, |s| t.style == s))
+        .filter(|(t, _)| t.morphology == m && s.is_none_or(|s| t.style == s))
         .map(|(t, o)| o.value_px.map(|v| v / t.sdas_px - 1.0))
         .collect()
 }

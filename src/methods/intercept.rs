@@ -301,7 +301,7 @@ pub fn measure(img: &Prepared, params: &InterceptParams) -> InterceptOutcome {
             continue;
         };
         let misfit = (m / scale).ln().abs();
-        let better = best.as_ref().map_or(true, |b| misfit < b.0);
+        let better = best.as_ref().is_none_or(|b| misfit < b.0);
         let done = misfit <= 1.2f64.ln();
         if better {
             best = Some((misfit, m, lines));
@@ -555,7 +555,7 @@ fn lay_lines(img: &Prepared, seg: &PhaseField, lambda: f64, p: &InterceptParams)
         while xf < (w - margin) as f64 {
             let (x, y) = (xf as usize, yf as usize);
             let (theta, coh) = tensor.at(x, y);
-            let hint_ok = hint.map_or(true, |hd| axial_diff(theta, hd) <= max_turn);
+            let hint_ok = hint.is_none_or(|hd| axial_diff(theta, hd) <= max_turn);
             if coh >= p.min_coherence && hint_ok && !mask.is_some_and(|m| m[y * w + x]) {
                 cands.push((coh, x, y));
             }
@@ -728,7 +728,7 @@ pub fn merge_short_runs(runs: &mut Vec<Run>, min_len: f64) {
         let mut best: Option<(usize, f64)> = None;
         for (i, r) in runs.iter().enumerate() {
             let l = r.len();
-            if l < min_len && best.map_or(true, |(_, b)| l < b) {
+            if l < min_len && best.is_none_or(|(_, b)| l < b) {
                 best = Some((i, l));
             }
         }
@@ -1009,7 +1009,7 @@ fn count_runs_with_necks(
         };
         if best
             .as_ref()
-            .map_or(true, |bc| count.positions > bc.positions)
+            .is_none_or(|bc| count.positions > bc.positions)
         {
             best = Some(count);
         }
