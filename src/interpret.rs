@@ -65,10 +65,10 @@ mod tests {
             (97.0, -0.4935),
             (35.5, -0.31),
         ] {
-            let law = PowerLaw::new(c, e).unwrap();
+            let law = PowerLaw::new(c, e).expect("valid in this test");
             for x in [0.01, 0.7, 1.0, 12.0, 3000.0] {
-                let l = law.predict(x).unwrap();
-                let back = law.invert(l).unwrap();
+                let l = law.predict(x).expect("valid in this test");
+                let back = law.invert(l).expect("valid in this test");
                 assert!((back / x - 1.0).abs() < 1e-12, "{c} {e} {x}: {back}");
             }
         }
@@ -78,18 +78,18 @@ mod tests {
     fn interval_bounds_are_ordered_and_amplified_by_the_exponent() {
         // lambda2 = B t^(1/3): a +-10 % interval of lambda2 spans
         // (1.1/0.9)^3 = 1.826 in t_f (algebra of the power law).
-        let law = PowerLaw::new(10.0, 1.0 / 3.0).unwrap();
+        let law = PowerLaw::new(10.0, 1.0 / 3.0).expect("valid in this test");
         let [lo, hi] = law
             .invert_interval(Micrometres(36.0), Micrometres(44.0))
-            .unwrap();
+            .expect("valid in this test");
         assert!(lo < hi);
         assert!((hi / lo - (44.0f64 / 36.0).powi(3)).abs() < 1e-9);
         // A negative exponent (cooling rate) swaps the bounds.
-        let law = PowerLaw::new(50.0, -1.0 / 3.0).unwrap();
+        let law = PowerLaw::new(50.0, -1.0 / 3.0).expect("valid in this test");
         let [lo, hi] = law
             .invert_interval(Micrometres(36.0), Micrometres(44.0))
-            .unwrap();
-        assert!(lo < hi && law.invert(Micrometres(44.0)).unwrap() == lo);
+            .expect("valid in this test");
+        assert!(lo < hi && law.invert(Micrometres(44.0)).expect("valid in this test") == lo);
     }
 
     #[test]
@@ -97,7 +97,7 @@ mod tests {
         assert!(PowerLaw::new(0.0, 0.3).is_err());
         assert!(PowerLaw::new(5.0, 0.0).is_err());
         assert!(PowerLaw::new(f64::NAN, 0.3).is_err());
-        let law = PowerLaw::new(5.0, 0.3).unwrap();
+        let law = PowerLaw::new(5.0, 0.3).expect("valid in this test");
         assert!(law.invert(Micrometres(-1.0)).is_none());
         assert!(law.predict(0.0).is_none());
     }

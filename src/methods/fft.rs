@@ -539,6 +539,20 @@ pub fn choose_peak(power: &[f64], n: usize, params: &FftParams) -> Option<Peak> 
 /// `resolve_ladder` deals with those).
 const MAX_RELATIVE_WIDTH: f64 = 0.5;
 
+/// Bilinear interpolation of an n x n grid that repeats with period n in both
+/// directions (a DFT spectrum), at (x, y) in bins.
+fn bilinear_periodic(grid: &[f64], n: usize, x: f64, y: f64) -> f64 {
+    let ni = n as i64;
+    let g = |a: i64, b: i64| grid[(b.rem_euclid(ni) as usize) * n + a.rem_euclid(ni) as usize];
+    let (x0, y0) = (x.floor(), y.floor());
+    let (fx, fy) = (x - x0, y - y0);
+    let (xi, yi) = (x0 as i64, y0 as i64);
+    g(xi, yi) * (1.0 - fx) * (1.0 - fy)
+        + g(xi + 1, yi) * fx * (1.0 - fy)
+        + g(xi, yi + 1) * (1.0 - fx) * fy
+        + g(xi + 1, yi + 1) * fx * fy
+}
+
 /// Relative radial half-power width of a peak: the distance, along the ray
 /// from the origin through the peak, between the points where the raw power
 /// (bilinearly interpolated, sampled every quarter bin) first falls to half
@@ -552,18 +566,7 @@ pub fn relative_width(power: &[f64], n: usize, peak: &Peak) -> f64 {
         return f64::INFINITY;
     }
     let (cu, cv) = (u / r, v / r);
-    let ni = n as i64;
-    let g = |a: i64, b: i64| power[(b.rem_euclid(ni) as usize) * n + a.rem_euclid(ni) as usize];
-    let at = |t: f64| -> f64 {
-        let (x, y) = (t * cu, t * cv);
-        let (x0, y0) = (x.floor(), y.floor());
-        let (fx, fy) = (x - x0, y - y0);
-        let (xi, yi) = (x0 as i64, y0 as i64);
-        g(xi, yi) * (1.0 - fx) * (1.0 - fy)
-            + g(xi + 1, yi) * fx * (1.0 - fy)
-            + g(xi, yi + 1) * (1.0 - fx) * fy
-            + g(xi + 1, yi + 1) * fx * fy
-    };
+    let at = |t: f64| bilinear_periodic(power, n, t * cu, t * cv);
     let half = 0.5 * at(r);
     let step = 0.25;
     let mut lo = r;
@@ -608,17 +611,7 @@ const MAX_OFF_AXIS_DEG: f64 = 30.0;
 fn ray_floor(smooth: &[f64], n: usize, u: i64, v: i64) -> f64 {
     let r = ((u * u + v * v) as f64).sqrt();
     let (cu, cv) = (u as f64 / r, v as f64 / r);
-    let ni = n as i64;
-    let g = |a: i64, b: i64| smooth[(b.rem_euclid(ni) as usize) * n + a.rem_euclid(ni) as usize];
-    let at = |x: f64, y: f64| -> f64 {
-        let (x0, y0) = (x.floor(), y.floor());
-        let (fx, fy) = (x - x0, y - y0);
-        let (xi, yi) = (x0 as i64, y0 as i64);
-        g(xi, yi) * (1.0 - fx) * (1.0 - fy)
-            + g(xi + 1, yi) * fx * (1.0 - fy)
-            + g(xi, yi + 1) * (1.0 - fx) * fy
-            + g(xi + 1, yi + 1) * fx * fy
-    };
+    let at = |x: f64, y: f64| bilinear_periodic(smooth, n, x, y);
     let (lo, hi) = (r / 2.0, (2.0 * r).min(n as f64 / 2.0 - 1.0));
     let steps = ((hi - lo) / 0.5).ceil().max(1.0) as usize;
     (0..=steps)
