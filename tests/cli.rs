@@ -313,3 +313,69 @@ fn synth_writes_images_and_truth() {
     assert_eq!(run.code, 1);
     assert!(run.stderr.contains("plain"), "{}", run.stderr);
 }
+
+#[test]
+fn calibrate_prints_the_bar_and_draws_it() {
+    // fixtures/demo: a 200 um bar drawn 160 px long (1.25 um/px, fixtures/README.md).
+    let dir = tempfile::tempdir().unwrap();
+    let img = path_str(&repo_file("fixtures/demo/plate-CVF-SP4-step06mm.png"));
+    let run = armspace(&[
+        "calibrate",
+        &img,
+        "--scale-bar",
+        "0.2mm",
+        "--overlay",
+        &path_str(dir.path()),
+    ]);
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    let out: Value = serde_json::from_str(&run.stdout).unwrap();
+    let c = &out[0];
+    assert!(
+        (c["um_per_px"].as_f64().unwrap() - 1.25).abs() < 1.25 * 0.003,
+        "{c}"
+    );
+    assert!(c["rel_uncertainty"].as_f64().unwrap() < 0.01);
+    for key in [
+        "length_px",
+        "x0",
+        "y0",
+        "x1",
+        "y1",
+        "thickness_px",
+        "polarity",
+    ] {
+        assert!(!c["bar"][key].is_null(), "bar lacks {key}: {c}");
+    }
+    let pictures: Vec<_> = std::fs::read_dir(dir.path())
+        .unwrap()
+        .filter_map(|e| e.ok())
+        .collect();
+    assert_eq!(pictures.len(), 1);
+    let picture = image::open(pictures[0].path()).unwrap();
+    assert_eq!((picture.width(), picture.height()), (640, 512));
+}
+
+#[test]
+fn stats_of_hand_measured_lines() {
+    let dir = tempfile::tempdir().unwrap();
+    let csv = dir.path().join("lines.csv");
+    // The worked set of src/manual.rs: mean 20 um, %RA 9.81.
+    std::fs::write(&csv, "length_um,arms\n100,5\n132,6\n90,5\n84,4\n95,5\n").unwrap();
+    let run = armspace(&["stats", &path_str(&csv), "--target-ra-pct", "5"]);
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    let s: Value = serde_json::from_str(&run.stdout).unwrap();
+    assert_eq!(s["n_lines"], 5);
+    assert!((s["mean_um"].as_f64().unwrap() - 20.0).abs() < 1e-9);
+    // 5 % needs 13 lines: t(0.975, 12) = 2.179 (NIST/SEMATECH table
+    // 1.3.6.7.2): 2.179 x 1.5811 / sqrt(13) = 0.955 <= 1.0 um, while 12 lines
+    // give 2.201 x 1.5811 / sqrt(12) = 1.005 > 1.0 um.
+    assert_eq!(s["lines_for_target"], 13);
+    std::fs::write(&csv, "length_um,arms\n100,five\n").unwrap();
+    let run = armspace(&["stats", &path_str(&csv)]);
+    assert_eq!(run.code, 3);
+    assert!(
+        run.stderr.contains("lines.csv") && run.stderr.contains("row 2"),
+        "{}",
+        run.stderr
+    );
+}
