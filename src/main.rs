@@ -201,6 +201,18 @@ fn main() -> ExitCode {
     }
 }
 
+/// Creates the overlay folder when one is asked for, or says why it cannot.
+fn create_overlay_dir(dir: Option<&std::path::Path>) -> Result<(), ExitCode> {
+    match dir.map(std::fs::create_dir_all) {
+        Some(Err(e)) => {
+            let dir = dir.map(|d| d.display().to_string()).unwrap_or_default();
+            eprintln!("armspace: {dir}: cannot create the overlay folder: {e}");
+            Err(ExitCode::from(EXIT_FATAL))
+        }
+        _ => Ok(()),
+    }
+}
+
 fn run_measure(args: MeasureArgs) -> ExitCode {
     let methods = match args.method {
         MethodArg::Fft => vec![Method::Fft],
@@ -232,14 +244,8 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
         methods,
         overlay_dir: args.overlay.clone(),
     };
-    if let Some(dir) = &args.overlay {
-        if let Err(e) = std::fs::create_dir_all(dir) {
-            eprintln!(
-                "armspace: {}: cannot create the overlay folder: {e}",
-                dir.display()
-            );
-            return ExitCode::from(EXIT_FATAL);
-        }
+    if let Err(code) = create_overlay_dir(args.overlay.as_deref()) {
+        return code;
     }
     let inputs = collect_inputs(&args.paths);
     if !inputs
@@ -323,14 +329,8 @@ fn run_calibrate(args: CalibrateArgs) -> ExitCode {
             rel_uncertainty: args.scale_bar_uncertainty_pct.unwrap_or(0.0) / 100.0,
         }),
     };
-    if let Some(dir) = &args.overlay {
-        if let Err(e) = std::fs::create_dir_all(dir) {
-            eprintln!(
-                "armspace: {}: cannot create the overlay folder: {e}",
-                dir.display()
-            );
-            return ExitCode::from(EXIT_FATAL);
-        }
+    if let Err(code) = create_overlay_dir(args.overlay.as_deref()) {
+        return code;
     }
     let opts = LoadOptions {
         max_megapixels: args.max_megapixels,

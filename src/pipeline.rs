@@ -328,33 +328,41 @@ fn combine(
     cal: UmPerPx,
     cal_rel_u: Option<f64>,
 ) -> Estimate {
+    // Each method's outcome as (method, value, interval, count, reason).
+    let outcomes = fft
+        .map(|f| {
+            (
+                Method::Fft,
+                f.value_px,
+                f.ci95_px,
+                f.n_tiles_used,
+                &f.reason,
+            )
+        })
+        .into_iter()
+        .chain(intercept.map(|i| {
+            (
+                Method::Intercept,
+                i.value_px,
+                i.ci95_px,
+                i.n_lines,
+                &i.reason,
+            )
+        }));
     let mut parts = Vec::new();
     let mut reasons = Vec::new();
-    if let Some(f) = fft {
-        match f.value_px {
-            Some(v) => parts.push(Part {
-                method: Method::Fft,
-                value: v,
-                ci: f.ci95_px,
-                n: f.n_tiles_used,
+    for (method, value, ci, n, reason) in outcomes {
+        match value {
+            Some(value) => parts.push(Part {
+                method,
+                value,
+                ci,
+                n,
             }),
             None => reasons.push(format!(
-                "fft: {}",
-                f.reason.as_deref().unwrap_or("no value")
-            )),
-        }
-    }
-    if let Some(i) = intercept {
-        match i.value_px {
-            Some(v) => parts.push(Part {
-                method: Method::Intercept,
-                value: v,
-                ci: i.ci95_px,
-                n: i.n_lines,
-            }),
-            None => reasons.push(format!(
-                "intercept: {}",
-                i.reason.as_deref().unwrap_or("no value")
+                "{}: {}",
+                method.name(),
+                reason.as_deref().unwrap_or("no value")
             )),
         }
     }

@@ -38,6 +38,15 @@ struct Ctx {
 }
 
 impl Ctx {
+    fn of(spec: &FieldSpec) -> Self {
+        Self {
+            etched: spec.style == Style::Etched,
+            sdas: spec.sdas_px,
+            w: spec.width as f64,
+            h: spec.height as f64,
+        }
+    }
+
     fn inside(&self, x: f64, y: f64) -> bool {
         x >= 0.0 && y >= 0.0 && x <= self.w - 1.0 && y <= self.h - 1.0
     }
@@ -310,12 +319,7 @@ fn arms_along<R: Rng + ?Sized>(
 
 /// Parallel trunks with combs of secondary arms.
 pub(crate) fn columnar<R: Rng + ?Sized>(spec: &FieldSpec, rng: &mut R) -> Layout {
-    let ctx = Ctx {
-        etched: spec.style == Style::Etched,
-        sdas: spec.sdas_px,
-        w: spec.width as f64,
-        h: spec.height as f64,
-    };
+    let ctx = Ctx::of(spec);
     let sdas = spec.sdas_px;
     let p = spec.primary_spacing_px;
     let (cx, cy) = ((ctx.w - 1.0) / 2.0, (ctx.h - 1.0) / 2.0);
@@ -405,12 +409,7 @@ pub(crate) fn columnar<R: Rng + ?Sized>(spec: &FieldSpec, rng: &mut R) -> Layout
 
 /// Four-armed crosses on a jittered grid, each clipped to its Voronoi cell.
 pub(crate) fn equiaxed<R: Rng + ?Sized>(spec: &FieldSpec, rng: &mut R) -> Layout {
-    let ctx = Ctx {
-        etched: spec.style == Style::Etched,
-        sdas: spec.sdas_px,
-        w: spec.width as f64,
-        h: spec.height as f64,
-    };
+    let ctx = Ctx::of(spec);
     let sdas = spec.sdas_px;
     let g = spec.primary_spacing_px;
     let (w, h) = (spec.width as usize, spec.height as usize);
