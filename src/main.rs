@@ -42,6 +42,101 @@ enum Command {
     Stats(StatsArgs),
     /// Write synthetic dendritic micrographs of known SDAS and their truth.json.
     Synth(SynthArgs),
+    /// List the SDAS correlations (built-in and from --correlations) with source, status and validity.
+    Correlations(CorrelationsArgs),
+    /// Cooling rate and solidification time from one SDAS value, as JSON.
+    Interpret(InterpretArgs),
+}
+
+/// Interpretation of SDAS through a published correlation.
+#[derive(clap::Args)]
+struct AlloyArgs {
+    /// Correlation id (see `armspace correlations`) for cooling rate and solidification time.
+    #[arg(long)]
+    alloy: Option<String>,
+    /// Nominal composition in wt%, e.g. Si=7,Cu=0.2 (composition-dependent correlations need it).
+    #[arg(long, value_parser = armspace::interpret::parse_composition)]
+    composition: Option<armspace::interpret::Composition>,
+    /// Freezing range linking the two forms (t_f = freezing range / cooling rate), e.g. 60K.
+    #[arg(long, value_parser = armspace::interpret::parse_kelvin)]
+    freezing_range: Option<armspace::units::Kelvin>,
+    /// Add the correlations of this JSON file (format in DEVELOPERS.md).
+    #[arg(long)]
+    correlations: Option<PathBuf>,
+    /// Give values more than 3x beyond a correlation's fitted range (marked as extrapolated).
+    #[arg(long)]
+    extrapolate: bool,
+}
+
+impl AlloyArgs {
+    fn library(&self) -> Result<Vec<armspace::interpret::Correlation>, String> {
+        use armspace::interpret::library;
+        match &self.correlations {
+            Some(path) => library::with_file(path),
+            None => Ok(library::builtin()),
+        }
+    }
+
+    /// The interpretation settings, checked against the composition; None
+    /// without --alloy.
+    fn settings(&self) -> Result<Option<armspace::interpret::Settings>, String> {
+        let Some(id) = &self.alloy else {
+            if self.composition.is_some() || self.freezing_range.is_some() || self.extrapolate {
+                return Err(
+                    "--composition, --freezing-range and --extrapolate need --alloy".into(),
+                );
+            }
+            return Ok(None);
+        };
+        let lib = self.library()?;
+        let settings = armspace::interpret::Settings {
+            correlation: armspace::interpret::library::find(&lib, id)?.clone(),
+            composition: self.composition.clone().unwrap_or_default(),
+            freezing_range: self.freezing_range,
+            extrapolate: self.extrapolate,
+        };
+        settings.check()?;
+        Ok(Some(settings))
+    }
+}
+
+#[derive(clap::Args)]
+struct CorrelationsArgs {
+    /// Add the correlations of this JSON file (checked, then listed with the built-in ones).
+    #[arg(long)]
+    correlations: Option<PathBuf>,
+}
+
+#[derive(clap::Args)]
+struct InterpretArgs {
+    /// The SDAS with its unit, e.g. 40um.
+    #[arg(long, value_parser = parse_length)]
+    sdas: armspace::units::Micrometres,
+    /// Its 95% confidence interval, LOW,HIGH (um unless a unit is written), e.g. 36,44.
+    #[arg(long, value_parser = parse_interval)]
+    ci: Option<[armspace::units::Micrometres; 2]>,
+    #[command(flatten)]
+    alloy: AlloyArgs,
+}
+
+/// "36,44" or "36um,44um" as an interval in micrometres, lower bound first.
+fn parse_interval(s: &str) -> Result<[armspace::units::Micrometres; 2], String> {
+    let (a, b) = s
+        .split_once(',')
+        .ok_or_else(|| format!("'{s}': write the interval as LOW,HIGH, e.g. 36,44"))?;
+    let one = |t: &str| {
+        let t = t.trim();
+        if t.chars().all(|c| c.is_ascii_digit() || c == '.') {
+            parse_length(&format!("{t}um"))
+        } else {
+            parse_length(t)
+        }
+    };
+    let (a, b) = (one(a)?, one(b)?);
+    if a.0 > b.0 {
+        return Err(format!("'{s}': the lower bound is above the upper one"));
+    }
+    Ok([a, b])
 }
 
 #[derive(clap::Args)]
@@ -72,6 +167,8 @@ struct MeasureArgs {
     /// Worker threads (default: one per core).
     #[arg(long, value_parser = clap::value_parser!(u16).range(1..))]
     jobs: Option<u16>,
+    #[command(flatten)]
+    alloy: AlloyArgs,
 }
 
 /// Calibration sources. Precedence: --um-per-px, then --profile, then the
@@ -198,6 +295,8 @@ fn main() -> ExitCode {
         Command::Calibrate(args) => run_calibrate(args),
         Command::Stats(args) => run_stats(args),
         Command::Synth(args) => run_synth(args),
+        Command::Correlations(args) => run_correlations(args),
+        Command::Interpret(args) => run_interpret(args),
     }
 }
 
@@ -226,6 +325,13 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
             return ExitCode::from(EXIT_USAGE);
         }
     };
+    let interpret = match args.alloy.settings() {
+        Ok(s) => s,
+        Err(e) => {
+            eprintln!("armspace: {e}");
+            return ExitCode::from(EXIT_USAGE);
+        }
+    };
     let opts = MeasureOptions {
         calibration,
         load: LoadOptions {
@@ -243,6 +349,7 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
         target_rel_accuracy_pct: args.target_ra_pct,
         methods,
         overlay_dir: args.overlay.clone(),
+        interpret,
     };
     if let Err(code) = create_overlay_dir(args.overlay.as_deref()) {
         return code;
@@ -289,6 +396,21 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
                 img.file,
                 img.sdas_um.reason.as_deref().unwrap_or("no reason given")
             ),
+        }
+        if let Some(i) = &img.interpretation {
+            let q =
+                |name: &str, unit: &str, v: &armspace::interpret::Quantity| match (v.value, v.ci95)
+                {
+                    (Some(x), Some([a, b])) => format!("{name} {x} {unit} (95% CI {a} to {b})"),
+                    (Some(x), None) => format!("{name} {x} {unit}"),
+                    _ => format!("{name}: none"),
+                };
+            eprintln!(
+                "  {}; {} [{}]",
+                q("cooling rate", "K/s", &i.cooling_rate_k_per_s),
+                q("solidification time", "s", &i.solidification_time_s),
+                i.correlation.id
+            );
         }
         for w in &img.warnings {
             eprintln!("  warning: {w}");
@@ -456,6 +578,69 @@ fn run_synth(args: SynthArgs) -> ExitCode {
         Err(e) => {
             eprintln!("armspace: {e}");
             ExitCode::from(EXIT_FATAL)
+        }
+    }
+}
+
+fn run_correlations(args: CorrelationsArgs) -> ExitCode {
+    let lib = match &args.correlations {
+        Some(path) => armspace::interpret::library::with_file(path),
+        None => Ok(armspace::interpret::library::builtin()),
+    };
+    match lib {
+        Ok(lib) => {
+            print!("{}", armspace::interpret::library::table(&lib));
+            ExitCode::from(EXIT_OK)
+        }
+        Err(e) => {
+            eprintln!("armspace: {e}");
+            ExitCode::from(EXIT_USAGE)
+        }
+    }
+}
+
+fn run_interpret(args: InterpretArgs) -> ExitCode {
+    if args.alloy.alloy.is_none() {
+        eprintln!("armspace: interpret needs --alloy ID (see `armspace correlations`)");
+        return ExitCode::from(EXIT_USAGE);
+    }
+    if let Some([lo, hi]) = args.ci {
+        if !(lo.0 <= args.sdas.0 && args.sdas.0 <= hi.0) {
+            eprintln!("armspace: the interval --ci does not contain the SDAS value");
+            return ExitCode::from(EXIT_USAGE);
+        }
+    }
+    let settings = match args.alloy.settings() {
+        Ok(Some(s)) => s,
+        Ok(None) => return ExitCode::from(EXIT_USAGE),
+        Err(e) => {
+            eprintln!("armspace: {e}");
+            return ExitCode::from(EXIT_USAGE);
+        }
+    };
+    match settings
+        .apply(Some(args.sdas), args.ci)
+        .map(|i| i.rounded())
+    {
+        Ok(i) => {
+            for w in &i.warnings {
+                eprintln!("warning: {w}");
+            }
+            match serde_json::to_string_pretty(&serde_json::json!({
+                "caution": report::CAUTION,
+                "interpretation": i,
+            })) {
+                Ok(j) => println!("{j}"),
+                Err(e) => {
+                    eprintln!("armspace: {e}");
+                    return ExitCode::from(EXIT_FATAL);
+                }
+            }
+            ExitCode::from(EXIT_OK)
+        }
+        Err(e) => {
+            eprintln!("armspace: {e}");
+            ExitCode::from(EXIT_USAGE)
         }
     }
 }

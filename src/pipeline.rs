@@ -48,6 +48,8 @@ pub struct MeasureOptions {
     pub methods: Vec<Method>,
     /// Folder for a picture per image of what was measured.
     pub overlay_dir: Option<PathBuf>,
+    /// Correlation and alloy for cooling rate and solidification time.
+    pub interpret: Option<crate::interpret::Settings>,
 }
 
 impl MeasureOptions {
@@ -65,6 +67,7 @@ impl MeasureOptions {
             target_rel_accuracy_pct: 10.0,
             methods: vec![Method::Fft, Method::Intercept],
             overlay_dir: None,
+            interpret: None,
         }
     }
 }
@@ -107,6 +110,8 @@ pub struct ImageResult {
     pub error: Option<String>,
     /// The picture of what was measured, when one was written.
     pub overlay: Option<PathBuf>,
+    /// Cooling rate and solidification time, when a correlation was given.
+    pub interpretation: Option<Result<crate::interpret::Interpretation, String>>,
 }
 
 impl ImageResult {
@@ -129,6 +134,7 @@ impl ImageResult {
             warnings: vec![],
             error: Some(error),
             overlay: None,
+            interpretation: None,
         }
     }
 
@@ -257,6 +263,10 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
             }
         }
     });
+    let interpretation = opts
+        .interpret
+        .as_ref()
+        .map(|settings| settings.apply(sdas.value, sdas.ci95));
     ImageResult {
         file: path.to_path_buf(),
         info: Some(info),
@@ -269,6 +279,7 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         warnings,
         error: None,
         overlay,
+        interpretation,
     }
 }
 

@@ -52,6 +52,18 @@ pub struct Parameters {
     pub preprocess: PreprocessParameters,
     pub fft: FftParameters,
     pub intercept: InterceptParameters,
+    /// --alloy and what goes with it; absent without --alloy.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub interpretation: Option<InterpretationParameters>,
+}
+
+#[derive(Serialize, Debug)]
+pub struct InterpretationParameters {
+    pub correlation: String,
+    pub composition_wt_pct: crate::interpret::Composition,
+    #[serde(rename = "freezing_range_K")]
+    pub freezing_range_k: Option<f64>,
+    pub extrapolate: bool,
 }
 
 #[derive(Serialize, Debug)]
@@ -107,6 +119,9 @@ pub struct ImageReport {
     pub error: Option<String>,
     /// Path of the picture of what was measured (with --overlay), else null.
     pub overlay: Option<String>,
+    /// Cooling rate and solidification time (with --alloy), else absent.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub interpretation: Option<crate::interpret::Interpretation>,
 }
 
 #[derive(Serialize, Debug)]
@@ -369,9 +384,19 @@ pub fn image_report(r: &ImageResult, opts: &MeasureOptions) -> ImageReport {
                 _ => None,
             },
         },
-        warnings: r.warnings.clone(),
+        warnings: {
+            let mut w = r.warnings.clone();
+            if let Some(Err(e)) = &r.interpretation {
+                w.push(format!("no interpretation: {e}"));
+            }
+            w
+        },
         error: r.error.clone(),
         overlay: r.overlay.as_ref().map(|p| p.display().to_string()),
+        interpretation: match &r.interpretation {
+            Some(Ok(i)) => Some(i.rounded()),
+            _ => None,
+        },
     }
 }
 
@@ -435,6 +460,12 @@ pub fn build(
                 convention: convention_name(opts.intercept.convention),
                 target_rel_accuracy_pct: opts.target_rel_accuracy_pct,
             },
+            interpretation: opts.interpret.as_ref().map(|s| InterpretationParameters {
+                correlation: s.correlation.id.clone(),
+                composition_wt_pct: s.composition.clone(),
+                freezing_range_k: s.freezing_range.map(|k| k.0),
+                extrapolate: s.extrapolate,
+            }),
         },
         images,
         skipped: skipped

@@ -52,6 +52,21 @@ impl UmPerPx {
     }
 }
 
+/// A cooling rate in kelvin per second (numerically equal to degC/s).
+#[derive(Clone, Copy, Debug, PartialEq, PartialOrd, Serialize, Deserialize)]
+#[serde(transparent)]
+pub struct KelvinPerSecond(pub f64);
+
+/// A duration in seconds (a local solidification time).
+#[derive(Clone, Copy, Debug, PartialEq, PartialOrd, Serialize, Deserialize)]
+#[serde(transparent)]
+pub struct Seconds(pub f64);
+
+/// A temperature interval in kelvin (a freezing range).
+#[derive(Clone, Copy, Debug, PartialEq, PartialOrd, Serialize, Deserialize)]
+#[serde(transparent)]
+pub struct Kelvin(pub f64);
+
 impl fmt::Display for Micrometres {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         write!(f, "{:.3} um", self.0)

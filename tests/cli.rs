@@ -256,6 +256,10 @@ fn the_report_validates_against_its_schema() {
         &path_str(&flat),
         "--um-per-px",
         "1.25",
+        "--alloy",
+        "al-si-coarsening",
+        "--freezing-range",
+        "50K",
     ]);
     let rep = report(&run);
     let errors: Vec<String> = validator
@@ -276,6 +280,20 @@ fn the_report_validates_against_its_schema() {
         .as_str()
         .unwrap()
         .contains("no reliable periodicity"));
+    // With --alloy every read image carries its interpretation; one without
+    // an SDAS value has none, with the reason.
+    assert!(flat_img["interpretation"]["cooling_rate_K_per_s"]["value"].is_null());
+    let measured = rep["images"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|i| i["sdas_um"]["value"].is_number())
+        .unwrap();
+    assert!(measured["interpretation"]["solidification_time_s"]["value"].is_number());
+    assert_eq!(
+        rep["parameters"]["interpretation"]["correlation"],
+        "al-si-coarsening"
+    );
     // The caution travels with every report.
     assert!(rep["caution"]
         .as_str()

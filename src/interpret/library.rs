@@ -1,0 +1,683 @@
+//! The correlation library: published SDAS correlations as data.
+//!
+//! The built-in entries live in `data/correlations.json`, compiled into the
+//! binary; users add their own in a file of the same format
+//! (`--correlations FILE`, documented in DEVELOPERS.md). Every entry names
+//! its source and says whether its numbers were read in that source
+//! ("found"), recalled ("from memory") or come from a physical model
+//! ("model").
+//!
+//! Forms (lambda2 in the entry's `sdas_unit`, x in its `variable_unit`):
+//! - `cooling_rate`: lambda2 = A x CR^(-n), n = `exponent` > 0;
+//! - `solidification_time`: lambda2 = B x t_f^m, m = `exponent` > 0;
+//! - `coarsening`: lambda2 = K (M t_f)^(1/3), M from alloy parameters
+//!   (see [`super::coarsening`]).
+//!
+//! A coefficient may depend on the composition C_i (wt%):
+//! A = (value + sum_i linear_i C_i) x prod_j C_j^(exponent_j + exponent_per_wt_pct_j C_j),
+//! which covers the carbon-dependent steel fits and the Cu- and Si-dependent
+//! Al-Cu-Si fits.
+
+use super::coarsening::CoarseningParams;
+use super::PowerLaw;
+use serde::{Deserialize, Serialize};
+use std::collections::BTreeMap;
+
+/// The format tag of a correlation file.
+pub const FORMAT: &str = "armspace.correlations/1";
+
+/// Nominal composition, wt% by element symbol ("C", "Si", "Cu").
+pub type Composition = BTreeMap<String, f64>;
+
+/// What the law relates lambda2 to.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Form {
+    CoolingRate,
+    SolidificationTime,
+    Coarsening,
+}
+
+impl Form {
+    pub fn name(self) -> &'static str {
+        match self {
+            Form::CoolingRate => "cooling_rate",
+            Form::SolidificationTime => "solidification_time",
+            Form::Coarsening => "coarsening",
+        }
+    }
+}
+
+/// The unit of the law's variable, as a factor to the tool's unit (K/s for a
+/// cooling rate, s for a time): value_in_tool_unit = factor x value.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct VariableUnit {
+    pub name: &'static str,
+    pub to_base: f64,
+}
+
+/// Cooling-rate units; a kelvin and a degree Celsius are the same interval.
+pub fn rate_unit(text: &str) -> Option<VariableUnit> {
+    let (name, to_base) = match text {
+        "K/s" | "degC/s" | "\u{00b0}C/s" | "C/s" => ("K/s", 1.0),
+        "K/min" | "degC/min" | "\u{00b0}C/min" | "C/min" => ("K/min", 1.0 / 60.0),
+        "K/h" | "degC/h" | "\u{00b0}C/h" => ("K/h", 1.0 / 3600.0),
+        _ => return None,
+    };
+    Some(VariableUnit { name, to_base })
+}
+
+/// Time units.
+pub fn time_unit(text: &str) -> Option<VariableUnit> {
+    let (name, to_base) = match text {
+        "s" => ("s", 1.0),
+        "min" => ("min", 60.0),
+        "h" => ("h", 3600.0),
+        _ => return None,
+    };
+    Some(VariableUnit { name, to_base })
+}
+
+/// Length units accepted for lambda2, as a factor to micrometres.
+fn sdas_unit_factor(text: &str) -> Option<f64> {
+    match text {
+        "um" | "\u{00b5}m" | "\u{03bc}m" => Some(1.0),
+        "mm" => Some(1e3),
+        "m" => Some(1e6),
+        _ => None,
+    }
+}
+
+/// Composition range of validity, wt%; a missing bound is unknown.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize, Default)]
+#[serde(deny_unknown_fields)]
+pub struct Range {
+    pub min: Option<f64>,
+    pub max: Option<f64>,
+}
+
+/// Where an entry's numbers come from.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Source {
+    pub authors: String,
+    pub year: Option<i32>,
+    pub title: String,
+    pub published_in: String,
+    #[serde(default)]
+    pub doi: Option<String>,
+    #[serde(default)]
+    pub locator: Option<String>,
+}
+
+impl Source {
+    /// "Authors (year)".
+    pub fn short(&self) -> String {
+        match self.year {
+            Some(y) => format!("{} ({y})", self.authors),
+            None => self.authors.clone(),
+        }
+    }
+}
+
+/// Power term of a composition-dependent coefficient: C^(exponent + exponent_per_wt_pct x C).
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct PowerTerm {
+    pub exponent: f64,
+    #[serde(default)]
+    pub exponent_per_wt_pct: f64,
+}
+
+/// A coefficient, possibly composition-dependent (see the module docs).
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Coefficient {
+    pub value: f64,
+    #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
+    pub linear: BTreeMap<String, f64>,
+    #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
+    pub power: BTreeMap<String, PowerTerm>,
+}
+
+impl Coefficient {
+    /// Elements whose content the coefficient needs.
+    pub fn elements(&self) -> Vec<&str> {
+        let mut e: Vec<&str> = self
+            .linear
+            .keys()
+            .chain(self.power.keys())
+            .map(String::as_str)
+            .collect();
+        e.sort_unstable();
+        e.dedup();
+        e
+    }
+
+    /// The coefficient at a composition.
+    pub fn at(&self, composition: &Composition) -> Result<f64, String> {
+        let content = |el: &str| {
+            composition.get(el).copied().ok_or_else(|| {
+                format!("needs the {el} content: give it with --composition {el}=<wt%>")
+            })
+        };
+        let mut a = self.value;
+        for (el, slope) in &self.linear {
+            a += slope * content(el)?;
+        }
+        for (el, term) in &self.power {
+            let c = content(el)?;
+            if c <= 0.0 {
+                return Err(format!(
+                    "needs a positive {el} content (the fit has a power of {el}); got {c} wt%"
+                ));
+            }
+            a *= c.powf(term.exponent + term.exponent_per_wt_pct * c);
+        }
+        if !(a.is_finite() && a > 0.0) {
+            return Err(format!(
+                "its coefficient is not positive at this composition ({a:.4}); the composition is outside what the fit describes"
+            ));
+        }
+        Ok(a)
+    }
+}
+
+/// The law of an entry.
+#[derive(Clone, Debug, PartialEq)]
+pub enum Law {
+    /// lambda2 = coefficient x x^(+-exponent), by form.
+    Power {
+        coefficient: Coefficient,
+        exponent: f64,
+    },
+    Coarsening(Box<CoarseningParams>),
+}
+
+/// One validated correlation.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Correlation {
+    pub id: String,
+    pub alloy_family: String,
+    pub alloys: String,
+    pub composition: BTreeMap<String, Range>,
+    pub form: Form,
+    /// Factor from the entry's lambda2 unit to micrometres.
+    pub sdas_to_um: f64,
+    pub sdas_unit: String,
+    pub variable_unit: VariableUnit,
+    pub law: Law,
+    /// Range of the variable over which the law was fitted, in
+    /// `variable_unit` (bounds may be unknown); None when not recorded.
+    pub fitted_range: Option<Range>,
+    /// One standard deviation of lambda2 about the fit, percent, when published.
+    pub scatter_pct: Option<f64>,
+    pub status: Status,
+    pub status_note: String,
+    pub source: Source,
+    /// "built-in" or the file the entry came from.
+    pub origin: String,
+}
+
+/// Whether an entry's numbers were read in the source.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
+pub enum Status {
+    #[serde(rename = "found")]
+    Found,
+    #[serde(rename = "from memory")]
+    FromMemory,
+    #[serde(rename = "model")]
+    Model,
+    #[serde(rename = "user")]
+    User,
+}
+
+impl Status {
+    pub fn name(self) -> &'static str {
+        match self {
+            Status::Found => "found",
+            Status::FromMemory => "from memory",
+            Status::Model => "model",
+            Status::User => "user",
+        }
+    }
+}
+
+impl Correlation {
+    /// The law as lambda2 [um] = c x x^e, x in `variable_unit`, at a
+    /// composition (for a coarsening entry, the solute's content, or its
+    /// default C0).
+    pub fn power_law(&self, composition: &Composition) -> Result<PowerLaw, String> {
+        let what = |e: String| format!("correlation '{}' {e}", self.id);
+        self.check_composition(composition).map_err(what)?;
+        let (c, e) = match &self.law {
+            Law::Power {
+                coefficient,
+                exponent,
+            } => {
+                let c = coefficient.at(composition).map_err(what)?;
+                let e = match self.form {
+                    Form::CoolingRate => -exponent,
+                    _ => *exponent,
+                };
+                (c * self.sdas_to_um, e)
+            }
+            Law::Coarsening(p) => {
+                let c0 = composition.get(&p.solute).copied();
+                let b = p.coefficient_um(c0).map_err(what)?;
+                // The model gives um at t_f in seconds; a file may state
+                // minutes, converted here so the law is in its own unit.
+                (b * self.variable_unit.to_base.powf(1.0 / 3.0), 1.0 / 3.0)
+            }
+        };
+        PowerLaw::new(c, e).map_err(what)
+    }
+
+    /// A composition outside an entry's stated range is refused: the entry
+    /// does not describe that alloy.
+    fn check_composition(&self, composition: &Composition) -> Result<(), String> {
+        for (el, range) in &self.composition {
+            if let Some(&c) = composition.get(el) {
+                let below = range.min.is_some_and(|m| c < m);
+                let above = range.max.is_some_and(|m| c > m);
+                if below || above {
+                    return Err(format!(
+                        "covers {el} {} wt%; {el} = {c} wt% is outside it",
+                        range_text(range)
+                    ));
+                }
+            }
+        }
+        Ok(())
+    }
+
+    /// The law written out, e.g. "lambda2 = 97.01 x CR^-0.4935 (um, K/s)".
+    pub fn law_text(&self) -> String {
+        let var = match self.form {
+            Form::CoolingRate => "CR",
+            _ => "t_f",
+        };
+        let units = format!("{}, {}", self.sdas_unit, self.variable_unit.name);
+        match &self.law {
+            Law::Power {
+                coefficient,
+                exponent,
+            } => {
+                let mut a = format!("{}", coefficient.value);
+                for (el, s) in &coefficient.linear {
+                    a = format!(
+                        "({a} {} {} {el})",
+                        if *s < 0.0 { "-" } else { "+" },
+                        s.abs()
+                    );
+                }
+                for (el, t) in &coefficient.power {
+                    if t.exponent_per_wt_pct != 0.0 {
+                        a.push_str(&format!(
+                            " {el}^({} {} {} {el})",
+                            t.exponent,
+                            if t.exponent_per_wt_pct < 0.0 {
+                                "-"
+                            } else {
+                                "+"
+                            },
+                            t.exponent_per_wt_pct.abs()
+                        ));
+                    } else {
+                        a.push_str(&format!(" {el}^{}", t.exponent));
+                    }
+                }
+                let sign = if self.form == Form::CoolingRate {
+                    "-"
+                } else {
+                    ""
+                };
+                format!("lambda2 = {a} {var}^{sign}{exponent} ({units})")
+            }
+            Law::Coarsening(p) => format!(
+                "lambda2 = {} (M t_f)^(1/3), M from Gamma, D, m, k, C0 ({}), CE ({units})",
+                p.prefactor.value, p.solute
+            ),
+        }
+    }
+
+    /// Composition validity as text, e.g. "C 0-0.15 wt%".
+    pub fn validity_text(&self) -> String {
+        let mut parts: Vec<String> = self
+            .composition
+            .iter()
+            .map(|(el, r)| format!("{el} {} wt%", range_text(r)))
+            .collect();
+        match &self.fitted_range {
+            Some(r) => parts.push(format!(
+                "{} {} {}",
+                if self.form == Form::CoolingRate {
+                    "CR"
+                } else {
+                    "t_f"
+                },
+                range_text(r),
+                self.variable_unit.name
+            )),
+            None => parts.push("fitted range not recorded".into()),
+        }
+        parts.join("; ")
+    }
+}
+
+fn range_text(r: &Range) -> String {
+    let b = |v: Option<f64>| v.map_or("?".to_string(), |v| format!("{v}"));
+    format!("{}-{}", b(r.min), b(r.max))
+}
+
+// ---- the file format ------------------------------------------------------
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct FileRaw {
+    format: Option<String>,
+    correlations: Vec<serde_json::Value>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct EntryRaw {
+    id: Option<String>,
+    alloy_family: Option<String>,
+    alloys: Option<String>,
+    #[serde(default)]
+    composition_wt_pct: BTreeMap<String, Range>,
+    form: Option<String>,
+    sdas_unit: Option<String>,
+    variable_unit: Option<String>,
+    coefficient: Option<Coefficient>,
+    exponent: Option<f64>,
+    coarsening: Option<super::coarsening::CoarseningRaw>,
+    #[serde(default)]
+    fitted_range: Option<Range>,
+    #[serde(default)]
+    scatter_pct: Option<f64>,
+    status: Option<String>,
+    #[serde(default)]
+    status_note: Option<String>,
+    source: Option<Source>,
+}
+
+/// Parses and validates a correlation file; `origin` names it in messages.
+/// Every problem is reported with the entry's position and id.
+pub fn parse(text: &str, origin: &str, builtin: bool) -> Result<Vec<Correlation>, String> {
+    let raw: FileRaw = serde_json::from_str(text).map_err(|e| format!("{origin}: {e}"))?;
+    match raw.format.as_deref() {
+        Some(FORMAT) => {}
+        Some(other) => return Err(format!("{origin}: format '{other}' is not '{FORMAT}'")),
+        None => return Err(format!("{origin}: missing \"format\": \"{FORMAT}\"")),
+    }
+    let mut out: Vec<Correlation> = Vec::new();
+    for (i, value) in raw.correlations.into_iter().enumerate() {
+        let label = value
+            .get("id")
+            .and_then(|v| v.as_str())
+            .map_or(format!("entry {}", i + 1), |id| {
+                format!("entry {} ('{id}')", i + 1)
+            });
+        let entry: EntryRaw =
+            serde_json::from_value(value).map_err(|e| format!("{origin}: {label}: {e}"))?;
+        let c = validate(entry, origin, builtin).map_err(|e| format!("{origin}: {label}: {e}"))?;
+        if out.iter().any(|o| o.id == c.id) {
+            return Err(format!("{origin}: {label}: duplicate id '{}'", c.id));
+        }
+        out.push(c);
+    }
+    Ok(out)
+}
+
+fn positive(name: &str, v: Option<f64>) -> Result<f64, String> {
+    match v {
+        None => Err(format!("missing \"{name}\"")),
+        Some(v) if v.is_finite() && v > 0.0 => Ok(v),
+        Some(v) => Err(format!("\"{name}\" must be a positive number, got {v}")),
+    }
+}
+
+fn validate(e: EntryRaw, origin: &str, builtin: bool) -> Result<Correlation, String> {
+    let id =
+        e.id.filter(|s| !s.trim().is_empty())
+            .ok_or("missing \"id\"")?;
+    if id.chars().any(char::is_whitespace) {
+        return Err(format!("id '{id}' must not contain spaces"));
+    }
+    let form = match e.form.as_deref() {
+        None => return Err("missing \"form\"".into()),
+        Some("cooling_rate") => Form::CoolingRate,
+        Some("solidification_time") => Form::SolidificationTime,
+        Some("coarsening") => Form::Coarsening,
+        Some(other) => {
+            return Err(format!(
+                "unknown form '{other}' (accepted: cooling_rate, solidification_time, coarsening)"
+            ))
+        }
+    };
+    let sdas_unit = e
+        .sdas_unit
+        .ok_or("missing unit: \"sdas_unit\" (the unit of lambda2, e.g. \"um\")")?;
+    let sdas_to_um = sdas_unit_factor(&sdas_unit)
+        .ok_or_else(|| format!("unknown sdas_unit '{sdas_unit}' (accepted: um, mm, m)"))?;
+    let vu = e.variable_unit.ok_or_else(|| match form {
+        Form::CoolingRate => {
+            "missing unit: \"variable_unit\" (the cooling rate's unit, e.g. \"K/s\")".to_string()
+        }
+        _ => "missing unit: \"variable_unit\" (the time's unit, e.g. \"s\")".to_string(),
+    })?;
+    let variable_unit = match form {
+        Form::CoolingRate => rate_unit(&vu).ok_or_else(|| {
+            format!(
+                "unknown cooling-rate unit '{vu}' (accepted: K/s, degC/s, K/min, degC/min, K/h)"
+            )
+        })?,
+        _ => time_unit(&vu)
+            .ok_or_else(|| format!("unknown time unit '{vu}' (accepted: s, min, h)"))?,
+    };
+    let law = match form {
+        Form::Coarsening => {
+            if e.coefficient.is_some() || e.exponent.is_some() {
+                return Err("a coarsening entry takes \"coarsening\" parameters, not \"coefficient\" or \"exponent\"".into());
+            }
+            let raw = e.coarsening.ok_or("missing \"coarsening\" parameters")?;
+            Law::Coarsening(Box::new(CoarseningParams::from_raw(raw)?))
+        }
+        _ => {
+            if e.coarsening.is_some() {
+                return Err("\"coarsening\" parameters belong to form \"coarsening\"".into());
+            }
+            let coefficient = e.coefficient.ok_or("missing \"coefficient\"")?;
+            if !(coefficient.value.is_finite() && coefficient.value != 0.0) {
+                return Err(format!(
+                    "\"coefficient\" value must be a non-zero number, got {}",
+                    coefficient.value
+                ));
+            }
+            if coefficient.linear.is_empty() && coefficient.value < 0.0 {
+                return Err("\"coefficient\" must be positive".into());
+            }
+            let all_finite = coefficient.linear.values().all(|v| v.is_finite())
+                && coefficient
+                    .power
+                    .values()
+                    .all(|t| t.exponent.is_finite() && t.exponent_per_wt_pct.is_finite());
+            if !all_finite {
+                return Err("\"coefficient\" terms must be finite numbers".into());
+            }
+            let exponent = positive("exponent", e.exponent).map_err(|m| {
+                format!("{m} (write the magnitude: lambda2 = A CR^-n takes n > 0, lambda2 = B t_f^m takes m > 0)")
+            })?;
+            Law::Power {
+                coefficient,
+                exponent,
+            }
+        }
+    };
+    for (el, r) in &e.composition_wt_pct {
+        let ok = |v: Option<f64>| v.is_none_or(|v| v.is_finite() && v >= 0.0);
+        if !ok(r.min) || !ok(r.max) || matches!((r.min, r.max), (Some(a), Some(b)) if a > b) {
+            return Err(format!(
+                "composition range of {el} is not a valid wt% range"
+            ));
+        }
+    }
+    if let Some(r) = &e.fitted_range {
+        let ok = |v: Option<f64>| v.is_none_or(|v| v.is_finite() && v > 0.0);
+        if !ok(r.min) || !ok(r.max) || matches!((r.min, r.max), (Some(a), Some(b)) if a > b) {
+            return Err("\"fitted_range\" must have positive bounds, min <= max".into());
+        }
+    }
+    if let Some(s) = e.scatter_pct {
+        if !(s.is_finite() && s > 0.0 && s < 100.0) {
+            return Err(format!(
+                "\"scatter_pct\" must be between 0 and 100, got {s}"
+            ));
+        }
+    }
+    let status = match e.status.as_deref() {
+        Some("found") => Status::Found,
+        Some("from memory") => Status::FromMemory,
+        Some("model") => Status::Model,
+        Some("user") | None if !builtin => Status::User,
+        None => return Err("missing \"status\"".into()),
+        Some(other) => {
+            return Err(format!(
+                "unknown status '{other}' (accepted: found, from memory, model, user)"
+            ))
+        }
+    };
+    let source = e.source.ok_or(
+        "missing \"source\" (authors, year, title, published_in; for your own data, name your report)",
+    )?;
+    Ok(Correlation {
+        id,
+        alloy_family: e.alloy_family.unwrap_or_default(),
+        alloys: e.alloys.unwrap_or_default(),
+        composition: e.composition_wt_pct,
+        form,
+        sdas_to_um,
+        sdas_unit,
+        variable_unit,
+        law,
+        fitted_range: e.fitted_range,
+        scatter_pct: e.scatter_pct,
+        status,
+        status_note: e.status_note.unwrap_or_default(),
+        source,
+        origin: origin.to_string(),
+    })
+}
+
+/// The built-in library (data/correlations.json).
+pub fn builtin() -> Vec<Correlation> {
+    // The file is part of the build and checked by the tests; a failure here
+    // is a defect of the build, reported instead of a panic.
+    parse(
+        include_str!("../../data/correlations.json"),
+        "built-in",
+        true,
+    )
+    .unwrap_or_else(|e| {
+        eprintln!("armspace: the built-in correlation library is invalid: {e}");
+        Vec::new()
+    })
+}
+
+/// The built-in library plus the entries of a user file; an id used twice is
+/// an error.
+pub fn with_file(path: &std::path::Path) -> Result<Vec<Correlation>, String> {
+    let text = std::fs::read_to_string(path)
+        .map_err(|e| format!("{}: cannot read: {e}", path.display()))?;
+    let user = parse(&text, &path.display().to_string(), false)?;
+    let mut all = builtin();
+    for c in user {
+        if all.iter().any(|b| b.id == c.id) {
+            return Err(format!(
+                "{}: duplicate id '{}' (already a built-in correlation)",
+                path.display(),
+                c.id
+            ));
+        }
+        all.push(c);
+    }
+    Ok(all)
+}
+
+/// The entry with this id, or a message listing the ids there are.
+pub fn find<'a>(library: &'a [Correlation], id: &str) -> Result<&'a Correlation, String> {
+    library.iter().find(|c| c.id == id).ok_or_else(|| {
+        let ids: Vec<&str> = library.iter().map(|c| c.id.as_str()).collect();
+        format!(
+            "no correlation '{id}'; known: {} (see `armspace correlations`)",
+            ids.join(", ")
+        )
+    })
+}
+
+/// The library as a plain-text table (one row per entry, then its source and
+/// notes), for `armspace correlations`.
+pub fn table(library: &[Correlation]) -> String {
+    let rows: Vec<[String; 5]> = library
+        .iter()
+        .map(|c| {
+            [
+                c.id.clone(),
+                c.alloy_family.clone(),
+                c.form.name().to_string(),
+                c.status.name().to_string(),
+                c.validity_text(),
+            ]
+        })
+        .collect();
+    let head = ["ID", "ALLOYS", "FORM", "STATUS", "VALID FOR"];
+    let mut w = head.map(str::len);
+    for r in &rows {
+        for (i, cell) in r.iter().enumerate() {
+            w[i] = w[i].max(cell.chars().count());
+        }
+    }
+    let line = |cells: [&str; 5]| {
+        let mut l = String::new();
+        for (i, c) in cells.iter().enumerate() {
+            if i + 1 < cells.len() {
+                l.push_str(&format!("{c:<width$}  ", width = w[i]));
+            } else {
+                l.push_str(c);
+            }
+        }
+        l.trim_end().to_string() + "\n"
+    };
+    let mut out = line(head);
+    for r in &rows {
+        out.push_str(&line([&r[0], &r[1], &r[2], &r[3], &r[4]]));
+    }
+    out.push('\n');
+    for c in library {
+        out.push_str(&format!("{}\n  law:    {}\n", c.id, c.law_text()));
+        out.push_str(&format!(
+            "  source: {}: {}. {}{}\n",
+            c.source.short(),
+            c.source.title,
+            c.source.published_in,
+            c.source
+                .doi
+                .as_ref()
+                .map(|d| format!(", doi:{d}"))
+                .unwrap_or_default()
+        ));
+        if !c.status_note.is_empty() {
+            out.push_str(&format!(
+                "  note:   [{}] {}\n",
+                c.status.name(),
+                c.status_note
+            ));
+        }
+        if c.origin != "built-in" {
+            out.push_str(&format!("  from:   {}\n", c.origin));
+        }
+    }
+    out
+}

@@ -1,0 +1,511 @@
+//! Interpretation of a measured SDAS: what it says about how that spot of
+//! the casting solidified.
+//!
+//! Published correlations tie lambda2 to the cooling rate
+//! (lambda2 = A x CR^-n) and to the local solidification time
+//! (lambda2 = B x t_f^m); the coarsening model gives the second form with
+//! m = 1/3 from alloy parameters. The correlations are data
+//! ([`library`], with [`coarsening`] for the model).
+//!
+//! Both forms are `lambda2 = coefficient x x^exponent` ([`PowerLaw`]) with a
+//! positive coefficient and a non-zero exponent; a measured lambda2 is
+//! inverted as x = (lambda2 / coefficient)^(1 / exponent). The inverse is
+//! monotonic, so a confidence interval of lambda2 maps to one of x by
+//! transforming its bounds (swapped when the exponent is negative).
+//!
+//! Uncertainty ([`interpret`]): the SDAS 95 % interval and the correlation's
+//! published scatter (one standard deviation of lambda2 about the fit, s %)
+//! are combined in log space, side by side:
+//! d = sqrt( ln(value / bound)^2 + (1.96 ln(1 + s/100))^2 ),
+//! and the widened interval [value e^-d_low, value e^+d_high] is inverted.
+//! A relative uncertainty u of lambda2 becomes about u / exponent in the
+//! inverted quantity: 10 % in SDAS is about 30 % in t_f when m is near 1/3.
+//! This gain is reported with each result.
+
+pub mod coarsening;
+pub mod library;
+
+pub use library::{Composition, Correlation, Form};
+
+use crate::units::{Kelvin, Micrometres};
+use serde::Serialize;
+
+/// lambda2 [um] = coefficient x x^exponent, x in the law's own unit.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct PowerLaw {
+    pub coefficient: f64,
+    pub exponent: f64,
+}
+
+impl PowerLaw {
+    pub fn new(coefficient: f64, exponent: f64) -> Result<Self, String> {
+        if !(coefficient.is_finite() && coefficient > 0.0) {
+            return Err(format!(
+                "coefficient {coefficient} must be a positive number"
+            ));
+        }
+        if !(exponent.is_finite() && exponent != 0.0) {
+            return Err(format!("exponent {exponent} must be a non-zero number"));
+        }
+        Ok(Self {
+            coefficient,
+            exponent,
+        })
+    }
+
+    /// lambda2 predicted at x (x > 0).
+    pub fn predict(&self, x: f64) -> Option<Micrometres> {
+        (x.is_finite() && x > 0.0).then(|| Micrometres(self.coefficient * x.powf(self.exponent)))
+    }
+
+    /// x at which the law gives `lambda2`.
+    pub fn invert(&self, lambda2: Micrometres) -> Option<f64> {
+        let l = lambda2.0;
+        (l.is_finite() && l > 0.0).then(|| (l / self.coefficient).powf(1.0 / self.exponent))
+    }
+
+    /// Interval of x for an interval of lambda2, lower bound first.
+    pub fn invert_interval(&self, low: Micrometres, high: Micrometres) -> Option<[f64; 2]> {
+        let a = self.invert(low)?;
+        let b = self.invert(high)?;
+        Some(if a <= b { [a, b] } else { [b, a] })
+    }
+}
+
+/// What is known about the measured lambda2 and the alloy.
+#[derive(Clone, Debug, Default)]
+pub struct Request {
+    pub sdas: Option<Micrometres>,
+    /// 95 % interval of the SDAS, lower bound first.
+    pub ci95: Option<[Micrometres; 2]>,
+    pub composition: Composition,
+    /// Freezing range used to link the forms: t_f = freezing range / CR.
+    pub freezing_range: Option<Kelvin>,
+    /// Report values more than 3x beyond the fitted range.
+    pub extrapolate: bool,
+}
+
+/// An inverted quantity in the tool's units (K/s or s).
+#[derive(Clone, Debug, Default, PartialEq, Serialize)]
+pub struct Quantity {
+    pub value: Option<f64>,
+    pub ci95: Option<[f64; 2]>,
+    /// Relative deviation of the interval's bounds from the value, percent.
+    pub ci95_rel_pct: Option<[f64; 2]>,
+    /// Relative uncertainty here per relative uncertainty of the SDAS (1/exponent).
+    pub uncertainty_gain: Option<f64>,
+    /// How the value was obtained ("correlation" or "freezing range / ...").
+    pub derived: Option<&'static str>,
+    /// Why there is no value, when there is none.
+    pub reason: Option<String>,
+}
+
+impl Quantity {
+    /// The same quantity with values to 4 significant digits, for reports.
+    pub fn rounded(&self) -> Self {
+        let r = |x: f64| round_significant(x, 4);
+        Self {
+            value: self.value.map(r),
+            ci95: self.ci95.map(|[a, b]| [r(a), r(b)]),
+            ci95_rel_pct: self
+                .ci95_rel_pct
+                .map(|[a, b]| [round_significant(a, 3), round_significant(b, 3)]),
+            uncertainty_gain: self.uncertainty_gain.map(r),
+            derived: self.derived,
+            reason: self.reason.clone(),
+        }
+    }
+
+    fn none(reason: String) -> Self {
+        Self {
+            reason: Some(reason),
+            ..Self::default()
+        }
+    }
+}
+
+/// The interpretation of one SDAS with one correlation.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct Interpretation {
+    pub correlation: CorrelationRef,
+    pub sdas_um: Option<f64>,
+    pub sdas_ci95_um: Option<[f64; 2]>,
+    /// The SDAS interval's bounds relative to its value, percent.
+    pub sdas_ci95_rel_pct: Option<[f64; 2]>,
+    #[serde(rename = "cooling_rate_K_per_s")]
+    pub cooling_rate_k_per_s: Quantity,
+    pub solidification_time_s: Quantity,
+    #[serde(rename = "freezing_range_K")]
+    pub freezing_range_k: Option<f64>,
+    pub warnings: Vec<String>,
+}
+
+impl Interpretation {
+    /// The same interpretation with numbers to 4 significant digits, for
+    /// reports (the inputs are not more precise than that).
+    pub fn rounded(&self) -> Self {
+        let r = |x: f64| round_significant(x, 4);
+        let mut out = self.clone();
+        out.correlation.coefficient_um = r(out.correlation.coefficient_um);
+        out.correlation.exponent = r(out.correlation.exponent);
+        out.sdas_um = out.sdas_um.map(r);
+        out.sdas_ci95_um = out.sdas_ci95_um.map(|[a, b]| [r(a), r(b)]);
+        out.sdas_ci95_rel_pct = out
+            .sdas_ci95_rel_pct
+            .map(|[a, b]| [round_significant(a, 3), round_significant(b, 3)]);
+        out.cooling_rate_k_per_s = out.cooling_rate_k_per_s.rounded();
+        out.solidification_time_s = out.solidification_time_s.rounded();
+        out
+    }
+}
+
+/// Rounds to `digits` significant digits (0 and non-finite values unchanged).
+pub fn round_significant(x: f64, digits: i32) -> f64 {
+    if x == 0.0 || !x.is_finite() {
+        return x;
+    }
+    let scale = 10f64.powi(digits - 1 - x.abs().log10().floor() as i32);
+    (x * scale).round() / scale
+}
+
+/// The correlation used, as the report names it.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct CorrelationRef {
+    pub id: String,
+    pub form: &'static str,
+    pub law: String,
+    pub status: &'static str,
+    pub source: String,
+    /// The law's coefficient at the given composition: lambda2 [um] =
+    /// coefficient x x^exponent, x in `variable_unit`.
+    pub coefficient_um: f64,
+    pub exponent: f64,
+    pub variable_unit: &'static str,
+}
+
+/// 95 % coverage factor of a normal distribution, for the published scatter
+/// (given as one standard deviation).
+const K95: f64 = 1.96;
+
+/// A value more than this factor outside the fitted range is given only on
+/// request (an explicit extrapolation).
+pub const FAR_OUTSIDE: f64 = 3.0;
+
+/// Inverts the SDAS with a correlation: cooling rate and solidification time
+/// with 95 % intervals, and the warnings a reader needs. Errors are about
+/// the request (a composition the correlation needs or excludes).
+pub fn interpret(corr: &Correlation, req: &Request) -> Result<Interpretation, String> {
+    let law = corr.power_law(&req.composition)?;
+    let mut warnings = Vec::new();
+    match corr.status {
+        library::Status::FromMemory => warnings.push(format!(
+            "correlation '{}' has coefficients from memory, not read in its source: check them before relying on the result",
+            corr.id
+        )),
+        library::Status::Model => warnings.push(format!(
+            "correlation '{}' is a physical model with textbook parameters, not a fit to castings of this alloy",
+            corr.id
+        )),
+        _ => {}
+    }
+    let corr_ref = CorrelationRef {
+        id: corr.id.clone(),
+        form: corr.form.name(),
+        law: corr.law_text(),
+        status: corr.status.name(),
+        source: format!(
+            "{}: {}. {}",
+            corr.source.short(),
+            corr.source.title,
+            corr.source.published_in
+        ),
+        coefficient_um: law.coefficient,
+        exponent: law.exponent,
+        variable_unit: corr.variable_unit.name,
+    };
+    let freezing = req.freezing_range.map(|k| k.0);
+    let mut out = Interpretation {
+        correlation: corr_ref,
+        sdas_um: req.sdas.map(|s| s.0),
+        sdas_ci95_um: req.ci95.map(|[a, b]| [a.0, b.0]),
+        sdas_ci95_rel_pct: None,
+        cooling_rate_k_per_s: Quantity::default(),
+        solidification_time_s: Quantity::default(),
+        freezing_range_k: freezing,
+        warnings,
+    };
+    let Some(sdas) = req.sdas.filter(|s| s.0.is_finite() && s.0 > 0.0) else {
+        let reason = "no SDAS value to interpret".to_string();
+        out.cooling_rate_k_per_s = Quantity::none(reason.clone());
+        out.solidification_time_s = Quantity::none(reason);
+        return Ok(out);
+    };
+    out.sdas_ci95_rel_pct = req.ci95.map(|[a, b]| rel_pct(sdas.0, [a.0, b.0]));
+
+    // The primary quantity, in the correlation's own unit, then in K/s or s.
+    let x = law.invert(sdas).ok_or("the SDAS cannot be inverted")?;
+    let to_base = corr.variable_unit.to_base;
+    let gain = 1.0 / law.exponent.abs();
+    let interval = sdas_interval(sdas.0, req.ci95, corr.scatter_pct);
+    match (req.ci95.is_some(), corr.scatter_pct.is_some()) {
+        (_, false) => out.warnings.push(format!(
+            "correlation '{}' has no published scatter on record: the interval carries the SDAS uncertainty only",
+            corr.id
+        )),
+        (false, true) => out.warnings.push(
+            "no SDAS interval given: the interval carries the correlation's scatter only".into(),
+        ),
+        _ => {}
+    }
+    let mut primary = Quantity {
+        value: Some(x * to_base),
+        ci95: interval.and_then(|[lo, hi]| {
+            law.invert_interval(Micrometres(lo), Micrometres(hi))
+                .map(|[a, b]| [a * to_base, b * to_base])
+        }),
+        ci95_rel_pct: None,
+        uncertainty_gain: Some(gain),
+        derived: Some("correlation"),
+        reason: None,
+    };
+    if let Some(ci) = primary.ci95 {
+        primary.ci95_rel_pct = Some(rel_pct(x * to_base, ci));
+    }
+    if primary.ci95.is_none() && interval.is_none() {
+        primary.reason = Some("no interval: give the SDAS interval (--ci) or use a correlation with a published scatter".into());
+    }
+
+    // Range of validity.
+    let var_name = match corr.form {
+        Form::CoolingRate => "cooling rate",
+        _ => "solidification time",
+    };
+    match corr.fitted_range {
+        None => out.warnings.push(format!(
+            "the fitted range of '{}' is not on record: whether this {var_name} is an extrapolation cannot be checked",
+            corr.id
+        )),
+        Some(r) => {
+            let below = r.min.filter(|&m| x < m);
+            let above = r.max.filter(|&m| x > m);
+            let far = below.is_some_and(|m| x < m / FAR_OUTSIDE)
+                || above.is_some_and(|m| x > m * FAR_OUTSIDE);
+            if below.is_some() || above.is_some() {
+                let range = format!(
+                    "{}-{} {}",
+                    r.min.map_or("?".into(), |v| format!("{v}")),
+                    r.max.map_or("?".into(), |v| format!("{v}")),
+                    corr.variable_unit.name
+                );
+                let text = format!(
+                    "{var_name} {x:.4} {} is outside the fitted range {range}",
+                    corr.variable_unit.name
+                );
+                if far && !req.extrapolate {
+                    primary = Quantity::none(format!(
+                        "{text}, by more than {FAR_OUTSIDE}x: not given (use the explicit extrapolation flag --extrapolate to report it)"
+                    ));
+                } else if far {
+                    out.warnings.push(format!("{text}, by more than {FAR_OUTSIDE}x: extrapolated on request"));
+                } else {
+                    out.warnings.push(text);
+                }
+            }
+        }
+    }
+
+    // The other quantity through t_f = freezing range / CR.
+    let linked = match (freezing, primary.value) {
+        (Some(dt), Some(v)) => {
+            let derived = match corr.form {
+                Form::CoolingRate => "freezing range / cooling rate",
+                _ => "freezing range / solidification time",
+            };
+            let value = dt / v;
+            let ci95 = primary.ci95.map(|[a, b]| [dt / b, dt / a]);
+            Quantity {
+                value: Some(value),
+                ci95,
+                ci95_rel_pct: ci95.map(|c| rel_pct(value, c)),
+                uncertainty_gain: Some(gain),
+                derived: Some(derived),
+                reason: None,
+            }
+        }
+        (Some(_), None) => Quantity::none(format!("no {var_name} to derive it from")),
+        (None, _) => Quantity::none(
+            "derived only with a freezing range (--freezing-range): t_f = freezing range / cooling rate".into(),
+        ),
+    };
+    match corr.form {
+        Form::CoolingRate => {
+            out.cooling_rate_k_per_s = primary;
+            out.solidification_time_s = linked;
+        }
+        _ => {
+            out.solidification_time_s = primary;
+            out.cooling_rate_k_per_s = linked;
+        }
+    }
+    Ok(out)
+}
+
+/// The SDAS interval widened by the correlation's scatter (module docs);
+/// None when neither is known.
+fn sdas_interval(
+    value: f64,
+    ci95: Option<[Micrometres; 2]>,
+    scatter_pct: Option<f64>,
+) -> Option<[f64; 2]> {
+    let fit = scatter_pct.map_or(0.0, |s| K95 * (1.0 + s / 100.0).ln());
+    let (d_lo, d_hi) = match ci95 {
+        Some([lo, hi]) if lo.0 > 0.0 && hi.0 >= lo.0 => {
+            ((value / lo.0).ln().max(0.0), (hi.0 / value).ln().max(0.0))
+        }
+        _ if scatter_pct.is_some() => (0.0, 0.0),
+        _ => return None,
+    };
+    let lo = value * (-(d_lo.hypot(fit))).exp();
+    let hi = value * d_hi.hypot(fit).exp();
+    Some([lo, hi])
+}
+
+/// Relative deviations of the bounds from the value, percent.
+fn rel_pct(value: f64, [lo, hi]: [f64; 2]) -> [f64; 2] {
+    [100.0 * (lo / value - 1.0), 100.0 * (hi / value - 1.0)]
+}
+
+/// The interpretation asked for a batch: a correlation and the alloy.
+#[derive(Clone, Debug)]
+pub struct Settings {
+    pub correlation: Correlation,
+    pub composition: Composition,
+    pub freezing_range: Option<Kelvin>,
+    pub extrapolate: bool,
+}
+
+impl Settings {
+    /// Checks once, before a batch, that the correlation applies to the
+    /// composition given.
+    pub fn check(&self) -> Result<(), String> {
+        self.correlation.power_law(&self.composition).map(|_| ())
+    }
+
+    /// The interpretation of one image's SDAS.
+    pub fn apply(
+        &self,
+        sdas: Option<Micrometres>,
+        ci95: Option<[Micrometres; 2]>,
+    ) -> Result<Interpretation, String> {
+        interpret(
+            &self.correlation,
+            &Request {
+                sdas,
+                ci95,
+                composition: self.composition.clone(),
+                freezing_range: self.freezing_range,
+                extrapolate: self.extrapolate,
+            },
+        )
+    }
+}
+
+/// Parses "C=0.1,Si=7" (wt%) into a composition.
+pub fn parse_composition(text: &str) -> Result<Composition, String> {
+    let mut out = Composition::new();
+    for part in text.split(',').map(str::trim).filter(|p| !p.is_empty()) {
+        let (el, v) = part
+            .split_once('=')
+            .ok_or_else(|| format!("'{part}': write each element as Symbol=wt%, e.g. Si=7"))?;
+        let el = el.trim();
+        let ok_symbol = (1..=2).contains(&el.len())
+            && el.chars().next().is_some_and(|c| c.is_ascii_uppercase())
+            && el.chars().skip(1).all(|c| c.is_ascii_lowercase());
+        if !ok_symbol {
+            return Err(format!("'{el}' is not an element symbol (e.g. C, Si, Cu)"));
+        }
+        let v: f64 = v
+            .trim()
+            .trim_end_matches("wt%")
+            .trim_end_matches('%')
+            .trim()
+            .parse()
+            .map_err(|_| format!("'{part}': the content is not a number"))?;
+        if !(v.is_finite() && (0.0..=100.0).contains(&v)) {
+            return Err(format!("'{part}': the content must be 0 to 100 wt%"));
+        }
+        if out.insert(el.to_string(), v).is_some() {
+            return Err(format!("'{el}' is given twice"));
+        }
+    }
+    if out.is_empty() {
+        return Err("no element given (e.g. --composition Si=7,Cu=0.2)".into());
+    }
+    Ok(out)
+}
+
+/// Parses a temperature interval: "60K", "60 K", "60degC", "60°C" or "60".
+pub fn parse_kelvin(text: &str) -> Result<Kelvin, String> {
+    let t = text.trim();
+    let num = ["K", "degC", "\u{00b0}C", "C"]
+        .iter()
+        .find_map(|u| t.strip_suffix(u))
+        .unwrap_or(t)
+        .trim();
+    match num.parse::<f64>() {
+        Ok(v) if v.is_finite() && v > 0.0 && v < 2000.0 => Ok(Kelvin(v)),
+        _ => Err(format!(
+            "'{text}' is not a temperature interval between 0 and 2000 K (e.g. 60K)"
+        )),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn forward_then_inverse_round_trips() {
+        for (c, e) in [
+            (50.0, -1.0 / 3.0),
+            (7.5, 0.39),
+            (97.0, -0.4935),
+            (35.5, -0.31),
+        ] {
+            let law = PowerLaw::new(c, e).expect("valid in this test");
+            for x in [0.01, 0.7, 1.0, 12.0, 3000.0] {
+                let l = law.predict(x).expect("valid in this test");
+                let back = law.invert(l).expect("valid in this test");
+                assert!((back / x - 1.0).abs() < 1e-12, "{c} {e} {x}: {back}");
+            }
+        }
+    }
+
+    #[test]
+    fn interval_bounds_are_ordered_and_amplified_by_the_exponent() {
+        // lambda2 = B t^(1/3): a +-10 % interval of lambda2 spans
+        // (1.1/0.9)^3 = 1.826 in t_f (algebra of the power law).
+        let law = PowerLaw::new(10.0, 1.0 / 3.0).expect("valid in this test");
+        let [lo, hi] = law
+            .invert_interval(Micrometres(36.0), Micrometres(44.0))
+            .expect("valid in this test");
+        assert!(lo < hi);
+        assert!((hi / lo - (44.0f64 / 36.0).powi(3)).abs() < 1e-9);
+        // A negative exponent (cooling rate) swaps the bounds.
+        let law = PowerLaw::new(50.0, -1.0 / 3.0).expect("valid in this test");
+        let [lo, hi] = law
+            .invert_interval(Micrometres(36.0), Micrometres(44.0))
+            .expect("valid in this test");
+        assert!(lo < hi && law.invert(Micrometres(44.0)).expect("valid in this test") == lo);
+    }
+
+    #[test]
+    fn rejects_unusable_laws() {
+        assert!(PowerLaw::new(0.0, 0.3).is_err());
+        assert!(PowerLaw::new(5.0, 0.0).is_err());
+        assert!(PowerLaw::new(f64::NAN, 0.3).is_err());
+        let law = PowerLaw::new(5.0, 0.3).expect("valid in this test");
+        assert!(law.invert(Micrometres(-1.0)).is_none());
+        assert!(law.predict(0.0).is_none());
+    }
+}
