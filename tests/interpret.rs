@@ -552,3 +552,45 @@ fn the_commands_list_and_interpret() {
         assert!(run.stderr.contains("armspace:"), "{}", run.stderr);
     }
 }
+
+#[test]
+fn users_give_their_own_coarsening_parameters() {
+    // An Al-7Si parameter set with D = 3e-9 m2/s. By hand:
+    //   Gamma D        = 1.96e-7 x 3e-9               = 5.88e-16
+    //   ln(12.6 / 7)   = ln(1.8)                      = 0.587787
+    //   denominator    = 6.5 x (1 - 0.13) x (12.6 - 7) = 31.668
+    //   M              = 5.88e-16 x 0.587787 / 31.668 = 1.0914e-17 m3/s
+    // lambda2 at 100 s = 5.5 (1.0914e-15)^(1/3) m = 5.5 x 1.0296e-5 m = 56.63 um.
+    let p = |v: f64| format!("{{\"value\": {v}}}");
+    let text = user_file(&format!(
+        r#"{{"id": "my-alsi", "form": "coarsening", "sdas_unit": "um", "variable_unit": "s",
+            "coarsening": {{"solute": "Si", "prefactor": {}, "gibbs_thomson_K_m": {},
+              "diffusivity_m2_per_s": {}, "liquidus_slope_K_per_wt_pct": {},
+              "partition_coefficient": {}, "ce_wt_pct": {}}},
+            "source": {{"authors": "Lab", "year": 2026, "title": "parameter set", "published_in": "report"}}}}"#,
+        p(5.5),
+        p(1.96e-7),
+        p(3e-9),
+        p(-6.5),
+        p(0.13),
+        p(12.6)
+    ));
+    let lib = parse(&text, "mine.json", false).unwrap();
+    let c = &lib[0];
+    assert_eq!(c.status, Status::User);
+    // No default C0 in this file: the composition must be given.
+    assert!(c
+        .power_law(&Composition::new())
+        .unwrap_err()
+        .contains("--composition Si="));
+    let law = c.power_law(&comp("Si=7")).unwrap();
+    assert!(close(law.predict(100.0).unwrap().0, 56.63, 1e-3));
+    // A partition coefficient of 1 is no alloy for this model.
+    let bad = text.replace(
+        "\"partition_coefficient\": {\"value\": 0.13}",
+        "\"partition_coefficient\": {\"value\": 1.0}",
+    );
+    assert!(parse(&bad, "mine.json", false)
+        .unwrap_err()
+        .contains("between 0 and 1"));
+}
