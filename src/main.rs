@@ -16,15 +16,20 @@ const EXIT_OK: u8 = 0;
 const EXIT_FATAL: u8 = 1;
 const EXIT_USAGE: u8 = 2;
 const EXIT_NOT_MEASURED: u8 = 3;
+const EXIT_LIMIT_FAILED: u8 = 4;
+const EXIT_INDETERMINATE: u8 = 5;
 
 #[derive(Parser)]
 #[command(
     name = "armspace",
     version,
     about = "Secondary dendrite arm spacing (SDAS) from etched micrographs of cast alloys",
-    after_help = "Exit status: 0 every image measured; 1 the run itself failed (e.g. the report \
-could not be written); 2 usage error; 3 at least one image could not be measured (unreadable, \
-or nothing reliable to measure).\n\nResults support, and never replace, the judgement of \
+    after_help = "Exit status of measure: 0 every image measured (and, with --spec, every one \
+passed); 1 the run itself failed (e.g. the report could not be written); 2 usage error; 3 at \
+least one image could not be measured (unreadable, or nothing reliable to measure); 4 at least \
+one image failed its SDAS limit (the casting failed); 5 a decision is indeterminate (the 95% \
+interval contains the limit, or an image matched no limit). When several apply: 4, then 3, \
+then 5.\n\nResults support, and never replace, the judgement of \
 qualified personnel and the applicable specification and codes."
 )]
 struct Cli {
@@ -35,7 +40,7 @@ struct Cli {
 #[derive(Subcommand)]
 enum Command {
     /// Measure SDAS in images and folders of images and write a JSON report.
-    Measure(MeasureArgs),
+    Measure(Box<MeasureArgs>),
     /// Find the scale bar in images and print the calibration it gives, as JSON.
     Calibrate(CalibrateArgs),
     /// Statistics of lines measured by hand (CSV with columns length_um, arms).
@@ -169,6 +174,12 @@ struct MeasureArgs {
     jobs: Option<u16>,
     #[command(flatten)]
     alloy: AlloyArgs,
+    /// SDAS acceptance spec (JSON: limit, zones by file-name pattern, statistic, decision rule).
+    #[arg(long)]
+    spec: Option<PathBuf>,
+    /// Also write a CSV summary, a row per image (atomically).
+    #[arg(long)]
+    csv: Option<PathBuf>,
 }
 
 /// Calibration sources. Precedence: --um-per-px, then --profile, then the
@@ -291,7 +302,7 @@ fn main() -> ExitCode {
         }
     };
     match cli.command {
-        Command::Measure(args) => run_measure(args),
+        Command::Measure(args) => run_measure(*args),
         Command::Calibrate(args) => run_calibrate(args),
         Command::Stats(args) => run_stats(args),
         Command::Synth(args) => run_synth(args),
@@ -332,6 +343,18 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
             return ExitCode::from(EXIT_USAGE);
         }
     };
+    let spec = match args
+        .spec
+        .as_deref()
+        .map(armspace::interpret::acceptance::Spec::load)
+    {
+        None => None,
+        Some(Ok(s)) => Some(s),
+        Some(Err(e)) => {
+            eprintln!("armspace: {e}");
+            return ExitCode::from(EXIT_USAGE);
+        }
+    };
     let opts = MeasureOptions {
         calibration,
         load: LoadOptions {
@@ -350,6 +373,7 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
         methods,
         overlay_dir: args.overlay.clone(),
         interpret,
+        spec,
     };
     if let Err(code) = create_overlay_dir(args.overlay.as_deref()) {
         return code;
@@ -372,7 +396,9 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
             return ExitCode::from(EXIT_FATAL);
         }
     };
-    let (results, skipped) = pool.install(|| measure_batch(&inputs, &opts, &|| {}));
+    let progress = progress_bar(inputs.len());
+    let (results, skipped) = pool.install(|| measure_batch(&inputs, &opts, &|| progress.inc(1)));
+    progress.finish_and_clear();
     let given: Vec<String> = args.paths.iter().map(|p| p.display().to_string()).collect();
     let rep = report::build(&given, &opts, &results, &skipped, report::now_utc());
     let json = report::to_json(&rep);
@@ -397,6 +423,17 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
                 img.sdas_um.reason.as_deref().unwrap_or("no reason given")
             ),
         }
+        if let Some(a) = &img.acceptance {
+            let zone = a
+                .zone
+                .as_deref()
+                .map(|z| format!(" [{z}]"))
+                .unwrap_or_default();
+            match a.decision {
+                Some(d) => eprintln!("  {}{zone}: {}", d.name().to_uppercase(), a.reason),
+                None => eprintln!("  NOT ASSESSED{zone}: {}", a.reason),
+            }
+        }
         if let Some(i) = &img.interpretation {
             let q =
                 |name: &str, unit: &str, v: &armspace::interpret::Quantity| match (v.value, v.ci95)
@@ -419,6 +456,18 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
     for s in &rep.skipped {
         eprintln!("skipped  {}: {}", s.file, s.reason);
     }
+    if let Some(path) = &args.csv {
+        let written = report::csv_summary(&rep)
+            .map_err(|e| format!("{}: {e}", path.display()))
+            .and_then(|text| {
+                report::write_atomic(path, text.as_bytes()).map_err(|e| e.to_string())
+            });
+        if let Err(e) = written {
+            eprintln!("armspace: {e}");
+            return ExitCode::from(EXIT_FATAL);
+        }
+        eprintln!("CSV summary written to {}", path.display());
+    }
     match &args.out {
         Some(path) => {
             if let Err(e) = report::write_atomic(path, json.as_bytes()) {
@@ -434,11 +483,53 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
         "{} image(s): {} measured, {} without a value, {} failed, {} skipped",
         s.images, s.measured, s.without_value, s.failed, s.skipped
     );
-    if s.measured == s.images {
-        ExitCode::from(EXIT_OK)
-    } else {
-        ExitCode::from(EXIT_NOT_MEASURED)
+    if let Some(a) = &s.acceptance {
+        for z in &a.zones {
+            eprintln!(
+                "zone {} (limit {} um): {} image(s), {} pass, {} fail, {} indeterminate: {}",
+                z.zone.as_deref().unwrap_or("(general limit)"),
+                z.limit_um.map_or("none".into(), |l| l.to_string()),
+                z.images,
+                z.pass,
+                z.fail,
+                z.indeterminate,
+                z.verdict.map_or("no images", |d| d.name())
+            );
+        }
+        if a.not_assessed > 0 {
+            eprintln!(
+                "{} image(s) matched no zone and were not assessed",
+                a.not_assessed
+            );
+        }
+        eprintln!(
+            "batch verdict: {}",
+            a.verdict
+                .map_or("no images".to_string(), |d| d.name().to_uppercase())
+        );
     }
+    ExitCode::from(match report::outcome(&rep) {
+        report::Outcome::Ok => EXIT_OK,
+        report::Outcome::LimitFailed => EXIT_LIMIT_FAILED,
+        report::Outcome::NotMeasured => EXIT_NOT_MEASURED,
+        report::Outcome::Indeterminate => EXIT_INDETERMINATE,
+    })
+}
+
+/// A progress bar on stderr when stderr is a terminal; hidden otherwise, so
+/// that logs and pipes get no control characters.
+fn progress_bar(len: usize) -> indicatif::ProgressBar {
+    use std::io::IsTerminal;
+    if !std::io::stderr().is_terminal() {
+        return indicatif::ProgressBar::hidden();
+    }
+    let bar = indicatif::ProgressBar::new(len as u64);
+    if let Ok(style) = indicatif::ProgressStyle::with_template(
+        "{bar:40} {pos}/{len} images, {elapsed} elapsed, about {eta} left",
+    ) {
+        bar.set_style(style);
+    }
+    bar
 }
 
 fn run_calibrate(args: CalibrateArgs) -> ExitCode {

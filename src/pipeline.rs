@@ -6,6 +6,7 @@
 
 use crate::calibrate::scale_bar::{self, ScaleBar};
 use crate::calibrate::{self as cal, Calibration, CalibrationRequest};
+use crate::interpret::acceptance::{self, Evidence};
 use crate::load::{self, Input, LoadOptions};
 use crate::methods::fft::{self, FftOutcome, FftParams};
 use crate::methods::intercept::{self, InterceptOutcome, InterceptParams};
@@ -50,6 +51,8 @@ pub struct MeasureOptions {
     pub overlay_dir: Option<PathBuf>,
     /// Correlation and alloy for cooling rate and solidification time.
     pub interpret: Option<crate::interpret::Settings>,
+    /// SDAS limits and the decision rule.
+    pub spec: Option<crate::interpret::acceptance::Spec>,
 }
 
 impl MeasureOptions {
@@ -68,6 +71,7 @@ impl MeasureOptions {
             methods: vec![Method::Fft, Method::Intercept],
             overlay_dir: None,
             interpret: None,
+            spec: None,
         }
     }
 }
@@ -112,6 +116,8 @@ pub struct ImageResult {
     pub overlay: Option<PathBuf>,
     /// Cooling rate and solidification time, when a correlation was given.
     pub interpretation: Option<Result<crate::interpret::Interpretation, String>>,
+    /// The decision against the spec's limit, when a spec was given.
+    pub acceptance: Option<crate::interpret::acceptance::Acceptance>,
 }
 
 impl ImageResult {
@@ -135,6 +141,7 @@ impl ImageResult {
             error: Some(error),
             overlay: None,
             interpretation: None,
+            acceptance: None,
         }
     }
 
@@ -267,6 +274,21 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         .interpret
         .as_ref()
         .map(|settings| settings.apply(sdas.value, sdas.ci95));
+    let acceptance = opts.spec.as_ref().map(|spec| {
+        let u = calibration.rel_uncertainty.unwrap_or(0.0);
+        let value = Evidence {
+            value: sdas.value,
+            ci95: sdas.ci95,
+            n: sdas.n,
+            calibration_half_um: sdas.value.map_or(0.0, |v| K95 * u * v.0),
+        };
+        acceptance::assess(
+            spec,
+            path,
+            value,
+            max_local(fft.as_ref(), intercept.as_ref(), um_per_px, u),
+        )
+    });
     ImageResult {
         file: path.to_path_buf(),
         info: Some(info),
@@ -280,6 +302,56 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         error: None,
         overlay,
         interpretation,
+        acceptance,
+    }
+}
+
+/// The largest local value of an image: the largest used FFT tile, or
+/// without an FFT map the largest intercept line, with a 95 % interval from
+/// the local spread (the tiles' robust standard deviation, or the lines'
+/// standard deviation, which also holds the real variation across the field
+/// and so overstates a single value's uncertainty: a cautious choice) and
+/// the calibration's uncertainty in quadrature.
+fn max_local(
+    fft: Option<&FftOutcome>,
+    intercept: Option<&InterceptOutcome>,
+    cal: UmPerPx,
+    cal_rel_u: f64,
+) -> Evidence {
+    let from_tiles = fft.filter(|f| f.value_px.is_some()).and_then(|f| {
+        let max = f
+            .tiles
+            .iter()
+            .filter(|t| t.used && t.spacing_px.is_finite())
+            .map(|t| t.spacing_px)
+            .reduce(f64::max)?;
+        Some((max, f.spread_px))
+    });
+    let from_lines = || {
+        intercept.filter(|i| i.value_px.is_some()).and_then(|i| {
+            let max = i
+                .lines
+                .iter()
+                .map(|l| l.spacing_px)
+                .filter(|s| s.is_finite())
+                .reduce(f64::max)?;
+            Some((max, i.sd_px))
+        })
+    };
+    let Some((max_px, spread_px)) = from_tiles.or_else(from_lines) else {
+        return Evidence::default();
+    };
+    let x = cal.to_um(Pixels(max_px)).0;
+    let c = K95 * cal_rel_u * x;
+    let ci95 = spread_px.map(|s| {
+        let h = (K95 * cal.to_um(Pixels(s)).0).hypot(c);
+        [Micrometres(x - h), Micrometres(x + h)]
+    });
+    Evidence {
+        value: Some(Micrometres(x)),
+        ci95,
+        n: 0,
+        calibration_half_um: c,
     }
 }
 

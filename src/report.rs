@@ -4,6 +4,7 @@
 //!
 //! Later versions add fields; they never remove or retype one.
 
+use crate::interpret::acceptance::{self, Acceptance, Decision, Spec};
 use crate::methods::fft::FftOutcome;
 use crate::methods::intercept::{Convention, InterceptOutcome};
 use crate::pipeline::{ImageResult, MeasureOptions, Skipped};
@@ -52,6 +53,9 @@ pub struct Parameters {
     pub preprocess: PreprocessParameters,
     pub fft: FftParameters,
     pub intercept: InterceptParameters,
+    /// The spec (--spec): limits, zones, statistic and rule; absent without it.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub spec: Option<Spec>,
     /// --alloy and what goes with it; absent without --alloy.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub interpretation: Option<InterpretationParameters>,
@@ -122,6 +126,9 @@ pub struct ImageReport {
     /// Cooling rate and solidification time (with --alloy), else absent.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub interpretation: Option<crate::interpret::Interpretation>,
+    /// The decision against the spec's limit (with --spec), else absent.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub acceptance: Option<Acceptance>,
 }
 
 #[derive(Serialize, Debug)]
@@ -270,6 +277,86 @@ pub struct Summary {
     pub sdas_um_min: Option<f64>,
     pub sdas_um_median: Option<f64>,
     pub sdas_um_max: Option<f64>,
+    /// Verdicts per zone and for the batch (with --spec), else absent.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub acceptance: Option<AcceptanceSummary>,
+}
+
+/// Verdicts of a batch against its spec: fail when any image failed;
+/// otherwise indeterminate when any is indeterminate or was not assessed
+/// (or could not be read); otherwise pass.
+#[derive(Serialize, Debug)]
+pub struct AcceptanceSummary {
+    pub verdict: Option<Decision>,
+    pub pass: usize,
+    pub fail: usize,
+    pub indeterminate: usize,
+    /// Images matching no zone of a spec without a general limit.
+    pub not_assessed: usize,
+    /// Images that could not be read (counted as indeterminate too).
+    pub unreadable: usize,
+    pub zones: Vec<ZoneSummary>,
+}
+
+#[derive(Serialize, Debug)]
+pub struct ZoneSummary {
+    /// The zone's name; null for images under the spec's general limit.
+    pub zone: Option<String>,
+    pub limit_um: Option<f64>,
+    pub images: usize,
+    pub pass: usize,
+    pub fail: usize,
+    pub indeterminate: usize,
+    pub verdict: Option<Decision>,
+}
+
+/// Per-zone and batch verdicts from the images' acceptances.
+pub fn acceptance_summary(spec: &Spec, images: &[ImageReport]) -> AcceptanceSummary {
+    let count = |d: Decision, it: &mut dyn Iterator<Item = &Acceptance>| {
+        it.filter(|a| a.decision == Some(d)).count()
+    };
+    let assessed: Vec<&Acceptance> = images
+        .iter()
+        .filter_map(|i| i.acceptance.as_ref())
+        .collect();
+    let unreadable = images.iter().filter(|i| i.error.is_some()).count();
+    let mut groups: Vec<(Option<String>, Option<f64>)> = spec
+        .zones
+        .iter()
+        .map(|z| (Some(z.name.clone()), Some(z.limit_um)))
+        .collect();
+    if spec.limit_um.is_some() {
+        groups.push((None, spec.limit_um));
+    }
+    let zones = groups
+        .into_iter()
+        .map(|(zone, limit_um)| {
+            let members: Vec<&Acceptance> = assessed
+                .iter()
+                .copied()
+                .filter(|a| a.zone == zone && a.limit_um.is_some())
+                .collect();
+            ZoneSummary {
+                images: members.len(),
+                pass: count(Decision::Pass, &mut members.iter().copied()),
+                fail: count(Decision::Fail, &mut members.iter().copied()),
+                indeterminate: count(Decision::Indeterminate, &mut members.iter().copied()),
+                verdict: acceptance::verdict(members.iter().map(|a| a.decision)),
+                zone,
+                limit_um,
+            }
+        })
+        .collect();
+    let not_assessed = assessed.iter().filter(|a| a.decision.is_none()).count();
+    AcceptanceSummary {
+        verdict: acceptance::verdict(assessed.iter().map(|a| a.decision)),
+        pass: count(Decision::Pass, &mut assessed.iter().copied()),
+        fail: count(Decision::Fail, &mut assessed.iter().copied()),
+        indeterminate: count(Decision::Indeterminate, &mut assessed.iter().copied()),
+        not_assessed,
+        unreadable,
+        zones,
+    }
 }
 
 /// Rounds to `digits` decimals, for a report that reads well and compares
@@ -397,6 +484,24 @@ pub fn image_report(r: &ImageResult, opts: &MeasureOptions) -> ImageReport {
             Some(Ok(i)) => Some(i.rounded()),
             _ => None,
         },
+        acceptance: match (&r.acceptance, &opts.spec) {
+            (Some(a), _) => Some(Acceptance {
+                compared_um: a.compared_um.map(|v| round(v, 4)),
+                compared_ci95_um: a.compared_ci95_um.map(|[x, y]| [round(x, 4), round(y, 4)]),
+                ..a.clone()
+            }),
+            // A file that could not be read is still in its zone, undecided.
+            (None, Some(spec)) => {
+                let mut a =
+                    acceptance::assess(spec, &r.file, Default::default(), Default::default());
+                if a.decision.is_some() {
+                    a.reason =
+                        "the file could not be read: it cannot be compared with the limit".into();
+                }
+                Some(a)
+            }
+            (None, None) => None,
+        },
     }
 }
 
@@ -421,6 +526,10 @@ pub fn build(
         sdas_um_min: values.iter().copied().reduce(f64::min),
         sdas_um_median: crate::stats::median(&values).map(|v| round(v, 4)),
         sdas_um_max: values.iter().copied().reduce(f64::max),
+        acceptance: opts
+            .spec
+            .as_ref()
+            .map(|spec| acceptance_summary(spec, &images)),
     };
     Report {
         schema: SCHEMA,
@@ -460,6 +569,7 @@ pub fn build(
                 convention: convention_name(opts.intercept.convention),
                 target_rel_accuracy_pct: opts.target_rel_accuracy_pct,
             },
+            spec: opts.spec.clone(),
             interpretation: opts.interpret.as_ref().map(|s| InterpretationParameters {
                 correlation: s.correlation.id.clone(),
                 composition_wt_pct: s.composition.clone(),
@@ -477,6 +587,113 @@ pub fn build(
             .collect(),
         summary,
     }
+}
+
+/// What a batch amounts to, for the exit status of `measure`.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Outcome {
+    /// Every image measured (and, with a spec, every one passed).
+    Ok,
+    /// At least one image failed its limit: the casting failed.
+    LimitFailed,
+    /// At least one file could not be measured (unreadable, or nothing
+    /// reliable to measure): the tool could not do its job for it.
+    NotMeasured,
+    /// Everything measured, but at least one decision is indeterminate or an
+    /// image matched no limit.
+    Indeterminate,
+}
+
+/// The batch's outcome, most serious first: a failed limit, then a file not
+/// measured, then an indeterminate decision.
+pub fn outcome(report: &Report) -> Outcome {
+    let s = &report.summary;
+    let verdict = s.acceptance.as_ref().and_then(|a| a.verdict);
+    if verdict == Some(Decision::Fail) {
+        Outcome::LimitFailed
+    } else if s.measured < s.images {
+        Outcome::NotMeasured
+    } else if verdict == Some(Decision::Indeterminate) {
+        Outcome::Indeterminate
+    } else {
+        Outcome::Ok
+    }
+}
+
+/// Columns of the CSV summary, one row per image.
+pub const CSV_COLUMNS: [&str; 17] = [
+    "file",
+    "um_per_px",
+    "calibration_source",
+    "sdas_um",
+    "ci95_low_um",
+    "ci95_high_um",
+    "n",
+    "fft_um",
+    "intercept_um",
+    "cooling_rate_K_per_s",
+    "solidification_time_s",
+    "zone",
+    "limit_um",
+    "decision",
+    "warnings",
+    "error",
+    "reason",
+];
+
+/// The CSV summary of a report: two comment lines (tool, time, schema, and
+/// the caution), a header, then a row per image in the report's order.
+/// Empty cells are nulls.
+pub fn csv_summary(report: &Report) -> Result<String, String> {
+    let mut out = format!(
+        "# {} {} {}, {}\n# caution: {}\n",
+        report.tool.name, report.tool.version, report.schema, report.created_utc, report.caution
+    );
+    let mut w = csv::WriterBuilder::new().from_writer(Vec::new());
+    w.write_record(CSV_COLUMNS).map_err(|e| e.to_string())?;
+    let num = |v: Option<f64>| v.map(|x| format!("{x}")).unwrap_or_default();
+    for i in &report.images {
+        let cal = i.calibration.as_ref();
+        let interp = i.interpretation.as_ref();
+        let acc = i.acceptance.as_ref();
+        let record = [
+            i.file.clone(),
+            num(cal.map(|c| c.um_per_px)),
+            cal.map(|c| {
+                serde_json::to_value(c.source)
+                    .ok()
+                    .and_then(|v| v.as_str().map(String::from))
+                    .unwrap_or_default()
+            })
+            .unwrap_or_default(),
+            num(i.sdas_um.value),
+            num(i.sdas_um.ci95.map(|c| c[0])),
+            num(i.sdas_um.ci95.map(|c| c[1])),
+            i.sdas_um.n.to_string(),
+            num(i.methods.fft.as_ref().and_then(|f| f.value)),
+            num(i.methods.intercept.as_ref().and_then(|m| m.value)),
+            num(interp.and_then(|t| t.cooling_rate_k_per_s.value)),
+            num(interp.and_then(|t| t.solidification_time_s.value)),
+            acc.and_then(|a| a.zone.clone()).unwrap_or_default(),
+            num(acc.and_then(|a| a.limit_um)),
+            acc.and_then(|a| a.decision)
+                .map(|d| d.name().to_string())
+                .unwrap_or_else(|| {
+                    if acc.is_some() {
+                        "not assessed".into()
+                    } else {
+                        String::new()
+                    }
+                }),
+            i.warnings.len().to_string(),
+            i.error.clone().unwrap_or_default(),
+            i.sdas_um.reason.clone().unwrap_or_default(),
+        ];
+        w.write_record(&record).map_err(|e| e.to_string())?;
+    }
+    let bytes = w.into_inner().map_err(|e| e.to_string())?;
+    out.push_str(&String::from_utf8_lossy(&bytes));
+    Ok(out)
 }
 
 /// Current time as RFC 3339 UTC, or the time given by the SOURCE_DATE_EPOCH

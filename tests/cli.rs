@@ -249,6 +249,13 @@ fn the_report_validates_against_its_schema() {
     image::GrayImage::from_pixel(128, 128, image::Luma([90]))
         .save(&flat)
         .unwrap();
+    let spec = dir.path().join("spec.json");
+    std::fs::write(
+        &spec,
+        r#"{"format": "armspace.spec/1", "limit_um": 30, "statistic": "max_local",
+            "zones": [{"name": "thin", "pattern": "*step06mm*", "limit_um": 25, "statistic": "value"}]}"#,
+    )
+    .unwrap();
     let run = armspace(&[
         "measure",
         &demo,
@@ -256,6 +263,8 @@ fn the_report_validates_against_its_schema() {
         &path_str(&flat),
         "--um-per-px",
         "1.25",
+        "--spec",
+        &path_str(&spec),
         "--alloy",
         "al-si-coarsening",
         "--freezing-range",
@@ -294,6 +303,13 @@ fn the_report_validates_against_its_schema() {
         rep["parameters"]["interpretation"]["correlation"],
         "al-si-coarsening"
     );
+    // With --spec every image carries its decision, and the summary its verdicts.
+    assert!(rep["images"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .all(|i| i["acceptance"]["decision"].is_string()));
+    assert!(rep["summary"]["acceptance"]["verdict"].is_string());
     // The caution travels with every report.
     assert!(rep["caution"]
         .as_str()

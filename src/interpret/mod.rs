@@ -22,6 +22,7 @@
 //! inverted quantity: 10 % in SDAS is about 30 % in t_f when m is near 1/3.
 //! This gain is reported with each result.
 
+pub mod acceptance;
 pub mod coarsening;
 pub mod library;
 

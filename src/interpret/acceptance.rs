@@ -1,0 +1,369 @@
+//! Acceptance against an SDAS limit, with the decision rule made explicit.
+//!
+//! A spec file names the limit (an upper limit on lambda2, in um), the
+//! statistic compared with it, optional zones matched by file-name pattern,
+//! and the decision rule:
+//!
+//! - `guarded` (default): conformance only when the upper bound of the 95 %
+//!   interval is at or below the limit; non-conformance when the lower bound
+//!   is above it; otherwise indeterminate. This is the guarded acceptance
+//!   and rejection of ISO 14253-1 and JCGM 106:2012 with a guard band equal
+//!   to the expanded uncertainty (coverage 95 %), so that neither a pass nor
+//!   a fail is declared while the interval straddles the limit.
+//! - `simple`: value at or below the limit passes, above it fails (zero
+//!   guard band; up to 50 % risk of a wrong decision for a value at the limit).
+//!
+//! An image without a value (or, under `guarded`, without an interval)
+//! cannot be decided: indeterminate. When a result is indeterminate the
+//! decision says how many more measurements would most likely decide it: the
+//! statistical part h of the half-width shrinks as 1/sqrt(n) while the
+//! calibration's part c does not, so the interval clears the limit when
+//! h' <= sqrt(d^2 - c^2), d = |value - limit|, i.e. with
+//! n' = n h^2 / (d^2 - c^2) measurements (assuming the value stays where it
+//! is); d <= c means only a better calibration can decide it.
+
+use crate::units::Micrometres;
+use serde::{Deserialize, Serialize};
+
+pub const FORMAT: &str = "armspace.spec/1";
+
+/// Which number is compared with the limit.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize, Default)]
+#[serde(rename_all = "snake_case")]
+pub enum Statistic {
+    /// The image's SDAS value and its 95 % interval.
+    #[default]
+    Value,
+    /// The largest local value (FFT tiles, or intercept lines without an
+    /// FFT map), with the local spread as its uncertainty.
+    MaxLocal,
+}
+
+/// The decision rule.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize, Default)]
+#[serde(rename_all = "snake_case")]
+pub enum Rule {
+    #[default]
+    Guarded,
+    Simple,
+}
+
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, PartialOrd, Ord)]
+#[serde(rename_all = "snake_case")]
+pub enum Decision {
+    Pass,
+    Indeterminate,
+    Fail,
+}
+
+impl Decision {
+    pub fn name(self) -> &'static str {
+        match self {
+            Decision::Pass => "pass",
+            Decision::Indeterminate => "indeterminate",
+            Decision::Fail => "fail",
+        }
+    }
+}
+
+/// A zone: images whose file name matches `pattern` ('*' and '?'
+/// wildcards; a pattern with '/' is matched against the path as given).
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Zone {
+    pub name: String,
+    pub pattern: String,
+    pub limit_um: f64,
+    #[serde(default)]
+    pub statistic: Option<Statistic>,
+    #[serde(default)]
+    pub rule: Option<Rule>,
+    #[serde(skip)]
+    matcher: Option<globset::GlobMatcher>,
+}
+
+/// A validated spec file.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Spec {
+    pub format: String,
+    /// Free text naming the specification (drawing, revision).
+    #[serde(default)]
+    pub title: Option<String>,
+    /// Limit for images that match no zone; without it such an image is not
+    /// assessed (and the batch cannot pass).
+    #[serde(default)]
+    pub limit_um: Option<f64>,
+    #[serde(default)]
+    pub statistic: Statistic,
+    #[serde(default)]
+    pub rule: Rule,
+    #[serde(default)]
+    pub zones: Vec<Zone>,
+}
+
+fn valid_limit(v: f64) -> bool {
+    v.is_finite() && v > 0.0 && v < 1e5
+}
+
+impl Spec {
+    /// Parses and checks a spec; `origin` names the file in messages.
+    pub fn parse(text: &str, origin: &str) -> Result<Self, String> {
+        let mut spec: Spec = serde_json::from_str(text).map_err(|e| format!("{origin}: {e}"))?;
+        if spec.format != FORMAT {
+            return Err(format!(
+                "{origin}: format '{}' is not '{FORMAT}'",
+                spec.format
+            ));
+        }
+        if spec.limit_um.is_none() && spec.zones.is_empty() {
+            return Err(format!(
+                "{origin}: no limit: give \"limit_um\" or at least one zone"
+            ));
+        }
+        if let Some(l) = spec.limit_um {
+            if !valid_limit(l) {
+                return Err(format!(
+                    "{origin}: \"limit_um\" must be a positive number of um, got {l}"
+                ));
+            }
+        }
+        let mut names = std::collections::BTreeSet::new();
+        for z in &mut spec.zones {
+            if z.name.trim().is_empty() {
+                return Err(format!("{origin}: a zone has no name"));
+            }
+            if !names.insert(z.name.clone()) {
+                return Err(format!("{origin}: zone '{}' is named twice", z.name));
+            }
+            if !valid_limit(z.limit_um) {
+                return Err(format!(
+                    "{origin}: zone '{}': \"limit_um\" must be a positive number of um, got {}",
+                    z.name, z.limit_um
+                ));
+            }
+            let glob = globset::GlobBuilder::new(&z.pattern)
+                .literal_separator(true)
+                .build()
+                .map_err(|e| format!("{origin}: zone '{}': pattern: {e}", z.name))?;
+            z.matcher = Some(glob.compile_matcher());
+        }
+        Ok(spec)
+    }
+
+    pub fn load(path: &std::path::Path) -> Result<Self, String> {
+        let text = std::fs::read_to_string(path)
+            .map_err(|e| format!("{}: cannot read: {e}", path.display()))?;
+        Self::parse(&text, &path.display().to_string())
+    }
+
+    /// The zone of a file (the first whose pattern matches), if any.
+    pub fn zone_of(&self, file: &std::path::Path) -> Option<&Zone> {
+        let name = file.file_name().map(std::path::Path::new);
+        self.zones.iter().find(|z| {
+            let Some(m) = &z.matcher else { return false };
+            if z.pattern.contains('/') {
+                m.is_match(file)
+            } else {
+                name.is_some_and(|n| m.is_match(n))
+            }
+        })
+    }
+}
+
+/// What is compared with the limit, for one image.
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Evidence {
+    pub value: Option<Micrometres>,
+    pub ci95: Option<[Micrometres; 2]>,
+    /// Independent measurements behind the value (tiles, lines).
+    pub n: usize,
+    /// The calibration's part of the 95 % half-width, um.
+    pub calibration_half_um: f64,
+}
+
+/// The acceptance of one image.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct Acceptance {
+    pub zone: Option<String>,
+    pub limit_um: Option<f64>,
+    pub statistic: Statistic,
+    pub rule: Rule,
+    /// What was compared: the value and its 95 % interval, um.
+    pub compared_um: Option<f64>,
+    pub compared_ci95_um: Option<[f64; 2]>,
+    /// null when the image was not assessed (it matches no zone and the spec
+    /// has no general limit).
+    pub decision: Option<Decision>,
+    pub reason: String,
+    /// For an indeterminate result: about how many measurements (tiles or
+    /// lines) in all would most likely decide it, when more would.
+    pub measurements_to_decide: Option<usize>,
+    /// The same as a number of fields like this one, in all.
+    pub fields_to_decide: Option<usize>,
+}
+
+/// Decides one image against a limit under a rule (module docs).
+pub fn decide(
+    evidence: &Evidence,
+    limit: f64,
+    rule: Rule,
+) -> (Decision, String, Option<usize>, Option<usize>) {
+    let Some(x) = evidence.value.map(|v| v.0) else {
+        return (
+            Decision::Indeterminate,
+            "no SDAS value: the image cannot be compared with the limit".into(),
+            None,
+            None,
+        );
+    };
+    match rule {
+        Rule::Simple => {
+            if x <= limit {
+                (
+                    Decision::Pass,
+                    format!("value {x:.2} um <= limit {limit} um (simple rule)"),
+                    None,
+                    None,
+                )
+            } else {
+                (
+                    Decision::Fail,
+                    format!("value {x:.2} um > limit {limit} um (simple rule)"),
+                    None,
+                    None,
+                )
+            }
+        }
+        Rule::Guarded => {
+            let Some([lo, hi]) = evidence.ci95.map(|[a, b]| [a.0, b.0]) else {
+                return (
+                    Decision::Indeterminate,
+                    format!("value {x:.2} um has no 95 % interval, which the guarded rule needs"),
+                    None,
+                    None,
+                );
+            };
+            if hi <= limit {
+                (
+                    Decision::Pass,
+                    format!("upper 95 % bound {hi:.2} um <= limit {limit} um"),
+                    None,
+                    None,
+                )
+            } else if lo > limit {
+                (
+                    Decision::Fail,
+                    format!("lower 95 % bound {lo:.2} um > limit {limit} um"),
+                    None,
+                    None,
+                )
+            } else {
+                let (n_all, advice) = more_to_decide(evidence, x, [lo, hi], limit);
+                let fields = n_all.map(|n| n.div_ceil(evidence.n.max(1)));
+                (
+                    Decision::Indeterminate,
+                    format!(
+                        "the 95 % interval {lo:.2} to {hi:.2} um contains the limit {limit} um; {advice}"
+                    ),
+                    n_all,
+                    fields,
+                )
+            }
+        }
+    }
+}
+
+/// Measurements in all that would most likely decide a straddling interval,
+/// and the advice in words (module docs).
+fn more_to_decide(e: &Evidence, x: f64, [lo, hi]: [f64; 2], limit: f64) -> (Option<usize>, String) {
+    let half = 0.5 * (hi - lo);
+    let c = e.calibration_half_um.min(half);
+    let h2 = half * half - c * c;
+    let d = (x - limit).abs();
+    if d <= c || d == 0.0 {
+        return (
+            None,
+            "the value is within the calibration's uncertainty of the limit: more fields cannot decide it, a better calibration (or a different statistic) might".into(),
+        );
+    }
+    if e.n == 0 {
+        return (
+            None,
+            "a single local value: more fields do not narrow its interval".into(),
+        );
+    }
+    if h2 <= 0.0 {
+        return (None, "more fields would narrow the interval".into());
+    }
+    let needed = (e.n as f64 * h2 / (d * d - c * c)).ceil();
+    if !needed.is_finite() || needed > 1e9 {
+        return (
+            None,
+            "the value is too close to the limit for more fields to decide it".into(),
+        );
+    }
+    let needed = needed as usize;
+    let fields = needed.div_ceil(e.n);
+    (
+        Some(needed),
+        format!(
+            "about {needed} measurements in all ({} now), i.e. about {fields} fields like this one, would most likely decide it",
+            e.n
+        ),
+    )
+}
+
+/// The acceptance of one image under a spec.
+pub fn assess(
+    spec: &Spec,
+    file: &std::path::Path,
+    value: Evidence,
+    max_local: Evidence,
+) -> Acceptance {
+    let zone = spec.zone_of(file);
+    let statistic = zone.and_then(|z| z.statistic).unwrap_or(spec.statistic);
+    let rule = zone.and_then(|z| z.rule).unwrap_or(spec.rule);
+    let limit = zone.map(|z| z.limit_um).or(spec.limit_um);
+    let evidence = match statistic {
+        Statistic::Value => value,
+        Statistic::MaxLocal => max_local,
+    };
+    let mut out = Acceptance {
+        zone: zone.map(|z| z.name.clone()),
+        limit_um: limit,
+        statistic,
+        rule,
+        compared_um: evidence.value.map(|v| v.0),
+        compared_ci95_um: evidence.ci95.map(|[a, b]| [a.0, b.0]),
+        decision: None,
+        reason: String::new(),
+        measurements_to_decide: None,
+        fields_to_decide: None,
+    };
+    match limit {
+        None => {
+            out.reason = "the file name matches no zone of the spec and the spec has no general limit: not assessed".into();
+        }
+        Some(limit) => {
+            let (d, reason, n, f) = decide(&evidence, limit, rule);
+            out.decision = Some(d);
+            out.reason = reason;
+            out.measurements_to_decide = n;
+            out.fields_to_decide = f;
+        }
+    }
+    out
+}
+
+/// A verdict over several images: fail when any failed; otherwise
+/// indeterminate when any is indeterminate or was not assessed; otherwise
+/// pass. None for no images.
+pub fn verdict(decisions: impl IntoIterator<Item = Option<Decision>>) -> Option<Decision> {
+    let mut worst: Option<Decision> = None;
+    for d in decisions {
+        let d = d.unwrap_or(Decision::Indeterminate);
+        worst = Some(worst.map_or(d, |w| w.max(d)));
+    }
+    worst
+}

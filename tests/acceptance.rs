@@ -1,0 +1,409 @@
+//! Acceptance against an SDAS limit and the batch run: the decision rules at
+//! and around the limit, zones, exit statuses, the CSV summary against the
+//! JSON report, a corrupt file in a batch, and parallel runs.
+
+mod common;
+use armspace::interpret::acceptance::{assess, decide, verdict, Decision, Evidence, Rule, Spec};
+use armspace::units::Micrometres;
+use common::*;
+use serde_json::Value;
+
+fn ev(value: f64, ci: Option<[f64; 2]>, n: usize, cal_half: f64) -> Evidence {
+    Evidence {
+        value: Some(Micrometres(value)),
+        ci95: ci.map(|[a, b]| [Micrometres(a), Micrometres(b)]),
+        n,
+        calibration_half_um: cal_half,
+    }
+}
+
+#[test]
+fn guarded_rule_at_and_around_the_limit() {
+    // ISO 14253-1:2017 and JCGM 106:2012 guarded acceptance with the guard
+    // band equal to the expanded uncertainty (95 %): conformance only when
+    // the whole interval is at or below the upper limit, non-conformance only
+    // when the whole interval is above it.
+    let g =
+        |v: f64, lo: f64, hi: f64| decide(&ev(v, Some([lo, hi]), 20, 0.0), 30.0, Rule::Guarded).0;
+    assert_eq!(g(25.0, 23.0, 27.0), Decision::Pass);
+    assert_eq!(g(35.0, 33.0, 37.0), Decision::Fail);
+    // Upper bound exactly at the limit: the interval is within it, pass.
+    assert_eq!(g(28.0, 26.0, 30.0), Decision::Pass);
+    // Lower bound exactly at the limit: not above it, indeterminate.
+    assert_eq!(g(32.0, 30.0, 34.0), Decision::Indeterminate);
+    // Just above: fail.
+    assert_eq!(g(32.0, 30.000001, 34.0), Decision::Fail);
+    // Value exactly at the limit: the interval straddles it.
+    assert_eq!(g(30.0, 28.0, 32.0), Decision::Indeterminate);
+    // Straddling on either side.
+    assert_eq!(g(29.5, 27.5, 31.5), Decision::Indeterminate);
+    assert_eq!(g(30.5, 28.5, 32.5), Decision::Indeterminate);
+    // No interval or no value: cannot be decided.
+    assert_eq!(
+        decide(&ev(20.0, None, 3, 0.0), 30.0, Rule::Guarded).0,
+        Decision::Indeterminate
+    );
+    assert_eq!(
+        decide(&Evidence::default(), 30.0, Rule::Guarded).0,
+        Decision::Indeterminate
+    );
+}
+
+#[test]
+fn simple_rule_at_and_around_the_limit() {
+    // Simple acceptance (zero guard band, ILAC-G8 "simple acceptance"): the
+    // value alone against the limit; a value exactly at it conforms.
+    let s = |v: f64| {
+        decide(
+            &ev(v, Some([v - 5.0, v + 5.0]), 20, 0.0),
+            30.0,
+            Rule::Simple,
+        )
+        .0
+    };
+    assert_eq!(s(29.99), Decision::Pass);
+    assert_eq!(s(30.0), Decision::Pass);
+    assert_eq!(s(30.01), Decision::Fail);
+    assert_eq!(
+        decide(&Evidence::default(), 30.0, Rule::Simple).0,
+        Decision::Indeterminate
+    );
+}
+
+#[test]
+fn indeterminate_results_say_how_many_more_measurements_would_decide() {
+    // Worked by hand (formula in src/interpret/acceptance.rs): value 30,
+    // interval 28 to 32 (half-width 2), limit 29, n = 10, no calibration
+    // part: d = 1, h^2 = 4, n' = 10 x 4 / 1 = 40 measurements, 4 fields.
+    let (d, reason, n, fields) =
+        decide(&ev(30.0, Some([28.0, 32.0]), 10, 0.0), 29.0, Rule::Guarded);
+    assert_eq!(d, Decision::Indeterminate);
+    assert_eq!((n, fields), (Some(40), Some(4)), "{reason}");
+    // With a calibration part c = 0.6 of the half-width: h^2 = 4 - 0.36 =
+    // 3.64, d^2 - c^2 = 0.64, n' = 10 x 3.64 / 0.64 = 56.9 -> 57, 6 fields.
+    let (_, _, n, fields) = decide(&ev(30.0, Some([28.0, 32.0]), 10, 0.6), 29.0, Rule::Guarded);
+    assert_eq!((n, fields), (Some(57), Some(6)));
+    // A margin inside the calibration's part cannot be closed by more fields.
+    let (_, reason, n, _) = decide(&ev(30.0, Some([28.0, 32.0]), 10, 1.5), 29.0, Rule::Guarded);
+    assert!(n.is_none() && reason.contains("calibration"), "{reason}");
+    // Exactly at the limit: no number of fields decides it.
+    let (_, _, n, _) = decide(&ev(29.0, Some([27.0, 31.0]), 10, 0.0), 29.0, Rule::Guarded);
+    assert!(n.is_none());
+}
+
+fn spec(text: &str) -> Spec {
+    Spec::parse(text, "spec.json").unwrap()
+}
+
+#[test]
+fn zones_are_matched_by_file_name_pattern() {
+    let s = spec(
+        r#"{"format": "armspace.spec/1",
+            "zones": [{"name": "spoke", "pattern": "spoke-*", "limit_um": 30},
+                      {"name": "hub", "pattern": "hub-??.png", "limit_um": 45, "rule": "simple"}]}"#,
+    );
+    let e = ev(40.0, Some([38.0, 42.0]), 20, 0.0);
+    let a = assess(
+        &s,
+        std::path::Path::new("run/spoke-3.png"),
+        e,
+        Evidence::default(),
+    );
+    assert_eq!(
+        (a.zone.as_deref(), a.decision),
+        (Some("spoke"), Some(Decision::Fail))
+    );
+    let a = assess(
+        &s,
+        std::path::Path::new("hub-07.png"),
+        e,
+        Evidence::default(),
+    );
+    assert_eq!(
+        (a.zone.as_deref(), a.decision),
+        (Some("hub"), Some(Decision::Pass))
+    );
+    assert_eq!(a.rule, Rule::Simple);
+    // A file in no zone, and no general limit: not assessed.
+    let a = assess(
+        &s,
+        std::path::Path::new("rim-1.png"),
+        e,
+        Evidence::default(),
+    );
+    assert_eq!((a.zone, a.decision), (None, None));
+    assert!(a.reason.contains("matches no zone"));
+    // With a general limit it falls under that.
+    let s2 = spec(
+        r#"{"format": "armspace.spec/1", "limit_um": 50,
+                      "zones": [{"name": "spoke", "pattern": "spoke-*", "limit_um": 30}]}"#,
+    );
+    let a = assess(
+        &s2,
+        std::path::Path::new("rim-1.png"),
+        e,
+        Evidence::default(),
+    );
+    assert_eq!(
+        (a.zone, a.limit_um, a.decision),
+        (None, Some(50.0), Some(Decision::Pass))
+    );
+    // The statistic "max_local" compares the largest local value.
+    let s3 = spec(r#"{"format": "armspace.spec/1", "limit_um": 41, "statistic": "max_local"}"#);
+    let a = assess(
+        &s3,
+        std::path::Path::new("x.png"),
+        e,
+        ev(47.0, Some([44.0, 50.0]), 0, 0.0),
+    );
+    assert_eq!(
+        (a.compared_um, a.decision),
+        (Some(47.0), Some(Decision::Fail))
+    );
+    // Verdicts: any fail fails; then any undecided is indeterminate.
+    use Decision::*;
+    assert_eq!(
+        verdict([Some(Pass), Some(Fail), Some(Indeterminate)]),
+        Some(Fail)
+    );
+    assert_eq!(verdict([Some(Pass), None]), Some(Indeterminate));
+    assert_eq!(verdict([Some(Pass), Some(Pass)]), Some(Pass));
+    assert_eq!(verdict([]), None);
+}
+
+#[test]
+fn bad_spec_files_are_refused_with_the_reason() {
+    for (text, expected) in [
+        (r#"{"format": "armspace.spec/1"}"#, "no limit"),
+        (
+            r#"{"format": "armspace.spec/1", "limit_um": -3}"#,
+            "positive",
+        ),
+        (r#"{"format": "other", "limit_um": 30}"#, "format"),
+        (
+            r#"{"format": "armspace.spec/1", "limit_um": 30, "rule": "lenient"}"#,
+            "unknown variant",
+        ),
+        (
+            r#"{"format": "armspace.spec/1", "zones": [{"name": "a", "pattern": "[", "limit_um": 3}]}"#,
+            "pattern",
+        ),
+        (
+            r#"{"format": "armspace.spec/1", "zones": [{"name": "a", "pattern": "a*", "limit_um": 3},
+                                                      {"name": "a", "pattern": "b*", "limit_um": 3}]}"#,
+            "named twice",
+        ),
+        ("{", "EOF"),
+    ] {
+        let e = Spec::parse(text, "spec.json").unwrap_err();
+        assert!(
+            e.contains("spec.json") && e.contains(expected),
+            "expected '{expected}': {e}"
+        );
+    }
+}
+
+/// A folder with two comb images (SDAS 16 um at 1 um/px) named for zones.
+fn batch_dir() -> tempfile::TempDir {
+    let dir = tempfile::tempdir().unwrap();
+    write_comb_png(&dir.path().join("spoke-1.png"), 320, 320, 16.0);
+    write_comb_png(&dir.path().join("hub-1.png"), 320, 320, 16.0);
+    dir
+}
+
+fn write_spec(dir: &std::path::Path, spoke: f64, hub: f64) -> String {
+    let p = dir.join(format!("spec-{spoke}-{hub}.json"));
+    std::fs::write(
+        &p,
+        format!(
+            r#"{{"format": "armspace.spec/1",
+                 "zones": [{{"name": "spoke", "pattern": "spoke-*", "limit_um": {spoke}}},
+                           {{"name": "hub", "pattern": "hub-*", "limit_um": {hub}}}]}}"#
+        ),
+    )
+    .unwrap();
+    path_str(&p)
+}
+
+fn measure(dir: &std::path::Path, extra: &[&str]) -> Run {
+    let mut args = vec!["measure", "--um-per-px", "1"];
+    let spoke = path_str(&dir.join("spoke-1.png"));
+    let hub = path_str(&dir.join("hub-1.png"));
+    args.push(&spoke);
+    args.push(&hub);
+    args.extend_from_slice(extra);
+    armspace(&args)
+}
+
+#[test]
+fn exit_statuses_tell_the_casting_from_the_tool() {
+    let dir = batch_dir();
+    let d = dir.path();
+    let specs = tempfile::tempdir().unwrap();
+    // Both images (about 16 um) well under their limits: 0.
+    let run = measure(d, &["--spec", &write_spec(specs.path(), 30.0, 40.0)]);
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    let rep: Value = serde_json::from_str(&run.stdout).unwrap();
+    assert_eq!(rep["summary"]["acceptance"]["verdict"], "pass");
+    // The spoke over its limit: 4.
+    let run = measure(d, &["--spec", &write_spec(specs.path(), 10.0, 40.0)]);
+    assert_eq!(run.code, 4, "{}", run.stderr);
+    let rep: Value = serde_json::from_str(&run.stdout).unwrap();
+    let spoke = &rep["images"][0];
+    assert_eq!(spoke["acceptance"]["zone"], "spoke");
+    assert_eq!(spoke["acceptance"]["decision"], "fail");
+    assert_eq!(rep["summary"]["acceptance"]["zones"][0]["verdict"], "fail");
+    assert_eq!(rep["summary"]["acceptance"]["zones"][1]["verdict"], "pass");
+    // A limit at the measured value: the interval straddles it, 5.
+    let v = spoke["sdas_um"]["value"].as_f64().unwrap();
+    let run = measure(d, &["--spec", &write_spec(specs.path(), v, 40.0)]);
+    assert_eq!(run.code, 5, "{}", run.stderr);
+    // A corrupt file in the batch: the others are measured and decided, the
+    // status says a file could not be measured (3).
+    let bad = d.join("spoke-2.png");
+    std::fs::write(&bad, b"\x89PNG\r\n\x1a\n truncated").unwrap();
+    let bad_s = path_str(&bad);
+    let run = measure(
+        d,
+        &[&bad_s, "--spec", &write_spec(specs.path(), 30.0, 40.0)],
+    );
+    assert_eq!(run.code, 3, "{}", run.stderr);
+    assert!(run.stderr.contains("spoke-2.png"), "{}", run.stderr);
+    let rep: Value = serde_json::from_str(&run.stdout).unwrap();
+    assert_eq!(rep["images"][0]["acceptance"]["decision"], "pass");
+    assert_eq!(rep["images"][1]["acceptance"]["decision"], "pass");
+    assert_eq!(rep["images"][2]["acceptance"]["decision"], "indeterminate");
+    assert_eq!(rep["summary"]["acceptance"]["unreadable"], 1);
+    // A failed limit outranks the unreadable file (4).
+    let run = measure(
+        d,
+        &[&bad_s, "--spec", &write_spec(specs.path(), 10.0, 40.0)],
+    );
+    assert_eq!(run.code, 4, "{}", run.stderr);
+    // A bad spec is a usage error (2); an unwritable CSV is a failed run (1).
+    let run = measure(d, &["--spec", "/no/such/spec.json"]);
+    assert_eq!(run.code, 2, "{}", run.stderr);
+    assert!(run.stderr.contains("/no/such/spec.json"));
+    let run = measure(d, &["--csv", "/no/such/folder/out.csv"]);
+    assert_eq!(run.code, 1, "{}", run.stderr);
+    assert!(run.stderr.contains("out.csv"), "{}", run.stderr);
+}
+
+/// Parses the CSV summary: comment lines, then a header and rows.
+fn read_csv(text: &str) -> (Vec<String>, Vec<Vec<String>>) {
+    let body: String = text
+        .lines()
+        .filter(|l| !l.starts_with('#'))
+        .map(|l| format!("{l}\n"))
+        .collect();
+    let mut r = csv::Reader::from_reader(body.as_bytes());
+    let header = r.headers().unwrap().iter().map(String::from).collect();
+    let rows = r
+        .records()
+        .map(|rec| rec.unwrap().iter().map(String::from).collect())
+        .collect();
+    (header, rows)
+}
+
+#[test]
+fn the_csv_agrees_with_the_json_and_parallel_runs_agree() {
+    let dir = batch_dir();
+    let d = dir.path();
+    let bad = d.join("spoke-2.png");
+    std::fs::write(&bad, b"not a png").unwrap();
+    let specs = tempfile::tempdir().unwrap();
+    let spec = write_spec(specs.path(), 10.0, 40.0);
+    let out = tempfile::tempdir().unwrap();
+    let mut texts = Vec::new();
+    for jobs in ["1", "2"] {
+        let csv_path = out.path().join(format!("summary-{jobs}.csv"));
+        let json_path = out.path().join(format!("report-{jobs}.json"));
+        let run = measure(
+            d,
+            &[
+                &path_str(&bad),
+                "--spec",
+                &spec,
+                "--alloy",
+                "al-si-coarsening",
+                "--jobs",
+                jobs,
+                "--csv",
+                &path_str(&csv_path),
+                "--out",
+                &path_str(&json_path),
+            ],
+        );
+        assert_eq!(run.code, 4, "{}", run.stderr);
+        texts.push((
+            std::fs::read_to_string(&csv_path).unwrap(),
+            std::fs::read_to_string(&json_path).unwrap(),
+        ));
+    }
+    let strip = |s: &str| {
+        s.lines()
+            .filter(|l| !l.contains("created_utc") && !l.starts_with("# armspace"))
+            .collect::<Vec<_>>()
+            .join("\n")
+    };
+    assert_eq!(
+        strip(&texts[0].0),
+        strip(&texts[1].0),
+        "CSV differs between --jobs 1 and 2"
+    );
+    assert_eq!(
+        strip(&texts[0].1),
+        strip(&texts[1].1),
+        "JSON differs between --jobs 1 and 2"
+    );
+
+    let (csv_text, json_text) = &texts[0];
+    assert!(csv_text
+        .lines()
+        .nth(1)
+        .unwrap()
+        .contains("qualified personnel"));
+    let rep: Value = serde_json::from_str(json_text).unwrap();
+    let (header, rows) = read_csv(csv_text);
+    let col = |name: &str| header.iter().position(|h| h == name).unwrap();
+    let images = rep["images"].as_array().unwrap();
+    assert_eq!(rows.len(), images.len());
+    let num = |cell: &str| -> Option<f64> { (!cell.is_empty()).then(|| cell.parse().unwrap()) };
+    for (row, img) in rows.iter().zip(images) {
+        assert_eq!(row[col("file")], img["file"].as_str().unwrap());
+        assert_eq!(num(&row[col("sdas_um")]), img["sdas_um"]["value"].as_f64());
+        assert_eq!(
+            num(&row[col("ci95_low_um")]),
+            img["sdas_um"]["ci95"][0].as_f64()
+        );
+        assert_eq!(
+            num(&row[col("ci95_high_um")]),
+            img["sdas_um"]["ci95"][1].as_f64()
+        );
+        assert_eq!(
+            num(&row[col("um_per_px")]),
+            img["calibration"]["um_per_px"].as_f64()
+        );
+        assert_eq!(
+            num(&row[col("fft_um")]),
+            img["methods"]["fft"]["value"].as_f64()
+        );
+        assert_eq!(
+            num(&row[col("intercept_um")]),
+            img["methods"]["intercept"]["value"].as_f64()
+        );
+        assert_eq!(
+            num(&row[col("solidification_time_s")]),
+            img["interpretation"]["solidification_time_s"]["value"].as_f64()
+        );
+        assert_eq!(
+            row[col("decision")],
+            img["acceptance"]["decision"].as_str().unwrap()
+        );
+        assert_eq!(
+            row[col("warnings")],
+            img["warnings"].as_array().unwrap().len().to_string()
+        );
+        assert_eq!(row[col("error")], img["error"].as_str().unwrap_or(""));
+    }
+}
