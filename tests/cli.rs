@@ -413,3 +413,62 @@ fn stats_of_hand_measured_lines() {
         run.stderr
     );
 }
+
+#[test]
+fn the_readme_demo_command_gives_what_the_readme_says() {
+    // The command is taken from README.md itself, so the two cannot drift.
+    let readme = std::fs::read_to_string(repo_file("README.md")).unwrap();
+    let line = readme
+        .lines()
+        .find(|l| l.starts_with("cargo run --release -- measure fixtures/demo"))
+        .expect("README.md shows the demo command");
+    let out = tempfile::tempdir().unwrap();
+    let args: Vec<String> = line
+        .split_whitespace()
+        .skip(4)
+        .map(|a| match a {
+            a if a.starts_with("fixtures/") => path_str(&repo_file(a)),
+            a if a.starts_with("demo-report.") => path_str(&out.path().join(a)),
+            a => a.to_string(),
+        })
+        .collect();
+    let refs: Vec<&str> = args.iter().map(String::as_str).collect();
+    let run = armspace(&refs);
+    // README: the 50 mm step has no value, so the exit status is 3.
+    assert_eq!(run.code, 3, "{}", run.stderr);
+    let rep: Value = serde_json::from_str(
+        &std::fs::read_to_string(out.path().join("demo-report.json")).unwrap(),
+    )
+    .unwrap();
+    let truth: Value = serde_json::from_str(
+        &std::fs::read_to_string(repo_file("fixtures/demo/truth.json")).unwrap(),
+    )
+    .unwrap();
+    let images = rep["images"].as_array().unwrap();
+    let decisions: Vec<&str> = images
+        .iter()
+        .map(|i| i["acceptance"]["decision"].as_str().unwrap())
+        .collect();
+    assert_eq!(
+        decisions,
+        ["pass", "pass", "indeterminate", "indeterminate"]
+    );
+    // The three thinner steps within 5 % of their synthetic truth (the
+    // foundation's figure is 15 %; these are the README's "about" values).
+    for img in &images[..3] {
+        let name = img["file"].as_str().unwrap().rsplit('/').next().unwrap();
+        let t = truth["images"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .find(|t| t["file"] == name)
+            .unwrap()["sdas_um"]
+            .as_f64()
+            .unwrap();
+        let v = img["sdas_um"]["value"].as_f64().unwrap();
+        assert!((v / t - 1.0).abs() < 0.05, "{name}: {v} against {t}");
+        assert!(img["interpretation"]["solidification_time_s"]["value"].is_number());
+    }
+    assert!(images[3]["sdas_um"]["value"].is_null());
+    assert!(out.path().join("demo-report.csv").exists());
+}
