@@ -138,7 +138,7 @@ impl CoarseningParams {
         )
     }
 
-    /// B of lambda2 [um] = B t_f^(1/3) with t_f in seconds, at C0 (the given
+    /// B of lambda2 (um) = B t_f^(1/3) with t_f in seconds, at C0 (the given
     /// content of the solute, or the entry's default).
     pub fn coefficient_um(&self, c0: Option<f64>) -> Result<f64, String> {
         let c0 = match (c0, &self.c0_wt_pct) {

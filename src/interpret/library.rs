@@ -244,7 +244,7 @@ impl Status {
 }
 
 impl Correlation {
-    /// The law as lambda2 [um] = c x x^e, x in `variable_unit`, at a
+    /// The law as lambda2 (um) = c x x^e, x in `variable_unit`, at a
     /// composition (for a coarsening entry, the solute's content, or its
     /// default C0).
     pub fn power_law(&self, composition: &Composition) -> Result<PowerLaw, String> {

@@ -31,7 +31,7 @@ pub use library::{Composition, Correlation, Form};
 use crate::units::{Kelvin, Micrometres};
 use serde::Serialize;
 
-/// lambda2 [um] = coefficient x x^exponent, x in the law's own unit.
+/// lambda2 (um) = coefficient x x^exponent, x in the law's own unit.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct PowerLaw {
     pub coefficient: f64,
@@ -177,7 +177,7 @@ pub struct CorrelationRef {
     pub law: String,
     pub status: &'static str,
     pub source: String,
-    /// The law's coefficient at the given composition: lambda2 [um] =
+    /// The law's coefficient at the given composition: lambda2 (um) =
     /// coefficient x x^exponent, x in `variable_unit`.
     pub coefficient_um: f64,
     pub exponent: f64,
