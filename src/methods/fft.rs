@@ -462,10 +462,16 @@ pub fn analyse_tiles(
         .collect();
     grid.par_iter()
         .map_init(
-            || (SpectrumAnalyser::new(n), Vec::new()),
-            |(an, buf), &(x, y)| {
+            || {
+                (
+                    SpectrumAnalyser::new(n),
+                    CandidateSearch::new(n, params.min_period_px),
+                    Vec::new(),
+                )
+            },
+            |(an, search, buf), &(x, y)| {
                 an.power(&img.image.data, w, x, y, buf);
-                let peak = choose_peak(buf, n, params);
+                let peak = choose_peak_with(search, buf, params);
                 let (cx, cy) = (x as f64 + n as f64 / 2.0, y as f64 + n as f64 / 2.0);
                 match peak {
                     Some(p) => TileResult {
@@ -508,7 +514,21 @@ fn masked_fraction(img: &Prepared, x0: usize, y0: usize, n: usize) -> f64 {
 /// spectrum's dominant orientation when it has one, and returns the
 /// fundamental of the strongest; `None` when there is no candidate at all.
 pub fn choose_peak(power: &[f64], n: usize, params: &FftParams) -> Option<Peak> {
-    let (cands, orient) = candidates(power, n, params);
+    choose_peak_with(
+        &mut CandidateSearch::new(n, params.min_period_px),
+        power,
+        params,
+    )
+}
+
+/// `choose_peak` with the search geometry and buffers of the tile size.
+fn choose_peak_with(
+    search: &mut CandidateSearch,
+    power: &[f64],
+    params: &FftParams,
+) -> Option<Peak> {
+    let n = search.n;
+    let (cands, orient) = search.run(power);
     let aligned = |p: &&Peak| {
         orient.anisotropy < MIN_ANISOTROPY
             || axial_difference(p.dir_deg(), orient.dir_deg) <= MAX_OFF_AXIS_DEG
@@ -524,7 +544,7 @@ pub fn choose_peak(power: &[f64], n: usize, params: &FftParams) -> Option<Peak> 
         .filter(aligned)
         .filter(periodic)
         .max_by(|a, b| a.power.total_cmp(&b.power))
-        .or(cands.iter().find(periodic))
+        .or_else(|| cands.iter().find(periodic))
         .copied()?;
     Some(fundamental_of(first, &cands, n, params))
 }
@@ -608,18 +628,25 @@ const MAX_OFF_AXIS_DEG: f64 = 30.0;
 /// the low frequencies) the power falls to the floor; along the streak that
 /// long straight edges (trunks, grain boundaries) draw across a spectrum it
 /// does not, so such a streak gets no prominence.
-fn ray_floor(smooth: &[f64], n: usize, u: i64, v: i64) -> f64 {
+///
+/// The search stops at the first sample at or below `stop` (the caller's
+/// other background, which the floor only matters above) and returns it: the
+/// larger of `stop` and the result is then the same as with the full floor.
+fn ray_floor(smooth: &[f64], n: usize, u: i64, v: i64, stop: f64) -> f64 {
     let r = ((u * u + v * v) as f64).sqrt();
     let (cu, cv) = (u as f64 / r, v as f64 / r);
     let at = |x: f64, y: f64| bilinear_periodic(smooth, n, x, y);
     let (lo, hi) = (r / 2.0, (2.0 * r).min(n as f64 / 2.0 - 1.0));
     let steps = ((hi - lo) / 0.5).ceil().max(1.0) as usize;
-    (0..=steps)
-        .map(|i| {
-            let t = lo + (hi - lo) * i as f64 / steps as f64;
-            at(t * cu, t * cv)
-        })
-        .fold(f64::INFINITY, f64::min)
+    let mut floor = f64::INFINITY;
+    for i in 0..=steps {
+        let t = lo + (hi - lo) * i as f64 / steps as f64;
+        floor = floor.min(at(t * cu, t * cv));
+        if floor <= stop {
+            break;
+        }
+    }
+    floor
 }
 
 /// Most candidates kept per spectrum.
@@ -671,79 +698,177 @@ pub fn axial_difference(a: f64, b: f64) -> f64 {
 
 /// Candidate peaks of a power spectrum, strongest prominence first.
 pub fn candidates(power: &[f64], n: usize, params: &FftParams) -> (Vec<Peak>, Orientation) {
-    let half = n / 2;
-    let r_lo = 2.0f64;
-    let r_hi = (n as f64 / params.min_period_px).min(half as f64 - 1.0);
-    let isotropic = Orientation {
-        dir_deg: 0.0,
-        anisotropy: 0.0,
-    };
-    if r_hi <= r_lo {
-        return (vec![], isotropic);
-    }
-    let idx = |u: i64, v: i64| -> usize {
-        let uu = u.rem_euclid(n as i64) as usize;
-        let vv = v.rem_euclid(n as i64) as usize;
-        vv * n + uu
-    };
-    // 3x3 box smoothing on the periodic spectrum, separable: rows, then
-    // columns (same sums as the 3x3 box, in 6 instead of 9 additions).
-    let mut rows = vec![0.0f64; n * n];
-    for v in 0..n {
-        let row = &power[v * n..(v + 1) * n];
-        for u in 0..n {
-            let (l, r) = ((u + n - 1) % n, (u + 1) % n);
-            rows[v * n + u] = row[l] + row[u] + row[r];
-        }
-    }
-    let mut smooth = vec![0.0f64; n * n];
-    for v in 0..n {
-        let (up, down) = ((v + n - 1) % n, (v + 1) % n);
-        for u in 0..n {
-            smooth[v * n + u] = (rows[up * n + u] + rows[v * n + u] + rows[down * n + u]) / 9.0;
-        }
-    }
-    // Background: the median of the smoothed power over each integer
-    // frequency ring (half plane; a real image's spectrum is symmetric). A
-    // peak from aligned arms occupies a small part of its ring and stands
-    // above it; the smooth fall of an image's spectrum and the floor of
-    // noise do not.
-    let rings = half + 1;
-    let mut ring_vals: Vec<Vec<f32>> = vec![Vec::new(); rings];
-    let half_plane = |u: i64, v: i64| v > 0 || (v == 0 && u >= 0);
-    for v in 0..=(half as i64) {
-        for u in -(half as i64)..=(half as i64) {
-            if !half_plane(u, v) {
-                continue;
-            }
-            let r = ((u * u + v * v) as f64).sqrt().round() as usize;
-            if r < rings {
-                ring_vals[r].push(smooth[idx(u, v)] as f32);
-            }
-        }
-    }
-    let background: Vec<f64> = ring_vals
-        .iter_mut()
-        .map(|v| stats::median_in_place(v))
-        .collect();
+    CandidateSearch::new(n, params.min_period_px).run(power)
+}
 
-    let mut out = Vec::new();
-    let (mut txx, mut txy, mut tyy) = (0.0f64, 0.0f64, 0.0f64);
-    let vmax = r_hi.ceil() as i64;
-    for v in 0..=vmax {
-        for u in -vmax..=vmax {
-            if !half_plane(u, v) {
-                continue;
+/// One bin of the searched frequency band, precomputed for a tile size.
+#[derive(Clone, Copy, Debug)]
+struct BandBin {
+    u: i32,
+    v: i32,
+    /// Index of the bin in the n x n spectrum.
+    idx: u32,
+    /// Index of its frequency ring (rounded radius).
+    ring: u32,
+    /// Unit vector from the origin to the bin.
+    cu: f64,
+    cv: f64,
+}
+
+/// The geometry of the peak search for one tile size (which bins form each
+/// frequency ring, which bins lie in the searched band) and reusable
+/// buffers, so that tiles of one size share it and allocate nothing. The
+/// results are those of the direct computation described in `run`: only
+/// where work is done and memory is kept changes.
+pub struct CandidateSearch {
+    n: usize,
+    /// Bins of the half plane (v > 0, or v = 0 and u >= 0) grouped by ring,
+    /// for the rings the band reaches; ring k is
+    /// `ring_bins[ring_start[k]..ring_start[k + 1]]`.
+    ring_bins: Vec<u32>,
+    ring_start: Vec<usize>,
+    /// The band's bins in the order of the direct scan (v, then u, rising).
+    band: Vec<BandBin>,
+    row_sums: Vec<f64>,
+    smooth: Vec<f64>,
+    ring_vals: Vec<f32>,
+    background: Vec<f64>,
+}
+
+impl CandidateSearch {
+    pub fn new(n: usize, min_period_px: f64) -> Self {
+        let half = n / 2;
+        let r_lo = 2.0f64;
+        let r_hi = (n as f64 / min_period_px).min(half as f64 - 1.0);
+        let mut s = Self {
+            n,
+            ring_bins: Vec::new(),
+            ring_start: vec![0],
+            band: Vec::new(),
+            row_sums: vec![0.0; n * n],
+            smooth: vec![0.0; n * n],
+            ring_vals: Vec::new(),
+            background: Vec::new(),
+        };
+        if r_hi <= r_lo {
+            return s;
+        }
+        let ni = n as i64;
+        let idx = |u: i64, v: i64| (v.rem_euclid(ni) * ni + u.rem_euclid(ni)) as u32;
+        let half_plane = |u: i64, v: i64| v > 0 || (v == 0 && u >= 0);
+        // Rings the band's bins fall in: up to round(r_hi).
+        let rings = (r_hi.round() as usize + 1).min(half + 1);
+        let reach = rings as i64; // |u|, v <= reach covers every such ring
+        let mut per_ring: Vec<Vec<u32>> = vec![Vec::new(); rings];
+        for v in 0..=reach.min(half as i64) {
+            for u in -(reach.min(half as i64))..=reach.min(half as i64) {
+                if !half_plane(u, v) {
+                    continue;
+                }
+                let r = ((u * u + v * v) as f64).sqrt().round() as usize;
+                if r < rings {
+                    per_ring[r].push(idx(u, v));
+                }
             }
-            let r = ((u * u + v * v) as f64).sqrt();
-            if r < r_lo || r > r_hi {
-                continue;
+        }
+        for bins in per_ring {
+            s.ring_bins.extend(bins);
+            s.ring_start.push(s.ring_bins.len());
+        }
+        let vmax = r_hi.ceil() as i64;
+        for v in 0..=vmax {
+            for u in -vmax..=vmax {
+                if !half_plane(u, v) {
+                    continue;
+                }
+                let r = ((u * u + v * v) as f64).sqrt();
+                if r < r_lo || r > r_hi {
+                    continue;
+                }
+                s.band.push(BandBin {
+                    u: u as i32,
+                    v: v as i32,
+                    idx: idx(u, v),
+                    ring: r.round() as u32,
+                    cu: u as f64 / r,
+                    cv: v as f64 / r,
+                });
             }
-            let s = smooth[idx(u, v)];
-            let ring_bg = background[r.round() as usize];
+        }
+        s
+    }
+
+    /// Candidate peaks of the power spectrum of one tile of this size,
+    /// strongest prominence first, and the spectrum's dominant orientation.
+    ///
+    /// 1. 3x3 box smoothing of the periodic spectrum (rows of the half plane
+    ///    and their neighbours: the only ones read below).
+    /// 2. Background: the median of the smoothed power over each integer
+    ///    frequency ring (half plane; a real image's spectrum is symmetric).
+    ///    A peak from aligned arms occupies a small part of its ring and
+    ///    stands above it; the smooth fall of an image's spectrum and the
+    ///    floor of noise do not.
+    /// 3. Over the band (radius 2 bins to n / min_period), the second-moment
+    ///    tensor of the excess over the ring background, and the local maxima
+    ///    with their prominence over the larger of ring background and ray
+    ///    floor, located to a fraction of a bin.
+    pub fn run(&mut self, power: &[f64]) -> (Vec<Peak>, Orientation) {
+        let isotropic = Orientation {
+            dir_deg: 0.0,
+            anisotropy: 0.0,
+        };
+        let n = self.n;
+        if self.band.is_empty() || power.len() != n * n {
+            return (vec![], isotropic);
+        }
+        let half = n / 2;
+        // Smoothed rows needed: n - 1 (the row above v = 0) and 0..=half;
+        // their 3x3 sums read raw rows n - 2 ..= half + 1.
+        let wrap = |v: i64| v.rem_euclid(n as i64) as usize;
+        for v in -2..=(half as i64 + 1) {
+            let vv = wrap(v);
+            let row = &power[vv * n..(vv + 1) * n];
+            let out = &mut self.row_sums[vv * n..(vv + 1) * n];
+            out[0] = row[n - 1] + row[0] + row[1 % n];
+            for u in 1..n - 1 {
+                out[u] = row[u - 1] + row[u] + row[u + 1];
+            }
+            if n > 1 {
+                out[n - 1] = row[n - 2] + row[n - 1] + row[0];
+            }
+        }
+        for v in -1..=(half as i64) {
+            let (up, mid, down) = (wrap(v - 1), wrap(v), wrap(v + 1));
+            for u in 0..n {
+                self.smooth[mid * n + u] = (self.row_sums[up * n + u]
+                    + self.row_sums[mid * n + u]
+                    + self.row_sums[down * n + u])
+                    / 9.0;
+            }
+        }
+        let smooth = &self.smooth;
+        self.background.clear();
+        for k in 0..self.ring_start.len() - 1 {
+            let bins = &self.ring_bins[self.ring_start[k]..self.ring_start[k + 1]];
+            self.ring_vals.clear();
+            self.ring_vals
+                .extend(bins.iter().map(|&i| smooth[i as usize] as f32));
+            self.background
+                .push(stats::median_in_place(&mut self.ring_vals));
+        }
+        let background = &self.background;
+        let ni = n as i64;
+        let idx = |u: i64, v: i64| -> usize {
+            (v.rem_euclid(ni) as usize) * n + u.rem_euclid(ni) as usize
+        };
+        let mut out = Vec::new();
+        let (mut txx, mut txy, mut tyy) = (0.0f64, 0.0f64, 0.0f64);
+        for b in &self.band {
+            let s = smooth[b.idx as usize];
+            let ring_bg = background[b.ring as usize];
             if ring_bg > 0.0 {
                 let e = (s / ring_bg - 1.0).max(0.0);
-                let (cu, cv) = (u as f64 / r, v as f64 / r);
+                let (cu, cv) = (b.cu, b.cv);
                 txx += e * cu * cu;
                 txy += e * cu * cv;
                 tyy += e * cv * cv;
@@ -755,6 +880,7 @@ pub fn candidates(power: &[f64], n: usize, params: &FftParams) -> (Vec<Peak>, Or
             if ring_bg <= 0.0 || s < 2.0 * ring_bg {
                 continue;
             }
+            let (u, v) = (b.u as i64, b.v as i64);
             let mut is_max = true;
             'nb: for dv in -1..=1 {
                 for du in -1..=1 {
@@ -767,7 +893,7 @@ pub fn candidates(power: &[f64], n: usize, params: &FftParams) -> (Vec<Peak>, Or
             if !is_max {
                 continue;
             }
-            let bg = ring_bg.max(ray_floor(&smooth, n, u, v));
+            let bg = ring_bg.max(ray_floor(smooth, n, u, v, ring_bg));
             if bg <= 0.0 {
                 continue;
             }
@@ -796,21 +922,21 @@ pub fn candidates(power: &[f64], n: usize, params: &FftParams) -> (Vec<Peak>, Or
                 power: s,
             });
         }
+        out.sort_by(|a, b| b.prominence.total_cmp(&a.prominence));
+        out.truncate(MAX_CANDIDATES);
+        let trace = txx + tyy;
+        let orient = if trace > 0.0 {
+            let phi = 0.5 * (2.0 * txy).atan2(txx - tyy);
+            Orientation {
+                // (cos phi, sin phi) is in image axes (y down); flip y.
+                dir_deg: (-phi.to_degrees()).rem_euclid(180.0),
+                anisotropy: ((txx - tyy).powi(2) + 4.0 * txy * txy).sqrt() / trace,
+            }
+        } else {
+            isotropic
+        };
+        (out, orient)
     }
-    out.sort_by(|a, b| b.prominence.total_cmp(&a.prominence));
-    out.truncate(MAX_CANDIDATES);
-    let trace = txx + tyy;
-    let orient = if trace > 0.0 {
-        let phi = 0.5 * (2.0 * txy).atan2(txx - tyy);
-        Orientation {
-            // (cos phi, sin phi) is in image axes (y down); flip y.
-            dir_deg: (-phi.to_degrees()).rem_euclid(180.0),
-            anisotropy: ((txx - tyy).powi(2) + 4.0 * txy * txy).sqrt() / trace,
-        }
-    } else {
-        isotropic
-    };
-    (out, orient)
 }
 
 /// Robust aggregate of tiles: quality-weighted median; tiles further than
