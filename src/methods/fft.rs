@@ -460,39 +460,42 @@ pub fn analyse_tiles(
         .flat_map(|&y| xs.iter().map(move |&x| (x, y)))
         .filter(|&(x, y)| masked_fraction(img, x, y, n) <= params.max_masked_fraction)
         .collect();
-    grid.par_iter()
-        .map_init(
-            || {
-                (
-                    SpectrumAnalyser::new(n),
-                    CandidateSearch::new(n, params.min_period_px),
-                    Vec::new(),
-                )
-            },
-            |(an, search, buf), &(x, y)| {
-                an.power(&img.image.data, w, x, y, buf);
-                let peak = choose_peak_with(search, buf, params);
-                let (cx, cy) = (x as f64 + n as f64 / 2.0, y as f64 + n as f64 / 2.0);
-                match peak {
-                    Some(p) => TileResult {
-                        cx_px: cx,
-                        cy_px: cy,
-                        spacing_px: p.period_px(),
-                        dir_deg: p.dir_deg(),
-                        quality: p.prominence,
-                        used: false,
-                    },
-                    None => TileResult {
-                        cx_px: cx,
-                        cy_px: cy,
-                        spacing_px: f64::NAN,
-                        dir_deg: f64::NAN,
-                        quality: 0.0,
-                        used: false,
-                    },
-                }
-            },
-        )
+    // Contiguous runs of tiles share one FFT plan, window and peak-search
+    // geometry; each tile's result depends on that tile alone, so the
+    // split (which follows the thread count) does not change any result.
+    let run = grid.len().div_ceil(4 * rayon::current_num_threads()).max(1);
+    grid.par_chunks(run)
+        .flat_map_iter(|chunk| {
+            let mut an = SpectrumAnalyser::new(n);
+            let mut search = CandidateSearch::new(n, params.min_period_px);
+            let mut buf = Vec::new();
+            chunk
+                .iter()
+                .map(|&(x, y)| {
+                    an.power(&img.image.data, w, x, y, &mut buf);
+                    let peak = choose_peak_with(&mut search, &buf, params);
+                    let (cx, cy) = (x as f64 + n as f64 / 2.0, y as f64 + n as f64 / 2.0);
+                    match peak {
+                        Some(p) => TileResult {
+                            cx_px: cx,
+                            cy_px: cy,
+                            spacing_px: p.period_px(),
+                            dir_deg: p.dir_deg(),
+                            quality: p.prominence,
+                            used: false,
+                        },
+                        None => TileResult {
+                            cx_px: cx,
+                            cy_px: cy,
+                            spacing_px: f64::NAN,
+                            dir_deg: f64::NAN,
+                            quality: 0.0,
+                            used: false,
+                        },
+                    }
+                })
+                .collect::<Vec<_>>()
+        })
         .collect()
 }
 
