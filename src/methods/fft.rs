@@ -242,7 +242,11 @@ const MIN_SUPPORT: f64 = 0.25;
 const MIN_PERIODS_PER_TILE: f64 = 4.0;
 
 /// The tile sizes of the coarse ladder, from `LADDER_MIN_PX` up to the
-/// largest smooth size that fits, about `LADDER_RATIO` apart.
+/// largest smooth size that fits, about `LADDER_RATIO` apart. The largest
+/// size that fits ends the ladder when it is at least `LAST_RUNG_RATIO`
+/// above the previous rung: otherwise the largest periods the image can hold
+/// (which need the largest tiles for `MIN_PERIODS_PER_TILE` periods) would
+/// have no larger neighbour to reproduce them.
 fn ladder_sizes(sizes: &[usize]) -> Vec<usize> {
     let mut out: Vec<usize> = Vec::new();
     for &s in sizes.iter().filter(|&&s| s >= LADDER_MIN_PX) {
@@ -251,8 +255,19 @@ fn ladder_sizes(sizes: &[usize]) -> Vec<usize> {
             _ => out.push(s),
         }
     }
+    if let (Some(&last), Some(&largest)) = (out.last(), sizes.last()) {
+        if largest as f64 >= last as f64 * LAST_RUNG_RATIO {
+            out.push(largest);
+        }
+    }
     out
 }
+
+/// Smallest ratio of the last rung to the one before it: periods are read
+/// at 4 bins or more (`MIN_PERIODS_PER_TILE`), where a tile 25 % larger
+/// moves a resolution artefact by at least one bin, so the two rungs still
+/// differ in resolution.
+const LAST_RUNG_RATIO: f64 = 1.25;
 
 /// Analyses the image at every size of the ladder. Tiles do not overlap
 /// unless that leaves fewer than 9 of them (then they half overlap, so a
@@ -355,11 +370,29 @@ fn ladder_candidates(ladder: &[ScaleStat]) -> Vec<(f64, usize)> {
                 || (supported(a, weak) && supported(b, MIN_SUPPORT)))
                 && (a.n as f64) >= MIN_PERIODS_PER_TILE * a.period_px
                 && same(b.period_px, a.period_px)
+                && (!short_last_rung(ladder, i)
+                    || i < 3
+                    || (ladder[i - 3].n as f64) < MIN_PERIODS_PER_TILE * a.period_px)
         })
         .map(|i| (ladder[i].period_px, i))
         .collect();
     out.sort_by(|a, b| a.0.total_cmp(&b.0));
     out
+}
+
+/// Whether scale i is the short last rung of the ladder (closer than
+/// `LADDER_RATIO` to the one before, see `ladder_sizes`). It is there for the
+/// largest periods, which at most one pair of regular rungs holds
+/// `MIN_PERIODS_PER_TILE` times (the rung three below the last is too small
+/// for them), and pairs only on those: finer periods have had two or more
+/// regular pairs to be reproduced on, and the few, largely overlapping tiles
+/// of the last two rungs would otherwise let a handful of tiles "reproduce" a
+/// fine period (a harmonic, or noise near the search floor, where periods
+/// crowd) that the smaller scales, with many more tiles, do not support.
+fn short_last_rung(ladder: &[ScaleStat], i: usize) -> bool {
+    i + 1 == ladder.len()
+        && i >= 2
+        && (ladder[i].n as f64) < ladder[i - 1].n as f64 * LADDER_RATIO * 0.99
 }
 
 /// Largest median axial angle between a fine period's tiles and the coarser
