@@ -1166,6 +1166,44 @@ mod tests {
     }
 
     #[test]
+    fn the_largest_tile_that_fits_ends_the_ladder() {
+        // Basis: rungs 1.5 apart (common practice, no single source), and a
+        // last rung at least 25 % above the one before (a resolution artefact
+        // at 4 bins or more then moves by a bin or more).
+        let sizes = smooth_sizes(524);
+        assert_eq!(
+            ladder_sizes(&sizes),
+            vec![32, 48, 72, 108, 162, 250, 384, 512]
+        );
+        // 400 is within 25 % of 384: no extra rung.
+        let sizes = smooth_sizes(400);
+        assert_eq!(ladder_sizes(&sizes), vec![32, 48, 72, 108, 162, 250, 384]);
+    }
+
+    #[test]
+    fn the_short_last_rung_pairs_only_on_the_largest_periods() {
+        // A period that the regular rungs could reproduce on two pairs (the
+        // rung three below the last holds 4 periods of it) is not taken from
+        // the short last rung alone; a period too large for that is.
+        let p = FftParams::default();
+        let base = [
+            stat(108, 9.0, 0.0),
+            stat(162, 9.0, 0.0),
+            stat(250, 9.0, 0.0),
+        ];
+        let with = |period: f64| {
+            let mut l = base.to_vec();
+            l.push(stat(384, period, 0.6));
+            l.push(stat(512, period * 1.02, 0.6));
+            ladder_period(&l, &p)
+        };
+        // 162 >= 4 x 15: pairs (108, 162) and (162, 250) could have shown it.
+        assert!(with(15.0).is_none());
+        // 162 < 4 x 45: only (250, 384) could; the last rung may confirm it.
+        assert!((with(45.0).unwrap() - 45.9).abs() < 1e-9);
+    }
+
+    #[test]
     fn tiles_locked_on_a_harmonic_are_incompatible() {
         // Basis: sqrt 2 is the geometric midpoint between a period and its
         // second harmonic (or sub-harmonic).
