@@ -7,7 +7,8 @@
 //! and a quality, and the image's value is a robust aggregate of the reliable
 //! tiles that agree with the coarse period.
 //!
-//! The coarse period comes from a ladder of tile sizes (32, 48, 72, ...): the
+//! The coarse period comes from a ladder of tile sizes (32, 48, 72, ..., and
+//! the largest that fits as a last rung for the largest periods): the
 //! finest period on which a quarter of a scale's tiles agree and which the
 //! next larger scale reproduces (`ladder_period`), unless it repeats parallel
 //! to a coarser reproduced period at the same place (`resolve_ladder`: then
@@ -80,6 +81,10 @@ pub struct TileResult {
     pub quality: f64,
     /// Whether the tile entered the aggregate.
     pub used: bool,
+    /// Smoothed power at half the chosen peak's frequency vector over the
+    /// median of its frequency ring (NaN without a peak): how strongly the
+    /// tile repeats at twice the spacing it gave, in the same direction.
+    pub half_ratio: f64,
 }
 
 /// The method's result for one image, in pixels.
@@ -196,8 +201,48 @@ pub fn measure(img: &Prepared, params: &FftParams) -> FftOutcome {
             t.quality = 0.0;
         }
     }
-    aggregate(tiles, n, params)
+    let out = aggregate(tiles, n, params);
+    match out.value_px.map(|_| half_spacing_ratio(&out.tiles)) {
+        Some(Some(r)) if r >= HARMONIC_RATIO => {
+            let analysed = out.n_tiles_analysed;
+            let mut tiles = out.tiles;
+            for t in tiles.iter_mut() {
+                t.used = false;
+            }
+            FftOutcome::none(
+                format!(
+                    "no reliable periodicity: the tiles' spectra also peak at twice the spacing they give                      (median power there {r:.1} x its ring's median), so that spacing may be the second                      harmonic of a longer one"
+                ),
+                n,
+                tiles,
+                analysed,
+            )
+        }
+        _ => out,
+    }
 }
+
+/// Median, over the tiles used in the aggregate, of the power at half each
+/// tile's peak frequency (twice its spacing, same direction) relative to its
+/// frequency ring's median; `None` without such tiles.
+fn half_spacing_ratio(tiles: &[TileResult]) -> Option<f64> {
+    let r: Vec<f64> = tiles
+        .iter()
+        .filter(|t| t.used && t.half_ratio.is_finite())
+        .map(|t| t.half_ratio)
+        .collect();
+    stats::median(&r)
+}
+
+/// Median power at twice the measured spacing, relative to its frequency
+/// ring's median, above which the measured spacing is taken for a second
+/// harmonic. A bin with nothing of its own sits at about its ring's median
+/// (ratio 1; streaks of straight edges along the same direction raise it a
+/// little); a ratio of 2 is what a spectral peak needs to become a
+/// candidate at all, so when most used tiles reach it they repeat at twice
+/// the spacing too: the rows' fundamental is there, weaker than its second
+/// harmonic, and the measured spacing would be half the true one.
+const HARMONIC_RATIO: f64 = 2.0;
 
 /// Statistics of the tiles of one size in the coarse scale ladder.
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -507,6 +552,8 @@ pub fn analyse_tiles(
                 .map(|&(x, y)| {
                     an.power(&img.image.data, w, x, y, &mut buf);
                     let peak = choose_peak_with(&mut search, &buf, params);
+                    let half_ratio =
+                        peak.map_or(f64::NAN, |p| search.ratio_at(p.fx / 2.0, p.fy / 2.0));
                     let (cx, cy) = (x as f64 + n as f64 / 2.0, y as f64 + n as f64 / 2.0);
                     match peak {
                         Some(p) => TileResult {
@@ -516,6 +563,7 @@ pub fn analyse_tiles(
                             dir_deg: p.dir_deg(),
                             quality: p.prominence,
                             used: false,
+                            half_ratio,
                         },
                         None => TileResult {
                             cx_px: cx,
@@ -524,6 +572,7 @@ pub fn analyse_tiles(
                             dir_deg: f64::NAN,
                             quality: 0.0,
                             used: false,
+                            half_ratio,
                         },
                     }
                 })
@@ -832,6 +881,21 @@ impl CandidateSearch {
             }
         }
         s
+    }
+
+    /// After `run`: the smoothed power at frequency (fx, fy) (cycles per
+    /// pixel, in the half plane or on its edge) over the median of its
+    /// frequency ring; NaN where that is undefined.
+    pub fn ratio_at(&self, fx: f64, fy: f64) -> f64 {
+        let n = self.n as f64;
+        let (u, v) = (fx * n, fy * n);
+        let ring = u.hypot(v).round() as usize;
+        match self.background.get(ring) {
+            Some(&bg) if bg > 0.0 && v >= -1.0 && v <= (self.n / 2) as f64 - 1.0 => {
+                bilinear_periodic(&self.smooth, self.n, u, v) / bg
+            }
+            _ => f64::NAN,
+        }
     }
 
     /// Candidate peaks of the power spectrum of one tile of this size,
@@ -1204,6 +1268,49 @@ mod tests {
     }
 
     #[test]
+    fn power_at_twice_the_spacing_shows_a_weaker_fundamental() {
+        // Basis: the DFT is linear, so a wave of period 16 px added to one of
+        // period 8 px puts its power at half the 8 px wave's frequency
+        // vector, far above the white-noise level of that ring; without it,
+        // that bin holds noise only, at about its ring's median (ratio near
+        // 1, below the HARMONIC_RATIO of 2).
+        let n = 128;
+        let mut state = 777u64;
+        let mut noise = || {
+            state = state
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            (state >> 40) as f32 / (1u64 << 24) as f32 - 0.5
+        };
+        let fine = sinusoid(n, 8.0, 30.0);
+        let coarse = sinusoid(n, 16.0, 30.0);
+        let p = FftParams::default();
+        let ratio = |with_coarse: bool, noise: &mut dyn FnMut() -> f32| {
+            let img: Vec<f32> = fine
+                .iter()
+                .zip(&coarse)
+                .map(|(f, c)| f + if with_coarse { 0.3 * c } else { 0.0 } + noise())
+                .collect();
+            let mut a = SpectrumAnalyser::new(n);
+            let mut power = Vec::new();
+            a.power(&img, n, 0, 0, &mut power);
+            let mut search = CandidateSearch::new(n, p.min_period_px);
+            let (cands, _) = search.run(&power);
+            let top = cands
+                .iter()
+                .max_by(|a, b| a.power.total_cmp(&b.power))
+                .copied()
+                .unwrap();
+            assert!((top.period_px() - 8.0).abs() < 0.1);
+            search.ratio_at(top.fx / 2.0, top.fy / 2.0)
+        };
+        let with = ratio(true, &mut noise);
+        let without = ratio(false, &mut noise);
+        assert!(with > 10.0 * HARMONIC_RATIO, "{with}");
+        assert!(without < HARMONIC_RATIO, "{without}");
+    }
+
+    #[test]
     fn tiles_locked_on_a_harmonic_are_incompatible() {
         // Basis: sqrt 2 is the geometric midpoint between a period and its
         // second harmonic (or sub-harmonic).
@@ -1286,6 +1393,7 @@ mod tests {
             dir_deg,
             quality: 20.0,
             used: false,
+            half_ratio: f64::NAN,
         };
         let build = |coarse_dir: f64| {
             let mut scales = Vec::new();
