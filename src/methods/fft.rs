@@ -184,60 +184,8 @@ pub fn measure(img: &Prepared, params: &FftParams) -> FftOutcome {
     };
 
     // Fine pass: tiles of about `periods_per_tile` periods, half overlapping.
-    let n = fine_size(&sizes, params.periods_per_tile * coarse_period, largest);
-    let mut tiles = analyse_tiles(img, n, (n / 2).max(1), params);
-    for t in tiles.iter_mut() {
-        if t.spacing_px.is_finite() && !compatible(t.spacing_px, coarse_period) {
-            t.quality = 0.0;
-        }
-    }
-    let out = aggregate(tiles, n, params);
-    let (Some(v), Some(r)) = (out.value_px, half_spacing_ratio(&out.tiles)) else {
-        return out;
-    };
-    if r < HARMONIC_RATIO {
-        return out;
-    }
-
-    // The used tiles also repeat at twice the spacing: that spacing is the
-    // second harmonic of the rows, whose fundamental (weaker, so rarely a
-    // tile's chosen peak) the tiles have shown together. Tiles of about
-    // `periods_per_tile` fundamental periods locate it, each at its most
-    // powerful candidate near it; the value stands if it is twice the first
-    // within `LADDER_AGREEMENT` and is not itself a harmonic.
-    let fundamental = 2.0 * v;
-    let reason = format!(
-        "no reliable periodicity: the tiles repeat at {v:.1} px and, in most of them, at twice that \
-         (median power there {r:.1} x its ring's median), but the longer period could not be \
-         measured on its own"
-    );
-    let n2 = fine_size(&sizes, params.periods_per_tile * fundamental, largest);
-    if (n2 as f64) < MIN_PERIODS_PER_TILE * fundamental {
-        return harmonic_none(out, reason);
-    }
-    let guided = analyse_tiles_with(img, n2, (n2 / 2).max(1), params, Some(fundamental));
-    let located = FftParams {
-        min_quality: CANDIDATE_PROMINENCE,
-        ..*params
-    };
-    let out2 = aggregate(guided, n2, &located);
-    let agrees = out2
-        .value_px
-        .is_some_and(|v2| (v2 / fundamental - 1.0).abs() <= LADDER_AGREEMENT);
-    let again = half_spacing_ratio(&out2.tiles).is_some_and(|r2| r2 >= HARMONIC_RATIO);
-    if agrees && !again {
-        out2
-    } else {
-        harmonic_none(out, reason)
-    }
-}
-
-/// Smallest prominence of a spectral candidate (see `CandidateSearch::run`).
-const CANDIDATE_PROMINENCE: f64 = 2.0;
-
-/// The smooth tile size (at least 32) closest to `target` pixels.
-fn fine_size(sizes: &[usize], target: f64, largest: usize) -> usize {
-    sizes
+    let target = params.periods_per_tile * coarse_period;
+    let n = sizes
         .iter()
         .copied()
         .filter(|&s| s >= 32)
@@ -246,17 +194,32 @@ fn fine_size(sizes: &[usize], target: f64, largest: usize) -> usize {
                 .abs()
                 .total_cmp(&((*b as f64) - target).abs())
         })
-        .unwrap_or(largest)
-}
-
-/// `out` without a value, for the reason given.
-fn harmonic_none(out: FftOutcome, reason: String) -> FftOutcome {
-    let (n, analysed) = (out.window_px, out.n_tiles_analysed);
-    let mut tiles = out.tiles;
+        .unwrap_or(largest);
+    let mut tiles = analyse_tiles(img, n, (n / 2).max(1), params);
     for t in tiles.iter_mut() {
-        t.used = false;
+        if t.spacing_px.is_finite() && !compatible(t.spacing_px, coarse_period) {
+            t.quality = 0.0;
+        }
     }
-    FftOutcome::none(reason, n, tiles, analysed)
+    let out = aggregate(tiles, n, params);
+    match out.value_px.map(|_| half_spacing_ratio(&out.tiles)) {
+        Some(Some(r)) if r >= HARMONIC_RATIO => {
+            let analysed = out.n_tiles_analysed;
+            let mut tiles = out.tiles;
+            for t in tiles.iter_mut() {
+                t.used = false;
+            }
+            FftOutcome::none(
+                format!(
+                    "no reliable periodicity: the tiles' spectra also peak at twice the spacing they give                      (median power there {r:.1} x its ring's median), so that spacing may be the second                      harmonic of a longer one"
+                ),
+                n,
+                tiles,
+                analysed,
+            )
+        }
+        _ => out,
+    }
 }
 
 /// Median, over the tiles used in the aggregate, of the power at half each
@@ -567,18 +530,6 @@ pub fn analyse_tiles(
     stride: usize,
     params: &FftParams,
 ) -> Vec<TileResult> {
-    analyse_tiles_with(img, n, stride, params, None)
-}
-
-/// `analyse_tiles`; with a `guide` period, each tile's peak is the most
-/// powerful periodic candidate within a factor sqrt 2 of it (`choose_guided`).
-fn analyse_tiles_with(
-    img: &Prepared,
-    n: usize,
-    stride: usize,
-    params: &FftParams,
-    guide: Option<f64>,
-) -> Vec<TileResult> {
     let (w, h) = (img.image.width, img.image.height);
     let xs = origins(w, n, stride);
     let ys = origins(h, n, stride);
@@ -600,10 +551,7 @@ fn analyse_tiles_with(
                 .iter()
                 .map(|&(x, y)| {
                     an.power(&img.image.data, w, x, y, &mut buf);
-                    let peak = match guide {
-                        None => choose_peak_with(&mut search, &buf, params),
-                        Some(g) => choose_guided(&mut search, &buf, g),
-                    };
+                    let peak = choose_peak_with(&mut search, &buf, params);
                     let half_ratio =
                         peak.map_or(f64::NAN, |p| search.ratio_at(p.fx / 2.0, p.fy / 2.0));
                     let (cx, cy) = (x as f64 + n as f64 / 2.0, y as f64 + n as f64 / 2.0);
@@ -684,21 +632,6 @@ fn choose_peak_with(
         .or_else(|| cands.iter().find(periodic))
         .copied()?;
     Some(fundamental_of(first, &cands, n, params))
-}
-
-/// The most powerful candidate of a tile's spectrum that is periodic
-/// (`MAX_RELATIVE_WIDTH`) and `compatible` with the period `guide`, whatever
-/// its prominence (candidates have at least 2). Used once the tiles together
-/// have shown that period (see `measure`): a tile then only has to locate it.
-fn choose_guided(search: &mut CandidateSearch, power: &[f64], guide: f64) -> Option<Peak> {
-    let n = search.n;
-    let (cands, _) = search.run(power);
-    cands
-        .iter()
-        .filter(|p| compatible(p.period_px(), guide))
-        .filter(|p| relative_width(power, n, p) <= MAX_RELATIVE_WIDTH)
-        .max_by(|a, b| a.power.total_cmp(&b.power))
-        .copied()
 }
 
 /// Largest relative half-power width (full width / frequency, radially) of a
