@@ -16,7 +16,9 @@
 //! tile's resolution, and the primary spacing is coarser than the secondary
 //! one and perpendicular to it; an image in which no period is reproduced
 //! gets no value. Fine-pass tiles more than a factor sqrt 2 off the coarse
-//! period give no value.
+//! period give no value, and an image whose used tiles mostly also repeat
+//! at twice the measured spacing gets none (that spacing would be a second
+//! harmonic, see `HARMONIC_RATIO`).
 //!
 //! Peak choice in a tile, in order:
 //! 1. candidates are local maxima of the 3x3-smoothed power spectrum with
@@ -202,6 +204,9 @@ pub fn measure(img: &Prepared, params: &FftParams) -> FftOutcome {
         }
     }
     let out = aggregate(tiles, n, params);
+    // A spacing at which most used tiles also repeat at twice its length is
+    // the second harmonic of rows whose fundamental is weaker (see
+    // `HARMONIC_RATIO`); half the true spacing is not reported.
     match out.value_px.map(|_| half_spacing_ratio(&out.tiles)) {
         Some(Some(r)) if r >= HARMONIC_RATIO => {
             let analysed = out.n_tiles_analysed;
@@ -211,7 +216,9 @@ pub fn measure(img: &Prepared, params: &FftParams) -> FftOutcome {
             }
             FftOutcome::none(
                 format!(
-                    "no reliable periodicity: the tiles' spectra also peak at twice the spacing they give                      (median power there {r:.1} x its ring's median), so that spacing may be the second                      harmonic of a longer one"
+                    "no reliable periodicity: most tiles also repeat at twice the spacing they give \
+                     (median power there {r:.1} x its ring's median), so that spacing may be the \
+                     second harmonic of a longer one"
                 ),
                 n,
                 tiles,
