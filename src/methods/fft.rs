@@ -288,6 +288,13 @@ const LADDER_AGREEMENT: f64 = 0.15;
 /// allows the dendrites to cover only part of the field.
 const MIN_SUPPORT: f64 = 0.25;
 
+/// Support with which a scale may confirm its neighbour's period: one scale
+/// of a pair must carry the full `MIN_SUPPORT`; its neighbour, which only
+/// has to confirm the period, a tenth of its tiles (noise gives 1-3 % of
+/// tiles, scattered over the whole band, so even that is several times what
+/// chance gives, and at the same period as the other scale).
+const WEAK_SUPPORT: f64 = 0.1;
+
 /// Fewest periods a tile must span for its period to be supported at that
 /// scale: a Hann window resolves a peak from the zero-frequency leakage (main
 /// lobe half-width 2 bins) from about 4 bins on (Harris 1978).
@@ -344,20 +351,38 @@ fn ladder_tiles(
     let (w, h) = (img.image.width, img.image.height);
     let cap = params.coarse_window_max_px.max(LADDER_MIN_PX);
     let capped: Vec<usize> = sizes.iter().copied().filter(|&s| s <= cap).collect();
-    ladder_sizes(&capped)
-        .into_iter()
-        .map(|n| {
-            let count = |stride: usize| origins(w, n, stride).len() * origins(h, n, stride).len();
-            let mut stride = if count(n) >= 9 { n } else { (n / 2).max(1) };
-            // A scale's support is a fraction of its tiles; about 64 tiles
-            // spread evenly over the field estimate it to a few per cent, so
-            // the small scales need not cover every pixel.
-            while count(stride) > LADDER_MAX_TILES {
-                stride += stride / 2;
+    let rungs = ladder_sizes(&capped);
+    let mut out: Vec<(usize, Vec<TileResult>)> = Vec::with_capacity(rungs.len());
+    for (i, &n) in rungs.iter().enumerate() {
+        // The short last rung can only pair with the rung before it on a
+        // period that rung supports and that is too large for the regular
+        // rungs (`ladder_candidates`); when there is none its tiles, the
+        // largest of all, cannot change the result and are not analysed.
+        let short_last = i + 1 == rungs.len()
+            && i >= 1
+            && (n as f64) < rungs[i - 1] as f64 * LADDER_RATIO * 0.99;
+        if short_last {
+            let prev = scale_stat(rungs[i - 1], &out[i - 1].1, params);
+            let p = prev.period_px;
+            let useful = p.is_finite()
+                && prev.support >= WEAK_SUPPORT
+                && (prev.n as f64) >= MIN_PERIODS_PER_TILE * p
+                && (i < 3 || (rungs[i - 3] as f64) < MIN_PERIODS_PER_TILE * p);
+            if !useful {
+                break;
             }
-            (n, analyse_tiles(img, n, stride, params))
-        })
-        .collect()
+        }
+        let count = |stride: usize| origins(w, n, stride).len() * origins(h, n, stride).len();
+        let mut stride = if count(n) >= 9 { n } else { (n / 2).max(1) };
+        // A scale's support is a fraction of its tiles; about 64 tiles
+        // spread evenly over the field estimate it to a few per cent, so
+        // the small scales need not cover every pixel.
+        while count(stride) > LADDER_MAX_TILES {
+            stride += stride / 2;
+        }
+        out.push((n, analyse_tiles(img, n, stride, params)));
+    }
+    out
 }
 
 /// Weighted median period of a scale's reliable tiles and the fraction of
@@ -410,11 +435,7 @@ pub fn ladder_period(ladder: &[ScaleStat], _params: &FftParams) -> Option<f64> {
 fn ladder_candidates(ladder: &[ScaleStat]) -> Vec<(f64, usize)> {
     let supported = |s: &ScaleStat, min: f64| s.period_px.is_finite() && s.support >= min;
     let same = |a: f64, b: f64| (a / b - 1.0).abs() <= LADDER_AGREEMENT;
-    // One scale of the pair must carry the full support; its neighbour, which
-    // only has to confirm the period, a tenth of its tiles (noise gives 1-3 %
-    // of tiles, scattered over the whole band, so even that is several times
-    // what chance gives, and at the same period as the other scale).
-    let weak = 0.1;
+    let weak = WEAK_SUPPORT;
     let mut out: Vec<(f64, usize)> = (1..ladder.len())
         .filter(|&i| {
             let (a, b) = (&ladder[i - 1], &ladder[i]);
