@@ -7,7 +7,8 @@
 //! and a quality, and the image's value is a robust aggregate of the reliable
 //! tiles that agree with the coarse period.
 //!
-//! The coarse period comes from a ladder of tile sizes (32, 48, 72, ...): the
+//! The coarse period comes from a ladder of tile sizes (32, 48, 72, ..., and
+//! the largest that fits as a last rung for the largest periods): the
 //! finest period on which a quarter of a scale's tiles agree and which the
 //! next larger scale reproduces (`ladder_period`), unless it repeats parallel
 //! to a coarser reproduced period at the same place (`resolve_ladder`: then
@@ -15,7 +16,9 @@
 //! tile's resolution, and the primary spacing is coarser than the secondary
 //! one and perpendicular to it; an image in which no period is reproduced
 //! gets no value. Fine-pass tiles more than a factor sqrt 2 off the coarse
-//! period give no value.
+//! period give no value, and an image whose used tiles mostly also repeat
+//! at twice the measured spacing gets none (that spacing would be a second
+//! harmonic, see `HARMONIC_RATIO`).
 //!
 //! Peak choice in a tile, in order:
 //! 1. candidates are local maxima of the 3x3-smoothed power spectrum with
@@ -80,6 +83,10 @@ pub struct TileResult {
     pub quality: f64,
     /// Whether the tile entered the aggregate.
     pub used: bool,
+    /// Smoothed power at half the chosen peak's frequency vector over the
+    /// median of its frequency ring (NaN without a peak): how strongly the
+    /// tile repeats at twice the spacing it gave, in the same direction.
+    pub half_ratio: f64,
 }
 
 /// The method's result for one image, in pixels.
@@ -196,8 +203,53 @@ pub fn measure(img: &Prepared, params: &FftParams) -> FftOutcome {
             t.quality = 0.0;
         }
     }
-    aggregate(tiles, n, params)
+    let out = aggregate(tiles, n, params);
+    // A spacing at which most used tiles also repeat at twice its length is
+    // the second harmonic of rows whose fundamental is weaker (see
+    // `HARMONIC_RATIO`); half the true spacing is not reported.
+    match out.value_px.map(|_| half_spacing_ratio(&out.tiles)) {
+        Some(Some(r)) if r >= HARMONIC_RATIO => {
+            let analysed = out.n_tiles_analysed;
+            let mut tiles = out.tiles;
+            for t in tiles.iter_mut() {
+                t.used = false;
+            }
+            FftOutcome::none(
+                format!(
+                    "no reliable periodicity: most tiles also repeat at twice the spacing they give \
+                     (median power there {r:.1} x its ring's median), so that spacing may be the \
+                     second harmonic of a longer one"
+                ),
+                n,
+                tiles,
+                analysed,
+            )
+        }
+        _ => out,
+    }
 }
+
+/// Median, over the tiles used in the aggregate, of the power at half each
+/// tile's peak frequency (twice its spacing, same direction) relative to its
+/// frequency ring's median; `None` without such tiles.
+fn half_spacing_ratio(tiles: &[TileResult]) -> Option<f64> {
+    let r: Vec<f64> = tiles
+        .iter()
+        .filter(|t| t.used && t.half_ratio.is_finite())
+        .map(|t| t.half_ratio)
+        .collect();
+    stats::median(&r)
+}
+
+/// Median power at twice the measured spacing, relative to its frequency
+/// ring's median, above which the measured spacing is taken for a second
+/// harmonic. A bin with nothing of its own sits at about its ring's median
+/// (ratio 1; streaks of straight edges along the same direction raise it a
+/// little); a ratio of 2 is what a spectral peak needs to become a
+/// candidate at all, so when most used tiles reach it they repeat at twice
+/// the spacing too: the rows' fundamental is there, weaker than its second
+/// harmonic, and the measured spacing would be half the true one.
+const HARMONIC_RATIO: f64 = 2.0;
 
 /// Statistics of the tiles of one size in the coarse scale ladder.
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -236,13 +288,24 @@ const LADDER_AGREEMENT: f64 = 0.15;
 /// allows the dendrites to cover only part of the field.
 const MIN_SUPPORT: f64 = 0.25;
 
+/// Support with which a scale may confirm its neighbour's period: one scale
+/// of a pair must carry the full `MIN_SUPPORT`; its neighbour, which only
+/// has to confirm the period, a tenth of its tiles (noise gives 1-3 % of
+/// tiles, scattered over the whole band, so even that is several times what
+/// chance gives, and at the same period as the other scale).
+const WEAK_SUPPORT: f64 = 0.1;
+
 /// Fewest periods a tile must span for its period to be supported at that
 /// scale: a Hann window resolves a peak from the zero-frequency leakage (main
 /// lobe half-width 2 bins) from about 4 bins on (Harris 1978).
 const MIN_PERIODS_PER_TILE: f64 = 4.0;
 
 /// The tile sizes of the coarse ladder, from `LADDER_MIN_PX` up to the
-/// largest smooth size that fits, about `LADDER_RATIO` apart.
+/// largest smooth size that fits, about `LADDER_RATIO` apart. The largest
+/// size that fits ends the ladder when it is at least `LAST_RUNG_RATIO`
+/// above the previous rung: otherwise the largest periods the image can hold
+/// (which need the largest tiles for `MIN_PERIODS_PER_TILE` periods) would
+/// have no larger neighbour to reproduce them.
 fn ladder_sizes(sizes: &[usize]) -> Vec<usize> {
     let mut out: Vec<usize> = Vec::new();
     for &s in sizes.iter().filter(|&&s| s >= LADDER_MIN_PX) {
@@ -251,8 +314,19 @@ fn ladder_sizes(sizes: &[usize]) -> Vec<usize> {
             _ => out.push(s),
         }
     }
+    if let (Some(&last), Some(&largest)) = (out.last(), sizes.last()) {
+        if largest as f64 >= last as f64 * LAST_RUNG_RATIO {
+            out.push(largest);
+        }
+    }
     out
 }
+
+/// Smallest ratio of the last rung to the one before it: periods are read
+/// at 4 bins or more (`MIN_PERIODS_PER_TILE`), where a tile 25 % larger
+/// moves a resolution artefact by at least one bin, so the two rungs still
+/// differ in resolution.
+const LAST_RUNG_RATIO: f64 = 1.25;
 
 /// Analyses the image at every size of the ladder. Tiles do not overlap
 /// unless that leaves fewer than 9 of them (then they half overlap, so a
@@ -277,20 +351,38 @@ fn ladder_tiles(
     let (w, h) = (img.image.width, img.image.height);
     let cap = params.coarse_window_max_px.max(LADDER_MIN_PX);
     let capped: Vec<usize> = sizes.iter().copied().filter(|&s| s <= cap).collect();
-    ladder_sizes(&capped)
-        .into_iter()
-        .map(|n| {
-            let count = |stride: usize| origins(w, n, stride).len() * origins(h, n, stride).len();
-            let mut stride = if count(n) >= 9 { n } else { (n / 2).max(1) };
-            // A scale's support is a fraction of its tiles; about 64 tiles
-            // spread evenly over the field estimate it to a few per cent, so
-            // the small scales need not cover every pixel.
-            while count(stride) > LADDER_MAX_TILES {
-                stride += stride / 2;
+    let rungs = ladder_sizes(&capped);
+    let mut out: Vec<(usize, Vec<TileResult>)> = Vec::with_capacity(rungs.len());
+    for (i, &n) in rungs.iter().enumerate() {
+        // The short last rung can only pair with the rung before it on a
+        // period that rung supports and that is too large for the regular
+        // rungs (`ladder_candidates`); when there is none its tiles, the
+        // largest of all, cannot change the result and are not analysed.
+        let short_last = i + 1 == rungs.len()
+            && i >= 1
+            && (n as f64) < rungs[i - 1] as f64 * LADDER_RATIO * 0.99;
+        if short_last {
+            let prev = scale_stat(rungs[i - 1], &out[i - 1].1, params);
+            let p = prev.period_px;
+            let useful = p.is_finite()
+                && prev.support >= WEAK_SUPPORT
+                && (prev.n as f64) >= MIN_PERIODS_PER_TILE * p
+                && (i < 3 || (rungs[i - 3] as f64) < MIN_PERIODS_PER_TILE * p);
+            if !useful {
+                break;
             }
-            (n, analyse_tiles(img, n, stride, params))
-        })
-        .collect()
+        }
+        let count = |stride: usize| origins(w, n, stride).len() * origins(h, n, stride).len();
+        let mut stride = if count(n) >= 9 { n } else { (n / 2).max(1) };
+        // A scale's support is a fraction of its tiles; about 64 tiles
+        // spread evenly over the field estimate it to a few per cent, so
+        // the small scales need not cover every pixel.
+        while count(stride) > LADDER_MAX_TILES {
+            stride += stride / 2;
+        }
+        out.push((n, analyse_tiles(img, n, stride, params)));
+    }
+    out
 }
 
 /// Weighted median period of a scale's reliable tiles and the fraction of
@@ -343,11 +435,7 @@ pub fn ladder_period(ladder: &[ScaleStat], _params: &FftParams) -> Option<f64> {
 fn ladder_candidates(ladder: &[ScaleStat]) -> Vec<(f64, usize)> {
     let supported = |s: &ScaleStat, min: f64| s.period_px.is_finite() && s.support >= min;
     let same = |a: f64, b: f64| (a / b - 1.0).abs() <= LADDER_AGREEMENT;
-    // One scale of the pair must carry the full support; its neighbour, which
-    // only has to confirm the period, a tenth of its tiles (noise gives 1-3 %
-    // of tiles, scattered over the whole band, so even that is several times
-    // what chance gives, and at the same period as the other scale).
-    let weak = 0.1;
+    let weak = WEAK_SUPPORT;
     let mut out: Vec<(f64, usize)> = (1..ladder.len())
         .filter(|&i| {
             let (a, b) = (&ladder[i - 1], &ladder[i]);
@@ -355,11 +443,29 @@ fn ladder_candidates(ladder: &[ScaleStat]) -> Vec<(f64, usize)> {
                 || (supported(a, weak) && supported(b, MIN_SUPPORT)))
                 && (a.n as f64) >= MIN_PERIODS_PER_TILE * a.period_px
                 && same(b.period_px, a.period_px)
+                && (!short_last_rung(ladder, i)
+                    || i < 3
+                    || (ladder[i - 3].n as f64) < MIN_PERIODS_PER_TILE * a.period_px)
         })
         .map(|i| (ladder[i].period_px, i))
         .collect();
     out.sort_by(|a, b| a.0.total_cmp(&b.0));
     out
+}
+
+/// Whether scale i is the short last rung of the ladder (closer than
+/// `LADDER_RATIO` to the one before, see `ladder_sizes`). It is there for the
+/// largest periods, which at most one pair of regular rungs holds
+/// `MIN_PERIODS_PER_TILE` times (the rung three below the last is too small
+/// for them), and pairs only on those: finer periods have had two or more
+/// regular pairs to be reproduced on, and the few, largely overlapping tiles
+/// of the last two rungs would otherwise let a handful of tiles "reproduce" a
+/// fine period (a harmonic, or noise near the search floor, where periods
+/// crowd) that the smaller scales, with many more tiles, do not support.
+fn short_last_rung(ladder: &[ScaleStat], i: usize) -> bool {
+    i + 1 == ladder.len()
+        && i >= 2
+        && (ladder[i].n as f64) < ladder[i - 1].n as f64 * LADDER_RATIO * 0.99
 }
 
 /// Largest median axial angle between a fine period's tiles and the coarser
@@ -460,33 +566,46 @@ pub fn analyse_tiles(
         .flat_map(|&y| xs.iter().map(move |&x| (x, y)))
         .filter(|&(x, y)| masked_fraction(img, x, y, n) <= params.max_masked_fraction)
         .collect();
-    grid.par_iter()
-        .map_init(
-            || (SpectrumAnalyser::new(n), Vec::new()),
-            |(an, buf), &(x, y)| {
-                an.power(&img.image.data, w, x, y, buf);
-                let peak = choose_peak(buf, n, params);
-                let (cx, cy) = (x as f64 + n as f64 / 2.0, y as f64 + n as f64 / 2.0);
-                match peak {
-                    Some(p) => TileResult {
-                        cx_px: cx,
-                        cy_px: cy,
-                        spacing_px: p.period_px(),
-                        dir_deg: p.dir_deg(),
-                        quality: p.prominence,
-                        used: false,
-                    },
-                    None => TileResult {
-                        cx_px: cx,
-                        cy_px: cy,
-                        spacing_px: f64::NAN,
-                        dir_deg: f64::NAN,
-                        quality: 0.0,
-                        used: false,
-                    },
-                }
-            },
-        )
+    // Contiguous runs of tiles share one FFT plan, window and peak-search
+    // geometry; each tile's result depends on that tile alone, so the
+    // split (which follows the thread count) does not change any result.
+    let run = grid.len().div_ceil(4 * rayon::current_num_threads()).max(1);
+    grid.par_chunks(run)
+        .flat_map_iter(|chunk| {
+            let mut an = SpectrumAnalyser::new(n);
+            let mut search = CandidateSearch::new(n, params.min_period_px);
+            let mut buf = Vec::new();
+            chunk
+                .iter()
+                .map(|&(x, y)| {
+                    an.power(&img.image.data, w, x, y, &mut buf);
+                    let peak = choose_peak_with(&mut search, &buf, params);
+                    let half_ratio =
+                        peak.map_or(f64::NAN, |p| search.ratio_at(p.fx / 2.0, p.fy / 2.0));
+                    let (cx, cy) = (x as f64 + n as f64 / 2.0, y as f64 + n as f64 / 2.0);
+                    match peak {
+                        Some(p) => TileResult {
+                            cx_px: cx,
+                            cy_px: cy,
+                            spacing_px: p.period_px(),
+                            dir_deg: p.dir_deg(),
+                            quality: p.prominence,
+                            used: false,
+                            half_ratio,
+                        },
+                        None => TileResult {
+                            cx_px: cx,
+                            cy_px: cy,
+                            spacing_px: f64::NAN,
+                            dir_deg: f64::NAN,
+                            quality: 0.0,
+                            used: false,
+                            half_ratio,
+                        },
+                    }
+                })
+                .collect::<Vec<_>>()
+        })
         .collect()
 }
 
@@ -508,7 +627,21 @@ fn masked_fraction(img: &Prepared, x0: usize, y0: usize, n: usize) -> f64 {
 /// spectrum's dominant orientation when it has one, and returns the
 /// fundamental of the strongest; `None` when there is no candidate at all.
 pub fn choose_peak(power: &[f64], n: usize, params: &FftParams) -> Option<Peak> {
-    let (cands, orient) = candidates(power, n, params);
+    choose_peak_with(
+        &mut CandidateSearch::new(n, params.min_period_px),
+        power,
+        params,
+    )
+}
+
+/// `choose_peak` with the search geometry and buffers of the tile size.
+fn choose_peak_with(
+    search: &mut CandidateSearch,
+    power: &[f64],
+    params: &FftParams,
+) -> Option<Peak> {
+    let n = search.n;
+    let (cands, orient) = search.run(power);
     let aligned = |p: &&Peak| {
         orient.anisotropy < MIN_ANISOTROPY
             || axial_difference(p.dir_deg(), orient.dir_deg) <= MAX_OFF_AXIS_DEG
@@ -524,7 +657,7 @@ pub fn choose_peak(power: &[f64], n: usize, params: &FftParams) -> Option<Peak> 
         .filter(aligned)
         .filter(periodic)
         .max_by(|a, b| a.power.total_cmp(&b.power))
-        .or(cands.iter().find(periodic))
+        .or_else(|| cands.iter().find(periodic))
         .copied()?;
     Some(fundamental_of(first, &cands, n, params))
 }
@@ -608,18 +741,25 @@ const MAX_OFF_AXIS_DEG: f64 = 30.0;
 /// the low frequencies) the power falls to the floor; along the streak that
 /// long straight edges (trunks, grain boundaries) draw across a spectrum it
 /// does not, so such a streak gets no prominence.
-fn ray_floor(smooth: &[f64], n: usize, u: i64, v: i64) -> f64 {
+///
+/// The search stops at the first sample at or below `stop` (the caller's
+/// other background, which the floor only matters above) and returns it: the
+/// larger of `stop` and the result is then the same as with the full floor.
+fn ray_floor(smooth: &[f64], n: usize, u: i64, v: i64, stop: f64) -> f64 {
     let r = ((u * u + v * v) as f64).sqrt();
     let (cu, cv) = (u as f64 / r, v as f64 / r);
     let at = |x: f64, y: f64| bilinear_periodic(smooth, n, x, y);
     let (lo, hi) = (r / 2.0, (2.0 * r).min(n as f64 / 2.0 - 1.0));
     let steps = ((hi - lo) / 0.5).ceil().max(1.0) as usize;
-    (0..=steps)
-        .map(|i| {
-            let t = lo + (hi - lo) * i as f64 / steps as f64;
-            at(t * cu, t * cv)
-        })
-        .fold(f64::INFINITY, f64::min)
+    let mut floor = f64::INFINITY;
+    for i in 0..=steps {
+        let t = lo + (hi - lo) * i as f64 / steps as f64;
+        floor = floor.min(at(t * cu, t * cv));
+        if floor <= stop {
+            break;
+        }
+    }
+    floor
 }
 
 /// Most candidates kept per spectrum.
@@ -671,79 +811,192 @@ pub fn axial_difference(a: f64, b: f64) -> f64 {
 
 /// Candidate peaks of a power spectrum, strongest prominence first.
 pub fn candidates(power: &[f64], n: usize, params: &FftParams) -> (Vec<Peak>, Orientation) {
-    let half = n / 2;
-    let r_lo = 2.0f64;
-    let r_hi = (n as f64 / params.min_period_px).min(half as f64 - 1.0);
-    let isotropic = Orientation {
-        dir_deg: 0.0,
-        anisotropy: 0.0,
-    };
-    if r_hi <= r_lo {
-        return (vec![], isotropic);
-    }
-    let idx = |u: i64, v: i64| -> usize {
-        let uu = u.rem_euclid(n as i64) as usize;
-        let vv = v.rem_euclid(n as i64) as usize;
-        vv * n + uu
-    };
-    // 3x3 box smoothing on the periodic spectrum, separable: rows, then
-    // columns (same sums as the 3x3 box, in 6 instead of 9 additions).
-    let mut rows = vec![0.0f64; n * n];
-    for v in 0..n {
-        let row = &power[v * n..(v + 1) * n];
-        for u in 0..n {
-            let (l, r) = ((u + n - 1) % n, (u + 1) % n);
-            rows[v * n + u] = row[l] + row[u] + row[r];
-        }
-    }
-    let mut smooth = vec![0.0f64; n * n];
-    for v in 0..n {
-        let (up, down) = ((v + n - 1) % n, (v + 1) % n);
-        for u in 0..n {
-            smooth[v * n + u] = (rows[up * n + u] + rows[v * n + u] + rows[down * n + u]) / 9.0;
-        }
-    }
-    // Background: the median of the smoothed power over each integer
-    // frequency ring (half plane; a real image's spectrum is symmetric). A
-    // peak from aligned arms occupies a small part of its ring and stands
-    // above it; the smooth fall of an image's spectrum and the floor of
-    // noise do not.
-    let rings = half + 1;
-    let mut ring_vals: Vec<Vec<f32>> = vec![Vec::new(); rings];
-    let half_plane = |u: i64, v: i64| v > 0 || (v == 0 && u >= 0);
-    for v in 0..=(half as i64) {
-        for u in -(half as i64)..=(half as i64) {
-            if !half_plane(u, v) {
-                continue;
-            }
-            let r = ((u * u + v * v) as f64).sqrt().round() as usize;
-            if r < rings {
-                ring_vals[r].push(smooth[idx(u, v)] as f32);
-            }
-        }
-    }
-    let background: Vec<f64> = ring_vals
-        .iter_mut()
-        .map(|v| stats::median_in_place(v))
-        .collect();
+    CandidateSearch::new(n, params.min_period_px).run(power)
+}
 
-    let mut out = Vec::new();
-    let (mut txx, mut txy, mut tyy) = (0.0f64, 0.0f64, 0.0f64);
-    let vmax = r_hi.ceil() as i64;
-    for v in 0..=vmax {
-        for u in -vmax..=vmax {
-            if !half_plane(u, v) {
-                continue;
+/// One bin of the searched frequency band, precomputed for a tile size.
+#[derive(Clone, Copy, Debug)]
+struct BandBin {
+    u: i32,
+    v: i32,
+    /// Index of the bin in the n x n spectrum.
+    idx: u32,
+    /// Index of its frequency ring (rounded radius).
+    ring: u32,
+    /// Unit vector from the origin to the bin.
+    cu: f64,
+    cv: f64,
+}
+
+/// The geometry of the peak search for one tile size (which bins form each
+/// frequency ring, which bins lie in the searched band) and reusable
+/// buffers, so that tiles of one size share it and allocate nothing. The
+/// results are those of the direct computation described in `run`: only
+/// where work is done and memory is kept changes.
+pub struct CandidateSearch {
+    n: usize,
+    /// Bins of the half plane (v > 0, or v = 0 and u >= 0) grouped by ring,
+    /// for the rings the band reaches; ring k is
+    /// `ring_bins[ring_start[k]..ring_start[k + 1]]`.
+    ring_bins: Vec<u32>,
+    ring_start: Vec<usize>,
+    /// The band's bins in the order of the direct scan (v, then u, rising).
+    band: Vec<BandBin>,
+    row_sums: Vec<f64>,
+    smooth: Vec<f64>,
+    ring_vals: Vec<f32>,
+    background: Vec<f64>,
+}
+
+impl CandidateSearch {
+    pub fn new(n: usize, min_period_px: f64) -> Self {
+        let half = n / 2;
+        let r_lo = 2.0f64;
+        let r_hi = (n as f64 / min_period_px).min(half as f64 - 1.0);
+        let mut s = Self {
+            n,
+            ring_bins: Vec::new(),
+            ring_start: vec![0],
+            band: Vec::new(),
+            row_sums: vec![0.0; n * n],
+            smooth: vec![0.0; n * n],
+            ring_vals: Vec::new(),
+            background: Vec::new(),
+        };
+        if r_hi <= r_lo {
+            return s;
+        }
+        let ni = n as i64;
+        let idx = |u: i64, v: i64| (v.rem_euclid(ni) * ni + u.rem_euclid(ni)) as u32;
+        let half_plane = |u: i64, v: i64| v > 0 || (v == 0 && u >= 0);
+        // Rings the band's bins fall in: up to round(r_hi).
+        let rings = (r_hi.round() as usize + 1).min(half + 1);
+        let reach = rings as i64; // |u|, v <= reach covers every such ring
+        let mut per_ring: Vec<Vec<u32>> = vec![Vec::new(); rings];
+        for v in 0..=reach.min(half as i64) {
+            for u in -(reach.min(half as i64))..=reach.min(half as i64) {
+                if !half_plane(u, v) {
+                    continue;
+                }
+                let r = ((u * u + v * v) as f64).sqrt().round() as usize;
+                if r < rings {
+                    per_ring[r].push(idx(u, v));
+                }
             }
-            let r = ((u * u + v * v) as f64).sqrt();
-            if r < r_lo || r > r_hi {
-                continue;
+        }
+        for bins in per_ring {
+            s.ring_bins.extend(bins);
+            s.ring_start.push(s.ring_bins.len());
+        }
+        let vmax = r_hi.ceil() as i64;
+        for v in 0..=vmax {
+            for u in -vmax..=vmax {
+                if !half_plane(u, v) {
+                    continue;
+                }
+                let r = ((u * u + v * v) as f64).sqrt();
+                if r < r_lo || r > r_hi {
+                    continue;
+                }
+                s.band.push(BandBin {
+                    u: u as i32,
+                    v: v as i32,
+                    idx: idx(u, v),
+                    ring: r.round() as u32,
+                    cu: u as f64 / r,
+                    cv: v as f64 / r,
+                });
             }
-            let s = smooth[idx(u, v)];
-            let ring_bg = background[r.round() as usize];
+        }
+        s
+    }
+
+    /// After `run`: the smoothed power at frequency (fx, fy) (cycles per
+    /// pixel, in the half plane or on its edge) over the median of its
+    /// frequency ring; NaN where that is undefined.
+    pub fn ratio_at(&self, fx: f64, fy: f64) -> f64 {
+        let n = self.n as f64;
+        let (u, v) = (fx * n, fy * n);
+        let ring = u.hypot(v).round() as usize;
+        match self.background.get(ring) {
+            Some(&bg) if bg > 0.0 && v >= -1.0 && v <= (self.n / 2) as f64 - 1.0 => {
+                bilinear_periodic(&self.smooth, self.n, u, v) / bg
+            }
+            _ => f64::NAN,
+        }
+    }
+
+    /// Candidate peaks of the power spectrum of one tile of this size,
+    /// strongest prominence first, and the spectrum's dominant orientation.
+    ///
+    /// 1. 3x3 box smoothing of the periodic spectrum (rows of the half plane
+    ///    and their neighbours: the only ones read below).
+    /// 2. Background: the median of the smoothed power over each integer
+    ///    frequency ring (half plane; a real image's spectrum is symmetric).
+    ///    A peak from aligned arms occupies a small part of its ring and
+    ///    stands above it; the smooth fall of an image's spectrum and the
+    ///    floor of noise do not.
+    /// 3. Over the band (radius 2 bins to n / min_period), the second-moment
+    ///    tensor of the excess over the ring background, and the local maxima
+    ///    with their prominence over the larger of ring background and ray
+    ///    floor, located to a fraction of a bin.
+    pub fn run(&mut self, power: &[f64]) -> (Vec<Peak>, Orientation) {
+        let isotropic = Orientation {
+            dir_deg: 0.0,
+            anisotropy: 0.0,
+        };
+        let n = self.n;
+        if self.band.is_empty() || power.len() != n * n {
+            return (vec![], isotropic);
+        }
+        let half = n / 2;
+        // Smoothed rows needed: n - 1 (the row above v = 0) and 0..=half;
+        // their 3x3 sums read raw rows n - 2 ..= half + 1.
+        let wrap = |v: i64| v.rem_euclid(n as i64) as usize;
+        for v in -2..=(half as i64 + 1) {
+            let vv = wrap(v);
+            let row = &power[vv * n..(vv + 1) * n];
+            let out = &mut self.row_sums[vv * n..(vv + 1) * n];
+            out[0] = row[n - 1] + row[0] + row[1 % n];
+            for u in 1..n - 1 {
+                out[u] = row[u - 1] + row[u] + row[u + 1];
+            }
+            if n > 1 {
+                out[n - 1] = row[n - 2] + row[n - 1] + row[0];
+            }
+        }
+        for v in -1..=(half as i64) {
+            let (up, mid, down) = (wrap(v - 1), wrap(v), wrap(v + 1));
+            for u in 0..n {
+                self.smooth[mid * n + u] = (self.row_sums[up * n + u]
+                    + self.row_sums[mid * n + u]
+                    + self.row_sums[down * n + u])
+                    / 9.0;
+            }
+        }
+        let smooth = &self.smooth;
+        self.background.clear();
+        for k in 0..self.ring_start.len() - 1 {
+            let bins = &self.ring_bins[self.ring_start[k]..self.ring_start[k + 1]];
+            self.ring_vals.clear();
+            self.ring_vals
+                .extend(bins.iter().map(|&i| smooth[i as usize] as f32));
+            self.background
+                .push(stats::median_in_place(&mut self.ring_vals));
+        }
+        let background = &self.background;
+        let ni = n as i64;
+        let idx = |u: i64, v: i64| -> usize {
+            (v.rem_euclid(ni) as usize) * n + u.rem_euclid(ni) as usize
+        };
+        let mut out = Vec::new();
+        let (mut txx, mut txy, mut tyy) = (0.0f64, 0.0f64, 0.0f64);
+        for b in &self.band {
+            let s = smooth[b.idx as usize];
+            let ring_bg = background[b.ring as usize];
             if ring_bg > 0.0 {
                 let e = (s / ring_bg - 1.0).max(0.0);
-                let (cu, cv) = (u as f64 / r, v as f64 / r);
+                let (cu, cv) = (b.cu, b.cv);
                 txx += e * cu * cu;
                 txy += e * cu * cv;
                 tyy += e * cv * cv;
@@ -755,6 +1008,7 @@ pub fn candidates(power: &[f64], n: usize, params: &FftParams) -> (Vec<Peak>, Or
             if ring_bg <= 0.0 || s < 2.0 * ring_bg {
                 continue;
             }
+            let (u, v) = (b.u as i64, b.v as i64);
             let mut is_max = true;
             'nb: for dv in -1..=1 {
                 for du in -1..=1 {
@@ -767,7 +1021,7 @@ pub fn candidates(power: &[f64], n: usize, params: &FftParams) -> (Vec<Peak>, Or
             if !is_max {
                 continue;
             }
-            let bg = ring_bg.max(ray_floor(&smooth, n, u, v));
+            let bg = ring_bg.max(ray_floor(smooth, n, u, v, ring_bg));
             if bg <= 0.0 {
                 continue;
             }
@@ -796,21 +1050,21 @@ pub fn candidates(power: &[f64], n: usize, params: &FftParams) -> (Vec<Peak>, Or
                 power: s,
             });
         }
+        out.sort_by(|a, b| b.prominence.total_cmp(&a.prominence));
+        out.truncate(MAX_CANDIDATES);
+        let trace = txx + tyy;
+        let orient = if trace > 0.0 {
+            let phi = 0.5 * (2.0 * txy).atan2(txx - tyy);
+            Orientation {
+                // (cos phi, sin phi) is in image axes (y down); flip y.
+                dir_deg: (-phi.to_degrees()).rem_euclid(180.0),
+                anisotropy: ((txx - tyy).powi(2) + 4.0 * txy * txy).sqrt() / trace,
+            }
+        } else {
+            isotropic
+        };
+        (out, orient)
     }
-    out.sort_by(|a, b| b.prominence.total_cmp(&a.prominence));
-    out.truncate(MAX_CANDIDATES);
-    let trace = txx + tyy;
-    let orient = if trace > 0.0 {
-        let phi = 0.5 * (2.0 * txy).atan2(txx - tyy);
-        Orientation {
-            // (cos phi, sin phi) is in image axes (y down); flip y.
-            dir_deg: (-phi.to_degrees()).rem_euclid(180.0),
-            anisotropy: ((txx - tyy).powi(2) + 4.0 * txy * txy).sqrt() / trace,
-        }
-    } else {
-        isotropic
-    };
-    (out, orient)
 }
 
 /// Robust aggregate of tiles: quality-weighted median; tiles further than
@@ -1004,6 +1258,87 @@ mod tests {
     }
 
     #[test]
+    fn the_largest_tile_that_fits_ends_the_ladder() {
+        // Basis: rungs 1.5 apart (common practice, no single source), and a
+        // last rung at least 25 % above the one before (a resolution artefact
+        // at 4 bins or more then moves by a bin or more).
+        let sizes = smooth_sizes(524);
+        assert_eq!(
+            ladder_sizes(&sizes),
+            vec![32, 48, 72, 108, 162, 250, 384, 512]
+        );
+        // 400 is within 25 % of 384: no extra rung.
+        let sizes = smooth_sizes(400);
+        assert_eq!(ladder_sizes(&sizes), vec![32, 48, 72, 108, 162, 250, 384]);
+    }
+
+    #[test]
+    fn the_short_last_rung_pairs_only_on_the_largest_periods() {
+        // A period that the regular rungs could reproduce on two pairs (the
+        // rung three below the last holds 4 periods of it) is not taken from
+        // the short last rung alone; a period too large for that is.
+        let p = FftParams::default();
+        let base = [
+            stat(108, 9.0, 0.0),
+            stat(162, 9.0, 0.0),
+            stat(250, 9.0, 0.0),
+        ];
+        let with = |period: f64| {
+            let mut l = base.to_vec();
+            l.push(stat(384, period, 0.6));
+            l.push(stat(512, period * 1.02, 0.6));
+            ladder_period(&l, &p)
+        };
+        // 162 >= 4 x 15: pairs (108, 162) and (162, 250) could have shown it.
+        assert!(with(15.0).is_none());
+        // 162 < 4 x 45: only (250, 384) could; the last rung may confirm it.
+        assert!((with(45.0).unwrap() - 45.9).abs() < 1e-9);
+    }
+
+    #[test]
+    fn power_at_twice_the_spacing_shows_a_weaker_fundamental() {
+        // Basis: the DFT is linear, so a wave of period 16 px added to one of
+        // period 8 px puts its power at half the 8 px wave's frequency
+        // vector, far above the white-noise level of that ring; without it,
+        // that bin holds noise only, at about its ring's median (ratio near
+        // 1, below the HARMONIC_RATIO of 2).
+        let n = 128;
+        let mut state = 777u64;
+        let mut noise = || {
+            state = state
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            (state >> 40) as f32 / (1u64 << 24) as f32 - 0.5
+        };
+        let fine = sinusoid(n, 8.0, 30.0);
+        let coarse = sinusoid(n, 16.0, 30.0);
+        let p = FftParams::default();
+        let ratio = |with_coarse: bool, noise: &mut dyn FnMut() -> f32| {
+            let img: Vec<f32> = fine
+                .iter()
+                .zip(&coarse)
+                .map(|(f, c)| f + if with_coarse { 0.3 * c } else { 0.0 } + noise())
+                .collect();
+            let mut a = SpectrumAnalyser::new(n);
+            let mut power = Vec::new();
+            a.power(&img, n, 0, 0, &mut power);
+            let mut search = CandidateSearch::new(n, p.min_period_px);
+            let (cands, _) = search.run(&power);
+            let top = cands
+                .iter()
+                .max_by(|a, b| a.power.total_cmp(&b.power))
+                .copied()
+                .unwrap();
+            assert!((top.period_px() - 8.0).abs() < 0.1);
+            search.ratio_at(top.fx / 2.0, top.fy / 2.0)
+        };
+        let with = ratio(true, &mut noise);
+        let without = ratio(false, &mut noise);
+        assert!(with > 10.0 * HARMONIC_RATIO, "{with}");
+        assert!(without < HARMONIC_RATIO, "{without}");
+    }
+
+    #[test]
     fn tiles_locked_on_a_harmonic_are_incompatible() {
         // Basis: sqrt 2 is the geometric midpoint between a period and its
         // second harmonic (or sub-harmonic).
@@ -1086,6 +1421,7 @@ mod tests {
             dir_deg,
             quality: 20.0,
             used: false,
+            half_ratio: f64::NAN,
         };
         let build = |coarse_dir: f64| {
             let mut scales = Vec::new();

@@ -15,6 +15,8 @@ pub struct SpectrumAnalyser {
     n: usize,
     fft: Arc<dyn Fft<f32>>,
     window: Vec<f32>,
+    /// Sum of the 2D window, (sum of w)^2.
+    window_sum: f64,
     buf: Vec<Complex<f32>>,
     tr: Vec<Complex<f32>>,
     scratch: Vec<Complex<f32>>,
@@ -25,10 +27,13 @@ impl SpectrumAnalyser {
         let mut planner = FftPlanner::new();
         let fft = planner.plan_fft_forward(n);
         let scratch = vec![Complex::new(0.0, 0.0); fft.get_inplace_scratch_len()];
+        let window = hann(n);
+        let w1: f64 = window.iter().map(|w| *w as f64).sum();
         Self {
             n,
             fft,
-            window: hann(n),
+            window,
+            window_sum: w1 * w1,
             buf: vec![Complex::new(0.0, 0.0); n * n],
             tr: vec![Complex::new(0.0, 0.0); n * n],
             scratch,
@@ -45,19 +50,19 @@ impl SpectrumAnalyser {
     /// index k stands for frequency k/n when k < n/2, (k - n)/n otherwise).
     pub fn power(&mut self, img: &[f32], stride: usize, x0: usize, y0: usize, out: &mut Vec<f64>) {
         let n = self.n;
-        let mut wsum = 0.0f64;
+        // Windowed mean: sum over rows of w[y] x (sum over the row of w[x] v).
         let mut wxsum = 0.0f64;
         for y in 0..n {
             let row = &img[(y0 + y) * stride + x0..(y0 + y) * stride + x0 + n];
-            let wy = self.window[y];
-            for (x, v) in row.iter().enumerate() {
-                let w = (wy * self.window[x]) as f64;
-                wsum += w;
-                wxsum += w * *v as f64;
-            }
+            let s: f64 = row
+                .iter()
+                .zip(&self.window)
+                .map(|(v, w)| *v as f64 * *w as f64)
+                .sum();
+            wxsum += self.window[y] as f64 * s;
         }
-        let mean = if wsum > 0.0 {
-            (wxsum / wsum) as f32
+        let mean = if self.window_sum > 0.0 {
+            (wxsum / self.window_sum) as f32
         } else {
             0.0
         };
@@ -69,20 +74,26 @@ impl SpectrumAnalyser {
                 *d = Complex::new((v - mean) * wy * wx, 0.0);
             }
         }
-        self.transform();
-        out.clear();
-        out.extend(self.buf.iter().map(|c| c.norm_sqr() as f64));
-    }
-
-    /// In-place 2D FFT of `buf`: rows, transpose, rows, transpose back.
-    fn transform(&mut self) {
+        // Rows, transpose, rows: `tr` then holds the spectrum transposed
+        // ([u * n + v]); the power is read out of it in blocks.
         let n = self.n;
         self.fft
             .process_with_scratch(&mut self.buf, &mut self.scratch);
         transpose(&self.buf, &mut self.tr, n);
         self.fft
             .process_with_scratch(&mut self.tr, &mut self.scratch);
-        transpose(&self.tr, &mut self.buf, n);
+        out.clear();
+        out.resize(n * n, 0.0);
+        const B: usize = 16;
+        for bv in (0..n).step_by(B) {
+            for bu in (0..n).step_by(B) {
+                for v in bv..(bv + B).min(n) {
+                    for u in bu..(bu + B).min(n) {
+                        out[v * n + u] = self.tr[u * n + v].norm_sqr() as f64;
+                    }
+                }
+            }
+        }
     }
 }
 
