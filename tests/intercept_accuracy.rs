@@ -144,6 +144,50 @@ fn columnar_targets_on_seed_2026() {
     );
 }
 
+/// Nearest-rank 90th percentile of |error| with images without a value
+/// counted as failures (an infinite error), as the targets require.
+fn p90_with_nulls(errs: &[Option<f64>]) -> f64 {
+    let mut v: Vec<f64> = errs
+        .iter()
+        .map(|e| e.map_or(f64::INFINITY, f64::abs))
+        .collect();
+    v.sort_by(|a, b| a.total_cmp(b));
+    let k = ((0.9 * v.len() as f64).ceil() as usize).clamp(1, v.len());
+    v[k - 1]
+}
+
+#[test]
+fn columnar_targets_on_seed_4040() {
+    // An independent set (not used while the method was developed before
+    // issue #5; 48 images as `armspace synth --seed 4040 --count 48` writes
+    // them, 24 columnar). Targets of the method's brief (issue #5): median
+    // |relative error| <= 3 %, 90th percentile <= 7 % with an image
+    // without a value counted as a failure, mean signed error within 1.5 %.
+    // Before the pooled recount used the stereological arm run and a fixed
+    // point for the period, two fine etched images read +9 % and +20 %.
+    let results = run(4040, 48, &InterceptParams::default());
+    print_all(&results);
+    let col = errors(&results, Morphology::Columnar, None);
+    let f = report("seed 4040 columnar", &col);
+    report(
+        "seed 4040 equiaxed",
+        &errors(&results, Morphology::Equiaxed, None),
+    );
+    assert_eq!(f.nulls, 0, "columnar images without a value");
+    assert!(
+        f.median_abs <= 0.03,
+        "median |error| {:.2} %",
+        100.0 * f.median_abs
+    );
+    let p90 = p90_with_nulls(&col);
+    assert!(p90 <= 0.07, "p90 |error| {:.2} %", 100.0 * p90);
+    assert!(
+        f.mean_signed.abs() <= 0.015,
+        "mean signed error {:+.2} %",
+        100.0 * f.mean_signed
+    );
+}
+
 #[test]
 #[ignore = "survey over several seed sets; run with --ignored --nocapture"]
 fn survey_seed_sets() {
@@ -159,9 +203,12 @@ fn survey_seed_sets() {
         .split(',')
         .map(|s| s.parse().unwrap())
         .collect();
+    let count: usize = std::env::var("COUNT")
+        .map(|c| c.parse().unwrap())
+        .unwrap_or(24);
     let mut all = Vec::new();
     for seed in seeds {
-        let results = run(seed, 24, &params);
+        let results = run(seed, count, &params);
         if std::env::var("VERBOSE").is_ok() {
             print_all(&results);
         }

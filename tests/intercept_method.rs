@@ -5,7 +5,7 @@
 use armspace::calibrate::scale_bar;
 use armspace::load::GrayImage;
 use armspace::methods::intercept::{
-    count_runs, measure, runs_of_profile, Convention, InterceptParams,
+    count_runs, measure, merge_grazing_runs, runs_of_profile, Convention, InterceptParams,
 };
 use armspace::preprocess::{prepare, Prepared, PreprocessParams};
 use armspace::stats::{measurements_for_target, t_quantile, Summary};
@@ -217,4 +217,31 @@ fn lines_needed_for_a_target_relative_accuracy() {
     // A target already met needs no more than the lines there are.
     assert!(measurements_for_target(&s, 30.0).unwrap() <= 5);
     assert_eq!(measurements_for_target(&s, 0.0), None);
+}
+
+#[test]
+fn grazing_runs_are_merged_and_crossings_kept() {
+    // Worked by hand. A field sampled every 1 px, threshold 0.5:
+    //   index: 0    1    2    3    4    5    6    7    8    9    10
+    //   value: 0.0  0.0  1.0  1.0  0.0  0.0  0.6  0.45 0.6  0.0  0.0
+    // Runs (linear-interpolated crossings of 0.5):
+    //   gap [0, 1.5]  arm [1.5, 3.5]  gap [3.5, 5+5/6]
+    //   arm [5+5/6, 6+0.1/0.15]  gap [6+2/3, 7+1/3]  arm [7+1/3, 8+1/6]  gap [8+1/6, 10]
+    // Depths (farthest the field gets from 0.5 inside the run): the arm at
+    // 2-3 reaches 1.0 (0.5); the three runs about index 7 reach 0.6, 0.45
+    // and 0.6 (depths 0.1, 0.05, 0.1), all under 0.183: the line grazed a
+    // boundary there. The shallowest (the gap at index 7) goes first and its
+    // arms either side become one arm [5+5/6, 8+1/6] of depth 0.1, which is
+    // merged in turn with the gaps either side of it: one gap [3.5, 10].
+    let v = [0.0f32, 0.0, 1.0, 1.0, 0.0, 0.0, 0.6, 0.45, 0.6, 0.0, 0.0];
+    let mut runs = runs_of_profile(&v, 1.0, 0.5, false);
+    assert_eq!(runs.len(), 7);
+    merge_grazing_runs(&mut runs, &v, 1.0, 0.183);
+    assert_eq!(runs.len(), 3, "{runs:?}");
+    assert!(runs[1].fg && (runs[1].start - 1.5).abs() < 1e-9 && (runs[1].end - 3.5).abs() < 1e-9);
+    assert!(!runs[2].fg && (runs[2].start - 3.5).abs() < 1e-9 && (runs[2].end - 10.0).abs() < 1e-9);
+    // A zero depth merges nothing.
+    let mut again = runs_of_profile(&v, 1.0, 0.5, false);
+    merge_grazing_runs(&mut again, &v, 1.0, 0.0);
+    assert_eq!(again.len(), 7);
 }

@@ -41,7 +41,10 @@
 //!    as independent measurements); at most `max_line_spacings` long.
 //! 5. **Counting**: the phase field is sampled every half pixel along the
 //!    line (bilinear); boundaries are the linear-interpolated crossings of
-//!    0.5. Runs of either phase shorter than `min_run_px`, and then than
+//!    0.5. Runs in which the field never gets `min_crossing_depth` away
+//!    from 0.5 are the line grazing a boundary, not crossing a particle, and
+//!    are merged into their neighbours ([`merge_grazing_runs`]). Runs of
+//!    either phase shorter than `min_run_px`, and then than
 //!    `min_run_fraction` of the line's median period, are noise and are
 //!    merged into their neighbours. Touching arms are split at necks in the
 //!    grey profile (see `split_necks`). Arm centres are the centres of the
@@ -59,7 +62,11 @@
 //!    the coefficient of variation of its periods exceeds `max_period_cv`.
 //!    Each line is counted first with its own w and m (w + median gap), then
 //!    recounted with w and m pooled over all the image's lines, which a few
-//!    merged or missing arms cannot pull.
+//!    merged or missing arms cannot pull: w is the line fraction of the arm
+//!    phase times m (stereology, unaffected by touching arms), and m is
+//!    the fixed point of recounting with it (see `recount_pooled`), so that
+//!    arms merged by the optical blur throughout a field do not bias the
+//!    very rule that splits them.
 //! 7. **Spacing of a line** ([`Convention`]): centre-to-centre L/(n-1), the
 //!    distance between the first and last arm centres over the number of
 //!    spacings between them; or L/n, the length of a line drawn from the
@@ -156,6 +163,17 @@ pub struct InterceptParams {
     /// noise: an arm row with phase fraction f has runs f x lambda and gaps
     /// (1 - f) x lambda, both above 0.15 lambda for f in 0.15-0.85.
     pub min_run_fraction: f64,
+    /// Least depth of a run in the phase field (how far the smoothed
+    /// foreground indicator gets from the 0.5 level inside it) for the run
+    /// to be a crossing of a particle. A line that runs along a phase
+    /// boundary sees the field wander about 0.5 and cuts it into short
+    /// alternating runs that look like a fine, regular row. A particle of
+    /// width d crossed squarely reaches erf(d / (2 sqrt 2 sigma)) after the
+    /// segmentation's pre-smoothing sigma = 1 px; the default 0.183 is
+    /// that level for d = 2 px (erf(1/sqrt 2) - 0.5), the narrowest
+    /// particle a 1 px Gaussian leaves resolved (its full width at half
+    /// maximum is 2.35 px). Shallower runs are merged into their neighbours.
+    pub min_crossing_depth: f64,
 }
 
 impl Default for InterceptParams {
@@ -175,6 +193,7 @@ impl Default for InterceptParams {
             max_period_cv: 0.4,
             min_run_px: 1.0,
             min_run_fraction: 0.15,
+            min_crossing_depth: 0.183,
         }
     }
 }
@@ -329,26 +348,120 @@ pub fn measure(img: &Prepared, params: &InterceptParams) -> InterceptOutcome {
     aggregate(recount_pooled(&field, lines, params))
 }
 
-/// Recounts every line with the arm run length and period pooled over all
-/// lines of the image (medians of the lines' single-arm run lengths and of
-/// all their periods). One line holds a handful of arms, so its own medians
-/// are easily pulled by two or three merged or missing arms, and then the
-/// split and gap rules (module docs, step 6) misjudge; the image's medians,
-/// over hundreds of arms, are not. Lines that no longer pass are dropped.
+/// Recounts every line with the arm run length `w` and period `m` pooled
+/// over all lines of the image (module docs, step 6). One line holds a
+/// handful of arms, so its own medians are easily pulled by two or three
+/// merged or missing arms, and then the split and gap rules misjudge; the
+/// image's, over hundreds of arms, are not. Lines that no longer pass are
+/// dropped.
+///
+/// The pooled values must not be taken from the very counts they correct.
+/// Where the optical blur closes the narrow channels between neighbouring
+/// arms, many arm runs are merged pairs; the median run and the median
+/// period of the first counts then read high together, the rule "a run
+/// longer than w + m/2 holds two arms" stops catching the pairs, and every
+/// line reads long by the same amount. So:
+///
+/// * `w = L_L x m`, with `L_L` the fraction of the counted lines' length in
+///   the arm phase. Along a row with one arm per period, the mean arm
+///   intercept is the line fraction times the period, whether or not
+///   neighbours touch (the line fraction equals the area fraction,
+///   L_L = A_A: A. Rosiwal 1898; E. E. Underwood, "Quantitative
+///   Stereology", Addison-Wesley 1970, chapter 2, from memory). A merged
+///   pair therefore no longer raises `w`.
+/// * `m` is the fixed point of "recount every line with (L_L m, m), take
+///   the median of the recounted periods", started from the first counts'
+///   median. Each recount splits the pairs that the previous `m` missed,
+///   which lowers the next `m`; a recount that splits nothing more gives
+///   back the same `m` (within 0.5 %, a tenth of the spacing scatter a line
+///   resolves) and the iteration stops. The count decides every period, so
+///   the value is still an intercept count, not a fitted number. At most
+///   [`MAX_POOL_ITERATIONS`] rounds; the last recount is used.
+/// * The iteration may lower `m` to no less than 2/3 of the first counts'
+///   median: below that, more than a third of the arm positions would be
+///   ones the counts did not see, the limit beyond which a single line is
+///   already rejected (module docs, step 6). A field that runs past it
+///   (typically a couple of short lines whose splits feed on themselves) is
+///   recounted once with the first counts' medians of `w` and `m`, as
+///   without the iteration.
 fn recount_pooled(field: &PhaseField, lines: Vec<Traced>, p: &InterceptParams) -> Vec<Line> {
-    let w = stats::median(&lines.iter().map(|t| t.count.arm_run_px).collect::<Vec<_>>());
     let periods: Vec<f64> = lines
         .iter()
         .flat_map(|t| t.count.periods_px.iter().copied())
         .collect();
-    let m = stats::median(&periods);
-    match (w, m) {
-        (Some(w), Some(m)) if lines.len() >= 2 && m > 0.0 && w > 0.0 && w < m => lines
+    let extents: Vec<Segment> = lines
+        .iter()
+        .map(|t| ((t.line.x0_px, t.line.y0_px), (t.line.x1_px, t.line.y1_px)))
+        .collect();
+    let w_counts = stats::median(&lines.iter().map(|t| t.count.arm_run_px).collect::<Vec<_>>());
+    let recount = |wm: (f64, f64)| -> Vec<(Line, Count)> {
+        lines
             .iter()
-            .filter_map(|t| count_line(field, t.a, t.b, p, Some((w, m))).map(|(l, _)| l))
-            .collect(),
-        _ => lines.into_iter().map(|t| t.line).collect(),
+            .filter_map(|t| count_line(field, t.a, t.b, p, Some(wm)))
+            .collect()
+    };
+    let (Some(m0), Some(w0)) = (stats::median(&periods), w_counts) else {
+        return lines.into_iter().map(|t| t.line).collect();
+    };
+    if lines.len() < 2 || m0 <= 0.0 || w0 <= 0.0 || w0 >= m0 {
+        return lines.into_iter().map(|t| t.line).collect();
     }
+    let once = || recount((w0, m0)).into_iter().map(|(l, _)| l).collect();
+    let Some(frac) = arm_line_fraction(field, &extents).filter(|f| *f > 0.0 && *f < 1.0) else {
+        return once();
+    };
+    let m_floor = m0 * 2.0 / 3.0;
+    let mut m = m0;
+    let mut out = Vec::new();
+    for _ in 0..MAX_POOL_ITERATIONS {
+        let counted = recount((frac * m, m));
+        let periods: Vec<f64> = counted
+            .iter()
+            .flat_map(|(_, c)| c.periods_px.iter().copied())
+            .collect();
+        let next = stats::median(&periods);
+        out = counted.into_iter().map(|(l, _)| l).collect();
+        match next {
+            Some(mn) if mn < m_floor => return once(),
+            Some(mn) if (mn / m - 1.0).abs() > 0.005 => m = mn,
+            _ => break,
+        }
+    }
+    out
+}
+
+/// A straight segment between two points, pixel coordinates.
+type Segment = ((f64, f64), (f64, f64));
+
+/// Most rounds of the pooled recount. Each round that changes `m` splits
+/// or joins arms; on real rows it settles in two or three, so eight only
+/// bounds the time of a field that keeps alternating between two counts.
+const MAX_POOL_ITERATIONS: usize = 8;
+
+/// Fraction of the length of the given segments (sampled every half pixel)
+/// that lies in the arm phase (phase field above 0.5). `None` without samples.
+fn arm_line_fraction(field: &PhaseField, segments: &[Segment]) -> Option<f64> {
+    let step = 0.5;
+    let (mut fg, mut total) = (0usize, 0usize);
+    for &(a, b) in segments {
+        let len = (b.0 - a.0).hypot(b.1 - a.1);
+        if !len.is_finite() {
+            continue;
+        }
+        let n = (len / step).floor() as usize + 1;
+        let (ux, uy) = if len > 0.0 {
+            ((b.0 - a.0) / len, (b.1 - a.1) / len)
+        } else {
+            (0.0, 0.0)
+        };
+        for k in 0..n {
+            let s = k as f64 * step;
+            let v = bilinear(&field.v, field.w, field.h, a.0 + s * ux, a.1 + s * uy);
+            fg += (v > 0.5) as usize;
+        }
+        total += n;
+    }
+    (total > 0).then(|| fg as f64 / total as f64)
 }
 
 fn aggregate(lines: Vec<Line>) -> InterceptOutcome {
@@ -749,6 +862,51 @@ pub fn merge_short_runs(runs: &mut Vec<Run>, min_len: f64) {
     }
 }
 
+/// Merges runs whose phase field (`values`, samples `step` apart) never gets
+/// farther than `min_dev` from the 0.5 level into their neighbours, least
+/// deep first, until none is left: the line grazed a boundary there, or
+/// crossed a sliver narrower than the pre-smoothing resolves, and crossed no
+/// particle (see [`InterceptParams::min_crossing_depth`]). `min_dev <= 0`
+/// merges nothing.
+pub fn merge_grazing_runs(runs: &mut Vec<Run>, values: &[f32], step: f64, min_dev: f32) {
+    if values.is_empty() || min_dev <= 0.0 {
+        return;
+    }
+    let depth = |r: &Run| -> f32 {
+        let k0 = ((r.start / step).ceil() as usize).min(values.len().saturating_sub(1));
+        let k1 = ((r.end / step).floor() as usize).min(values.len().saturating_sub(1));
+        values[k0..=k1.max(k0)]
+            .iter()
+            .map(|v| if r.fg { v - 0.5 } else { 0.5 - v })
+            .fold(0.0f32, f32::max)
+    };
+    loop {
+        if runs.len() < 2 {
+            return;
+        }
+        let mut best: Option<(usize, f32)> = None;
+        for (i, r) in runs.iter().enumerate() {
+            let d = depth(r);
+            if d < min_dev && best.is_none_or(|(_, b)| d < b) {
+                best = Some((i, d));
+            }
+        }
+        let Some((i, _)) = best else {
+            return;
+        };
+        if i == 0 {
+            runs[1].start = runs[0].start;
+            runs.remove(0);
+        } else if i == runs.len() - 1 {
+            runs[i - 1].end = runs[i].end;
+            runs.pop();
+        } else {
+            runs[i - 1].end = runs[i + 1].end;
+            runs.drain(i..=i + 1);
+        }
+    }
+}
+
 /// The count of one line (or piece of a line): positions along it.
 #[derive(Clone, Debug, PartialEq)]
 pub struct Count {
@@ -1055,7 +1213,8 @@ fn count_line(
             bilinear(&seg.grey, w, h, a.0 + s * ux, a.1 + s * uy)
         })
         .collect();
-    let runs = runs_of_profile(&values, step, 0.5, false);
+    let mut runs = runs_of_profile(&values, step, 0.5, false);
+    merge_grazing_runs(&mut runs, &values, step, p.min_crossing_depth as f32);
     let sampled = (n - 1) as f64 * step;
     let necks = Necks {
         grey: &grey,
