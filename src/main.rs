@@ -343,6 +343,15 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
             return ExitCode::from(EXIT_USAGE);
         }
     };
+    if let (Some(csv), Some(out)) = (&args.csv, &args.out) {
+        if csv == out {
+            eprintln!(
+                "armspace: --csv and --out name the same file ({}); give each its own",
+                csv.display()
+            );
+            return ExitCode::from(EXIT_USAGE);
+        }
+    }
     let spec = match args
         .spec
         .as_deref()

@@ -284,6 +284,10 @@ fn exit_statuses_tell_the_casting_from_the_tool() {
     let run = measure(d, &["--spec", "/no/such/spec.json"]);
     assert_eq!(run.code, 2, "{}", run.stderr);
     assert!(run.stderr.contains("/no/such/spec.json"));
+    let same = path_str(&specs.path().join("both.json"));
+    let run = measure(d, &["--csv", &same, "--out", &same]);
+    assert_eq!(run.code, 2, "{}", run.stderr);
+    assert!(run.stderr.contains("same file"), "{}", run.stderr);
     let run = measure(d, &["--csv", "/no/such/folder/out.csv"]);
     assert_eq!(run.code, 1, "{}", run.stderr);
     assert!(run.stderr.contains("out.csv"), "{}", run.stderr);
