@@ -121,16 +121,31 @@ pub fn box_widths(sigma: f64, n: usize) -> Vec<usize> {
 /// each box averages only the samples inside the image.
 pub fn gaussian_blur(data: &[f32], width: usize, height: usize, sigma: f64) -> Vec<f32> {
     let mut out = data.to_vec();
+    gaussian_blur_in_place(&mut out, &mut Vec::new(), width, height, sigma);
+    out
+}
+
+/// [`gaussian_blur`] of `data` in place, with `tmp` as scratch (resized as
+/// needed): callers that blur several images of one size, or own an image
+/// they no longer need, avoid allocating (and the kernel zeroing) a fresh
+/// copy and scratch buffer of the whole image per blur. Same result, bit for
+/// bit.
+pub fn gaussian_blur_in_place(
+    data: &mut [f32],
+    tmp: &mut Vec<f32>,
+    width: usize,
+    height: usize,
+    sigma: f64,
+) {
     if sigma <= 0.0 || width == 0 || height == 0 {
-        return out;
+        return;
     }
-    let mut tmp = vec![0.0f32; data.len()];
+    tmp.resize(data.len(), 0.0);
     for w in box_widths(sigma, 3) {
         let r = w / 2;
-        box_rows(&out, &mut tmp, width, height, r);
-        box_cols(&tmp, &mut out, width, height, r);
+        box_rows(data, tmp, width, height, r);
+        box_cols(tmp, data, width, height, r);
     }
-    out
 }
 
 /// Normalised convolution: blur of the unmasked values divided by the blur of
@@ -142,15 +157,15 @@ pub fn masked_gaussian_blur(
     height: usize,
     sigma: f64,
 ) -> Vec<f32> {
-    let valid: Vec<f32> = mask.iter().map(|&m| if m { 0.0 } else { 1.0 }).collect();
-    let weighted: Vec<f32> = data.iter().zip(&valid).map(|(v, w)| v * w).collect();
-    let num = gaussian_blur(&weighted, width, height, sigma);
-    let den = gaussian_blur(&valid, width, height, sigma);
-    num.iter()
-        .zip(&den)
-        .zip(data)
-        .map(|((n, d), v)| if *d > 1e-6 { n / d } else { *v })
-        .collect()
+    let mut den: Vec<f32> = mask.iter().map(|&m| if m { 0.0 } else { 1.0 }).collect();
+    let mut num: Vec<f32> = data.iter().zip(&den).map(|(v, w)| v * w).collect();
+    let mut tmp = Vec::new();
+    gaussian_blur_in_place(&mut num, &mut tmp, width, height, sigma);
+    gaussian_blur_in_place(&mut den, &mut tmp, width, height, sigma);
+    for ((n, d), v) in num.iter_mut().zip(&den).zip(data) {
+        *n = if *d > 1e-6 { *n / d } else { *v };
+    }
+    num
 }
 
 fn box_rows(src: &[f32], dst: &mut [f32], width: usize, height: usize, r: usize) {

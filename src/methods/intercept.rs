@@ -82,7 +82,7 @@
 //!    a Student-t 95 % interval ([`Summary`]). Fewer than two lines give no
 //!    value.
 
-use crate::preprocess::{gaussian_blur, Prepared};
+use crate::preprocess::{gaussian_blur_in_place, Prepared};
 use crate::segment::{segment, SegmentParams, Segmentation};
 use crate::stats::{self, Summary};
 
@@ -553,11 +553,17 @@ impl Tensor {
                 yy[i] = gy * gy;
             }
         }
+        // Blurred in place with one scratch buffer: no copies of the three
+        // products (same values as blurring copies).
+        let mut tmp = Vec::new();
+        for j in [&mut xx, &mut xy, &mut yy] {
+            gaussian_blur_in_place(j, &mut tmp, w, h, sigma);
+        }
         Self {
             w,
-            jxx: gaussian_blur(&xx, w, h, sigma),
-            jxy: gaussian_blur(&xy, w, h, sigma),
-            jyy: gaussian_blur(&yy, w, h, sigma),
+            jxx: xx,
+            jxy: xy,
+            jyy: yy,
         }
     }
 
@@ -606,11 +612,13 @@ struct PhaseField {
 }
 
 fn phase_field(seg: &Segmentation, sigma: f64) -> PhaseField {
-    let ind: Vec<f32> = seg
+    let mut ind: Vec<f32> = seg
         .foreground
         .iter()
         .map(|&f| if f { 1.0 } else { 0.0 })
         .collect();
+    let (w, h) = (seg.width, seg.height);
+    gaussian_blur_in_place(&mut ind, &mut Vec::new(), w, h, sigma.max(0.5));
     let sign = if seg.inverted { -1.0f32 } else { 1.0 };
     let grey: Vec<f32> = seg.smoothed.iter().map(|v| sign * v).collect();
     let mut arm: Vec<f32> = grey
@@ -624,7 +632,7 @@ fn phase_field(seg: &Segmentation, sigma: f64) -> PhaseField {
     PhaseField {
         w: seg.width,
         h: seg.height,
-        v: gaussian_blur(&ind, seg.width, seg.height, sigma.max(0.5)),
+        v: ind,
         grey,
         neck_depth: 0.5 * (level - sign * seg.threshold).max(0.0),
     }
