@@ -288,6 +288,12 @@ pub fn measure(img: &Prepared, params: &InterceptParams) -> InterceptOutcome {
         );
     }
     let field = phase_field(&seg, params.segment.smooth_sigma_px);
+    let grads = GradientProducts::new(
+        &field.v,
+        img.mask.as_deref().filter(|m| m.len() == w * h),
+        w,
+        h,
+    );
     let median_of = |lines: &[Traced]| -> Option<f64> {
         if lines.len() < 2 {
             return None;
@@ -312,7 +318,7 @@ pub fn measure(img: &Prepared, params: &InterceptParams) -> InterceptOutcome {
     let mut best: Option<(f64, f64, Vec<Traced>)> = None;
     let mut fallback: Vec<Traced> = Vec::new();
     for &scale in &scales {
-        let lines = lay_lines(img, &field, scale, params);
+        let lines = lay_lines(img, &field, &grads, scale, params);
         let Some(m) = median_of(&lines) else {
             if lines.len() > fallback.len() {
                 fallback = lines;
@@ -333,7 +339,7 @@ pub fn measure(img: &Prepared, params: &InterceptParams) -> InterceptOutcome {
         Some((misfit, m, lines)) => {
             if hint.is_none() && misfit > 1.2f64.ln() && (2.0..=max_scale).contains(&m) {
                 // Repeat at the measured scale.
-                let again = lay_lines(img, &field, m, params);
+                let again = lay_lines(img, &field, &grads, m, params);
                 if again.len() >= 2 {
                     again
                 } else {
@@ -533,10 +539,22 @@ struct Tensor {
     jyy: Vec<f32>,
 }
 
-impl Tensor {
+/// Products of the central-difference gradients (gx^2, gx gy, gy^2) of an
+/// image, before smoothing. They do not depend on the spacing scale, so
+/// they are computed once per image and only the smoothing is repeated for
+/// each scale tried.
+struct GradientProducts {
+    w: usize,
+    h: usize,
+    xx: Vec<f32>,
+    xy: Vec<f32>,
+    yy: Vec<f32>,
+}
+
+impl GradientProducts {
     /// Central-difference gradients of `data`; pixels whose stencil touches
     /// the mask or the border contribute nothing.
-    fn new(data: &[f32], mask: Option<&[bool]>, w: usize, h: usize, sigma: f64) -> Self {
+    fn new(data: &[f32], mask: Option<&[bool]>, w: usize, h: usize) -> Self {
         let n = w * h;
         let (mut xx, mut xy, mut yy) = (vec![0.0f32; n], vec![0.0f32; n], vec![0.0f32; n]);
         let masked = |i: usize| mask.is_some_and(|m| m[i]);
@@ -553,17 +571,25 @@ impl Tensor {
                 yy[i] = gy * gy;
             }
         }
-        // Blurred in place with one scratch buffer: no copies of the three
-        // products (same values as blurring copies).
+        Self { w, h, xx, xy, yy }
+    }
+}
+
+impl Tensor {
+    /// The gradient products smoothed by a Gaussian of `sigma` pixels.
+    fn new(g: &GradientProducts, sigma: f64) -> Self {
+        // Copies of the products blurred in place with one scratch buffer.
         let mut tmp = Vec::new();
-        for j in [&mut xx, &mut xy, &mut yy] {
-            gaussian_blur_in_place(j, &mut tmp, w, h, sigma);
-        }
+        let [jxx, jxy, jyy] = [&g.xx, &g.xy, &g.yy].map(|p| {
+            let mut j = p.clone();
+            gaussian_blur_in_place(&mut j, &mut tmp, g.w, g.h, sigma);
+            j
+        });
         Self {
-            w,
-            jxx: xx,
-            jxy: xy,
-            jyy: yy,
+            w: g.w,
+            jxx,
+            jxy,
+            jyy,
         }
     }
 
@@ -646,16 +672,16 @@ struct Traced {
     count: Count,
 }
 
-fn lay_lines(img: &Prepared, seg: &PhaseField, lambda: f64, p: &InterceptParams) -> Vec<Traced> {
+fn lay_lines(
+    img: &Prepared,
+    seg: &PhaseField,
+    grads: &GradientProducts,
+    lambda: f64,
+    p: &InterceptParams,
+) -> Vec<Traced> {
     let (w, h) = (seg.w, seg.h);
     let mask = img.mask.as_deref().filter(|m| m.len() == w * h);
-    let tensor = Tensor::new(
-        &seg.v,
-        mask,
-        w,
-        h,
-        (p.tensor_sigma_spacings * lambda).max(1.0),
-    );
+    let tensor = Tensor::new(grads, (p.tensor_sigma_spacings * lambda).max(1.0));
     let max_turn = p.max_turn_deg.to_radians();
     // Hint in image axes: y up -> y down flips the angle's sign.
     let hint = p
