@@ -676,14 +676,21 @@ const MAX_RELATIVE_WIDTH: f64 = 0.5;
 /// directions (a DFT spectrum), at (x, y) in bins.
 fn bilinear_periodic(grid: &[f64], n: usize, x: f64, y: f64) -> f64 {
     let ni = n as i64;
-    let g = |a: i64, b: i64| grid[(b.rem_euclid(ni) as usize) * n + a.rem_euclid(ni) as usize];
     let (x0, y0) = (x.floor(), y.floor());
     let (fx, fy) = (x - x0, y - y0);
-    let (xi, yi) = (x0 as i64, y0 as i64);
-    g(xi, yi) * (1.0 - fx) * (1.0 - fy)
-        + g(xi + 1, yi) * fx * (1.0 - fy)
-        + g(xi, yi + 1) * (1.0 - fx) * fy
-        + g(xi + 1, yi + 1) * fx * fy
+    // Wrapped once per axis (an integer division each); the next index
+    // wraps by comparison.
+    let (xa, ya) = (
+        (x0 as i64).rem_euclid(ni) as usize,
+        (y0 as i64).rem_euclid(ni) as usize,
+    );
+    let next = |a: usize| if a + 1 == n { 0 } else { a + 1 };
+    let (xb, yb) = (next(xa), next(ya));
+    let g = |a: usize, b: usize| grid[b * n + a];
+    g(xa, ya) * (1.0 - fx) * (1.0 - fy)
+        + g(xb, ya) * fx * (1.0 - fy)
+        + g(xa, yb) * (1.0 - fx) * fy
+        + g(xb, yb) * fx * fy
 }
 
 /// Relative radial half-power width of a peak: the distance, along the ray
