@@ -678,12 +678,16 @@ fn bilinear_periodic(grid: &[f64], n: usize, x: f64, y: f64) -> f64 {
     let ni = n as i64;
     let (x0, y0) = (x.floor(), y.floor());
     let (fx, fy) = (x - x0, y - y0);
-    // Wrapped once per axis (an integer division each); the next index
-    // wraps by comparison.
-    let (xa, ya) = (
-        (x0 as i64).rem_euclid(ni) as usize,
-        (y0 as i64).rem_euclid(ni) as usize,
-    );
+    // Wrapped once per axis, by an integer division only when the index is
+    // outside the grid; the next index wraps by comparison.
+    let wrap = |a: i64| {
+        if (0..ni).contains(&a) {
+            a as usize
+        } else {
+            a.rem_euclid(ni) as usize
+        }
+    };
+    let (xa, ya) = (wrap(x0 as i64), wrap(y0 as i64));
     let next = |a: usize| if a + 1 == n { 0 } else { a + 1 };
     let (xb, yb) = (next(xa), next(ya));
     let g = |a: usize, b: usize| grid[b * n + a];
