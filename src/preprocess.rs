@@ -137,12 +137,47 @@ pub fn gaussian_blur_in_place(
     height: usize,
     sigma: f64,
 ) {
+    blur_passes(data, tmp, width, height, sigma, false);
+}
+
+/// [`gaussian_blur_in_place`] of an image whose values are all 0.0 or 1.0
+/// (an indicator). Small sigmas give boxes of width 1 (sigma = 1: widths
+/// 1, 1, 3); a box of width 1 returns its input, and on such an image the
+/// running sums are sums of small integers, exact in f64, so it returns it
+/// bit for bit and is skipped (the phase field blurs such an image at
+/// sigma 1: four of its six passes). Same result as [`gaussian_blur_in_place`].
+pub fn gaussian_blur_indicator_in_place(
+    data: &mut [f32],
+    tmp: &mut Vec<f32>,
+    width: usize,
+    height: usize,
+    sigma: f64,
+) {
+    debug_assert!(data.iter().all(|v| v.to_bits() == 0 || *v == 1.0));
+    blur_passes(data, tmp, width, height, sigma, true);
+}
+
+fn blur_passes(
+    data: &mut [f32],
+    tmp: &mut Vec<f32>,
+    width: usize,
+    height: usize,
+    sigma: f64,
+    skip_width_one: bool,
+) {
     if sigma <= 0.0 || width == 0 || height == 0 {
         return;
     }
     tmp.resize(data.len(), 0.0);
+    // Width-1 boxes are skipped only while the image is still the indicator
+    // (`box_widths` puts the narrower boxes first).
+    let mut still_indicator = skip_width_one;
     for w in box_widths(sigma, 3) {
         let r = w / 2;
+        if r == 0 && still_indicator {
+            continue;
+        }
+        still_indicator = false;
         box_rows(data, tmp, width, height, r);
         box_cols(tmp, data, width, height, r);
     }
@@ -397,6 +432,26 @@ mod tests {
                     .all(|(a, b)| a.to_bits() == b.to_bits());
                 assert!(same, "{w}x{h} r {r}");
             }
+        }
+    }
+
+    #[test]
+    fn indicator_blur_skips_only_identity_passes() {
+        // A 0/1 image blurred with and without skipping the width-1 boxes:
+        // bit for bit the same (sigma 1 has widths 1, 1, 3; 0.5 only 1s).
+        let (w, h) = (41, 23);
+        let ind: Vec<f32> = (0..w * h)
+            .map(|i| if (i * 7919) % 13 < 6 { 1.0 } else { 0.0 })
+            .collect();
+        for sigma in [0.5, 1.0, 1.5, 3.0] {
+            let full = gaussian_blur(&ind, w, h, sigma);
+            let mut skipped = ind.clone();
+            gaussian_blur_indicator_in_place(&mut skipped, &mut Vec::new(), w, h, sigma);
+            let same = full
+                .iter()
+                .zip(&skipped)
+                .all(|(a, b)| a.to_bits() == b.to_bits());
+            assert!(same, "sigma {sigma}");
         }
     }
 

@@ -82,7 +82,7 @@
 //!    a Student-t 95 % interval ([`Summary`]). Fewer than two lines give no
 //!    value.
 
-use crate::preprocess::{gaussian_blur_in_place, Prepared};
+use crate::preprocess::{gaussian_blur_in_place, gaussian_blur_indicator_in_place, Prepared};
 use crate::segment::{segment, SegmentParams, Segmentation};
 use crate::stats::{self, Summary};
 
@@ -644,7 +644,7 @@ fn phase_field(seg: &Segmentation, sigma: f64) -> PhaseField {
         .map(|&f| if f { 1.0 } else { 0.0 })
         .collect();
     let (w, h) = (seg.width, seg.height);
-    gaussian_blur_in_place(&mut ind, &mut Vec::new(), w, h, sigma.max(0.5));
+    gaussian_blur_indicator_in_place(&mut ind, &mut Vec::new(), w, h, sigma.max(0.5));
     let sign = if seg.inverted { -1.0f32 } else { 1.0 };
     let grey: Vec<f32> = seg.smoothed.iter().map(|v| sign * v).collect();
     let mut arm: Vec<f32> = grey
