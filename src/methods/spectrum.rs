@@ -103,12 +103,16 @@ impl SpectrumAnalyser {
             .process_with_scratch(&mut self.tr, &mut self.scratch);
         out.clear();
         out.resize(n * n, 0.0);
+        // Blocks of B x B; within a block each output row is a slice (one
+        // bounds check per row instead of two per element).
         const B: usize = 16;
         for bv in (0..n).step_by(B) {
             for bu in (0..n).step_by(B) {
+                let ue = (bu + B).min(n);
                 for v in bv..(bv + B).min(n) {
-                    for u in bu..(bu + B).min(n) {
-                        out[v * n + u] = self.tr[u * n + v].norm_sqr() as f64;
+                    let row = &mut out[v * n + bu..v * n + ue];
+                    for (o, u) in row.iter_mut().zip(bu..ue) {
+                        *o = self.tr[u * n + v].norm_sqr() as f64;
                     }
                 }
             }
@@ -120,9 +124,11 @@ fn transpose(src: &[Complex<f32>], dst: &mut [Complex<f32>], n: usize) {
     const B: usize = 16;
     for by in (0..n).step_by(B) {
         for bx in (0..n).step_by(B) {
+            let xe = (bx + B).min(n);
             for y in by..(by + B).min(n) {
-                for x in bx..(bx + B).min(n) {
-                    dst[x * n + y] = src[y * n + x];
+                let row = &src[y * n + bx..y * n + xe];
+                for (v, x) in row.iter().zip(bx..xe) {
+                    dst[x * n + y] = *v;
                 }
             }
         }
