@@ -121,16 +121,66 @@ pub fn box_widths(sigma: f64, n: usize) -> Vec<usize> {
 /// each box averages only the samples inside the image.
 pub fn gaussian_blur(data: &[f32], width: usize, height: usize, sigma: f64) -> Vec<f32> {
     let mut out = data.to_vec();
-    if sigma <= 0.0 {
-        return out;
+    gaussian_blur_in_place(&mut out, &mut Vec::new(), width, height, sigma);
+    out
+}
+
+/// [`gaussian_blur`] of `data` in place, with `tmp` as scratch (resized as
+/// needed): callers that blur several images of one size, or own an image
+/// they no longer need, avoid allocating (and the kernel zeroing) a fresh
+/// copy and scratch buffer of the whole image per blur. Same result, bit for
+/// bit.
+pub fn gaussian_blur_in_place(
+    data: &mut [f32],
+    tmp: &mut Vec<f32>,
+    width: usize,
+    height: usize,
+    sigma: f64,
+) {
+    blur_passes(data, tmp, width, height, sigma, false);
+}
+
+/// [`gaussian_blur_in_place`] of an image whose values are all 0.0 or 1.0
+/// (an indicator). Small sigmas give boxes of width 1 (sigma = 1: widths
+/// 1, 1, 3); a box of width 1 returns its input, and on such an image the
+/// running sums are sums of small integers, exact in f64, so it returns it
+/// bit for bit and is skipped (the phase field blurs such an image at
+/// sigma 1: four of its six passes). Same result as [`gaussian_blur_in_place`].
+pub fn gaussian_blur_indicator_in_place(
+    data: &mut [f32],
+    tmp: &mut Vec<f32>,
+    width: usize,
+    height: usize,
+    sigma: f64,
+) {
+    debug_assert!(data.iter().all(|v| v.to_bits() == 0 || *v == 1.0));
+    blur_passes(data, tmp, width, height, sigma, true);
+}
+
+fn blur_passes(
+    data: &mut [f32],
+    tmp: &mut Vec<f32>,
+    width: usize,
+    height: usize,
+    sigma: f64,
+    skip_width_one: bool,
+) {
+    if sigma <= 0.0 || width == 0 || height == 0 {
+        return;
     }
-    let mut tmp = vec![0.0f32; data.len()];
+    tmp.resize(data.len(), 0.0);
+    // Width-1 boxes are skipped only while the image is still the indicator
+    // (`box_widths` puts the narrower boxes first).
+    let mut still_indicator = skip_width_one;
     for w in box_widths(sigma, 3) {
         let r = w / 2;
-        box_rows(&out, &mut tmp, width, height, r);
-        box_cols(&tmp, &mut out, width, height, r);
+        if r == 0 && still_indicator {
+            continue;
+        }
+        still_indicator = false;
+        box_rows(data, tmp, width, height, r);
+        box_cols(tmp, data, width, height, r);
     }
-    out
 }
 
 /// Normalised convolution: blur of the unmasked values divided by the blur of
@@ -142,28 +192,45 @@ pub fn masked_gaussian_blur(
     height: usize,
     sigma: f64,
 ) -> Vec<f32> {
-    let valid: Vec<f32> = mask.iter().map(|&m| if m { 0.0 } else { 1.0 }).collect();
-    let weighted: Vec<f32> = data.iter().zip(&valid).map(|(v, w)| v * w).collect();
-    let num = gaussian_blur(&weighted, width, height, sigma);
-    let den = gaussian_blur(&valid, width, height, sigma);
-    num.iter()
-        .zip(&den)
-        .zip(data)
-        .map(|((n, d), v)| if *d > 1e-6 { n / d } else { *v })
-        .collect()
+    let mut den: Vec<f32> = mask.iter().map(|&m| if m { 0.0 } else { 1.0 }).collect();
+    let mut num: Vec<f32> = data.iter().zip(&den).map(|(v, w)| v * w).collect();
+    let mut tmp = Vec::new();
+    gaussian_blur_in_place(&mut num, &mut tmp, width, height, sigma);
+    gaussian_blur_in_place(&mut den, &mut tmp, width, height, sigma);
+    for ((n, d), v) in num.iter_mut().zip(&den).zip(data) {
+        *n = if *d > 1e-6 { *n / d } else { *v };
+    }
+    num
 }
 
 fn box_rows(src: &[f32], dst: &mut [f32], width: usize, height: usize, r: usize) {
-    // Rows in groups of ROWS: the same running sums as `box_1d`, row by row,
-    // interleaved so that the independent sums proceed side by side (the
-    // running sum of one row is a serial chain of additions).
-    const ROWS: usize = 4;
+    // Rows in blocks of ROWS, transposed into a column-major tile so that
+    // the running sums of the block's rows sit side by side in memory and
+    // proceed as vector operations (the running sum of one row is a serial
+    // chain of additions, and its division per pixel is the slowest step).
+    // Every row still sees exactly the operations of `box_1d`, in the same
+    // order, so the result is bit for bit the same.
+    const ROWS: usize = 8;
     let groups = height / ROWS;
+    let mut tile = vec![0.0f64; width * ROWS];
+    let mut out = vec![0.0f32; width * ROWS];
     for g in 0..groups {
         let y0 = g * ROWS;
         let src_g = &src[y0 * width..(y0 + ROWS) * width];
+        // Column by column, so the tile is written in order (the source is
+        // read in ROWS short streams).
+        for (x, t) in tile.chunks_exact_mut(ROWS).enumerate() {
+            for (k, v) in t.iter_mut().enumerate() {
+                *v = src_g[k * width + x] as f64;
+            }
+        }
+        box_1d_tile::<ROWS>(&tile, &mut out, width, r);
         let dst_g = &mut dst[y0 * width..(y0 + ROWS) * width];
-        box_1d_rows::<ROWS>(src_g, dst_g, width, r);
+        for (x, o) in out.chunks_exact(ROWS).enumerate() {
+            for (k, v) in o.iter().enumerate() {
+                dst_g[k * width + x] = *v;
+            }
+        }
     }
     for y in groups * ROWS..height {
         let row = &src[y * width..(y + 1) * width];
@@ -172,31 +239,34 @@ fn box_rows(src: &[f32], dst: &mut [f32], width: usize, height: usize, r: usize)
     }
 }
 
-/// `box_1d` on K consecutive rows of width `n` at once (same arithmetic,
-/// in the same order, for each row).
-fn box_1d_rows<const K: usize>(src: &[f32], dst: &mut [f32], n: usize, r: usize) {
+/// `box_1d` on K lines of length `n` at once, stored column-major in `tile`
+/// (sample x of line k at `x * K + k`; `out` likewise). Same arithmetic, in
+/// the same order, for each line.
+fn box_1d_tile<const K: usize>(tile: &[f64], out: &mut [f32], n: usize, r: usize) {
     let mut acc = [0.0f64; K];
     let mut count = 0usize;
+    let at = |x: usize| -> &[f64] { &tile[x * K..(x + 1) * K] };
     for x in 0..=r.min(n - 1) {
-        for (k, a) in acc.iter_mut().enumerate() {
-            *a += src[k * n + x] as f64;
+        for (a, v) in acc.iter_mut().zip(at(x)) {
+            *a += *v;
         }
         count += 1;
     }
     for x in 0..n {
-        for (k, a) in acc.iter().enumerate() {
-            dst[k * n + x] = (*a / count as f64) as f32;
+        let c = count as f64;
+        for (d, a) in out[x * K..(x + 1) * K].iter_mut().zip(&acc) {
+            *d = (*a / c) as f32;
         }
         let add = x + r + 1;
         if add < n {
-            for (k, a) in acc.iter_mut().enumerate() {
-                *a += src[k * n + add] as f64;
+            for (a, v) in acc.iter_mut().zip(at(add)) {
+                *a += *v;
             }
             count += 1;
         }
         if x >= r {
-            for (k, a) in acc.iter_mut().enumerate() {
-                *a -= src[k * n + x - r] as f64;
+            for (a, v) in acc.iter_mut().zip(at(x - r)) {
+                *a -= *v;
             }
             count -= 1;
         }
@@ -231,29 +301,59 @@ fn box_1d(src: &[f32], dst: &mut [f32], r: usize) {
 fn box_cols(src: &[f32], dst: &mut [f32], width: usize, height: usize, r: usize) {
     let mut acc = vec![0.0f64; width];
     let mut count = 0usize;
+    let row = |y: usize| &src[y * width..(y + 1) * width];
     for y in 0..=r.min(height - 1) {
-        for (a, v) in acc.iter_mut().zip(&src[y * width..(y + 1) * width]) {
+        for (a, v) in acc.iter_mut().zip(row(y)) {
             *a += *v as f64;
         }
         count += 1;
     }
     for y in 0..height {
         let inv = 1.0 / count as f64;
-        for (d, a) in dst[y * width..(y + 1) * width].iter_mut().zip(&acc) {
-            *d = (*a * inv) as f32;
-        }
+        let d_row = &mut dst[y * width..(y + 1) * width];
         let add = y + r + 1;
-        if add < height {
-            for (a, v) in acc.iter_mut().zip(&src[add * width..(add + 1) * width]) {
-                *a += *v as f64;
+        let add = (add < height).then(|| row(add));
+        let sub = (y >= r).then(|| row(y - r));
+        // One pass over the row per output line: write the mean, then add
+        // the entering row, then subtract the leaving one (per column, the
+        // same operations in the same order as three separate passes).
+        match (add, sub) {
+            (Some(ad), Some(sb)) => {
+                // Indexed over equal-length slices so the loop vectorises.
+                let (d_row, acc, ad, sb) = (
+                    &mut d_row[..width],
+                    &mut acc[..width],
+                    &ad[..width],
+                    &sb[..width],
+                );
+                for x in 0..width {
+                    let a = acc[x];
+                    d_row[x] = (a * inv) as f32;
+                    acc[x] = (a + ad[x] as f64) - sb[x] as f64;
+                }
             }
+            (Some(ad), None) => {
+                for ((d, a), p) in d_row.iter_mut().zip(acc.iter_mut()).zip(ad) {
+                    *d = (*a * inv) as f32;
+                    *a += *p as f64;
+                }
+            }
+            (None, Some(sb)) => {
+                for ((d, a), m) in d_row.iter_mut().zip(acc.iter_mut()).zip(sb) {
+                    *d = (*a * inv) as f32;
+                    *a -= *m as f64;
+                }
+            }
+            (None, None) => {
+                for (d, a) in d_row.iter_mut().zip(&acc) {
+                    *d = (*a * inv) as f32;
+                }
+            }
+        }
+        if add.is_some() {
             count += 1;
         }
-        if y >= r {
-            let sub = y - r;
-            for (a, v) in acc.iter_mut().zip(&src[sub * width..(sub + 1) * width]) {
-                *a -= *v as f64;
-            }
+        if sub.is_some() {
             count -= 1;
         }
     }
@@ -265,13 +365,13 @@ mod tests {
 
     #[test]
     fn grouped_rows_filter_like_single_rows() {
-        // The interleaved row filter must give, bit for bit, what the plain
+        // The blocked row filter must give, bit for bit, what the plain
         // running sum gives row by row (same operations in the same order).
         let (w, h) = (37, 11);
         let data: Vec<f32> = (0..w * h)
             .map(|i| ((i * 7919) % 113) as f32 / 17.0)
             .collect();
-        for r in [0, 1, 5, 40] {
+        for r in [0, 1, 2, 5, 36, 40] {
             let mut grouped = vec![0.0f32; w * h];
             box_rows(&data, &mut grouped, w, h, r);
             for y in 0..h {
@@ -279,6 +379,79 @@ mod tests {
                 box_1d(&data[y * w..(y + 1) * w], &mut single, r);
                 assert_eq!(&grouped[y * w..(y + 1) * w], &single[..], "r {r} row {y}");
             }
+        }
+    }
+
+    /// The column pass as first written (three passes over each row):
+    /// the reference the fused pass must reproduce bit for bit.
+    fn box_cols_reference(src: &[f32], dst: &mut [f32], width: usize, height: usize, r: usize) {
+        let mut acc = vec![0.0f64; width];
+        let mut count = 0usize;
+        for y in 0..=r.min(height - 1) {
+            for (a, v) in acc.iter_mut().zip(&src[y * width..(y + 1) * width]) {
+                *a += *v as f64;
+            }
+            count += 1;
+        }
+        for y in 0..height {
+            let inv = 1.0 / count as f64;
+            for (d, a) in dst[y * width..(y + 1) * width].iter_mut().zip(&acc) {
+                *d = (*a * inv) as f32;
+            }
+            let add = y + r + 1;
+            if add < height {
+                for (a, v) in acc.iter_mut().zip(&src[add * width..(add + 1) * width]) {
+                    *a += *v as f64;
+                }
+                count += 1;
+            }
+            if y >= r {
+                let sub = y - r;
+                for (a, v) in acc.iter_mut().zip(&src[sub * width..(sub + 1) * width]) {
+                    *a -= *v as f64;
+                }
+                count -= 1;
+            }
+        }
+    }
+
+    #[test]
+    fn fused_column_pass_matches_reference() {
+        for (w, h) in [(37, 11), (5, 64), (64, 3), (1, 1)] {
+            let data: Vec<f32> = (0..w * h)
+                .map(|i| ((i * 7919) % 113) as f32 / 17.0 - 3.0)
+                .collect();
+            for r in [0, 1, 2, 5, 40] {
+                let mut fused = vec![0.0f32; w * h];
+                let mut reference = vec![0.0f32; w * h];
+                box_cols(&data, &mut fused, w, h, r);
+                box_cols_reference(&data, &mut reference, w, h, r);
+                let same = fused
+                    .iter()
+                    .zip(&reference)
+                    .all(|(a, b)| a.to_bits() == b.to_bits());
+                assert!(same, "{w}x{h} r {r}");
+            }
+        }
+    }
+
+    #[test]
+    fn indicator_blur_skips_only_identity_passes() {
+        // A 0/1 image blurred with and without skipping the width-1 boxes:
+        // bit for bit the same (sigma 1 has widths 1, 1, 3; 0.5 only 1s).
+        let (w, h) = (41, 23);
+        let ind: Vec<f32> = (0..w * h)
+            .map(|i| if (i * 7919) % 13 < 6 { 1.0 } else { 0.0 })
+            .collect();
+        for sigma in [0.5, 1.0, 1.5, 3.0] {
+            let full = gaussian_blur(&ind, w, h, sigma);
+            let mut skipped = ind.clone();
+            gaussian_blur_indicator_in_place(&mut skipped, &mut Vec::new(), w, h, sigma);
+            let same = full
+                .iter()
+                .zip(&skipped)
+                .all(|(a, b)| a.to_bits() == b.to_bits());
+            assert!(same, "sigma {sigma}");
         }
     }
 

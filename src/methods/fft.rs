@@ -676,14 +676,25 @@ const MAX_RELATIVE_WIDTH: f64 = 0.5;
 /// directions (a DFT spectrum), at (x, y) in bins.
 fn bilinear_periodic(grid: &[f64], n: usize, x: f64, y: f64) -> f64 {
     let ni = n as i64;
-    let g = |a: i64, b: i64| grid[(b.rem_euclid(ni) as usize) * n + a.rem_euclid(ni) as usize];
     let (x0, y0) = (x.floor(), y.floor());
     let (fx, fy) = (x - x0, y - y0);
-    let (xi, yi) = (x0 as i64, y0 as i64);
-    g(xi, yi) * (1.0 - fx) * (1.0 - fy)
-        + g(xi + 1, yi) * fx * (1.0 - fy)
-        + g(xi, yi + 1) * (1.0 - fx) * fy
-        + g(xi + 1, yi + 1) * fx * fy
+    // Wrapped once per axis, by an integer division only when the index is
+    // outside the grid; the next index wraps by comparison.
+    let wrap = |a: i64| {
+        if (0..ni).contains(&a) {
+            a as usize
+        } else {
+            a.rem_euclid(ni) as usize
+        }
+    };
+    let (xa, ya) = (wrap(x0 as i64), wrap(y0 as i64));
+    let next = |a: usize| if a + 1 == n { 0 } else { a + 1 };
+    let (xb, yb) = (next(xa), next(ya));
+    let g = |a: usize, b: usize| grid[b * n + a];
+    g(xa, ya) * (1.0 - fx) * (1.0 - fy)
+        + g(xb, ya) * fx * (1.0 - fy)
+        + g(xa, yb) * (1.0 - fx) * fy
+        + g(xb, yb) * fx * fy
 }
 
 /// Relative radial half-power width of a peak: the distance, along the ray
@@ -958,8 +969,10 @@ impl CandidateSearch {
             let row = &power[vv * n..(vv + 1) * n];
             let out = &mut self.row_sums[vv * n..(vv + 1) * n];
             out[0] = row[n - 1] + row[0] + row[1 % n];
-            for u in 1..n - 1 {
-                out[u] = row[u - 1] + row[u] + row[u + 1];
+            // Over windows of the row rather than indices (no bounds checks
+            // in the loop, so it vectorises); same sums in the same order.
+            for (o, w) in out[1..].iter_mut().zip(row.windows(3)) {
+                *o = w[0] + w[1] + w[2];
             }
             if n > 1 {
                 out[n - 1] = row[n - 2] + row[n - 1] + row[0];
@@ -967,11 +980,16 @@ impl CandidateSearch {
         }
         for v in -1..=(half as i64) {
             let (up, mid, down) = (wrap(v - 1), wrap(v), wrap(v + 1));
-            for u in 0..n {
-                self.smooth[mid * n + u] = (self.row_sums[up * n + u]
-                    + self.row_sums[mid * n + u]
-                    + self.row_sums[down * n + u])
-                    / 9.0;
+            let rs = &self.row_sums;
+            let (a, b, c) = (
+                &rs[up * n..][..n],
+                &rs[mid * n..][..n],
+                &rs[down * n..][..n],
+            );
+            // Zipped row slices so the division vectorises; same arithmetic.
+            let out = &mut self.smooth[mid * n..(mid + 1) * n];
+            for (((o, x), y), z) in out.iter_mut().zip(a).zip(b).zip(c) {
+                *o = (x + y + z) / 9.0;
             }
         }
         let smooth = &self.smooth;

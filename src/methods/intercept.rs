@@ -82,7 +82,7 @@
 //!    a Student-t 95 % interval ([`Summary`]). Fewer than two lines give no
 //!    value.
 
-use crate::preprocess::{gaussian_blur, Prepared};
+use crate::preprocess::{gaussian_blur_in_place, gaussian_blur_indicator_in_place, Prepared};
 use crate::segment::{segment, SegmentParams, Segmentation};
 use crate::stats::{self, Summary};
 
@@ -288,6 +288,12 @@ pub fn measure(img: &Prepared, params: &InterceptParams) -> InterceptOutcome {
         );
     }
     let field = phase_field(&seg, params.segment.smooth_sigma_px);
+    let grads = GradientProducts::new(
+        &field.v,
+        img.mask.as_deref().filter(|m| m.len() == w * h),
+        w,
+        h,
+    );
     let median_of = |lines: &[Traced]| -> Option<f64> {
         if lines.len() < 2 {
             return None;
@@ -312,7 +318,7 @@ pub fn measure(img: &Prepared, params: &InterceptParams) -> InterceptOutcome {
     let mut best: Option<(f64, f64, Vec<Traced>)> = None;
     let mut fallback: Vec<Traced> = Vec::new();
     for &scale in &scales {
-        let lines = lay_lines(img, &field, scale, params);
+        let lines = lay_lines(img, &field, &grads, scale, params);
         let Some(m) = median_of(&lines) else {
             if lines.len() > fallback.len() {
                 fallback = lines;
@@ -333,7 +339,7 @@ pub fn measure(img: &Prepared, params: &InterceptParams) -> InterceptOutcome {
         Some((misfit, m, lines)) => {
             if hint.is_none() && misfit > 1.2f64.ln() && (2.0..=max_scale).contains(&m) {
                 // Repeat at the measured scale.
-                let again = lay_lines(img, &field, m, params);
+                let again = lay_lines(img, &field, &grads, m, params);
                 if again.len() >= 2 {
                     again
                 } else {
@@ -533,10 +539,22 @@ struct Tensor {
     jyy: Vec<f32>,
 }
 
-impl Tensor {
+/// Products of the central-difference gradients (gx^2, gx gy, gy^2) of an
+/// image, before smoothing. They do not depend on the spacing scale, so
+/// they are computed once per image and only the smoothing is repeated for
+/// each scale tried.
+struct GradientProducts {
+    w: usize,
+    h: usize,
+    xx: Vec<f32>,
+    xy: Vec<f32>,
+    yy: Vec<f32>,
+}
+
+impl GradientProducts {
     /// Central-difference gradients of `data`; pixels whose stencil touches
     /// the mask or the border contribute nothing.
-    fn new(data: &[f32], mask: Option<&[bool]>, w: usize, h: usize, sigma: f64) -> Self {
+    fn new(data: &[f32], mask: Option<&[bool]>, w: usize, h: usize) -> Self {
         let n = w * h;
         let (mut xx, mut xy, mut yy) = (vec![0.0f32; n], vec![0.0f32; n], vec![0.0f32; n]);
         let masked = |i: usize| mask.is_some_and(|m| m[i]);
@@ -553,11 +571,25 @@ impl Tensor {
                 yy[i] = gy * gy;
             }
         }
+        Self { w, h, xx, xy, yy }
+    }
+}
+
+impl Tensor {
+    /// The gradient products smoothed by a Gaussian of `sigma` pixels.
+    fn new(g: &GradientProducts, sigma: f64) -> Self {
+        // Copies of the products blurred in place with one scratch buffer.
+        let mut tmp = Vec::new();
+        let [jxx, jxy, jyy] = [&g.xx, &g.xy, &g.yy].map(|p| {
+            let mut j = p.clone();
+            gaussian_blur_in_place(&mut j, &mut tmp, g.w, g.h, sigma);
+            j
+        });
         Self {
-            w,
-            jxx: gaussian_blur(&xx, w, h, sigma),
-            jxy: gaussian_blur(&xy, w, h, sigma),
-            jyy: gaussian_blur(&yy, w, h, sigma),
+            w: g.w,
+            jxx,
+            jxy,
+            jyy,
         }
     }
 
@@ -606,11 +638,13 @@ struct PhaseField {
 }
 
 fn phase_field(seg: &Segmentation, sigma: f64) -> PhaseField {
-    let ind: Vec<f32> = seg
+    let mut ind: Vec<f32> = seg
         .foreground
         .iter()
         .map(|&f| if f { 1.0 } else { 0.0 })
         .collect();
+    let (w, h) = (seg.width, seg.height);
+    gaussian_blur_indicator_in_place(&mut ind, &mut Vec::new(), w, h, sigma.max(0.5));
     let sign = if seg.inverted { -1.0f32 } else { 1.0 };
     let grey: Vec<f32> = seg.smoothed.iter().map(|v| sign * v).collect();
     let mut arm: Vec<f32> = grey
@@ -624,7 +658,7 @@ fn phase_field(seg: &Segmentation, sigma: f64) -> PhaseField {
     PhaseField {
         w: seg.width,
         h: seg.height,
-        v: gaussian_blur(&ind, seg.width, seg.height, sigma.max(0.5)),
+        v: ind,
         grey,
         neck_depth: 0.5 * (level - sign * seg.threshold).max(0.0),
     }
@@ -638,16 +672,16 @@ struct Traced {
     count: Count,
 }
 
-fn lay_lines(img: &Prepared, seg: &PhaseField, lambda: f64, p: &InterceptParams) -> Vec<Traced> {
+fn lay_lines(
+    img: &Prepared,
+    seg: &PhaseField,
+    grads: &GradientProducts,
+    lambda: f64,
+    p: &InterceptParams,
+) -> Vec<Traced> {
     let (w, h) = (seg.w, seg.h);
     let mask = img.mask.as_deref().filter(|m| m.len() == w * h);
-    let tensor = Tensor::new(
-        &seg.v,
-        mask,
-        w,
-        h,
-        (p.tensor_sigma_spacings * lambda).max(1.0),
-    );
+    let tensor = Tensor::new(grads, (p.tensor_sigma_spacings * lambda).max(1.0));
     let max_turn = p.max_turn_deg.to_radians();
     // Hint in image axes: y up -> y down flips the angle's sign.
     let hint = p

@@ -51,10 +51,29 @@ impl SpectrumAnalyser {
     pub fn power(&mut self, img: &[f32], stride: usize, x0: usize, y0: usize, out: &mut Vec<f64>) {
         let n = self.n;
         // Windowed mean: sum over rows of w[y] x (sum over the row of w[x] v).
+        // Each row's sum is a serial chain of additions; ROWS rows are summed
+        // side by side so the chains overlap. Every row is still summed in
+        // order of x, and the rows are added to `wxsum` in order of y, so the
+        // mean is bit for bit that of one row at a time.
+        const ROWS: usize = 4;
+        let row_at = |y: usize| &img[(y0 + y) * stride + x0..(y0 + y) * stride + x0 + n];
         let mut wxsum = 0.0f64;
-        for y in 0..n {
-            let row = &img[(y0 + y) * stride + x0..(y0 + y) * stride + x0 + n];
-            let s: f64 = row
+        let mut y = 0;
+        while y + ROWS <= n {
+            let rows: [&[f32]; ROWS] = std::array::from_fn(|k| row_at(y + k));
+            let mut s = [0.0f64; ROWS];
+            for (x, w) in self.window.iter().enumerate() {
+                for (sk, row) in s.iter_mut().zip(&rows) {
+                    *sk += row[x] as f64 * *w as f64;
+                }
+            }
+            for (k, sk) in s.iter().enumerate() {
+                wxsum += self.window[y + k] as f64 * sk;
+            }
+            y += ROWS;
+        }
+        for y in y..n {
+            let s: f64 = row_at(y)
                 .iter()
                 .zip(&self.window)
                 .map(|(v, w)| *v as f64 * *w as f64)
@@ -84,12 +103,16 @@ impl SpectrumAnalyser {
             .process_with_scratch(&mut self.tr, &mut self.scratch);
         out.clear();
         out.resize(n * n, 0.0);
+        // Blocks of B x B; within a block each output row is a slice (one
+        // bounds check per row instead of two per element).
         const B: usize = 16;
         for bv in (0..n).step_by(B) {
             for bu in (0..n).step_by(B) {
+                let ue = (bu + B).min(n);
                 for v in bv..(bv + B).min(n) {
-                    for u in bu..(bu + B).min(n) {
-                        out[v * n + u] = self.tr[u * n + v].norm_sqr() as f64;
+                    let row = &mut out[v * n + bu..v * n + ue];
+                    for (o, u) in row.iter_mut().zip(bu..ue) {
+                        *o = self.tr[u * n + v].norm_sqr() as f64;
                     }
                 }
             }
@@ -101,9 +124,11 @@ fn transpose(src: &[Complex<f32>], dst: &mut [Complex<f32>], n: usize) {
     const B: usize = 16;
     for by in (0..n).step_by(B) {
         for bx in (0..n).step_by(B) {
+            let xe = (bx + B).min(n);
             for y in by..(by + B).min(n) {
-                for x in bx..(bx + B).min(n) {
-                    dst[x * n + y] = src[y * n + x];
+                let row = &src[y * n + bx..y * n + xe];
+                for (v, x) in row.iter().zip(bx..xe) {
+                    dst[x * n + y] = *v;
                 }
             }
         }
