@@ -74,14 +74,6 @@ struct AlloyArgs {
 }
 
 impl AlloyArgs {
-    fn library(&self) -> Result<Vec<armspace::interpret::Correlation>, String> {
-        use armspace::interpret::library;
-        match &self.correlations {
-            Some(path) => library::with_file(path),
-            None => Ok(library::builtin()),
-        }
-    }
-
     /// The interpretation settings, checked against the composition; None
     /// without --alloy.
     fn settings(&self) -> Result<Option<armspace::interpret::Settings>, String> {
@@ -93,7 +85,7 @@ impl AlloyArgs {
             }
             return Ok(None);
         };
-        let lib = self.library()?;
+        let lib = load_library(self.correlations.as_deref())?;
         let settings = armspace::interpret::Settings {
             correlation: armspace::interpret::library::find(&lib, id)?.clone(),
             composition: self.composition.clone().unwrap_or_default(),
@@ -682,12 +674,18 @@ fn run_synth(args: SynthArgs) -> ExitCode {
     }
 }
 
-fn run_correlations(args: CorrelationsArgs) -> ExitCode {
-    let lib = match &args.correlations {
+/// The built-in correlations, plus those of a user's file when one is given.
+fn load_library(
+    file: Option<&std::path::Path>,
+) -> Result<Vec<armspace::interpret::Correlation>, String> {
+    match file {
         Some(path) => armspace::interpret::library::with_file(path),
         None => Ok(armspace::interpret::library::builtin()),
-    };
-    match lib {
+    }
+}
+
+fn run_correlations(args: CorrelationsArgs) -> ExitCode {
+    match load_library(args.correlations.as_deref()) {
         Ok(lib) => {
             print!("{}", armspace::interpret::library::table(&lib));
             ExitCode::from(EXIT_OK)

@@ -868,15 +868,22 @@ pub fn runs_of_profile(values: &[f32], step: f64, threshold: f32, inverted: bool
 /// Merges runs shorter than `min_len` into their neighbours, shortest first
 /// (the earliest on ties), until none is left.
 pub fn merge_short_runs(runs: &mut Vec<Run>, min_len: f64) {
+    merge_weakest_while(runs, Run::len, min_len);
+}
+
+/// Merges the run of lowest `score` below `threshold` into its neighbours,
+/// again and again until none is left: an end run joins its one neighbour;
+/// an inner run's neighbours are of the other phase, so the three become one.
+fn merge_weakest_while(runs: &mut Vec<Run>, score: impl Fn(&Run) -> f64, threshold: f64) {
     loop {
         if runs.len() < 2 {
             return;
         }
         let mut best: Option<(usize, f64)> = None;
         for (i, r) in runs.iter().enumerate() {
-            let l = r.len();
-            if l < min_len && best.is_none_or(|(_, b)| l < b) {
-                best = Some((i, l));
+            let v = score(r);
+            if v < threshold && best.is_none_or(|(_, b)| v < b) {
+                best = Some((i, v));
             }
         }
         let Some((i, _)) = best else {
@@ -889,7 +896,6 @@ pub fn merge_short_runs(runs: &mut Vec<Run>, min_len: f64) {
             runs[i - 1].end = runs[i].end;
             runs.pop();
         } else {
-            // Neighbours are of the other phase: the three become one.
             runs[i - 1].end = runs[i + 1].end;
             runs.drain(i..=i + 1);
         }
@@ -914,31 +920,8 @@ pub fn merge_grazing_runs(runs: &mut Vec<Run>, values: &[f32], step: f64, min_de
             .map(|v| if r.fg { v - 0.5 } else { 0.5 - v })
             .fold(0.0f32, f32::max)
     };
-    loop {
-        if runs.len() < 2 {
-            return;
-        }
-        let mut best: Option<(usize, f32)> = None;
-        for (i, r) in runs.iter().enumerate() {
-            let d = depth(r);
-            if d < min_dev && best.is_none_or(|(_, b)| d < b) {
-                best = Some((i, d));
-            }
-        }
-        let Some((i, _)) = best else {
-            return;
-        };
-        if i == 0 {
-            runs[1].start = runs[0].start;
-            runs.remove(0);
-        } else if i == runs.len() - 1 {
-            runs[i - 1].end = runs[i].end;
-            runs.pop();
-        } else {
-            runs[i - 1].end = runs[i + 1].end;
-            runs.drain(i..=i + 1);
-        }
-    }
+    // f32 to f64 is exact and keeps the order: the same runs merge.
+    merge_weakest_while(runs, |r| f64::from(depth(r)), f64::from(min_dev));
 }
 
 /// The count of one line (or piece of a line): positions along it.
