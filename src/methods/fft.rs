@@ -1090,6 +1090,11 @@ impl CandidateSearch {
 /// the median is taken again. The confidence interval treats the tiles as
 /// n_eff = n x (stride/n)^2 independent samples (half-overlapping tiles share
 /// area) and uses the standard error of a median, 1.2533 s / sqrt(n_eff).
+/// Fewest reliable tiles behind a value: the median and the MAD-based
+/// outlier rejection below need three values to tell an outlier from the
+/// rest (with two, either could be the outlier).
+const MIN_RELIABLE_TILES: usize = 3;
+
 fn aggregate(mut tiles: Vec<TileResult>, n: usize, params: &FftParams) -> FftOutcome {
     let analysed = tiles.len();
     let reliable: Vec<usize> = (0..tiles.len())
@@ -1099,6 +1104,18 @@ fn aggregate(mut tiles: Vec<TileResult>, n: usize, params: &FftParams) -> FftOut
         return FftOutcome::none(
             format!(
                 "no reliable periodicity: none of {analysed} tiles has a spectral peak of quality >= {}",
+                params.min_quality
+            ),
+            n,
+            tiles,
+            analysed,
+        );
+    }
+    if reliable.len() < MIN_RELIABLE_TILES {
+        return FftOutcome::none(
+            format!(
+                "no reliable periodicity: only {} of {analysed} tiles has a spectral peak of quality >= {}; at least {MIN_RELIABLE_TILES} are needed to tell an outlier from the period",
+                reliable.len(),
                 params.min_quality
             ),
             n,
@@ -1164,6 +1181,42 @@ fn aggregate(mut tiles: Vec<TileResult>, n: usize, params: &FftParams) -> FftOut
 
 #[cfg(test)]
 mod tests {
+
+    fn tile(spacing_px: f64, quality: f64) -> TileResult {
+        TileResult {
+            cx_px: 0.0,
+            cy_px: 0.0,
+            spacing_px,
+            dir_deg: 0.0,
+            quality,
+            used: false,
+            half_ratio: f64::NAN,
+        }
+    }
+
+    #[test]
+    fn two_reliable_tiles_are_not_enough_for_a_value() {
+        // Common practice, no single source: a median with MAD-based outlier
+        // rejection needs three values; with two, either may be the outlier.
+        let params = FftParams::default();
+        let two = aggregate(
+            vec![tile(20.0, 10.0), tile(24.0, 10.0), tile(22.0, 1.0)],
+            64,
+            &params,
+        );
+        assert!(two.value_px.is_none());
+        assert!(
+            two.reason.as_deref().unwrap_or("").contains("at least 3"),
+            "{:?}",
+            two.reason
+        );
+        let three = aggregate(
+            vec![tile(20.0, 10.0), tile(24.0, 10.0), tile(22.0, 10.0)],
+            64,
+            &params,
+        );
+        assert!(three.value_px.is_some());
+    }
     use super::*;
     use crate::load::GrayImage;
     use crate::preprocess::{prepare, PreprocessParams};
