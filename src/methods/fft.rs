@@ -1114,7 +1114,7 @@ fn aggregate(mut tiles: Vec<TileResult>, n: usize, params: &FftParams) -> FftOut
     if reliable.len() < MIN_RELIABLE_TILES {
         return FftOutcome::none(
             format!(
-                "no reliable periodicity: only {} of {analysed} tiles has a spectral peak of quality >= {}; at least {MIN_RELIABLE_TILES} are needed to tell an outlier from the period",
+                "no reliable periodicity: only {} of {analysed} tiles have a spectral peak of quality >= {}; at least {MIN_RELIABLE_TILES} are needed to tell an outlier from the period",
                 reliable.len(),
                 params.min_quality
             ),
