@@ -596,12 +596,8 @@ fn run_calibrate(args: CalibrateArgs) -> ExitCode {
         }
         out.push(entry);
     }
-    match serde_json::to_string_pretty(&out) {
-        Ok(s) => println!("{s}"),
-        Err(e) => {
-            eprintln!("armspace: {e}");
-            return ExitCode::from(EXIT_FATAL);
-        }
+    if let Err(code) = print_json(&out) {
+        return code;
     }
     ExitCode::from(if all_ok { EXIT_OK } else { EXIT_NOT_MEASURED })
 }
@@ -627,12 +623,8 @@ fn run_stats(args: StatsArgs) -> ExitCode {
                     );
                 }
             }
-            match serde_json::to_string_pretty(&s) {
-                Ok(j) => println!("{j}"),
-                Err(e) => {
-                    eprintln!("armspace: {e}");
-                    return ExitCode::from(EXIT_FATAL);
-                }
+            if let Err(code) = print_json(&s) {
+                return code;
             }
             ExitCode::from(EXIT_OK)
         }
@@ -670,6 +662,21 @@ fn run_synth(args: SynthArgs) -> ExitCode {
         Err(e) => {
             eprintln!("armspace: {e}");
             ExitCode::from(EXIT_FATAL)
+        }
+    }
+}
+
+/// Prints a value as pretty JSON on stdout; a value that cannot be
+/// serialised is a failed run.
+fn print_json(value: &impl serde::Serialize) -> Result<(), ExitCode> {
+    match serde_json::to_string_pretty(value) {
+        Ok(j) => {
+            println!("{j}");
+            Ok(())
+        }
+        Err(e) => {
+            eprintln!("armspace: {e}");
+            Err(ExitCode::from(EXIT_FATAL))
         }
     }
 }
@@ -724,15 +731,11 @@ fn run_interpret(args: InterpretArgs) -> ExitCode {
             for w in &i.warnings {
                 eprintln!("warning: {w}");
             }
-            match serde_json::to_string_pretty(&serde_json::json!({
+            if let Err(code) = print_json(&serde_json::json!({
                 "caution": report::CAUTION,
                 "interpretation": i,
             })) {
-                Ok(j) => println!("{j}"),
-                Err(e) => {
-                    eprintln!("armspace: {e}");
-                    return ExitCode::from(EXIT_FATAL);
-                }
+                return code;
             }
             ExitCode::from(EXIT_OK)
         }

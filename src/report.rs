@@ -312,9 +312,8 @@ pub struct ZoneSummary {
 
 /// Per-zone and batch verdicts from the images' acceptances.
 pub fn acceptance_summary(spec: &Spec, images: &[ImageReport]) -> AcceptanceSummary {
-    let count = |d: Decision, it: &mut dyn Iterator<Item = &Acceptance>| {
-        it.filter(|a| a.decision == Some(d)).count()
-    };
+    let count =
+        |d: Decision, list: &[&Acceptance]| list.iter().filter(|a| a.decision == Some(d)).count();
     let assessed: Vec<&Acceptance> = images
         .iter()
         .filter_map(|i| i.acceptance.as_ref())
@@ -338,9 +337,9 @@ pub fn acceptance_summary(spec: &Spec, images: &[ImageReport]) -> AcceptanceSumm
                 .collect();
             ZoneSummary {
                 images: members.len(),
-                pass: count(Decision::Pass, &mut members.iter().copied()),
-                fail: count(Decision::Fail, &mut members.iter().copied()),
-                indeterminate: count(Decision::Indeterminate, &mut members.iter().copied()),
+                pass: count(Decision::Pass, &members),
+                fail: count(Decision::Fail, &members),
+                indeterminate: count(Decision::Indeterminate, &members),
                 verdict: acceptance::verdict(members.iter().map(|a| a.decision)),
                 zone,
                 limit_um,
@@ -350,9 +349,9 @@ pub fn acceptance_summary(spec: &Spec, images: &[ImageReport]) -> AcceptanceSumm
     let not_assessed = assessed.iter().filter(|a| a.decision.is_none()).count();
     AcceptanceSummary {
         verdict: acceptance::verdict(assessed.iter().map(|a| a.decision)),
-        pass: count(Decision::Pass, &mut assessed.iter().copied()),
-        fail: count(Decision::Fail, &mut assessed.iter().copied()),
-        indeterminate: count(Decision::Indeterminate, &mut assessed.iter().copied()),
+        pass: count(Decision::Pass, &assessed),
+        fail: count(Decision::Fail, &assessed),
+        indeterminate: count(Decision::Indeterminate, &assessed),
         not_assessed,
         unreadable,
         zones,
