@@ -82,7 +82,7 @@
 //!    a Student-t 95 % interval ([`Summary`]). Fewer than two lines give no
 //!    value.
 
-use crate::preprocess::{gaussian_blur_in_place, gaussian_blur_indicator_in_place, Prepared};
+use crate::preprocess::{gaussian_blur_indicator_in_place, gaussian_blur_into, Prepared};
 use crate::segment::{segment, SegmentParams, Segmentation};
 use crate::stats::{self, Summary};
 
@@ -315,10 +315,14 @@ pub fn measure(img: &Prepared, params: &InterceptParams) -> InterceptOutcome {
             .filter(|s| *s >= 2.0)
             .collect(),
     };
+    let mut scratch = LayScratch {
+        tensor: Tensor::empty(),
+        occupied: Vec::new(),
+    };
     let mut best: Option<(f64, f64, Vec<Traced>)> = None;
     let mut fallback: Vec<Traced> = Vec::new();
     for &scale in &scales {
-        let lines = lay_lines(img, &field, &grads, scale, params);
+        let lines = lay_lines(img, &field, &grads, scale, params, &mut scratch);
         let Some(m) = median_of(&lines) else {
             if lines.len() > fallback.len() {
                 fallback = lines;
@@ -339,7 +343,7 @@ pub fn measure(img: &Prepared, params: &InterceptParams) -> InterceptOutcome {
         Some((misfit, m, lines)) => {
             if hint.is_none() && misfit > 1.2f64.ln() && (2.0..=max_scale).contains(&m) {
                 // Repeat at the measured scale.
-                let again = lay_lines(img, &field, &grads, m, params);
+                let again = lay_lines(img, &field, &grads, m, params, &mut scratch);
                 if again.len() >= 2 {
                     again
                 } else {
@@ -537,6 +541,8 @@ struct Tensor {
     jxx: Vec<f32>,
     jxy: Vec<f32>,
     jyy: Vec<f32>,
+    /// Scratch of the blurs.
+    tmp: Vec<f32>,
 }
 
 /// Products of the central-difference gradients (gx^2, gx gy, gy^2) of an
@@ -576,20 +582,28 @@ impl GradientProducts {
 }
 
 impl Tensor {
-    /// The gradient products smoothed by a Gaussian of `sigma` pixels.
-    fn new(g: &GradientProducts, sigma: f64) -> Self {
-        // Copies of the products blurred in place with one scratch buffer.
-        let mut tmp = Vec::new();
-        let [jxx, jxy, jyy] = [&g.xx, &g.xy, &g.yy].map(|p| {
-            let mut j = p.clone();
-            gaussian_blur_in_place(&mut j, &mut tmp, g.w, g.h, sigma);
-            j
-        });
+    fn empty() -> Self {
         Self {
-            w: g.w,
-            jxx,
-            jxy,
-            jyy,
+            w: 0,
+            jxx: Vec::new(),
+            jxy: Vec::new(),
+            jyy: Vec::new(),
+            tmp: Vec::new(),
+        }
+    }
+
+    /// Makes this the gradient products smoothed by a Gaussian of `sigma`
+    /// pixels, reusing the buffers of the previous scale (the blurs read the
+    /// products directly and write into them, so nothing is copied and the
+    /// whole-image buffers are allocated once per image).
+    fn rebuild(&mut self, g: &GradientProducts, sigma: f64) {
+        self.w = g.w;
+        for (src, dst) in [
+            (&g.xx, &mut self.jxx),
+            (&g.xy, &mut self.jxy),
+            (&g.yy, &mut self.jyy),
+        ] {
+            gaussian_blur_into(src, dst, &mut self.tmp, g.w, g.h, sigma);
         }
     }
 
@@ -672,16 +686,26 @@ struct Traced {
     count: Count,
 }
 
+/// Scratch reused by the scales tried on one image: the smoothed tensor
+/// and the map of pixels already taken by a line.
+struct LayScratch {
+    tensor: Tensor,
+    occupied: Vec<bool>,
+}
+
 fn lay_lines(
     img: &Prepared,
     seg: &PhaseField,
     grads: &GradientProducts,
     lambda: f64,
     p: &InterceptParams,
+    scratch: &mut LayScratch,
 ) -> Vec<Traced> {
     let (w, h) = (seg.w, seg.h);
     let mask = img.mask.as_deref().filter(|m| m.len() == w * h);
-    let tensor = Tensor::new(grads, (p.tensor_sigma_spacings * lambda).max(1.0));
+    let LayScratch { tensor, occupied } = scratch;
+    tensor.rebuild(grads, (p.tensor_sigma_spacings * lambda).max(1.0));
+    let tensor = &*tensor;
     let max_turn = p.max_turn_deg.to_radians();
     // Hint in image axes: y up -> y down flips the angle's sign.
     let hint = p
@@ -713,7 +737,8 @@ fn lay_lines(
     // Most coherent first; ties by raster position, so the order is total.
     cands.sort_by(|a, b| b.0.total_cmp(&a.0).then((a.2, a.1).cmp(&(b.2, b.1))));
 
-    let mut occupied = vec![false; w * h];
+    occupied.clear();
+    occupied.resize(w * h, false);
     let half_max = 0.5 * p.max_line_spacings * lambda;
     let min_len = 0.5 * (p.min_arms.saturating_sub(1)) as f64 * lambda;
     let band = p.line_separation_spacings * lambda;
@@ -763,7 +788,7 @@ fn lay_lines(
         let Some((line, count)) = count_line(seg, (x0, y0), (x1, y1), p, None) else {
             continue;
         };
-        mark_band(&mut occupied, w, h, (x0, y0), (x1, y1), band);
+        mark_band(occupied, w, h, (x0, y0), (x1, y1), band);
         lines.push(Traced {
             line,
             a: (x0, y0),
@@ -782,8 +807,26 @@ fn mark_band(occ: &mut [bool], w: usize, h: usize, a: (f64, f64), b: (f64, f64),
     let ymin = (a.1.min(b.1) - band).floor().max(0.0) as usize;
     let xmax = ((a.0.max(b.0) + band).ceil().max(0.0) as usize).min(w - 1);
     let ymax = ((a.1.max(b.1) + band).ceil().max(0.0) as usize).min(h - 1);
+    // Only the pixels of a row within band + 1 of the segment's line can
+    // be within band of the segment: the exact test below runs on that
+    // stretch of the row (widened by a pixel) instead of the whole bounding
+    // box. Pixels skipped are more than band + 1 from the line, far beyond
+    // any rounding of the test, so the same pixels are marked.
+    let len = len2.sqrt();
     for y in ymin..=ymax {
-        for x in xmin..=xmax {
+        let (mut x_lo, mut x_hi) = (xmin, xmax);
+        if len > 0.0 && dy != 0.0 {
+            // |(x - a.0) dy - (y - a.1) dx| / len <= band + 1.
+            let c = a.0 + (y as f64 - a.1) * dx / dy;
+            let half = ((band + 1.0) * len / dy).abs();
+            let (lo, hi) = ((c - half).floor() - 1.0, (c + half).ceil() + 1.0);
+            if hi < xmin as f64 || lo > xmax as f64 {
+                continue;
+            }
+            x_lo = x_lo.max(lo.max(0.0) as usize);
+            x_hi = x_hi.min(hi as usize);
+        }
+        for x in x_lo..=x_hi {
             let (px, py) = (x as f64 - a.0, y as f64 - a.1);
             let t = if len2 > 0.0 {
                 ((px * dx + py * dy) / len2).clamp(0.0, 1.0)
