@@ -113,19 +113,71 @@ impl Segmentation {
 /// `None` when there are no finite unmasked values or they are all equal
 /// within the range (nothing to separate).
 pub fn otsu_threshold(values: &[f32], mask: Option<&[bool]>) -> Option<f32> {
-    let mut sample: Vec<f32> = unmasked(values, mask).collect();
-    if sample.is_empty() {
+    let n = unmasked(values, mask).count();
+    if n == 0 {
         return None;
     }
-    // Nearest-rank percentiles by selection (linear time, no full sort).
-    let mut pct = |p: f64| -> f32 {
-        let i = ((p / 100.0) * (sample.len() - 1) as f64).round() as usize;
-        let i = i.min(sample.len() - 1);
-        *sample.select_nth_unstable_by(i, |a, b| a.total_cmp(b)).1
-    };
-    let lo = pct(OTSU_RANGE_PERCENTILES.0);
-    let hi = pct(OTSU_RANGE_PERCENTILES.1);
+    // Nearest-rank percentiles.
+    let rank = |p: f64| -> usize { (((p / 100.0) * (n - 1) as f64).round() as usize).min(n - 1) };
+    let [lo, hi] = nth_smallest(
+        values,
+        mask,
+        n,
+        [
+            rank(OTSU_RANGE_PERCENTILES.0),
+            rank(OTSU_RANGE_PERCENTILES.1),
+        ],
+    );
     otsu_threshold_binned(values, mask, lo, hi, OTSU_BINS)
+}
+
+/// Key of an f32 whose unsigned order is `f32::total_cmp`'s order.
+#[inline]
+fn total_order_key(v: f32) -> u32 {
+    let b = v.to_bits();
+    // Negative values: all bits flipped; positive: sign bit set.
+    if b >> 31 == 1 {
+        !b
+    } else {
+        b | 0x8000_0000
+    }
+}
+
+/// The values of ranks `ranks` (0-based, in `f32::total_cmp` order, each
+/// below `n`) among the `n` unmasked finite values, by radix selection: a
+/// histogram of the keys' top 16 bits finds the bucket holding each rank,
+/// and only that bucket's values are selected among. Exact: the same values
+/// a selection over all of them returns, in two passes over the image
+/// instead of partitioning a copy of it.
+fn nth_smallest<const K: usize>(
+    values: &[f32],
+    mask: Option<&[bool]>,
+    n: usize,
+    ranks: [usize; K],
+) -> [f32; K] {
+    let mut hist = vec![0u32; 1 << 16];
+    for v in unmasked(values, mask) {
+        hist[(total_order_key(v) >> 16) as usize] += 1;
+    }
+    ranks.map(|r| {
+        debug_assert!(r < n);
+        // Bucket holding rank r, and the rank within it.
+        let mut below = 0usize;
+        let mut bucket = 0usize;
+        for (b, &c) in hist.iter().enumerate() {
+            if below + c as usize > r {
+                bucket = b;
+                break;
+            }
+            below += c as usize;
+        }
+        let mut members: Vec<f32> = unmasked(values, mask)
+            .filter(|&v| (total_order_key(v) >> 16) as usize == bucket)
+            .collect();
+        *members
+            .select_nth_unstable_by(r - below, |a, b| a.total_cmp(b))
+            .1
+    })
 }
 
 /// Otsu's threshold over `nbins` equal bins spanning `[lo, hi]` (values
@@ -149,7 +201,14 @@ pub fn otsu_threshold_binned(
     for v in unmasked(values, mask) {
         // numpy.histogram: bins are half-open [a, b) except the last, which
         // includes its right edge.
-        let b = (((v as f64 - lo64) / width).floor()).clamp(0.0, (nbins - 1) as f64) as usize;
+        // For x >= 0 truncation is the floor; below 0 the bin is 0 either
+        // way (no call to libm's floor per value).
+        let x = (v as f64 - lo64) / width;
+        let b = if x > 0.0 {
+            (x as usize).min(nbins - 1)
+        } else {
+            0
+        };
         counts[b] += 1;
     }
     let centre = |i: usize| lo64 + width * (i as f64 + 0.5);
@@ -286,40 +345,47 @@ pub fn separability(values: &[f32], mask: Option<&[bool]>, t: f32) -> Option<f64
 /// pin-holes are filled, each in one deterministic raster-order pass. Masked
 /// pixels belong to neither phase and are left unchanged.
 pub fn remove_small(bright: &mut [bool], mask: Option<&[bool]>, w: usize, h: usize, min_px: usize) {
+    let mut todo = vec![false; w * h];
+    let mut stack: Vec<(usize, usize)> = Vec::new();
+    let mut comp = Vec::new();
     for phase in [true, false] {
-        let mut seen = vec![false; w * h];
-        let mut stack = Vec::new();
-        let mut comp = Vec::new();
+        // Pixels of this phase not yet reached by a component.
+        for (i, t) in todo.iter_mut().enumerate() {
+            *t = bright[i] == phase && !mask.is_some_and(|m| m[i]);
+        }
         for start in 0..w * h {
-            let masked = mask.is_some_and(|m| m[start]);
-            if seen[start] || masked || bright[start] != phase {
+            if !todo[start] {
                 continue;
             }
+            // Only a component smaller than `min_px` is changed, so only the
+            // first `min_px` pixels of one are kept; the rest are reached
+            // (and so not started from again) but not listed.
             comp.clear();
-            stack.push(start);
-            seen[start] = true;
-            while let Some(i) = stack.pop() {
-                comp.push(i);
-                let (x, y) = (i % w, i / w);
-                let mut visit = |j: usize| {
-                    if !seen[j] && bright[j] == phase && !mask.is_some_and(|m| m[j]) {
-                        seen[j] = true;
-                        stack.push(j);
-                    }
-                };
-                if x > 0 {
-                    visit(i - 1);
+            todo[start] = false;
+            stack.push((start % w, start / w));
+            while let Some((x, y)) = stack.pop() {
+                let i = y * w + x;
+                if comp.len() < min_px {
+                    comp.push(i);
                 }
-                if x + 1 < w {
-                    visit(i + 1);
+                if x > 0 && todo[i - 1] {
+                    todo[i - 1] = false;
+                    stack.push((x - 1, y));
                 }
-                if y > 0 {
-                    visit(i - w);
+                if x + 1 < w && todo[i + 1] {
+                    todo[i + 1] = false;
+                    stack.push((x + 1, y));
                 }
-                if y + 1 < h {
-                    visit(i + w);
+                if y > 0 && todo[i - w] {
+                    todo[i - w] = false;
+                    stack.push((x, y - 1));
+                }
+                if y + 1 < h && todo[i + w] {
+                    todo[i + w] = false;
+                    stack.push((x, y + 1));
                 }
             }
+            // `comp` holds the whole component when it is below `min_px`.
             if comp.len() < min_px {
                 for &i in &comp {
                     bright[i] = !phase;
@@ -344,6 +410,37 @@ mod tests {
         assert!((t - 0.25).abs() < 1e-6, "{t}");
         assert!(otsu_threshold(&[0.5; 10], None).is_none());
         assert!(otsu_threshold(&[], None).is_none());
+    }
+
+    #[test]
+    fn radix_selection_matches_sorting() {
+        // Ranks in f32::total_cmp order, against a full sort: negatives,
+        // both zeros, ties, masked and non-finite values left out.
+        let mut v: Vec<f32> = (0..5000)
+            .map(|i| ((i * 7919) % 1009) as f32 / 37.0 - 13.0)
+            .collect();
+        v.extend([
+            0.0,
+            -0.0,
+            -0.0,
+            f32::NAN,
+            f32::INFINITY,
+            1e-30,
+            -1e-30,
+            3.5,
+            3.5,
+        ]);
+        let mask: Vec<bool> = (0..v.len()).map(|i| i % 11 == 3).collect();
+        for m in [None, Some(&mask[..])] {
+            let mut sorted: Vec<f32> = unmasked(&v, m).collect();
+            sorted.sort_by(|a, b| a.total_cmp(b));
+            let n = sorted.len();
+            let ranks = [0, 1, n / 200, n / 2, n - n / 200 - 1, n - 1];
+            let got = nth_smallest(&v, m, n, ranks);
+            for (r, g) in ranks.iter().zip(got) {
+                assert_eq!(g.to_bits(), sorted[*r].to_bits(), "rank {r}");
+            }
+        }
     }
 
     #[test]

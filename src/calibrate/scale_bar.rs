@@ -142,7 +142,7 @@ pub fn detect(img: &GrayImage) -> Result<ScaleBar, String> {
 }
 
 /// Stacks of horizontal candidate runs with nearly equal ends.
-fn groups(img: &GrayImage, is_cand: &dyn Fn(f32) -> bool) -> Vec<Group> {
+fn groups(img: &GrayImage, is_cand: &impl Fn(f32) -> bool) -> Vec<Group> {
     let (w, h) = (img.width, img.height);
     let min_len = 16usize.max(w / 64);
     let mut open: Vec<Group> = Vec::new();
@@ -216,7 +216,7 @@ fn examine(
     img: &GrayImage,
     g: &Group,
     polarity: Polarity,
-    is_cand: &dyn Fn(f32) -> bool,
+    is_cand: &impl Fn(f32) -> bool,
     range: f32,
 ) -> Option<ScaleBar> {
     let (w, h) = (img.width, img.height);
