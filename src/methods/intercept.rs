@@ -82,7 +82,9 @@
 //!    a Student-t 95 % interval ([`Summary`]). Fewer than two lines give no
 //!    value.
 
-use crate::preprocess::{gaussian_blur_indicator_in_place, gaussian_blur_into, Prepared};
+use crate::preprocess::{
+    gaussian_blur_in_place, gaussian_blur_indicator_in_place, gaussian_blur_into, Prepared,
+};
 use crate::segment::{segment, SegmentParams, Segmentation};
 use crate::stats::{self, Summary};
 
@@ -535,9 +537,15 @@ fn crossing_scale(seg: &Segmentation, mask: Option<&[bool]>) -> Option<f64> {
     Some(2.0 / px.hypot(py))
 }
 
-/// Smoothed structure tensor components (Jxx, Jxy, Jyy), per pixel.
+/// Smoothed structure tensor components (Jxx, Jxy, Jyy), on a grid of
+/// pitch `d` pixels: every pixel when `d` is 1, else the means of d x d
+/// blocks of pixels (see [`Tensor::rebuild`]).
 struct Tensor {
-    w: usize,
+    /// Width and height of the grid.
+    gw: usize,
+    gh: usize,
+    /// Grid pitch, pixels.
+    d: usize,
     jxx: Vec<f32>,
     jxy: Vec<f32>,
     jyy: Vec<f32>,
@@ -584,7 +592,9 @@ impl GradientProducts {
 impl Tensor {
     fn empty() -> Self {
         Self {
-            w: 0,
+            gw: 0,
+            gh: 0,
+            d: 1,
             jxx: Vec::new(),
             jxy: Vec::new(),
             jyy: Vec::new(),
@@ -593,17 +603,50 @@ impl Tensor {
     }
 
     /// Makes this the gradient products smoothed by a Gaussian of `sigma`
-    /// pixels, reusing the buffers of the previous scale (the blurs read the
-    /// products directly and write into them, so nothing is copied and the
-    /// whole-image buffers are allocated once per image).
+    /// pixels, reusing the buffers of the previous scale.
+    ///
+    /// A wide window is computed on a coarser grid. The smoothed tensor
+    /// holds no detail finer than its window: a Gaussian of standard
+    /// deviation sigma passes spatial frequency f with gain
+    /// exp(-2 pi^2 sigma^2 f^2), so on a grid of pitch d = sigma/4 the
+    /// Nyquist frequency 1/(2d) keeps exp(-8 pi^2), about 1e-34: nothing
+    /// aliases, and values between grid points are interpolated bilinearly
+    /// (C. E. Shannon's sampling theorem; the interpolation's own smoothing,
+    /// at most d/2 = sigma/8 of standard deviation, widens the window by
+    /// under 1 %). The products are first averaged over d x d blocks (a box
+    /// of variance (d^2 - 1)/12 per axis), then blurred on the grid by the
+    /// rest of the variance, so the window keeps its sigma. The grid's
+    /// Gaussian is then at least 4 grid steps wide, where the three-box
+    /// cascade's odd widths still give its sigma within a few per cent (the
+    /// same granularity as at full resolution for sigma >= 8, see
+    /// `preprocess::box_widths`). Below sigma = 8 the grid is every pixel
+    /// and the blurs read the products directly into the reused buffers.
     fn rebuild(&mut self, g: &GradientProducts, sigma: f64) {
-        self.w = g.w;
+        // Pitch: a quarter of the window's sigma (see above), whole pixels.
+        let d = ((sigma / 4.0).floor() as usize).max(1);
+        self.d = d;
+        if d == 1 {
+            (self.gw, self.gh) = (g.w, g.h);
+            for (src, dst) in [
+                (&g.xx, &mut self.jxx),
+                (&g.xy, &mut self.jxy),
+                (&g.yy, &mut self.jyy),
+            ] {
+                gaussian_blur_into(src, dst, &mut self.tmp, g.w, g.h, sigma);
+            }
+            return;
+        }
+        let (gw, gh) = (g.w.div_ceil(d), g.h.div_ceil(d));
+        (self.gw, self.gh) = (gw, gh);
+        let df = d as f64;
+        let rest = (sigma * sigma - (df * df - 1.0) / 12.0).max(0.0).sqrt() / df;
         for (src, dst) in [
             (&g.xx, &mut self.jxx),
             (&g.xy, &mut self.jxy),
             (&g.yy, &mut self.jyy),
         ] {
-            gaussian_blur_into(src, dst, &mut self.tmp, g.w, g.h, sigma);
+            block_means(src, g.w, g.h, d, dst);
+            gaussian_blur_in_place(dst, &mut self.tmp, gw, gh, rest);
         }
     }
 
@@ -611,8 +654,34 @@ impl Tensor {
     /// (-pi/2, pi/2]) and coherence at pixel (x, y).
     #[inline]
     fn at(&self, x: usize, y: usize) -> (f64, f64) {
-        let i = y * self.w + x;
-        let (a, b, c) = (self.jxx[i] as f64, self.jxy[i] as f64, self.jyy[i] as f64);
+        let (a, b, c) = if self.d == 1 {
+            let i = y * self.gw + x;
+            (self.jxx[i] as f64, self.jxy[i] as f64, self.jyy[i] as f64)
+        } else {
+            // Cell k holds the mean of pixels k d .. k d + d - 1, centred
+            // at k d + (d - 1)/2.
+            let d = self.d as f64;
+            let gx = ((x as f64 - 0.5 * (d - 1.0)) / d).clamp(0.0, (self.gw - 1) as f64);
+            let gy = ((y as f64 - 0.5 * (d - 1.0)) / d).clamp(0.0, (self.gh - 1) as f64);
+            let (x0, y0) = (gx as usize, gy as usize);
+            let (x1, y1) = ((x0 + 1).min(self.gw - 1), (y0 + 1).min(self.gh - 1));
+            let (fx, fy) = (gx - x0 as f64, gy - y0 as f64);
+            let w = [
+                (1.0 - fx) * (1.0 - fy),
+                fx * (1.0 - fy),
+                (1.0 - fx) * fy,
+                fx * fy,
+            ];
+            let idx = [
+                y0 * self.gw + x0,
+                y0 * self.gw + x1,
+                y1 * self.gw + x0,
+                y1 * self.gw + x1,
+            ];
+            let lerp =
+                |v: &[f32]| -> f64 { w.iter().zip(&idx).map(|(wk, &i)| wk * v[i] as f64).sum() };
+            (lerp(&self.jxx), lerp(&self.jxy), lerp(&self.jyy))
+        };
         let tr = a + c;
         if tr <= 0.0 {
             return (0.0, 0.0);
@@ -620,6 +689,28 @@ impl Tensor {
         let theta = 0.5 * (2.0 * b).atan2(a - c);
         let coh = ((a - c).powi(2) + 4.0 * b * b).sqrt() / tr;
         (theta, coh)
+    }
+}
+
+/// Means of the `d` x `d` blocks of a `w` x `h` image (blocks at the right
+/// and bottom edges hold what is left), into `out`, row-major.
+fn block_means(src: &[f32], w: usize, h: usize, d: usize, out: &mut Vec<f32>) {
+    let (gw, gh) = (w.div_ceil(d), h.div_ceil(d));
+    out.clear();
+    out.resize(gw * gh, 0.0);
+    let mut acc = vec![0.0f64; gw];
+    for by in 0..gh {
+        acc.iter_mut().for_each(|a| *a = 0.0);
+        let (y0, y1) = (by * d, ((by + 1) * d).min(h));
+        for row in src[y0 * w..y1 * w].chunks_exact(w) {
+            for (a, block) in acc.iter_mut().zip(row.chunks(d)) {
+                *a += block.iter().map(|&v| v as f64).sum::<f64>();
+            }
+        }
+        for (bx, (o, a)) in out[by * gw..(by + 1) * gw].iter_mut().zip(&acc).enumerate() {
+            let cols = ((bx + 1) * d).min(w) - bx * d;
+            *o = (*a / ((y1 - y0) * cols) as f64) as f32;
+        }
     }
 }
 
@@ -844,7 +935,8 @@ fn mark_band(occ: &mut [bool], w: usize, h: usize, a: (f64, f64), b: (f64, f64),
 fn bilinear(data: &[f32], w: usize, h: usize, x: f64, y: f64) -> f32 {
     let x = x.clamp(0.0, (w - 1) as f64);
     let y = y.clamp(0.0, (h - 1) as f64);
-    let (x0, y0) = (x.floor() as usize, y.floor() as usize);
+    // x, y >= 0 here, so truncation is the floor.
+    let (x0, y0) = (x as usize, y as usize);
     let (x1, y1) = ((x0 + 1).min(w - 1), (y0 + 1).min(h - 1));
     let (fx, fy) = ((x - x0 as f64) as f32, (y - y0 as f64) as f32);
     let top = data[y0 * w + x0] * (1.0 - fx) + data[y0 * w + x1] * fx;
