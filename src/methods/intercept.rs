@@ -289,7 +289,7 @@ pub fn measure(img: &Prepared, params: &InterceptParams) -> InterceptOutcome {
             vec![],
         );
     }
-    let field = phase_field(&seg, params.segment.smooth_sigma_px);
+    let field = phase_field(seg, params.segment.smooth_sigma_px);
     let grads = GradientProducts::new(
         &field.v,
         img.mask.as_deref().filter(|m| m.len() == w * h),
@@ -409,7 +409,7 @@ fn recount_pooled(field: &PhaseField, lines: Vec<Traced>, p: &InterceptParams) -
     let recount = |wm: (f64, f64)| -> Vec<(Line, Count)> {
         lines
             .iter()
-            .filter_map(|t| count_line(field, t.a, t.b, p, Some(wm)))
+            .filter_map(|t| count_profile(&t.profile, field.neck_depth, p, Some(wm)))
             .collect()
     };
     let (Some(m0), Some(w0)) = (stats::median(&periods), w_counts) else {
@@ -551,41 +551,102 @@ struct Tensor {
     jyy: Vec<f32>,
     /// Scratch of the blurs.
     tmp: Vec<f32>,
+    /// The gradient products of every pixel, once a scale needed them.
+    full: Option<[Vec<f32>; 3]>,
 }
 
 /// Products of the central-difference gradients (gx^2, gx gy, gy^2) of an
-/// image, before smoothing. They do not depend on the spacing scale, so
-/// they are computed once per image and only the smoothing is repeated for
-/// each scale tried.
-struct GradientProducts {
+/// image, before smoothing. They do not depend on the spacing scale; they
+/// are computed a row at a time where a scale needs them (cheaper than
+/// storing three whole-image arrays when the tensor is on a coarser grid),
+/// and as whole arrays once per image for the scales that need every pixel.
+struct GradientProducts<'a> {
     w: usize,
     h: usize,
-    xx: Vec<f32>,
-    xy: Vec<f32>,
-    yy: Vec<f32>,
+    data: &'a [f32],
+    mask: Option<&'a [bool]>,
 }
 
-impl GradientProducts {
+impl<'a> GradientProducts<'a> {
     /// Central-difference gradients of `data`; pixels whose stencil touches
     /// the mask or the border contribute nothing.
-    fn new(data: &[f32], mask: Option<&[bool]>, w: usize, h: usize) -> Self {
-        let n = w * h;
+    fn new(data: &'a [f32], mask: Option<&'a [bool]>, w: usize, h: usize) -> Self {
+        Self { w, h, data, mask }
+    }
+
+    /// The products of row `y` into `xx`, `xy`, `yy` (each of length w).
+    fn row(&self, y: usize, xx: &mut [f32], xy: &mut [f32], yy: &mut [f32]) {
+        let (w, h, data) = (self.w, self.h, self.data);
+        xx.fill(0.0);
+        xy.fill(0.0);
+        yy.fill(0.0);
+        if y == 0 || y + 1 >= h {
+            return;
+        }
+        let masked = |i: usize| self.mask.is_some_and(|m| m[i]);
+        for x in 1..w.saturating_sub(1) {
+            let i = y * w + x;
+            if masked(i) || masked(i - 1) || masked(i + 1) || masked(i - w) || masked(i + w) {
+                continue;
+            }
+            let gx = 0.5 * (data[i + 1] - data[i - 1]);
+            let gy = 0.5 * (data[i + w] - data[i - w]);
+            xx[x] = gx * gx;
+            xy[x] = gx * gy;
+            yy[x] = gy * gy;
+        }
+    }
+
+    /// The products of every pixel, row-major.
+    fn full(&self) -> [Vec<f32>; 3] {
+        let n = self.w * self.h;
         let (mut xx, mut xy, mut yy) = (vec![0.0f32; n], vec![0.0f32; n], vec![0.0f32; n]);
-        let masked = |i: usize| mask.is_some_and(|m| m[i]);
-        for y in 1..h.saturating_sub(1) {
-            for x in 1..w.saturating_sub(1) {
-                let i = y * w + x;
-                if masked(i) || masked(i - 1) || masked(i + 1) || masked(i - w) || masked(i + w) {
-                    continue;
+        for y in 0..self.h {
+            let r = y * self.w..(y + 1) * self.w;
+            self.row(
+                y,
+                &mut xx[r.clone()],
+                &mut xy[r.clone()],
+                &mut yy[r.clone()],
+            );
+        }
+        [xx, xy, yy]
+    }
+
+    /// Means of the products over the `d` x `d` blocks of the image (blocks
+    /// at the right and bottom edges hold what is left), row-major.
+    fn block_means(&self, d: usize, out: [&mut Vec<f32>; 3]) {
+        let (w, h) = (self.w, self.h);
+        let (gw, gh) = (w.div_ceil(d), h.div_ceil(d));
+        let mut rows = [vec![0.0f32; w], vec![0.0f32; w], vec![0.0f32; w]];
+        let mut acc = [vec![0.0f64; gw], vec![0.0f64; gw], vec![0.0f64; gw]];
+        let [o0, o1, o2] = out;
+        let mut out = [o0, o1, o2];
+        for o in out.iter_mut() {
+            o.clear();
+            o.resize(gw * gh, 0.0);
+        }
+        for by in 0..gh {
+            for a in acc.iter_mut() {
+                a.iter_mut().for_each(|v| *v = 0.0);
+            }
+            let (y0, y1) = (by * d, ((by + 1) * d).min(h));
+            for y in y0..y1 {
+                let [r0, r1, r2] = &mut rows;
+                self.row(y, r0, r1, r2);
+                for (a, r) in acc.iter_mut().zip(&rows) {
+                    for (s, block) in a.iter_mut().zip(r.chunks(d)) {
+                        *s += block.iter().map(|&v| v as f64).sum::<f64>();
+                    }
                 }
-                let gx = 0.5 * (data[i + 1] - data[i - 1]);
-                let gy = 0.5 * (data[i + w] - data[i - w]);
-                xx[i] = gx * gx;
-                xy[i] = gx * gy;
-                yy[i] = gy * gy;
+            }
+            for (o, a) in out.iter_mut().zip(&acc) {
+                for (bx, (ov, s)) in o[by * gw..(by + 1) * gw].iter_mut().zip(a).enumerate() {
+                    let cols = ((bx + 1) * d).min(w) - bx * d;
+                    *ov = (*s / ((y1 - y0) * cols) as f64) as f32;
+                }
             }
         }
-        Self { w, h, xx, xy, yy }
     }
 }
 
@@ -599,6 +660,7 @@ impl Tensor {
             jxy: Vec::new(),
             jyy: Vec::new(),
             tmp: Vec::new(),
+            full: None,
         }
     }
 
@@ -627,11 +689,11 @@ impl Tensor {
         self.d = d;
         if d == 1 {
             (self.gw, self.gh) = (g.w, g.h);
-            for (src, dst) in [
-                (&g.xx, &mut self.jxx),
-                (&g.xy, &mut self.jxy),
-                (&g.yy, &mut self.jyy),
-            ] {
+            let full = self.full.get_or_insert_with(|| g.full());
+            for (src, dst) in full
+                .iter()
+                .zip([&mut self.jxx, &mut self.jxy, &mut self.jyy])
+            {
                 gaussian_blur_into(src, dst, &mut self.tmp, g.w, g.h, sigma);
             }
             return;
@@ -640,12 +702,8 @@ impl Tensor {
         (self.gw, self.gh) = (gw, gh);
         let df = d as f64;
         let rest = (sigma * sigma - (df * df - 1.0) / 12.0).max(0.0).sqrt() / df;
-        for (src, dst) in [
-            (&g.xx, &mut self.jxx),
-            (&g.xy, &mut self.jxy),
-            (&g.yy, &mut self.jyy),
-        ] {
-            block_means(src, g.w, g.h, d, dst);
+        g.block_means(d, [&mut self.jxx, &mut self.jxy, &mut self.jyy]);
+        for dst in [&mut self.jxx, &mut self.jxy, &mut self.jyy] {
             gaussian_blur_in_place(dst, &mut self.tmp, gw, gh, rest);
         }
     }
@@ -692,28 +750,6 @@ impl Tensor {
     }
 }
 
-/// Means of the `d` x `d` blocks of a `w` x `h` image (blocks at the right
-/// and bottom edges hold what is left), into `out`, row-major.
-fn block_means(src: &[f32], w: usize, h: usize, d: usize, out: &mut Vec<f32>) {
-    let (gw, gh) = (w.div_ceil(d), h.div_ceil(d));
-    out.clear();
-    out.resize(gw * gh, 0.0);
-    let mut acc = vec![0.0f64; gw];
-    for by in 0..gh {
-        acc.iter_mut().for_each(|a| *a = 0.0);
-        let (y0, y1) = (by * d, ((by + 1) * d).min(h));
-        for row in src[y0 * w..y1 * w].chunks_exact(w) {
-            for (a, block) in acc.iter_mut().zip(row.chunks(d)) {
-                *a += block.iter().map(|&v| v as f64).sum::<f64>();
-            }
-        }
-        for (bx, (o, a)) in out[by * gw..(by + 1) * gw].iter_mut().zip(&acc).enumerate() {
-            let cols = ((bx + 1) * d).min(w) - bx * d;
-            *o = (*a / ((y1 - y0) * cols) as f64) as f32;
-        }
-    }
-}
-
 /// Smallest angle between two axial directions (radians, modulo pi).
 fn axial_diff(a: f64, b: f64) -> f64 {
     let d = (a - b).rem_euclid(std::f64::consts::PI);
@@ -742,7 +778,7 @@ struct PhaseField {
     neck_depth: f32,
 }
 
-fn phase_field(seg: &Segmentation, sigma: f64) -> PhaseField {
+fn phase_field(seg: Segmentation, sigma: f64) -> PhaseField {
     let mut ind: Vec<f32> = seg
         .foreground
         .iter()
@@ -751,7 +787,9 @@ fn phase_field(seg: &Segmentation, sigma: f64) -> PhaseField {
     let (w, h) = (seg.width, seg.height);
     gaussian_blur_indicator_in_place(&mut ind, &mut Vec::new(), w, h, sigma.max(0.5));
     let sign = if seg.inverted { -1.0f32 } else { 1.0 };
-    let grey: Vec<f32> = seg.smoothed.iter().map(|v| sign * v).collect();
+    // The segmentation's smoothed values, taken over (not copied).
+    let mut grey = seg.smoothed;
+    grey.iter_mut().for_each(|v| *v *= sign);
     let mut arm: Vec<f32> = grey
         .iter()
         .zip(&seg.foreground)
@@ -772,8 +810,8 @@ fn phase_field(seg: &Segmentation, sigma: f64) -> PhaseField {
 /// A counted line with the traced segment it was sampled on.
 struct Traced {
     line: Line,
-    a: (f64, f64),
-    b: (f64, f64),
+    /// The sampled line, for the pooled recounts.
+    profile: Profile,
     count: Count,
 }
 
@@ -876,14 +914,16 @@ fn lay_lines(
         }
         let (x0, y0) = (cx as f64 + a * ux, cy as f64 + a * uy);
         let (x1, y1) = (cx as f64 + b * ux, cy as f64 + b * uy);
-        let Some((line, count)) = count_line(seg, (x0, y0), (x1, y1), p, None) else {
+        let Some(profile) = sample_line(seg, (x0, y0), (x1, y1), p) else {
+            continue;
+        };
+        let Some((line, count)) = count_profile(&profile, seg.neck_depth, p, None) else {
             continue;
         };
         mark_band(occupied, w, h, (x0, y0), (x1, y1), band);
         lines.push(Traced {
             line,
-            a: (x0, y0),
-            b: (x1, y1),
+            profile,
             count,
         });
     }
@@ -1335,14 +1375,28 @@ fn complete_fg(runs: &[Run]) -> impl Iterator<Item = &Run> {
         .map(|(_, r)| r)
 }
 
-/// Samples the line every half pixel, counts it and returns it as a [`Line`].
-fn count_line(
+/// A line sampled every half pixel: its direction, the grey profile, and
+/// the runs of the phase field after the grazing merge. Counting depends on
+/// the pooled (w, m) only after this, so recounts reuse it.
+struct Profile {
+    a: (f64, f64),
+    ux: f64,
+    uy: f64,
+    step: f64,
+    grey: Vec<f32>,
+    runs: Vec<Run>,
+    /// Sampled length, pixels.
+    sampled: f64,
+}
+
+/// Samples the line from `a` to `b` every half pixel. `None` for a line of
+/// fewer than four samples.
+fn sample_line(
     seg: &PhaseField,
     a: (f64, f64),
     b: (f64, f64),
     p: &InterceptParams,
-    pooled: Option<(f64, f64)>,
-) -> Option<(Line, Count)> {
+) -> Option<Profile> {
     let (w, h) = (seg.w, seg.h);
     let len = (b.0 - a.0).hypot(b.1 - a.1);
     // Half-pixel steps: the sampling is finer than the 1 px pre-smoothing,
@@ -1367,13 +1421,30 @@ fn count_line(
         .collect();
     let mut runs = runs_of_profile(&values, step, 0.5, false);
     merge_grazing_runs(&mut runs, &values, step, p.min_crossing_depth as f32);
-    let sampled = (n - 1) as f64 * step;
-    let necks = Necks {
-        grey: &grey,
+    Some(Profile {
+        a,
+        ux,
+        uy,
         step,
-        depth: seg.neck_depth,
+        grey,
+        runs,
+        sampled: (n - 1) as f64 * step,
+    })
+}
+
+/// Counts a sampled line and returns it as a [`Line`].
+fn count_profile(
+    pr: &Profile,
+    neck_depth: f32,
+    p: &InterceptParams,
+    pooled: Option<(f64, f64)>,
+) -> Option<(Line, Count)> {
+    let necks = Necks {
+        grey: &pr.grey,
+        step: pr.step,
+        depth: neck_depth,
     };
-    let c = count_runs_with_necks(&runs, Some(necks), sampled, p, pooled)?;
+    let c = count_runs_with_necks(&pr.runs, Some(necks), pr.sampled, p, pooled)?;
     let spacing = match p.convention {
         Convention::CentreToCentre => c.centre_to_centre,
         Convention::LengthOverCount => c.length_over_count,
@@ -1381,6 +1452,7 @@ fn count_line(
     if !spacing.is_finite() || spacing <= 0.0 {
         return None;
     }
+    let (a, ux, uy) = (pr.a, pr.ux, pr.uy);
     let at = |s: f64| (a.0 + s * ux, a.1 + s * uy);
     let (s0, s1) = c.extent;
     let (p0, p1) = (at(s0), at(s1));
