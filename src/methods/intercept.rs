@@ -583,11 +583,12 @@ impl<'a> GradientProducts<'a> {
         if y == 0 || y + 1 >= h {
             return;
         }
-        let masked = |i: usize| self.mask.is_some_and(|m| m[i]);
         for x in 1..w.saturating_sub(1) {
             let i = y * w + x;
-            if masked(i) || masked(i - 1) || masked(i + 1) || masked(i - w) || masked(i + w) {
-                continue;
+            if let Some(m) = self.mask {
+                if m[i] || m[i - 1] || m[i + 1] || m[i - w] || m[i + w] {
+                    continue;
+                }
             }
             let gx = 0.5 * (data[i + 1] - data[i - 1]);
             let gy = 0.5 * (data[i + w] - data[i - w]);
@@ -712,6 +713,13 @@ impl Tensor {
     /// (-pi/2, pi/2]) and coherence at pixel (x, y).
     #[inline]
     fn at(&self, x: usize, y: usize) -> (f64, f64) {
+        let j = self.components(x, y);
+        (j.theta(), j.coherence())
+    }
+
+    /// The tensor at pixel (x, y), interpolated on a coarse grid.
+    #[inline]
+    fn components(&self, x: usize, y: usize) -> Components {
         let (a, b, c) = if self.d == 1 {
             let i = y * self.gw + x;
             (self.jxx[i] as f64, self.jxy[i] as f64, self.jyy[i] as f64)
@@ -740,13 +748,39 @@ impl Tensor {
                 |v: &[f32]| -> f64 { w.iter().zip(&idx).map(|(wk, &i)| wk * v[i] as f64).sum() };
             (lerp(&self.jxx), lerp(&self.jxy), lerp(&self.jyy))
         };
+        Components { a, b, c }
+    }
+}
+
+/// The tensor (Jxx, Jxy, Jyy) at one point. Its coherence is cheaper than
+/// its direction (no arctangent), so a test on both asks the coherence
+/// first.
+#[derive(Clone, Copy)]
+struct Components {
+    a: f64,
+    b: f64,
+    c: f64,
+}
+
+impl Components {
+    /// Dominant gradient direction, radians (0 for a zero tensor).
+    #[inline]
+    fn theta(self) -> f64 {
+        if self.a + self.c <= 0.0 {
+            return 0.0;
+        }
+        0.5 * (2.0 * self.b).atan2(self.a - self.c)
+    }
+
+    /// (l1 - l2) / (l1 + l2) (0 for a zero tensor).
+    #[inline]
+    fn coherence(self) -> f64 {
+        let (a, b, c) = (self.a, self.b, self.c);
         let tr = a + c;
         if tr <= 0.0 {
-            return (0.0, 0.0);
+            return 0.0;
         }
-        let theta = 0.5 * (2.0 * b).atan2(a - c);
-        let coh = ((a - c).powi(2) + 4.0 * b * b).sqrt() / tr;
-        (theta, coh)
+        ((a - c).powi(2) + 4.0 * b * b).sqrt() / tr
     }
 }
 
@@ -854,9 +888,12 @@ fn lay_lines(
         let mut xf = margin as f64;
         while xf < (w - margin) as f64 {
             let (x, y) = (xf as usize, yf as usize);
-            let (theta, coh) = tensor.at(x, y);
-            let hint_ok = hint.is_none_or(|hd| axial_diff(theta, hd) <= max_turn);
-            if coh >= p.min_coherence && hint_ok && !mask.is_some_and(|m| m[y * w + x]) {
+            let j = tensor.components(x, y);
+            let coh = j.coherence();
+            if coh >= p.min_coherence
+                && hint.is_none_or(|hd| axial_diff(j.theta(), hd) <= max_turn)
+                && !mask.is_some_and(|m| m[y * w + x])
+            {
                 cands.push((coh, x, y));
             }
             xf += pitch;
@@ -900,8 +937,8 @@ fn lay_lines(
                 if occupied[i] || mask.is_some_and(|m| m[i]) {
                     break;
                 }
-                let (t, c) = tensor.at(xi, yi);
-                if c < p.min_coherence || axial_diff(t, theta) > max_turn {
+                let j = tensor.components(xi, yi);
+                if j.coherence() < p.min_coherence || axial_diff(j.theta(), theta) > max_turn {
                     break;
                 }
                 s += 1.0;
@@ -939,10 +976,10 @@ fn mark_band(occ: &mut [bool], w: usize, h: usize, a: (f64, f64), b: (f64, f64),
     let xmax = ((a.0.max(b.0) + band).ceil().max(0.0) as usize).min(w - 1);
     let ymax = ((a.1.max(b.1) + band).ceil().max(0.0) as usize).min(h - 1);
     // Only the pixels of a row within band + 1 of the segment's line can
-    // be within band of the segment: the exact test below runs on that
+    // be within band of the segment: the exact test below searches that
     // stretch of the row (widened by a pixel) instead of the whole bounding
     // box. Pixels skipped are more than band + 1 from the line, far beyond
-    // any rounding of the test, so the same pixels are marked.
+    // any rounding of the test.
     let len = len2.sqrt();
     for y in ymin..=ymax {
         let (mut x_lo, mut x_hi) = (xmin, xmax);
@@ -957,7 +994,7 @@ fn mark_band(occ: &mut [bool], w: usize, h: usize, a: (f64, f64), b: (f64, f64),
             x_lo = x_lo.max(lo.max(0.0) as usize);
             x_hi = x_hi.min(hi as usize);
         }
-        for x in x_lo..=x_hi {
+        let within = |x: usize| {
             let (px, py) = (x as f64 - a.0, y as f64 - a.1);
             let t = if len2 > 0.0 {
                 ((px * dx + py * dy) / len2).clamp(0.0, 1.0)
@@ -965,10 +1002,18 @@ fn mark_band(occ: &mut [bool], w: usize, h: usize, a: (f64, f64), b: (f64, f64),
                 0.0
             };
             let (ex, ey) = (px - t * dx, py - t * dy);
-            if ex * ex + ey * ey <= band * band {
-                occ[y * w + x] = true;
-            }
-        }
+            ex * ex + ey * ey <= band * band
+        };
+        // The band is convex, so on a row its pixels are one stretch: find
+        // its ends by the exact test from either side and fill between
+        // (a pixel between two marked ones is nearer the segment than the
+        // farther of them; only one within rounding, ~1e-12 px, of the
+        // band's edge could be judged otherwise pixel by pixel).
+        let Some(first) = (x_lo..=x_hi).find(|&x| within(x)) else {
+            continue;
+        };
+        let last = (first..=x_hi).rev().find(|&x| within(x)).unwrap_or(first);
+        occ[y * w + first..=y * w + last].fill(true);
     }
 }
 
