@@ -185,15 +185,33 @@ fn blur_passes(
     sigma: f64,
     skip_width_one: bool,
 ) {
+    let mode = if skip_width_one {
+        UnitBoxes::SkipLeading
+    } else {
+        UnitBoxes::Run
+    };
+    blur_passes_mode(src, data, tmp, width, height, sigma, mode);
+}
+
+fn blur_passes_mode(
+    src: Option<&[f32]>,
+    data: &mut [f32],
+    tmp: &mut Vec<f32>,
+    width: usize,
+    height: usize,
+    sigma: f64,
+    mode: UnitBoxes,
+) {
     let mut src = src;
     if sigma > 0.0 && width > 0 && height > 0 {
         tmp.resize(data.len(), 0.0);
-        // Width-1 boxes are skipped only while the image is still the
-        // indicator (`box_widths` puts the narrower boxes first).
-        let mut still_indicator = skip_width_one;
+        // With `SkipLeading`, width-1 boxes are skipped only while the image
+        // is still the indicator (`box_widths` puts the narrower boxes
+        // first).
+        let mut still_indicator = mode == UnitBoxes::SkipLeading;
         for w in box_widths(sigma, 3) {
             let r = w / 2;
-            if r == 0 && still_indicator {
+            if r == 0 && (still_indicator || mode == UnitBoxes::SkipAll) {
                 continue;
             }
             still_indicator = false;
@@ -208,6 +226,42 @@ fn blur_passes(
     if let Some(s) = src {
         data.copy_from_slice(s);
     }
+}
+
+/// [`gaussian_blur`] without the boxes of width 1 of its cascade (sigma = 1
+/// has widths 1, 1, 3): such a box is the identity in exact arithmetic, so
+/// the result is the same Gaussian approximation. In floating point the
+/// running sum of a width-1 box, (previous + next) - previous in f64, gives
+/// back the next value exactly unless two neighbours differ in magnitude by
+/// more than 2^29; then the skipped pass would have left a difference of
+/// order 1e-16 of the larger one. For callers that threshold the result
+/// (the segmentation), that is far below any grey level that matters.
+pub fn gaussian_blur_without_unit_boxes(
+    data: &[f32],
+    width: usize,
+    height: usize,
+    sigma: f64,
+) -> Vec<f32> {
+    let mut out = vec![0.0f32; data.len()];
+    blur_passes_mode(
+        Some(data),
+        &mut out,
+        &mut Vec::new(),
+        width,
+        height,
+        sigma,
+        UnitBoxes::SkipAll,
+    );
+    out
+}
+
+/// Which boxes of width 1 (the identity in exact arithmetic) a cascade runs.
+#[derive(Clone, Copy, PartialEq)]
+enum UnitBoxes {
+    Run,
+    /// Only those before any wider box (exact on an indicator image).
+    SkipLeading,
+    SkipAll,
 }
 
 /// Normalised convolution: blur of the unmasked values divided by the blur of

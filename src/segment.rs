@@ -21,7 +21,7 @@
 //!   specks of the one phase and fills pin-holes in the other.
 //! * Phase choice: see [`PhaseChoice`].
 
-use crate::preprocess::{gaussian_blur, Prepared};
+use crate::preprocess::{gaussian_blur_without_unit_boxes, Prepared};
 
 /// Number of histogram bins (the scikit-image default for float images).
 pub const OTSU_BINS: usize = 256;
@@ -266,7 +266,8 @@ pub fn segment(img: &Prepared, params: &SegmentParams) -> Option<Segmentation> {
         return None;
     }
     let mask = img.mask.as_deref().filter(|m| m.len() == w * h);
-    let smoothed = gaussian_blur(&img.image.data, w, h, params.smooth_sigma_px.max(0.0));
+    let smoothed =
+        gaussian_blur_without_unit_boxes(&img.image.data, w, h, params.smooth_sigma_px.max(0.0));
     let threshold = otsu_threshold(&smoothed, mask)?;
     let excluded = |i: usize| mask.is_some_and(|m| m[i]);
     let separability = separability(&smoothed, mask, threshold)?;

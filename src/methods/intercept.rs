@@ -514,7 +514,25 @@ fn crossing_scale(seg: &Segmentation, mask: Option<&[bool]>) -> Option<f64> {
     let (w, h) = (seg.width, seg.height);
     let ok = |i: usize| !mask.is_some_and(|m| m[i]);
     let (mut cx, mut nx, mut cy, mut ny) = (0u64, 0u64, 0u64, 0u64);
+    let f = &seg.foreground;
+    let masked_row = |y: usize| mask.is_some_and(|m| m[y * w..(y + 1) * w].iter().any(|&v| v));
+    let mut this_masked = h > 0 && masked_row(0);
     for y in 0..h {
+        let next_masked = y + 1 < h && masked_row(y + 1);
+        let masked = this_masked || next_masked;
+        this_masked = next_masked;
+        if !masked {
+            // Rows y and y + 1 clear of the mask: the same counts, by rows.
+            let row = &f[y * w..(y + 1) * w];
+            nx += w.saturating_sub(1) as u64;
+            cx += row.windows(2).filter(|p| p[0] != p[1]).count() as u64;
+            if y + 1 < h {
+                let below = &f[(y + 1) * w..(y + 2) * w];
+                ny += w as u64;
+                cy += row.iter().zip(below).filter(|(a, b)| a != b).count() as u64;
+            }
+            continue;
+        }
         for x in 0..w {
             let i = y * w + x;
             if !ok(i) {
@@ -565,13 +583,26 @@ struct GradientProducts<'a> {
     h: usize,
     data: &'a [f32],
     mask: Option<&'a [bool]>,
+    /// Rows with a masked pixel (the stencil of row y reads rows y - 1 to
+    /// y + 1; rows clear of the mask skip the per-pixel lookups).
+    masked_rows: Vec<bool>,
 }
 
 impl<'a> GradientProducts<'a> {
     /// Central-difference gradients of `data`; pixels whose stencil touches
     /// the mask or the border contribute nothing.
     fn new(data: &'a [f32], mask: Option<&'a [bool]>, w: usize, h: usize) -> Self {
-        Self { w, h, data, mask }
+        let masked_rows = match mask {
+            Some(m) => m.chunks(w.max(1)).map(|r| r.iter().any(|&v| v)).collect(),
+            None => vec![false; h],
+        };
+        Self {
+            w,
+            h,
+            data,
+            mask,
+            masked_rows,
+        }
     }
 
     /// The products of row `y` into `xx`, `xy`, `yy` (each of length w).
@@ -583,9 +614,11 @@ impl<'a> GradientProducts<'a> {
         if y == 0 || y + 1 >= h {
             return;
         }
+        let near_mask = self.masked_rows[y - 1..=y + 1].iter().any(|&v| v);
+        let mask = self.mask.filter(|_| near_mask);
         for x in 1..w.saturating_sub(1) {
             let i = y * w + x;
-            if let Some(m) = self.mask {
+            if let Some(m) = mask {
                 if m[i] || m[i - 1] || m[i + 1] || m[i - w] || m[i + w] {
                     continue;
                 }
