@@ -83,7 +83,8 @@
 //!    value.
 
 use crate::preprocess::{
-    gaussian_blur_in_place, gaussian_blur_indicator_in_place, gaussian_blur_into, Prepared,
+    box_widths, gaussian_blur_in_place, gaussian_blur_indicator_in_place, gaussian_blur_into,
+    Prepared,
 };
 use crate::segment::{segment, SegmentParams, Segmentation};
 use crate::stats::{self, Summary};
@@ -715,11 +716,13 @@ impl Tensor {
     /// Gaussian is then at least 4 grid steps wide, where the three-box
     /// cascade's odd widths still give its sigma within a few per cent (the
     /// same granularity as at full resolution for sigma >= 8, see
-    /// `preprocess::box_widths`). Below sigma = 8 the grid is every pixel
-    /// and the blurs read the products directly into the reused buffers.
+    /// `preprocess::box_widths`); of the pitches up to sigma/4 the one whose
+    /// window's variance is nearest the full-resolution cascade's is used
+    /// ([`grid_pitch`]). Below sigma = 8 the grid is every pixel and the
+    /// blurs read the products directly into the reused buffers (the same
+    /// result as blurring at full resolution always, bit for bit).
     fn rebuild(&mut self, g: &GradientProducts, sigma: f64) {
-        // Pitch: a quarter of the window's sigma (see above), whole pixels.
-        let d = ((sigma / 4.0).floor() as usize).max(1);
+        let d = grid_pitch(sigma);
         self.d = d;
         if d == 1 {
             (self.gw, self.gh) = (g.w, g.h);
@@ -734,8 +737,7 @@ impl Tensor {
         }
         let (gw, gh) = (g.w.div_ceil(d), g.h.div_ceil(d));
         (self.gw, self.gh) = (gw, gh);
-        let df = d as f64;
-        let rest = (sigma * sigma - (df * df - 1.0) / 12.0).max(0.0).sqrt() / df;
+        let rest = coarse_sigma(sigma, d);
         g.block_means(d, [&mut self.jxx, &mut self.jxy, &mut self.jyy]);
         for dst in [&mut self.jxx, &mut self.jxy, &mut self.jyy] {
             gaussian_blur_in_place(dst, &mut self.tmp, gw, gh, rest);
@@ -815,6 +817,54 @@ impl Components {
         }
         ((a - c).powi(2) + 4.0 * b * b).sqrt() / tr
     }
+}
+
+/// Variance of the three-box cascade that approximates a Gaussian of
+/// `sigma` (a box of odd width w has variance (w^2 - 1)/12; the cascade's
+/// variances add).
+fn cascade_variance(sigma: f64) -> f64 {
+    box_widths(sigma, 3)
+        .iter()
+        .map(|&w| ((w * w) as f64 - 1.0) / 12.0)
+        .sum()
+}
+
+/// Sigma, in grid steps, of the cascade on a grid of pitch `d` that leaves
+/// the window a variance of sigma^2 after the d x d block means.
+fn coarse_sigma(sigma: f64, d: usize) -> f64 {
+    let df = d as f64;
+    (sigma * sigma - (df * df - 1.0) / 12.0).max(0.0).sqrt() / df
+}
+
+/// Pitch of the structure tensor's grid for a window of `sigma` pixels
+/// (see [`Tensor::rebuild`]): at most a quarter of sigma, so nothing
+/// aliases, and of those pitches the one whose window (block means plus the
+/// grid's box cascade, whose odd widths move its variance in steps) has
+/// the variance nearest that of the full-resolution cascade, so the window
+/// stays the one the full-resolution path uses within the grid's
+/// granularity (the larger pitch on a tie). 1 below sigma = 8.
+fn grid_pitch(sigma: f64) -> usize {
+    let d_max = if sigma.is_finite() {
+        (sigma / 4.0).floor() as usize
+    } else {
+        1
+    };
+    if d_max < 2 {
+        return 1;
+    }
+    let target = cascade_variance(sigma);
+    let realised = |d: usize| {
+        let df = d as f64;
+        (df * df - 1.0) / 12.0 + df * df * cascade_variance(coarse_sigma(sigma, d))
+    };
+    (2..=d_max)
+        .rev()
+        .min_by(|&a, &b| {
+            (realised(a) - target)
+                .abs()
+                .total_cmp(&(realised(b) - target).abs())
+        })
+        .unwrap_or(1)
 }
 
 /// Smallest angle between two axial directions (radians, modulo pi).
