@@ -89,9 +89,12 @@ pub fn robust_location_scale(data: &[f32], mask: Option<&[bool]>) -> (f64, f64) 
     if sample.is_empty() {
         return (0.0, 0.0);
     }
-    let med = crate::stats::median_in_place(&mut sample);
-    let mut dev: Vec<f32> = sample.iter().map(|v| (v - med as f32).abs()).collect();
-    let mad = crate::stats::median_in_place(&mut dev);
+    // The same medians as `stats::median_in_place`, by radix selection.
+    let med = crate::segment::median_by_selection(&sample);
+    for v in sample.iter_mut() {
+        *v = (*v - med as f32).abs();
+    }
+    let mad = crate::segment::median_by_selection(&sample);
     (med, 1.4826 * mad)
 }
 

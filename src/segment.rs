@@ -144,40 +144,82 @@ fn total_order_key(v: f32) -> u32 {
 }
 
 /// The values of ranks `ranks` (0-based, in `f32::total_cmp` order, each
-/// below `n`) among the `n` unmasked finite values, by radix selection: a
-/// histogram of the keys' top 16 bits finds the bucket holding each rank,
-/// and only that bucket's values are selected among. Exact: the same values
-/// a selection over all of them returns, in two passes over the image
-/// instead of partitioning a copy of it.
+/// below `n`) among the `n` unmasked finite values, by radix selection (see
+/// [`select_ranks`]).
 fn nth_smallest<const K: usize>(
     values: &[f32],
     mask: Option<&[bool]>,
     n: usize,
     ranks: [usize; K],
 ) -> [f32; K] {
+    select_ranks(|| unmasked(values, mask), n, ranks)
+}
+
+/// The values of ranks `ranks` (0-based, in `f32::total_cmp` order, each
+/// below `n`) among the `n` values `values()` yields, by radix selection: a
+/// histogram of the keys' top 16 bits finds the bucket holding each rank,
+/// and only those buckets' values are selected among. Exact: the values a
+/// selection over all of them returns (equal in total order means equal
+/// bits), in two passes over the values instead of partitioning a copy.
+pub(crate) fn select_ranks<const K: usize, I: Iterator<Item = f32>>(
+    values: impl Fn() -> I,
+    n: usize,
+    ranks: [usize; K],
+) -> [f32; K] {
     let mut hist = vec![0u32; 1 << 16];
-    for v in unmasked(values, mask) {
+    for v in values() {
         hist[(total_order_key(v) >> 16) as usize] += 1;
     }
-    ranks.map(|r| {
+    // Bucket holding each rank, and the count below it.
+    let where_ = ranks.map(|r| {
         debug_assert!(r < n);
-        // Bucket holding rank r, and the rank within it.
         let mut below = 0usize;
-        let mut bucket = 0usize;
         for (b, &c) in hist.iter().enumerate() {
             if below + c as usize > r {
-                bucket = b;
-                break;
+                return (b, below);
             }
             below += c as usize;
         }
-        let mut members: Vec<f32> = unmasked(values, mask)
-            .filter(|&v| (total_order_key(v) >> 16) as usize == bucket)
-            .collect();
-        *members
-            .select_nth_unstable_by(r - below, |a, b| a.total_cmp(b))
+        (hist.len() - 1, below)
+    });
+    // One pass collects the members of every bucket needed.
+    let mut members: [Vec<f32>; K] = std::array::from_fn(|_| Vec::new());
+    for v in values() {
+        let b = (total_order_key(v) >> 16) as usize;
+        for (k, &(bk, _)) in where_.iter().enumerate() {
+            if bk == b {
+                members[k].push(v);
+                break;
+            }
+        }
+    }
+    std::array::from_fn(|k| {
+        // Ranks in a shared bucket read the first list that holds it.
+        let (b, below) = where_[k];
+        let first = where_.iter().position(|&(bk, _)| bk == b).unwrap_or(k);
+        let mut m = members[first].clone();
+        *m.select_nth_unstable_by(ranks[k] - below, |a, b| a.total_cmp(b))
             .1
     })
+}
+
+/// The median of `v` as [`crate::stats::median_in_place`] gives it (the
+/// middle value, or the mean of the two middle ones), by radix selection
+/// ([`select_ranks`]), without reordering `v`. 0 for an empty slice. For
+/// finite values the same number, bit for bit (the lower middle value of
+/// an even count is the largest of the lower half either way).
+pub(crate) fn median_by_selection(v: &[f32]) -> f64 {
+    let n = v.len();
+    if n == 0 {
+        return 0.0;
+    }
+    let mid = n / 2;
+    if n % 2 == 1 {
+        select_ranks(|| v.iter().copied(), n, [mid])[0] as f64
+    } else {
+        let [lower, upper] = select_ranks(|| v.iter().copied(), n, [mid - 1, mid]);
+        0.5 * (lower as f64 + upper as f64)
+    }
 }
 
 /// Otsu's threshold over `nbins` equal bins spanning `[lo, hi]` (values
@@ -548,6 +590,23 @@ mod tests {
                 }
             }
         }
+    }
+
+    #[test]
+    fn median_by_selection_matches_stats_median() {
+        for n in [1usize, 2, 3, 10, 11, 1000, 1001] {
+            let v: Vec<f32> = (0..n)
+                .map(|i| ((i * 7919) % 997) as f32 / 31.0 - 9.0)
+                .collect();
+            let mut copy = v.clone();
+            let reference = crate::stats::median_in_place(&mut copy);
+            assert_eq!(
+                median_by_selection(&v).to_bits(),
+                reference.to_bits(),
+                "n {n}"
+            );
+        }
+        assert_eq!(median_by_selection(&[]), 0.0);
     }
 
     #[test]

@@ -670,8 +670,19 @@ impl<'a> GradientProducts<'a> {
                 let [r0, r1, r2] = &mut rows;
                 self.row(y, r0, r1, r2);
                 for (a, r) in acc.iter_mut().zip(&rows) {
-                    for (s, block) in a.iter_mut().zip(r.chunks(d)) {
-                        *s += block.iter().map(|&v| v as f64).sum::<f64>();
+                    // The usual pitches with the block width known to the
+                    // compiler (unrolled); the same sums in the same order.
+                    match d {
+                        2 => add_block_sums::<2>(a, r),
+                        3 => add_block_sums::<3>(a, r),
+                        4 => add_block_sums::<4>(a, r),
+                        5 => add_block_sums::<5>(a, r),
+                        6 => add_block_sums::<6>(a, r),
+                        _ => {
+                            for (s, block) in a.iter_mut().zip(r.chunks(d)) {
+                                *s += block.iter().map(|&v| v as f64).sum::<f64>();
+                            }
+                        }
                     }
                 }
             }
@@ -819,6 +830,20 @@ impl Components {
     }
 }
 
+/// Adds to `acc[k]` the sum of `row[k D .. k D + D]` (the last block holds
+/// what is left), each sum taken in order as f64.
+fn add_block_sums<const D: usize>(acc: &mut [f64], row: &[f32]) {
+    let blocks = row.chunks_exact(D);
+    let rest = blocks.remainder();
+    let full = row.len() / D;
+    for (s, block) in acc.iter_mut().zip(blocks) {
+        *s += block.iter().map(|&v| v as f64).sum::<f64>();
+    }
+    if !rest.is_empty() {
+        acc[full] += rest.iter().map(|&v| v as f64).sum::<f64>();
+    }
+}
+
 /// Variance of the three-box cascade that approximates a Gaussian of
 /// `sigma` (a box of odd width w has variance (w^2 - 1)/12; the cascade's
 /// variances add).
@@ -907,14 +932,14 @@ fn phase_field(seg: Segmentation, sigma: f64) -> PhaseField {
     // The segmentation's smoothed values, taken over (not copied).
     let mut grey = seg.smoothed;
     grey.iter_mut().for_each(|v| *v *= sign);
-    let mut arm: Vec<f32> = grey
+    let arm: Vec<f32> = grey
         .iter()
         .zip(&seg.foreground)
         .filter(|(_, &f)| f)
         .map(|(g, _)| *g)
         .step_by(7)
         .collect();
-    let level = stats::median_in_place(&mut arm) as f32;
+    let level = crate::segment::median_by_selection(&arm) as f32;
     PhaseField {
         w: seg.width,
         h: seg.height,
