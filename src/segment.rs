@@ -443,14 +443,13 @@ pub fn remove_small(bright: &mut [bool], mask: Option<&[bool]>, w: usize, h: usi
         }
         size.clear();
         size.resize(runs.len(), 0);
-        for i in 0..runs.len() {
+        for (i, &(_, x0, x1)) in runs.iter().enumerate() {
             let r = find(&mut parent, i);
-            size[r] += runs[i].2 - runs[i].1;
+            size[r] += x1 - x0;
         }
-        for i in 0..runs.len() {
+        for (i, &(y, x0, x1)) in runs.iter().enumerate() {
             let r = find(&mut parent, i);
             if size[r] < min_px {
-                let (y, x0, x1) = runs[i];
                 bright[y * w + x0..y * w + x1].fill(!phase);
             }
         }
