@@ -672,11 +672,24 @@ fn choose_peak_with(
 /// `resolve_ladder` deals with those).
 const MAX_RELATIVE_WIDTH: f64 = 0.5;
 
+/// `x.floor()` for |x| < 2^53, exactly, without the library call that a
+/// baseline x86-64 build makes of `f64::floor` (the rounding instruction
+/// needs SSE4.1); spectra are sampled along rays often enough for the call
+/// to show.
+fn floor(x: f64) -> f64 {
+    let t = x as i64 as f64;
+    if t > x {
+        t - 1.0
+    } else {
+        t
+    }
+}
+
 /// Bilinear interpolation of an n x n grid that repeats with period n in both
 /// directions (a DFT spectrum), at (x, y) in bins.
 fn bilinear_periodic(grid: &[f64], n: usize, x: f64, y: f64) -> f64 {
     let ni = n as i64;
-    let (x0, y0) = (x.floor(), y.floor());
+    let (x0, y0) = (floor(x), floor(y));
     let (fx, fy) = (x - x0, y - y0);
     // Wrapped once per axis, by an integer division only when the index is
     // outside the grid; the next index wraps by comparison.

@@ -106,23 +106,31 @@ impl SpectrumAnalyser {
         // Row spectra, columns u = 0..=n/2, into `tr` as [u * n + y]:
         // with z = a + i b, A(u) = (Z(u) + Z(-u)*) / 2 and
         // B(u) = (Z(u) - Z(-u)*) / (2 i).
+        // In blocks of rows so that the column-wise writes stay in cache.
         let cols = half + 1;
-        for j in 0..half {
-            let z = &self.buf[j * n..(j + 1) * n];
+        const J: usize = 8;
+        for bj in (0..half).step_by(J) {
             for u in 0..cols {
-                let zu = z[u];
-                let zm = z[(n - u) % n].conj();
-                let a = (zu + zm) * 0.5;
-                let d = zu - zm;
-                let b = Complex::new(0.5 * d.im, -0.5 * d.re);
-                self.tr[u * n + 2 * j] = a;
-                self.tr[u * n + 2 * j + 1] = b;
+                let m = (n - u) % n;
+                for j in bj..(bj + J).min(half) {
+                    let zu = self.buf[j * n + u];
+                    let zm = self.buf[j * n + m].conj();
+                    let a = (zu + zm) * 0.5;
+                    let d = zu - zm;
+                    let b = Complex::new(0.5 * d.im, -0.5 * d.re);
+                    self.tr[u * n + 2 * j] = a;
+                    self.tr[u * n + 2 * j + 1] = b;
+                }
             }
         }
         self.fft
             .process_with_scratch(&mut self.tr[..cols * n], &mut self.scratch);
-        out.clear();
-        out.resize(n * n, 0.0);
+        // Every element is written below; a buffer of the right size is
+        // reused as it is.
+        if out.len() != n * n {
+            out.clear();
+            out.resize(n * n, 0.0);
+        }
         // Power of the columns u = 0..=n/2 in blocks of B x B (within a block
         // each output row is a slice), then the rest by symmetry,
         // P(u, v) = P(n - u, n - v).
