@@ -1539,6 +1539,49 @@ mod tests {
     }
 
     #[test]
+    fn a_side_lobe_is_not_the_strongest_feature_of_its_ray() {
+        // Basis: the first side lobe of a rectangle of width w lies at
+        // 1.43 / w, 13.3 dB (21 times) below its main lobe (Harris 1978);
+        // a fundamental is the strongest feature of its ray.
+        let n = 96;
+        let w = 12usize;
+        let bar: Vec<f32> = (0..n * n)
+            .map(|i| f32::from(u8::from((42..42 + w).contains(&(i % n)))))
+            .collect();
+        let mut a = SpectrumAnalyser::new(n);
+        let mut p = Vec::new();
+        a.power(&bar, n, 0, 0, &mut p);
+        let mut search = CandidateSearch::new(n, 3.0);
+        let (cands, _) = search.run(&p);
+        // The candidate nearest the first side lobe, 1.43 / 12 px.
+        let lobe = cands
+            .iter()
+            .min_by(|x, y| {
+                (x.freq() - 1.43 / w as f64)
+                    .abs()
+                    .total_cmp(&(y.freq() - 1.43 / w as f64).abs())
+            })
+            .unwrap();
+        assert!((lobe.freq() * w as f64 - 1.43).abs() < 0.15, "{lobe:?}");
+        let excess = search.ray_excess_below(lobe);
+        assert!(excess >= MAX_RAY_EXCESS, "side lobe excess {excess}");
+        // A row of such bars, 24 px apart (duty 0.5): its fundamental is the
+        // strongest feature of its ray.
+        let row: Vec<f32> = (0..n * n)
+            .map(|i| f32::from(u8::from((i % n) % 24 < w)))
+            .collect();
+        a.power(&row, n, 0, 0, &mut p);
+        let (cands, _) = search.run(&p);
+        let fundamental = cands
+            .iter()
+            .max_by(|x, y| x.power.total_cmp(&y.power))
+            .unwrap();
+        assert!((fundamental.period_px() - 24.0).abs() < 0.5);
+        let excess = search.ray_excess_below(fundamental);
+        assert!(excess < 1.0, "fundamental excess {excess}");
+    }
+
+    #[test]
     fn a_single_bar_is_not_a_period() {
         // Basis: N periods under a Hann window give a peak of relative
         // half-power width 1.44 / N (Harris 1978); one feature's form factor
