@@ -274,8 +274,19 @@ struct SynthArgs {
     count: u32,
     /// Render the fields described in this JSON file instead of random ones
     /// ({"images": [{"file": "a.png", "spec": {...}}]}; see DEVELOPERS.md).
-    #[arg(long, conflicts_with_all = ["seed", "count"])]
+    #[arg(long, conflicts_with_all = ["seed", "count", "style"])]
     specs: Option<PathBuf>,
+    /// Draw every field in one style (clean: smooth bars with the nuisances
+    /// only; etched: the look of an etched section); by default the styles
+    /// alternate. The same seed gives the same fields in either style.
+    #[arg(long, value_enum)]
+    style: Option<SynthStyle>,
+}
+
+#[derive(Clone, Copy, ValueEnum)]
+enum SynthStyle {
+    Clean,
+    Etched,
 }
 
 fn parse_positive(s: &str) -> Result<f64, String> {
@@ -637,8 +648,14 @@ fn run_stats(args: StatsArgs) -> ExitCode {
 
 fn run_synth(args: SynthArgs) -> ExitCode {
     let result = match &args.specs {
-        None => armspace::synth::write_set(&args.outdir, args.seed, args.count as usize)
-            .map_err(|e| e.to_string()),
+        None => {
+            let style = args.style.map(|s| match s {
+                SynthStyle::Clean => armspace::synth::Style::Clean,
+                SynthStyle::Etched => armspace::synth::Style::Etched,
+            });
+            armspace::synth::write_set_styled(&args.outdir, args.seed, args.count as usize, style)
+                .map_err(|e| e.to_string())
+        }
         Some(path) => std::fs::read_to_string(path)
             .map_err(|e| format!("{}: cannot read: {e}", path.display()))
             .and_then(|text| {

@@ -330,6 +330,24 @@ fn synth_writes_images_and_truth() {
     let truth: Value =
         serde_json::from_str(&std::fs::read_to_string(out.join("truth.json")).unwrap()).unwrap();
     assert_eq!(truth["images"].as_array().unwrap().len(), 3);
+    // --style draws every field in one style.
+    let clean = dir.path().join("clean");
+    let run = armspace(&[
+        "synth",
+        &path_str(&clean),
+        "--seed",
+        "3",
+        "--count",
+        "3",
+        "--style",
+        "clean",
+    ]);
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    let truth: Value =
+        serde_json::from_str(&std::fs::read_to_string(clean.join("truth.json")).unwrap()).unwrap();
+    for t in truth["images"].as_array().unwrap() {
+        assert_eq!(t["style"], "clean", "{t}");
+    }
     // A spec file that names a path outside the folder is refused.
     let specs = dir.path().join("specs.json");
     let mut doc: Value = serde_json::from_str(

@@ -1,6 +1,6 @@
 //! Writing images and truth sets (the only module doing I/O).
 
-use super::{random_spec, render, FieldSpec, Gray16, SynthError, Truth};
+use super::{random_spec_styled, render, FieldSpec, Gray16, Style, SynthError, Truth};
 use image::{DynamicImage, ImageBuffer, ImageFormat, Luma};
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
@@ -98,6 +98,17 @@ struct TruthFile<'a> {
 /// `img_NNN.png` (8-bit) or, for every third image, `img_NNN.tif` (16-bit),
 /// plus `truth.json`. Returns the truth records in image order.
 pub fn write_set(outdir: &Path, seed: u64, count: usize) -> Result<Vec<Truth>, SynthError> {
+    write_set_styled(outdir, seed, count, None)
+}
+
+/// `write_set` with every field drawn in `style` when one is given (see
+/// `random_spec_styled`); `None` alternates the styles as `write_set` does.
+pub fn write_set_styled(
+    outdir: &Path,
+    seed: u64,
+    count: usize,
+    style: Option<Style>,
+) -> Result<Vec<Truth>, SynthError> {
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
     let named: Vec<NamedSpec> = (0..count)
         .map(|i| NamedSpec {
@@ -106,7 +117,7 @@ pub fn write_set(outdir: &Path, seed: u64, count: usize) -> Result<Vec<Truth>, S
             } else {
                 format!("img_{i:03}.png")
             },
-            spec: random_spec(&mut rng, i),
+            spec: random_spec_styled(&mut rng, i, style),
         })
         .collect();
     write_specs(outdir, &named, Some(seed))

@@ -28,8 +28,11 @@ use rand_chacha::ChaCha8Rng;
 use serde::{Deserialize, Serialize};
 use std::path::PathBuf;
 
-pub use io::{write_image, write_set, write_specs, BitDepth, NamedSpec, SpecFile, TRUTH_SCHEMA};
-pub use spec::random_spec;
+pub use io::{
+    write_image, write_set, write_set_styled, write_specs, BitDepth, NamedSpec, SpecFile,
+    TRUTH_SCHEMA,
+};
+pub use spec::{random_spec, random_spec_styled};
 
 /// 16-bit grey image as produced by [`render`].
 pub type Gray16 = ImageBuffer<Luma<u16>, Vec<u16>>;

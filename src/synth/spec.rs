@@ -105,16 +105,23 @@ fn nice_bar_um<R: Rng + ?Sized>(rng: &mut R, width: u32, um_per_px: f64) -> f64 
 /// A varied but sane spec. `index` cycles morphology and style so that any
 /// four consecutive indices cover all four combinations.
 pub fn random_spec(rng: &mut impl Rng, index: usize) -> FieldSpec {
+    random_spec_styled(rng, index, None)
+}
+
+/// `random_spec` with every field drawn in `style` when one is given. The
+/// random draws are the same whatever the style, so a seed gives the same
+/// fields (sizes, spacings, nuisances) in either style.
+pub fn random_spec_styled(rng: &mut impl Rng, index: usize, style: Option<Style>) -> FieldSpec {
     let morphology = if index % 2 == 0 {
         Morphology::Columnar
     } else {
         Morphology::Equiaxed
     };
-    let style = if index % 4 < 2 {
+    let style = style.unwrap_or(if index % 4 < 2 {
         Style::Etched
     } else {
         Style::Clean
-    };
+    });
     let width: u32 = rng.random_range(384..=1024);
     let height: u32 = rng.random_range(384..=1024);
     let min_side = width.min(height) as f64;
