@@ -224,6 +224,16 @@ mod tests {
         }
     }
 
+    /// The n x n tile with its windowed mean removed, times the 2D Hann
+    /// window, in f64: what the transform is applied to.
+    fn windowed(img: &[f32], n: usize) -> Vec<f64> {
+        let w = hann(n);
+        let ww = |i: usize| (w[i % n] * w[i / n]) as f64;
+        let wsum: f64 = (0..n * n).map(ww).sum();
+        let mean = (0..n * n).map(|i| ww(i) * img[i] as f64).sum::<f64>() / wsum;
+        (0..n * n).map(|i| (img[i] as f64 - mean) * ww(i)).collect()
+    }
+
     #[test]
     fn parseval_holds_for_a_tile() {
         // Parseval's theorem for the DFT: sum |F|^2 = n^2 * sum |f|^2 (2D, n x n).
@@ -234,20 +244,7 @@ mod tests {
         let mut a = SpectrumAnalyser::new(n);
         let mut p = Vec::new();
         a.power(&img, n, 0, 0, &mut p);
-        let w = hann(n);
-        let mut wsum = 0.0f64;
-        let mut wx = 0.0f64;
-        for y in 0..n {
-            for x in 0..n {
-                let ww = (w[x] * w[y]) as f64;
-                wsum += ww;
-                wx += ww * img[y * n + x] as f64;
-            }
-        }
-        let mean = wx / wsum;
-        let energy: f64 = (0..n * n)
-            .map(|i| ((img[i] as f64 - mean) * (w[i % n] * w[i / n]) as f64).powi(2))
-            .sum();
+        let energy: f64 = windowed(&img, n).iter().map(|v| v * v).sum();
         let total: f64 = p.iter().sum();
         assert!((total / (energy * (n * n) as f64) - 1.0).abs() < 1e-4);
         // The windowed mean is removed: no power at zero frequency.
@@ -270,19 +267,7 @@ mod tests {
         let mut a = SpectrumAnalyser::new(n);
         let mut p = Vec::new();
         a.power(&img, n, 0, 0, &mut p);
-        let w = hann(n);
-        let (mut wsum, mut wx) = (0.0f64, 0.0f64);
-        for y in 0..n {
-            for x in 0..n {
-                let ww = (w[x] * w[y]) as f64;
-                wsum += ww;
-                wx += ww * img[y * n + x] as f64;
-            }
-        }
-        let mean = wx / wsum;
-        let f: Vec<f64> = (0..n * n)
-            .map(|i| (img[i] as f64 - mean) * (w[i % n] * w[i / n]) as f64)
-            .collect();
+        let f = windowed(&img, n);
         let mut max = 0.0f64;
         let mut direct = vec![0.0f64; n * n];
         for v in 0..n {
