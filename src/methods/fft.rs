@@ -508,7 +508,11 @@ fn resolve_ladder(
     'fine: for (k, &(p, i)) in cands.iter().enumerate() {
         let fine = agreeing(i, p);
         for &(q, j) in &cands[k + 1..] {
-            if q <= p * (1.0 + LADDER_AGREEMENT) || ladder[j].n < ladder[i].n {
+            // A harmonic or a side lobe lies at least twice as fine as what
+            // it belongs to (side lobes of arms up to 0.6 of the spacing wide:
+            // 2.4 times), so only coarser periods from twice the fine one,
+            // within the agreement, can explain it away.
+            if q < 2.0 * p / (1.0 + LADDER_AGREEMENT) || ladder[j].n < ladder[i].n {
                 continue;
             }
             let reach = (ladder[j].n - ladder[i].n) as f64 / 2.0;
