@@ -19,8 +19,9 @@
 //! 1.43 / width) do not move with the tile, and in tiles without a dominant
 //! orientation (equiaxed fields) they outshine the fundamental in
 //! prominence; there the ladder keeps a peak only when nothing much
-//! stronger lies on its own ray at lower frequency (`MAX_RAY_EXCESS`). Fine-pass tiles more than a factor sqrt 2 off the coarse
-//! period give no value, and an image whose used tiles mostly also repeat
+//! stronger lies on its own ray at lower frequency (`MAX_RAY_EXCESS`).
+//! Fine-pass tiles more than a factor sqrt 2 off the coarse period give no
+//! value, and an image whose used tiles mostly also repeat
 //! at twice the measured spacing gets none (that spacing would be a second
 //! harmonic, see `HARMONIC_RATIO`).
 //!
@@ -426,8 +427,8 @@ fn scale_stat(n: usize, tiles: &[TileResult], params: &FftParams) -> ScaleStat {
 /// A real period stays put when the tile grows, while noise peaks and the
 /// window's leakage lobes move with the tile's resolution, so reproduction
 /// across scales separates them. (The side lobes of an arm's own form factor
-/// stay put too; the ladder's tiles keep them out, see `MAX_RAY_EXCESS`.) The finest such
-/// period is taken because secondary arms are finer than the primary spacing
+/// stay put too; the ladder's tiles keep them out, see `MAX_RAY_EXCESS`.)
+/// The finest such period is taken because secondary arms are finer than the primary spacing
 /// (the trunk spacing is also reproduced, at the larger scales). Larger tiles
 /// average more periods, so the larger scale's estimate is returned.
 pub fn ladder_period(ladder: &[ScaleStat], _params: &FftParams) -> Option<f64> {

@@ -34,8 +34,10 @@ impl SpectrumAnalyser {
             fft,
             window,
             window_sum: w1 * w1,
-            buf: vec![Complex::new(0.0, 0.0); n * n],
-            tr: vec![Complex::new(0.0, 0.0); n * n],
+            // Row pairs (`power` packs two rows per transform), and the
+            // columns u = 0..=n/2.
+            buf: vec![Complex::new(0.0, 0.0); n.div_ceil(2) * n],
+            tr: vec![Complex::new(0.0, 0.0); (n / 2 + 1) * n],
             scratch,
         }
     }
@@ -90,41 +92,45 @@ impl SpectrumAnalyser {
         // the imaginary part) and are separated by that symmetry, and only
         // the columns u = 0..=n/2 need the second pass. Half the transforms
         // of the direct 2D FFT, the same spectrum up to rounding.
+        // An odd n pairs its last row with zeros.
         let half = n / 2;
-        for j in 0..half {
-            let (ya, yb) = (2 * j, 2 * j + 1);
+        let pairs = n.div_ceil(2);
+        for j in 0..pairs {
+            let (ya, yb) = (2 * j, (2 * j + 1).min(n - 1));
             let ra = &img[(y0 + ya) * stride + x0..(y0 + ya) * stride + x0 + n];
             let rb = &img[(y0 + yb) * stride + x0..(y0 + yb) * stride + x0 + n];
-            let (wa, wb) = (self.window[ya], self.window[yb]);
+            let wa = self.window[ya];
+            let wb = if 2 * j + 1 < n { self.window[yb] } else { 0.0 };
             let dst = &mut self.buf[j * n..(j + 1) * n];
             for (((d, a), b), wx) in dst.iter_mut().zip(ra).zip(rb).zip(&self.window) {
                 *d = Complex::new((a - mean) * wa * wx, (b - mean) * wb * wx);
             }
         }
         self.fft
-            .process_with_scratch(&mut self.buf[..half * n], &mut self.scratch);
+            .process_with_scratch(&mut self.buf, &mut self.scratch);
         // Row spectra, columns u = 0..=n/2, into `tr` as [u * n + y]:
         // with z = a + i b, A(u) = (Z(u) + Z(-u)*) / 2 and
         // B(u) = (Z(u) - Z(-u)*) / (2 i).
         // In blocks of rows so that the column-wise writes stay in cache.
         let cols = half + 1;
         const J: usize = 8;
-        for bj in (0..half).step_by(J) {
+        for bj in (0..pairs).step_by(J) {
             for u in 0..cols {
                 let m = (n - u) % n;
-                for j in bj..(bj + J).min(half) {
+                for j in bj..(bj + J).min(pairs) {
                     let zu = self.buf[j * n + u];
                     let zm = self.buf[j * n + m].conj();
                     let a = (zu + zm) * 0.5;
-                    let d = zu - zm;
-                    let b = Complex::new(0.5 * d.im, -0.5 * d.re);
                     self.tr[u * n + 2 * j] = a;
-                    self.tr[u * n + 2 * j + 1] = b;
+                    if 2 * j + 1 < n {
+                        let d = zu - zm;
+                        self.tr[u * n + 2 * j + 1] = Complex::new(0.5 * d.im, -0.5 * d.re);
+                    }
                 }
             }
         }
         self.fft
-            .process_with_scratch(&mut self.tr[..cols * n], &mut self.scratch);
+            .process_with_scratch(&mut self.tr, &mut self.scratch);
         // Every element is written below; a buffer of the right size is
         // reused as it is.
         if out.len() != n * n {
@@ -257,40 +263,44 @@ mod tests {
         // exp(-2 pi i (u x + v y) / n), evaluated directly in f64 on the
         // windowed, mean-removed tile: the packed real-input transform must
         // give the same power at every bin, both halves of the spectrum.
-        let n = 24;
-        let img: Vec<f32> = (0..n * n)
-            .map(|i| {
-                let (x, y) = ((i % n) as f32, (i / n) as f32);
-                (0.7 * x + 0.3 * y).sin() + ((i * 7919) % 37) as f32 / 37.0 + 0.01 * x * y
-            })
-            .collect();
-        let mut a = SpectrumAnalyser::new(n);
-        let mut p = Vec::new();
-        a.power(&img, n, 0, 0, &mut p);
-        let f = windowed(&img, n);
-        let mut max = 0.0f64;
-        let mut direct = vec![0.0f64; n * n];
-        for v in 0..n {
-            for u in 0..n {
-                let (mut re, mut im) = (0.0f64, 0.0f64);
-                for y in 0..n {
-                    for x in 0..n {
-                        let ph = -std::f64::consts::TAU * ((u * x + v * y) % n) as f64 / n as f64;
-                        re += f[y * n + x] * ph.cos();
-                        im += f[y * n + x] * ph.sin();
+        // An even size (the ones the methods use) and an odd one (the last
+        // row is paired with zeros).
+        for n in [24, 15] {
+            let img: Vec<f32> = (0..n * n)
+                .map(|i| {
+                    let (x, y) = ((i % n) as f32, (i / n) as f32);
+                    (0.7 * x + 0.3 * y).sin() + ((i * 7919) % 37) as f32 / 37.0 + 0.01 * x * y
+                })
+                .collect();
+            let mut a = SpectrumAnalyser::new(n);
+            let mut p = Vec::new();
+            a.power(&img, n, 0, 0, &mut p);
+            let f = windowed(&img, n);
+            let mut max = 0.0f64;
+            let mut direct = vec![0.0f64; n * n];
+            for v in 0..n {
+                for u in 0..n {
+                    let (mut re, mut im) = (0.0f64, 0.0f64);
+                    for y in 0..n {
+                        for x in 0..n {
+                            let ph =
+                                -std::f64::consts::TAU * ((u * x + v * y) % n) as f64 / n as f64;
+                            re += f[y * n + x] * ph.cos();
+                            im += f[y * n + x] * ph.sin();
+                        }
                     }
+                    direct[v * n + u] = re * re + im * im;
+                    max = max.max(direct[v * n + u]);
                 }
-                direct[v * n + u] = re * re + im * im;
-                max = max.max(direct[v * n + u]);
             }
-        }
-        for i in 0..n * n {
-            assert!(
-                (p[i] - direct[i]).abs() <= 1e-5 * max,
-                "bin {i}: {} vs {}",
-                p[i],
-                direct[i]
-            );
+            for i in 0..n * n {
+                assert!(
+                    (p[i] - direct[i]).abs() <= 1e-5 * max,
+                    "bin {i}: {} vs {}",
+                    p[i],
+                    direct[i]
+                );
+            }
         }
     }
 
