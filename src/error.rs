@@ -44,3 +44,28 @@ pub enum Error {
 }
 
 pub type Result<T> = std::result::Result<T, Error>;
+
+/// Something a reviewer should know about a result: a stable code that
+/// programs and tests match, and a message in words. Codes are
+/// `stage.what` (for example `fft.few-tiles`); they never change once
+/// released, while messages may be reworded.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct Warning {
+    pub code: &'static str,
+    pub message: String,
+}
+
+impl Warning {
+    pub fn new(code: &'static str, message: impl Into<String>) -> Self {
+        Self {
+            code,
+            message: message.into(),
+        }
+    }
+}
+
+impl std::fmt::Display for Warning {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(&self.message)
+    }
+}

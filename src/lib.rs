@@ -7,6 +7,7 @@
 //! [`synth`] makes micrographs of known truth.
 
 pub mod calibrate;
+pub mod combine;
 pub mod error;
 pub mod interpret;
 pub mod load;

@@ -579,7 +579,11 @@ fn run_calibrate(args: CalibrateArgs) -> ExitCode {
                         entry["bar"] =
                             serde_json::to_value(c.bar.as_ref().map(report::BarReport::of))
                                 .unwrap_or_default();
-                        entry["warnings"] = warnings.into();
+                        entry["warnings"] = warnings
+                            .iter()
+                            .map(|w| w.message.clone())
+                            .collect::<Vec<_>>()
+                            .into();
                         entry["error"] = serde_json::Value::Null;
                     }
                     Err(e) => {

@@ -10,6 +10,7 @@ use crate::calibrate::scale_bar::ScaleBar;
 use crate::load::GrayImage;
 use crate::methods::fft::FftOutcome;
 use crate::methods::intercept::InterceptOutcome;
+use crate::methods::{Detail, Outcome};
 use image::{Rgb, RgbImage};
 use imageproc::drawing::{draw_hollow_rect_mut, draw_line_segment_mut};
 use imageproc::rect::Rect;
@@ -68,41 +69,51 @@ fn segment(out: &mut RgbImage, cx: f64, cy: f64, dir_deg: f64, len: f64, colour:
 pub fn measurement(
     img: &GrayImage,
     bar: Option<&ScaleBar>,
-    fft: Option<&FftOutcome>,
+    outcomes: &[Outcome],
     fft_min_quality: f64,
-    intercept: Option<&InterceptOutcome>,
 ) -> RgbImage {
     let mut out = to_rgb(img);
-    if let Some(f) = fft {
-        let len = 0.4 * f.window_px as f64;
-        for t in f.tiles.iter().filter(|t| t.spacing_px.is_finite()) {
-            if t.used {
-                segment(&mut out, t.cx_px, t.cy_px, t.dir_deg, len, CYAN);
-            } else if t.quality >= fft_min_quality {
-                segment(&mut out, t.cx_px, t.cy_px, t.dir_deg, 0.5 * len, ORANGE);
-            }
-        }
-    }
-    if let Some(i) = intercept {
-        for l in &i.lines {
-            let (x0, y0, x1, y1) = (
-                l.x0_px as f32,
-                l.y0_px as f32,
-                l.x1_px as f32,
-                l.y1_px as f32,
-            );
-            draw_line_segment_mut(&mut out, (x0, y0), (x1, y1), GREEN);
-            // Ticks across the line at each arm centre.
-            let len = ((x1 - x0).hypot(y1 - y0)).max(1e-3);
-            let (nx, ny) = (-(y1 - y0) / len * 3.0, (x1 - x0) / len * 3.0);
-            for &(cx, cy) in &l.arm_centres_px {
-                let (cx, cy) = (cx as f32, cy as f32);
-                draw_line_segment_mut(&mut out, (cx - nx, cy - ny), (cx + nx, cy + ny), RED);
-            }
+    for o in outcomes {
+        match &o.detail {
+            Detail::Fft(f) => draw_fft(&mut out, f, fft_min_quality),
+            Detail::Intercept(i) => draw_intercept(&mut out, i),
         }
     }
     draw_bar(&mut out, bar);
     out
+}
+
+/// Each analysed tile's direction: cyan where it entered the value, short
+/// orange where it was reliable but rejected as an outlier.
+fn draw_fft(out: &mut RgbImage, f: &FftOutcome, fft_min_quality: f64) {
+    let len = 0.4 * f.window_px as f64;
+    for t in f.tiles.iter().filter(|t| t.spacing_px.is_finite()) {
+        if t.used {
+            segment(out, t.cx_px, t.cy_px, t.dir_deg, len, CYAN);
+        } else if t.quality >= fft_min_quality {
+            segment(out, t.cx_px, t.cy_px, t.dir_deg, 0.5 * len, ORANGE);
+        }
+    }
+}
+
+/// Each test line in green, with red ticks at the arm centres it counted.
+fn draw_intercept(out: &mut RgbImage, i: &InterceptOutcome) {
+    for l in &i.lines {
+        let (x0, y0, x1, y1) = (
+            l.x0_px as f32,
+            l.y0_px as f32,
+            l.x1_px as f32,
+            l.y1_px as f32,
+        );
+        draw_line_segment_mut(out, (x0, y0), (x1, y1), GREEN);
+        // Ticks across the line at each arm centre.
+        let len = ((x1 - x0).hypot(y1 - y0)).max(1e-3);
+        let (nx, ny) = (-(y1 - y0) / len * 3.0, (x1 - x0) / len * 3.0);
+        for &(cx, cy) in &l.arm_centres_px {
+            let (cx, cy) = (cx as f32, cy as f32);
+            draw_line_segment_mut(out, (cx - nx, cy - ny), (cx + nx, cy + ny), RED);
+        }
+    }
 }
 
 fn draw_bar(out: &mut RgbImage, bar: Option<&ScaleBar>) {

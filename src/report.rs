@@ -7,6 +7,7 @@
 use crate::interpret::acceptance::{self, Acceptance, Decision, Spec};
 use crate::methods::fft::FftOutcome;
 use crate::methods::intercept::{Convention, InterceptOutcome};
+use crate::methods::{self, Detail};
 use crate::pipeline::{ImageResult, MeasureOptions, Skipped};
 use crate::units::{Pixels, UmPerPx};
 use serde::Serialize;
@@ -120,6 +121,8 @@ pub struct ImageReport {
     pub sdas_um: SdasReport,
     pub methods: MethodsReport,
     pub warnings: Vec<String>,
+    /// The stable code of each warning, in the same order as `warnings`.
+    pub warning_codes: Vec<&'static str>,
     pub error: Option<String>,
     /// Path of the picture of what was measured (with --overlay), else null.
     pub overlay: Option<String>,
@@ -378,15 +381,35 @@ fn finite(x: f64) -> Option<f64> {
     x.is_finite().then_some(x)
 }
 
+/// Each method's report detail, in micrometres.
+fn methods_report(
+    outcomes: &[methods::Outcome],
+    cal: UmPerPx,
+    opts: &MeasureOptions,
+) -> MethodsReport {
+    let mut m = MethodsReport::default();
+    for o in outcomes {
+        match &o.detail {
+            Detail::Fft(f) => m.fft = Some(fft_report(f, cal)),
+            Detail::Intercept(i) => {
+                m.intercept = Some(intercept_report(
+                    i,
+                    cal,
+                    opts.intercept.convention,
+                    o.for_target,
+                ))
+            }
+        }
+    }
+    m
+}
+
 fn intercept_report(
     i: &InterceptOutcome,
     cal: UmPerPx,
     convention: Convention,
-    target_pct: f64,
+    lines_for_target: Option<usize>,
 ) -> InterceptReport {
-    let spacings: Vec<f64> = i.lines.iter().map(|l| l.spacing_px).collect();
-    let lines_for_target = crate::stats::Summary::of(&spacings)
-        .and_then(|s| crate::stats::measurements_for_target(&s, target_pct));
     InterceptReport {
         value: i.value_px.map(|v| um(cal, v)),
         ci95: i.ci95_px.map(|[a, b]| [um(cal, a), um(cal, b)]),
@@ -455,52 +478,23 @@ pub fn image_report(r: &ImageResult, opts: &MeasureOptions) -> ImageReport {
             methods: r.sdas.methods.iter().map(|m| m.name()).collect(),
             reason: r.sdas.reason.clone(),
         },
-        methods: MethodsReport {
-            fft: match (&r.fft, cal) {
-                (Some(f), Some(c)) => Some(fft_report(f, c)),
-                _ => None,
-            },
-            intercept: match (&r.intercept, cal) {
-                (Some(i), Some(c)) => Some(intercept_report(
-                    i,
-                    c,
-                    opts.intercept.convention,
-                    opts.target_rel_accuracy_pct,
-                )),
-                _ => None,
-            },
+        methods: match cal {
+            Some(c) => methods_report(&r.methods, c, opts),
+            None => MethodsReport::default(),
         },
-        warnings: {
-            let mut w = r.warnings.clone();
-            if let Some(Err(e)) = &r.interpretation {
-                w.push(format!("no interpretation: {e}"));
-            }
-            w
-        },
+        warnings: r.warnings.iter().map(|w| w.message.clone()).collect(),
+        warning_codes: r.warnings.iter().map(|w| w.code).collect(),
         error: r.error.clone(),
         overlay: r.overlay.as_ref().map(|p| p.display().to_string()),
         interpretation: match &r.interpretation {
             Some(Ok(i)) => Some(i.rounded()),
             _ => None,
         },
-        acceptance: match (&r.acceptance, &opts.spec) {
-            (Some(a), _) => Some(Acceptance {
-                compared_um: a.compared_um.map(|v| round(v, 4)),
-                compared_ci95_um: a.compared_ci95_um.map(|[x, y]| [round(x, 4), round(y, 4)]),
-                ..a.clone()
-            }),
-            // A file that could not be read is still in its zone, undecided.
-            (None, Some(spec)) => {
-                let mut a =
-                    acceptance::assess(spec, &r.file, Default::default(), Default::default());
-                if a.decision.is_some() {
-                    a.reason =
-                        "the file could not be read: it cannot be compared with the limit".into();
-                }
-                Some(a)
-            }
-            (None, None) => None,
-        },
+        acceptance: r.acceptance.as_ref().map(|a| Acceptance {
+            compared_um: a.compared_um.map(|v| round(v, 4)),
+            compared_ci95_um: a.compared_ci95_um.map(|[x, y]| [round(x, 4), round(y, 4)]),
+            ..a.clone()
+        }),
     }
 }
 

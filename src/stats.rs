@@ -21,6 +21,11 @@ pub fn median_in_place(v: &mut [f32]) -> f64 {
     }
 }
 
+/// The 0.975 quantile of the standard normal distribution: the coverage
+/// factor of a 95 % interval under a normal distribution (JCGM 100:2008,
+/// G.1.3, table G.1 gives 1.960). The one value of it in the crate.
+pub const Z95: f64 = 1.959_963_984_540_054;
+
 /// Median of values (not reordered).
 pub fn median(values: &[f64]) -> Option<f64> {
     if values.is_empty() {

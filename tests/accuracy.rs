@@ -135,13 +135,16 @@ fn the_two_methods_agree_on_columnar_fields() {
     {
         let opts = MeasureOptions::manual(UmPerPx::new(t.um_per_px).unwrap());
         let r = measure_file(&dir.path().join(&t.file), &opts);
-        let f = r.fft.as_ref().and_then(|f| f.value_px);
-        let i = r.intercept.as_ref().and_then(|i| i.value_px);
+        let f = r.method(Method::Fft).and_then(|o| o.value).map(|v| v.0);
+        let i = r
+            .method(Method::Intercept)
+            .and_then(|o| o.value)
+            .map(|v| v.0);
         if let (Some(f), Some(i)) = (f, i) {
             both += 1;
             let close = (i / f - 1.0).abs() <= 0.10;
             agree += usize::from(close);
-            let warned = r.warnings.iter().any(|w| w.contains("methods disagree"));
+            let warned = r.warnings.iter().any(|w| w.code == "methods.disagree");
             assert_eq!(
                 warned, !close,
                 "{}: fft {f:.2} px, intercept {i:.2} px",
@@ -160,12 +163,15 @@ fn the_two_methods_agree_on_columnar_fields() {
 
 #[test]
 fn disagreement_warning_threshold() {
-    use armspace::pipeline::disagreement;
+    use armspace::combine::disagreement;
     use armspace::units::Micrometres;
-    assert!(disagreement(Micrometres(30.0), Micrometres(32.9)).is_none());
-    let w = disagreement(Micrometres(30.0), Micrometres(33.3)).unwrap();
-    assert!(w.contains("+11.0 %"), "{w}");
-    assert!(disagreement(Micrometres(30.0), Micrometres(26.7)).is_some());
+    let fft = |v| (Method::Fft, Micrometres(v));
+    let intercept = |v| (Method::Intercept, Micrometres(v));
+    assert!(disagreement(fft(30.0), intercept(32.9)).is_none());
+    let w = disagreement(fft(30.0), intercept(33.3)).unwrap();
+    assert_eq!(w.code, "methods.disagree");
+    assert!(w.message.contains("+11.0 %"), "{w}");
+    assert!(disagreement(fft(30.0), intercept(26.7)).is_some());
 }
 
 #[test]

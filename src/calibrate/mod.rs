@@ -15,6 +15,7 @@
 pub mod profile;
 pub mod scale_bar;
 
+use crate::error::Warning;
 use crate::units::{Micrometres, UmPerPx};
 use scale_bar::ScaleBar;
 use serde::Serialize;
@@ -134,7 +135,7 @@ pub fn resolve(
     req: &CalibrationRequest,
     bar: Option<&Result<ScaleBar, String>>,
     metadata: Option<UmPerPx>,
-) -> Result<(Calibration, Vec<String>), String> {
+) -> Result<(Calibration, Vec<Warning>), String> {
     let mut offers = Vec::new();
     let mut warnings = Vec::new();
     if let Some(v) = req.manual {
@@ -158,9 +159,12 @@ pub fn resolve(
             Some(Ok(b)) => {
                 let o = from_bar(b, len)?;
                 if b.length_px < SHORT_BAR_PX {
-                    warnings.push(format!(
-                        "the scale bar is only {:.1} px long: its calibration is uncertain by about 1 % or more",
-                        b.length_px
+                    warnings.push(Warning::new(
+                        "calibration.short-bar",
+                        format!(
+                            "the scale bar is only {:.1} px long: its calibration is uncertain by about 1 % or more",
+                            b.length_px
+                        ),
                     ));
                 }
                 offers.push(o);
@@ -187,22 +191,28 @@ pub fn resolve(
         });
     };
     if let Some(reason) = bar_failure {
-        warnings.push(format!(
-            "no scale bar found with confidence ({reason}); the {} calibration is used",
-            chosen.source.name()
+        warnings.push(Warning::new(
+            "calibration.bar-not-found",
+            format!(
+                "no scale bar found with confidence ({reason}); the {} calibration is used",
+                chosen.source.name()
+            ),
         ));
     }
     for o in offers.iter().skip(1) {
         let diff = o.um_per_px.get() / chosen.um_per_px.get() - 1.0;
         if diff.abs() > DISAGREEMENT {
-            warnings.push(format!(
-                "calibration sources disagree: {} gives {:.6} um/px, {} gives {:.6} um/px ({:+.1} %); {} is used",
-                chosen.source.name(),
-                chosen.um_per_px.get(),
-                o.source.name(),
-                o.um_per_px.get(),
-                100.0 * diff,
-                chosen.source.name()
+            warnings.push(Warning::new(
+                "calibration.sources-disagree",
+                format!(
+                    "calibration sources disagree: {} gives {:.6} um/px, {} gives {:.6} um/px ({:+.1} %); {} is used",
+                    chosen.source.name(),
+                    chosen.um_per_px.get(),
+                    o.source.name(),
+                    o.um_per_px.get(),
+                    100.0 * diff,
+                    chosen.source.name()
+                ),
             ));
         }
     }

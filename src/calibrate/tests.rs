@@ -140,7 +140,7 @@ fn disagreement_over_two_percent_is_a_warning() {
     assert_eq!(c.source, CalibrationSource::Manual);
     assert_eq!(w.len(), 1, "{w:?}");
     assert!(
-        w[0].contains("disagree") && w[0].contains("scale-bar"),
+        w[0].code == "calibration.sources-disagree" && w[0].message.contains("scale-bar"),
         "{}",
         w[0]
     );
@@ -175,7 +175,7 @@ fn a_missing_bar_fails_with_advice_or_falls_back() {
     )
     .unwrap();
     assert_eq!(c.source, CalibrationSource::Manual);
-    assert!(w[0].contains("no scale bar"));
+    assert_eq!(w[0].code, "calibration.bar-not-found");
     let e = resolve(&CalibrationRequest::default(), None, None).unwrap_err();
     assert!(e.contains("no calibration"), "{e}");
 }

@@ -130,6 +130,65 @@ impl FftOutcome {
     }
 }
 
+impl FftOutcome {
+    /// The outcome in the shape every method shares. Warnings: a value from
+    /// tiles spanning fewer than three periods (a spectral peak of fewer
+    /// periods is broad and its position shifts with the window), or from
+    /// fewer than four reliable tiles (the robust median and its interval
+    /// rest on a handful of overlapping tiles).
+    pub fn into_outcome(self) -> super::Outcome {
+        use super::{Detail, Local, Method, Outcome};
+        use crate::error::Warning;
+        use crate::units::Pixels;
+        let mut warnings = Vec::new();
+        if let Some(v) = self.value_px {
+            let periods = self.window_px as f64 / v;
+            if periods < 3.0 {
+                warnings.push(Warning::new(
+                    "fft.small-field",
+                    format!(
+                        "fft: the tiles span only {periods:.1} periods; the image is small for this spacing"
+                    ),
+                ));
+            }
+            if self.n_tiles_used < 4 {
+                warnings.push(Warning::new(
+                    "fft.few-tiles",
+                    format!(
+                        "fft: only {} reliable tile(s); the value rests on little data",
+                        self.n_tiles_used
+                    ),
+                ));
+            }
+        }
+        let local = self
+            .tiles
+            .iter()
+            .filter(|t| t.spacing_px.is_finite())
+            .map(|t| Local {
+                x: Pixels(t.cx_px),
+                y: Pixels(t.cy_px),
+                spacing: Pixels(t.spacing_px),
+                dir_deg: t.dir_deg,
+                quality: Some(t.quality),
+                used: t.used,
+            })
+            .collect();
+        Outcome {
+            method: Method::Fft,
+            value: self.value_px.map(Pixels),
+            ci95: self.ci95_px.map(|[a, b]| [Pixels(a), Pixels(b)]),
+            n: self.n_tiles_used,
+            spread: self.spread_px.map(Pixels),
+            reason: self.reason.clone(),
+            warnings,
+            local,
+            for_target: None,
+            detail: Detail::Fft(self),
+        }
+    }
+}
+
 /// A spectral peak.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct Peak {

@@ -248,6 +248,40 @@ impl InterceptOutcome {
     }
 }
 
+impl InterceptOutcome {
+    /// The outcome in the shape every method shares; each line is a local
+    /// measurement at its mid-point, along its own direction.
+    pub fn into_outcome(self) -> super::Outcome {
+        use super::{segment_dir_deg, Detail, Local, Method, Outcome};
+        use crate::units::Pixels;
+        let local = self
+            .lines
+            .iter()
+            .filter(|l| l.spacing_px.is_finite())
+            .map(|l| Local {
+                x: Pixels(0.5 * (l.x0_px + l.x1_px)),
+                y: Pixels(0.5 * (l.y0_px + l.y1_px)),
+                spacing: Pixels(l.spacing_px),
+                dir_deg: segment_dir_deg(l.x0_px, l.y0_px, l.x1_px, l.y1_px),
+                quality: None,
+                used: self.value_px.is_some(),
+            })
+            .collect();
+        Outcome {
+            method: Method::Intercept,
+            value: self.value_px.map(Pixels),
+            ci95: self.ci95_px.map(|[a, b]| [Pixels(a), Pixels(b)]),
+            n: self.n_lines,
+            spread: self.sd_px.map(Pixels),
+            reason: self.reason.clone(),
+            warnings: Vec::new(),
+            local,
+            for_target: None,
+            detail: Detail::Intercept(self),
+        }
+    }
+}
+
 /// Measures the secondary arm spacing of a prepared image by line intercepts.
 pub fn measure(img: &Prepared, params: &InterceptParams) -> InterceptOutcome {
     let (w, h) = (img.image.width, img.image.height);

@@ -1,7 +1,159 @@
-//! Measurement methods, side by side. Each takes a [`crate::preprocess::Prepared`]
-//! image and returns its own result type, in pixels; calibration to
-//! micrometres happens in the pipeline, once.
+//! Measurement methods, side by side behind one interface.
+//!
+//! Each method takes what the shared stages produce ([`Inputs`]: the
+//! prepared image, and whatever else a method needs from the stages before
+//! it) and returns one [`Outcome`] in pixels: its value and 95 % interval,
+//! the number of independent measurements behind them, the reason when
+//! there is no value, its warnings, and its local measurements as a list of
+//! one shared type ([`Local`]), with the method's own detail beside them
+//! ([`Detail`]). Calibration to micrometres happens once, after the methods.
+//!
+//! Adding a method means: its file here, a [`Method`] variant with its name
+//! and its arm in [`run`] (the one registration), its [`Detail`] variant,
+//! and its report detail and schema entry (`report`).
 
 pub mod fft;
 pub mod intercept;
 pub mod spectrum;
+
+use crate::error::Warning;
+use crate::preprocess::Prepared;
+use crate::units::Pixels;
+
+/// A measurement method. The order of the variants is the order in which
+/// methods run and are listed (in the report, the CSV and the combination).
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub enum Method {
+    Fft,
+    Intercept,
+}
+
+impl Method {
+    /// Every method, in registry order.
+    pub const ALL: [Method; 2] = [Method::Fft, Method::Intercept];
+
+    /// Whether the method's local measurements are independent of each
+    /// other (intercept lines laid apart), so that their count is the
+    /// statistical sample size; the FFT's tiles overlap by half.
+    pub fn independent_locals(self) -> bool {
+        match self {
+            Method::Fft => false,
+            Method::Intercept => true,
+        }
+    }
+
+    /// The method's name in the report, the CSV and on the command line.
+    pub fn name(self) -> &'static str {
+        match self {
+            Method::Fft => "fft",
+            Method::Intercept => "intercept",
+        }
+    }
+}
+
+/// Parameters of every method.
+#[derive(Clone, Debug, Default)]
+pub struct Params {
+    pub fft: fft::FftParams,
+    pub intercept: intercept::InterceptParams,
+}
+
+/// What the shared stages give the methods.
+pub struct Inputs<'a> {
+    pub prepared: &'a Prepared,
+}
+
+/// One local measurement of spacing, of any method: an FFT tile, an
+/// intercept line (at its mid-point), an arm chain.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Local {
+    /// Position, pixels from the image's top-left corner (y down).
+    pub x: Pixels,
+    pub y: Pixels,
+    /// The spacing measured there.
+    pub spacing: Pixels,
+    /// Direction along which the spacing was measured, degrees
+    /// counter-clockwise from the image's +x axis with y up, in [0, 180).
+    pub dir_deg: f64,
+    /// The method's quality figure for it, when it has one.
+    pub quality: Option<f64>,
+    /// Whether it entered the method's value.
+    pub used: bool,
+}
+
+/// The method-specific detail of an outcome (what the report, the overlay
+/// and the acceptance read beyond the common fields).
+#[derive(Clone, Debug, PartialEq)]
+pub enum Detail {
+    Fft(fft::FftOutcome),
+    Intercept(intercept::InterceptOutcome),
+}
+
+/// One method's result for one image, in pixels.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Outcome {
+    pub method: Method,
+    pub value: Option<Pixels>,
+    pub ci95: Option<[Pixels; 2]>,
+    /// Number of independent measurements behind the value (tiles, lines).
+    pub n: usize,
+    /// The spread of the local measurements that entered the value (a
+    /// standard deviation), when the method gives one.
+    pub spread: Option<Pixels>,
+    /// Why there is no value, when there is none.
+    pub reason: Option<String>,
+    pub warnings: Vec<Warning>,
+    pub local: Vec<Local>,
+    /// How many independent measurements in all would bring the percent
+    /// relative accuracy to the target, at the same spread (set by
+    /// [`Outcome::set_target`]; null for a method whose measurements overlap).
+    pub for_target: Option<usize>,
+    pub detail: Detail,
+}
+
+impl Outcome {
+    /// Sets [`Outcome::for_target`] from the spread of the local
+    /// measurements, for the methods whose local measurements are
+    /// independent (intercept lines; not the FFT's overlapping tiles). All
+    /// local measurements count, also when there is no value: the figure
+    /// then says how many more would be needed.
+    pub fn set_target(&mut self, target_rel_accuracy_pct: f64) {
+        if !self.method.independent_locals() {
+            return;
+        }
+        let spacings: Vec<f64> = self.local.iter().map(|l| l.spacing.0).collect();
+        self.for_target = crate::stats::Summary::of(&spacings)
+            .and_then(|s| crate::stats::measurements_for_target(&s, target_rel_accuracy_pct));
+    }
+
+    /// The FFT detail, when this is the FFT method's outcome.
+    pub fn fft(&self) -> Option<&fft::FftOutcome> {
+        match &self.detail {
+            Detail::Fft(f) => Some(f),
+            _ => None,
+        }
+    }
+
+    /// The intercept detail, when this is the intercept method's outcome.
+    pub fn intercept(&self) -> Option<&intercept::InterceptOutcome> {
+        match &self.detail {
+            Detail::Intercept(i) => Some(i),
+            _ => None,
+        }
+    }
+}
+
+/// Runs one method.
+pub fn run(method: Method, inputs: &Inputs, params: &Params) -> Outcome {
+    match method {
+        Method::Fft => fft::measure(inputs.prepared, &params.fft).into_outcome(),
+        Method::Intercept => intercept::measure(inputs.prepared, &params.intercept).into_outcome(),
+    }
+}
+
+/// Direction of the segment from (x0, y0) to (x1, y1) in image pixels (y
+/// down), as degrees counter-clockwise from +x with y up, in [0, 180).
+pub fn segment_dir_deg(x0: f64, y0: f64, x1: f64, y1: f64) -> f64 {
+    let d = (-(y1 - y0)).atan2(x1 - x0).to_degrees();
+    d.rem_euclid(180.0)
+}
