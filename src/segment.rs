@@ -21,7 +21,9 @@
 //!   specks of the one phase and fills pin-holes in the other.
 //! * Phase choice: see [`PhaseChoice`].
 
-use crate::preprocess::{gaussian_blur_without_unit_boxes, Prepared};
+use crate::blocks::blur::gaussian_blur_without_unit_boxes;
+use crate::blocks::select::select_ranks;
+use crate::preprocess::Prepared;
 
 /// Number of histogram bins (the scikit-image default for float images).
 pub const OTSU_BINS: usize = 256;
@@ -131,18 +133,6 @@ pub fn otsu_threshold(values: &[f32], mask: Option<&[bool]>) -> Option<f32> {
     otsu_threshold_binned(values, mask, lo, hi, OTSU_BINS)
 }
 
-/// Key of an f32 whose unsigned order is `f32::total_cmp`'s order.
-#[inline]
-fn total_order_key(v: f32) -> u32 {
-    let b = v.to_bits();
-    // Negative values: all bits flipped; positive: sign bit set.
-    if b >> 31 == 1 {
-        !b
-    } else {
-        b | 0x8000_0000
-    }
-}
-
 /// The values of ranks `ranks` (0-based, in `f32::total_cmp` order, each
 /// below `n`) among the `n` unmasked finite values, by radix selection (see
 /// [`select_ranks`]).
@@ -153,73 +143,6 @@ fn nth_smallest<const K: usize>(
     ranks: [usize; K],
 ) -> [f32; K] {
     select_ranks(|| unmasked(values, mask), n, ranks)
-}
-
-/// The values of ranks `ranks` (0-based, in `f32::total_cmp` order, each
-/// below `n`) among the `n` values `values()` yields, by radix selection: a
-/// histogram of the keys' top 16 bits finds the bucket holding each rank,
-/// and only those buckets' values are selected among. Exact: the values a
-/// selection over all of them returns (equal in total order means equal
-/// bits), in two passes over the values instead of partitioning a copy.
-pub(crate) fn select_ranks<const K: usize, I: Iterator<Item = f32>>(
-    values: impl Fn() -> I,
-    n: usize,
-    ranks: [usize; K],
-) -> [f32; K] {
-    let mut hist = vec![0u32; 1 << 16];
-    for v in values() {
-        hist[(total_order_key(v) >> 16) as usize] += 1;
-    }
-    // Bucket holding each rank, and the count below it.
-    let where_ = ranks.map(|r| {
-        debug_assert!(r < n);
-        let mut below = 0usize;
-        for (b, &c) in hist.iter().enumerate() {
-            if below + c as usize > r {
-                return (b, below);
-            }
-            below += c as usize;
-        }
-        (hist.len() - 1, below)
-    });
-    // One pass collects the members of every bucket needed.
-    let mut members: [Vec<f32>; K] = std::array::from_fn(|_| Vec::new());
-    for v in values() {
-        let b = (total_order_key(v) >> 16) as usize;
-        for (k, &(bk, _)) in where_.iter().enumerate() {
-            if bk == b {
-                members[k].push(v);
-                break;
-            }
-        }
-    }
-    std::array::from_fn(|k| {
-        // Ranks in a shared bucket read the first list that holds it.
-        let (b, below) = where_[k];
-        let first = where_.iter().position(|&(bk, _)| bk == b).unwrap_or(k);
-        let mut m = members[first].clone();
-        *m.select_nth_unstable_by(ranks[k] - below, |a, b| a.total_cmp(b))
-            .1
-    })
-}
-
-/// The median of `v` as [`crate::stats::median_in_place`] gives it (the
-/// middle value, or the mean of the two middle ones), by radix selection
-/// ([`select_ranks`]), without reordering `v`. 0 for an empty slice. For
-/// finite values the same number, bit for bit (the lower middle value of
-/// an even count is the largest of the lower half either way).
-pub(crate) fn median_by_selection(v: &[f32]) -> f64 {
-    let n = v.len();
-    if n == 0 {
-        return 0.0;
-    }
-    let mid = n / 2;
-    if n % 2 == 1 {
-        select_ranks(|| v.iter().copied(), n, [mid])[0] as f64
-    } else {
-        let [lower, upper] = select_ranks(|| v.iter().copied(), n, [mid - 1, mid]);
-        0.5 * (lower as f64 + upper as f64)
-    }
 }
 
 /// Otsu's threshold over `nbins` equal bins spanning `[lo, hi]` (values
@@ -476,6 +399,7 @@ fn union(parent: &mut [usize], a: usize, b: usize) {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::blocks::select::median_by_selection;
 
     #[test]
     fn otsu_of_two_spikes_splits_them() {

@@ -3,9 +3,9 @@
 //! boxes), and the end-to-end calibration choices of `measure`.
 
 mod common;
+use armspace::blocks::blur::gaussian_blur;
 use armspace::calibrate::scale_bar::{detect, Polarity as DetPolarity};
 use armspace::load::GrayImage;
-use armspace::preprocess::gaussian_blur;
 use armspace::synth::{render, Corner, FieldSpec, Morphology, Polarity, ScaleBarSpec, Style};
 use common::*;
 

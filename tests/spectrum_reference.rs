@@ -2,8 +2,8 @@
 //! (fixtures/spectrum/, made by scripts/spectrum_reference.py).
 
 mod common;
+use armspace::blocks::spectrum::SpectrumAnalyser;
 use armspace::load::{load, LoadOptions};
-use armspace::methods::spectrum::SpectrumAnalyser;
 use common::repo_file;
 
 #[test]

@@ -14,7 +14,6 @@
 
 pub mod fft;
 pub mod intercept;
-pub mod spectrum;
 
 use crate::error::Warning;
 use crate::preprocess::Prepared;

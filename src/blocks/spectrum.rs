@@ -42,10 +42,6 @@ impl SpectrumAnalyser {
         }
     }
 
-    pub fn size(&self) -> usize {
-        self.n
-    }
-
     /// Power spectrum |F(u, v)|^2 of the tile whose top-left corner is at
     /// (x0, y0) in a row-major image of width `stride`. The result is indexed
     /// [v * n + u] with u, v the unshifted DFT indices (0 is zero frequency;

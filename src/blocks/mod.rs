@@ -1,0 +1,7 @@
+//! Building blocks that stages and methods share, each in a file named for
+//! what it computes. A block depends on no stage or method.
+
+pub mod blur;
+pub mod orientation;
+pub mod select;
+pub mod spectrum;
