@@ -17,8 +17,8 @@ pub(crate) struct Layout {
     pub spacings: Vec<f64>,
     /// Grain id per pixel (equiaxed): shapes only paint their own grain.
     pub clip: Option<Vec<u32>>,
-    /// Primary arms of equiaxed grains: root x, root y, unit direction
-    /// (x, y) and length, pixels.
+    /// Trunks (columnar, drawn across the whole field) and primary arms
+    /// (equiaxed): root x, root y, unit direction (x, y) and length, pixels.
     pub stems: Vec<[f64; 5]>,
 }
 
@@ -337,6 +337,7 @@ pub(crate) fn columnar<R: Rng + ?Sized>(spec: &FieldSpec, rng: &mut R) -> Layout
 
     let mut items = Vec::new();
     let mut spacings = Vec::new();
+    let mut stems = Vec::new();
     let mut grain = 0u32;
     let mut left_in_grain: u32 = rng.random_range(2..=4);
     let mut off = -r_ext + rng.random::<f64>() * p;
@@ -366,6 +367,7 @@ pub(crate) fn columnar<R: Rng + ?Sized>(spec: &FieldSpec, rng: &mut R) -> Layout
             }
         }
 
+        stems.push([bx - ux * r_ext, by - uy * r_ext, ux, uy, 2.0 * r_ext]);
         let mut pos = Vec::new();
         let mut s = -r_ext - rng.random::<f64>() * sdas;
         while s <= r_ext {
@@ -411,7 +413,7 @@ pub(crate) fn columnar<R: Rng + ?Sized>(spec: &FieldSpec, rng: &mut R) -> Layout
         items,
         spacings,
         clip: None,
-        stems: Vec::new(),
+        stems,
     }
 }
 

@@ -156,7 +156,7 @@ pub struct ScaleBarTruth {
     pub bar_level: u16,
 }
 
-/// A primary arm (stem) of an equiaxed grain as drawn.
+/// A primary arm of an equiaxed grain, or a columnar trunk, as drawn.
 #[derive(Serialize, Deserialize, Clone, Debug, PartialEq)]
 pub struct StemTruth {
     /// Root (the grain's nucleus), pixel coordinates.
@@ -223,7 +223,8 @@ pub struct Truth {
     /// degrees in [0, 180), counter-clockwise from +x as seen on screen.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub row_angles_deg: Option<Vec<f64>>,
-    /// Equiaxed arms of the styles `dense` and `lace`: the primary arms drawn.
+    /// Styles `dense` and `lace` (and `binary` of them): the primary arms
+    /// (equiaxed) or trunks (columnar, running across the field) drawn.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub stems: Option<Vec<StemTruth>>,
     /// Style `binary`: the style that was drawn and then thresholded.

@@ -265,6 +265,8 @@ impl Grains {
     }
 }
 
+type Spot = (f64, f64, f64);
+
 /// A section that cuts the secondary arms across (style `cut`).
 ///
 /// Physical picture: when the plane of polish is close to normal to the
@@ -315,7 +317,9 @@ fn cut<R: Rng + ?Sized>(spec: &FieldSpec, rng: &mut R) -> Drawn {
             let (rx, ry) = rotate(ux, uy, rng.random_range(-2.0f64..2.0).to_radians());
             let (bx, by) = (gx + nx * off, gy + ny * off);
             let mut s = -ext - rng.random::<f64>() * lam;
-            let mut prev: Option<(f64, bool, Option<(f64, f64, f64)>)> = None;
+            // previous position: stem coordinate, inside the grain, and the
+            // spot drawn there (centre x, y and its half-width across the row)
+            let mut prev: Option<(f64, bool, Option<Spot>)> = None;
             let mut row_in = false;
             while s <= ext {
                 let (cx, cy) = (bx + rx * s, by + ry * s);
