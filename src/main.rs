@@ -277,8 +277,11 @@ struct SynthArgs {
     #[arg(long, conflicts_with_all = ["seed", "count", "style"])]
     specs: Option<PathBuf>,
     /// Draw every field in one style (clean: smooth bars with the nuisances
-    /// only; etched: the look of an etched section); by default the styles
-    /// alternate. The same seed gives the same fields in either style.
+    /// only; etched: the look of an etched section; cut: arms cut across,
+    /// rows of spots; dense: packed equiaxed grains; lace: arms with a
+    /// eutectic lace between them; binary: one of those thresholded to two
+    /// phases; featureless: no dendrites at all); by default clean and
+    /// etched alternate. The same seed gives the same fields in any style.
     #[arg(long, value_enum)]
     style: Option<SynthStyle>,
 }
@@ -287,6 +290,11 @@ struct SynthArgs {
 enum SynthStyle {
     Clean,
     Etched,
+    Cut,
+    Dense,
+    Lace,
+    Binary,
+    Featureless,
 }
 
 fn parse_positive(s: &str) -> Result<f64, String> {
@@ -656,6 +664,11 @@ fn run_synth(args: SynthArgs) -> ExitCode {
             let style = args.style.map(|s| match s {
                 SynthStyle::Clean => armspace::synth::Style::Clean,
                 SynthStyle::Etched => armspace::synth::Style::Etched,
+                SynthStyle::Cut => armspace::synth::Style::Cut,
+                SynthStyle::Dense => armspace::synth::Style::Dense,
+                SynthStyle::Lace => armspace::synth::Style::Lace,
+                SynthStyle::Binary => armspace::synth::Style::Binary,
+                SynthStyle::Featureless => armspace::synth::Style::Featureless,
             });
             armspace::synth::write_set_styled(&args.outdir, args.seed, args.count as usize, style)
                 .map_err(|e| e.to_string())

@@ -17,6 +17,9 @@ pub(crate) struct Layout {
     pub spacings: Vec<f64>,
     /// Grain id per pixel (equiaxed): shapes only paint their own grain.
     pub clip: Option<Vec<u32>>,
+    /// Trunks (columnar, drawn across the whole field) and primary arms
+    /// (equiaxed): root x, root y, unit direction (x, y) and length, pixels.
+    pub stems: Vec<[f64; 5]>,
 }
 
 /// How the section plane cuts the arms on one side of a trunk.
@@ -32,6 +35,8 @@ enum Cut {
 
 struct Ctx {
     etched: bool,
+    /// Chance that a coarsened arm is fused at its root to its neighbour.
+    fuse_p: f64,
     sdas: f64,
     w: f64,
     h: f64,
@@ -40,7 +45,9 @@ struct Ctx {
 impl Ctx {
     fn of(spec: &FieldSpec) -> Self {
         Self {
-            etched: spec.style == Style::Etched,
+            // every style but `clean` draws the arms of an etched section
+            etched: spec.style != Style::Clean,
+            fuse_p: 0.2,
             sdas: spec.sdas_px,
             w: spec.width as f64,
             h: spec.height as f64,
@@ -60,7 +67,7 @@ impl Ctx {
     }
 }
 
-fn step<R: Rng + ?Sized>(rng: &mut R, sdas: f64, jitter: f64) -> f64 {
+pub(crate) fn step<R: Rng + ?Sized>(rng: &mut R, sdas: f64, jitter: f64) -> f64 {
     let z: f64 = StandardNormal.sample(rng);
     sdas * (1.0 + jitter * z).clamp(0.4, 1.6)
 }
@@ -114,13 +121,13 @@ fn pick_cut<R: Rng + ?Sized>(rng: &mut R, etched: bool) -> Cut {
     }
 }
 
-fn rotate(x: f64, y: f64, a: f64) -> (f64, f64) {
+pub(crate) fn rotate(x: f64, y: f64, a: f64) -> (f64, f64) {
     let (s, c) = a.sin_cos();
     (x * c - y * s, x * s + y * c)
 }
 
 #[allow(clippy::too_many_arguments)]
-fn capsule(
+pub(crate) fn capsule(
     ax: f64,
     ay: f64,
     dx: f64,
@@ -287,7 +294,7 @@ fn arms_along<R: Rng + ?Sized>(
             // just outside the stem.
             if ctx.etched && cuts[side] != Cut::Blobs {
                 if let Some((px, py)) = prev[side] {
-                    if rng.random_bool(0.2) {
+                    if rng.random_bool(ctx.fuse_p) {
                         let off = stem_r + ctx.sdas * rng.random_range(0.05..0.45);
                         let (ox, oy) = (nx * sg * off, ny * sg * off);
                         let (ddx, ddy) = (rx - px, ry - py);
@@ -330,6 +337,7 @@ pub(crate) fn columnar<R: Rng + ?Sized>(spec: &FieldSpec, rng: &mut R) -> Layout
 
     let mut items = Vec::new();
     let mut spacings = Vec::new();
+    let mut stems = Vec::new();
     let mut grain = 0u32;
     let mut left_in_grain: u32 = rng.random_range(2..=4);
     let mut off = -r_ext + rng.random::<f64>() * p;
@@ -359,6 +367,7 @@ pub(crate) fn columnar<R: Rng + ?Sized>(spec: &FieldSpec, rng: &mut R) -> Layout
             }
         }
 
+        stems.push([bx - ux * r_ext, by - uy * r_ext, ux, uy, 2.0 * r_ext]);
         let mut pos = Vec::new();
         let mut s = -r_ext - rng.random::<f64>() * sdas;
         while s <= r_ext {
@@ -404,6 +413,7 @@ pub(crate) fn columnar<R: Rng + ?Sized>(spec: &FieldSpec, rng: &mut R) -> Layout
         items,
         spacings,
         clip: None,
+        stems,
     }
 }
 
@@ -467,6 +477,7 @@ pub(crate) fn equiaxed<R: Rng + ?Sized>(spec: &FieldSpec, rng: &mut R) -> Layout
 
     let mut items = Vec::new();
     let mut spacings = Vec::new();
+    let mut stems = Vec::new();
     for (id, &(gx, gy)) in nuclei.iter().enumerate() {
         let id = id as u32;
         if !ctx.visible(gx, gy, gx, gy, 1.2 * g) {
@@ -509,6 +520,7 @@ pub(crate) fn equiaxed<R: Rng + ?Sized>(spec: &FieldSpec, rng: &mut R) -> Layout
                 capsule(gx, gy, ux, uy, lp, rp, rp * 0.65, 0.0, wob),
                 id,
             ));
+            stems.push([gx, gy, ux, uy, lp]);
             let cuts = [pick_cut(rng, ctx.etched), pick_cut(rng, ctx.etched)];
             let mut pos = Vec::new();
             let mut t = rp + sdas * rng.random_range(0.3..0.7);
@@ -560,5 +572,157 @@ pub(crate) fn equiaxed<R: Rng + ?Sized>(spec: &FieldSpec, rng: &mut R) -> Layout
         items,
         spacings,
         clip: Some(clip),
+        stems,
+    }
+}
+
+/// Packed equiaxed rosettes whose grains touch (style `dense`).
+///
+/// Physical picture: in a casting with many nuclei the equiaxed grains grow
+/// until they meet, so the arms run up to the grain boundaries and the
+/// field has no free liquid left between grains. A section through such a
+/// grain cuts its primary arms at any angle, so a grain shows four to six
+/// primary arms (four for a section near a cube plane, six near an
+/// octahedral one, at uneven angles in between). The longer the field took
+/// to freeze, the more arms coarsened (thin ones dissolved into thick ones)
+/// and fused at their roots, which is why the root webs are twice as
+/// frequent as in `etched` fields.
+pub(crate) fn dense<R: Rng + ?Sized>(spec: &FieldSpec, rng: &mut R) -> Layout {
+    let mut ctx = Ctx::of(spec);
+    ctx.fuse_p = 0.45;
+    let sdas = spec.sdas_px;
+    // grain size: the spec's primary spacing, shrunk so that grains pack
+    let g = spec.primary_spacing_px * rng.random_range(0.75..0.95);
+    let (w, h) = (spec.width as usize, spec.height as usize);
+    let cols = (ctx.w / g).ceil() as usize + 2;
+    let rows = (ctx.h / g).ceil() as usize + 2;
+    let mut nuclei = Vec::with_capacity(cols * rows);
+    for j in 0..rows {
+        for i in 0..cols {
+            let x = (i as f64 - 0.5 + rng.random_range(-0.4..0.4)) * g;
+            let y = (j as f64 - 0.5 + rng.random_range(-0.4..0.4)) * g;
+            nuclei.push((x, y));
+        }
+    }
+    // nucleus within 0.4 g of its cell centre: a 5x5 search is exhaustive
+    let nearest = |xf: f64, yf: f64| -> u32 {
+        let ci = (xf / g).floor() as i64 + 1;
+        let cj = (yf / g).floor() as i64 + 1;
+        let mut best = (f64::INFINITY, 0u32);
+        for j in (cj - 2).max(0)..=(cj + 2).min(rows as i64 - 1) {
+            for i in (ci - 2).max(0)..=(ci + 2).min(cols as i64 - 1) {
+                let id = j as usize * cols + i as usize;
+                let (nx, ny) = nuclei[id];
+                let d = (nx - xf).powi(2) + (ny - yf).powi(2);
+                if d < best.0 {
+                    best = (d, id as u32);
+                }
+            }
+        }
+        best.1
+    };
+    let mut clip = vec![0u32; w * h];
+    clip.par_chunks_mut(w).enumerate().for_each(|(y, row)| {
+        for (x, out) in row.iter_mut().enumerate() {
+            *out = nearest(x as f64, y as f64);
+        }
+    });
+    let in_grain = |x: f64, y: f64, id: u32| -> bool { ctx.inside(x, y) && nearest(x, y) == id };
+    // arms grow until they impinge: the tip stops a fraction of its radius
+    // short of the boundary (the last liquid lies there)
+    let fit_in = |id: u32, x: f64, y: f64, dx: f64, dy: f64, len: f64, r_tip: f64| -> f64 {
+        let gap = 0.4 * r_tip;
+        let reach = len + gap;
+        let mut t = 0.0;
+        while t <= reach {
+            if nearest(x + dx * t, y + dy * t) != id {
+                return (t - gap).max(0.0).min(len);
+            }
+            t += 1.0;
+        }
+        len
+    };
+
+    let mut items = Vec::new();
+    let mut spacings = Vec::new();
+    let mut stems = Vec::new();
+    for (id, &(gx, gy)) in nuclei.iter().enumerate() {
+        let id = id as u32;
+        if !ctx.visible(gx, gy, gx, gy, 1.2 * g) {
+            continue;
+        }
+        let n_arms = [4usize, 4, 5, 6][rng.random_range(0..4)];
+        let phi = rng.random_range(0.0..TAU);
+        let r = sdas * rng.random_range(0.55..0.8);
+        items.push(Item::stem(
+            Shape::Blob {
+                cx: gx as f32,
+                cy: gy as f32,
+                dx: 1.0,
+                dy: 0.0,
+                a: r as f32,
+                b: r as f32,
+            },
+            id,
+        ));
+        for k in 0..n_arms {
+            let a = phi + TAU * k as f64 / n_arms as f64 + rng.random_range(-0.15..0.15);
+            let (ux, uy) = (a.cos(), a.sin());
+            let rp = sdas * rng.random_range(0.32..0.45);
+            let lp = fit_in(id, gx, gy, ux, uy, g * rng.random_range(0.8..1.2), rp * 0.7);
+            if lp < 1.5 * sdas {
+                continue;
+            }
+            let wob = stem_wobble(rng, &ctx);
+            items.push(Item::stem(
+                capsule(gx, gy, ux, uy, lp, rp, rp * 0.7, 0.0, wob),
+                id,
+            ));
+            stems.push([gx, gy, ux, uy, lp]);
+            let cuts = [pick_cut(rng, true), pick_cut(rng, true)];
+            let mut pos = Vec::new();
+            let mut t = rp + sdas * rng.random_range(0.3..0.7);
+            while t < lp - 0.25 * sdas {
+                pos.push(t);
+                t += step(rng, sdas, spec.spacing_jitter);
+            }
+            for pair in pos.windows(2) {
+                if in_grain(gx + ux * pair[0], gy + uy * pair[0], id)
+                    && in_grain(gx + ux * pair[1], gy + uy * pair[1], id)
+                {
+                    spacings.push(pair[1] - pair[0]);
+                }
+            }
+            // Arms reach half-way to the neighbouring primary arm (the angle
+            // between primaries is 60-90 degrees, so at stem coordinate t the
+            // gap to the neighbour's arms is about t) and near the tip stay
+            // short (they started growing later).
+            let half_gap = (std::f64::consts::PI / n_arms as f64).tan();
+            let len_of = move |t: f64, r: &mut R| {
+                let side = t * half_gap * r.random_range(0.85..1.05);
+                let tip = (lp - t) * r.random_range(2.0..4.0) + 1.5 * sdas;
+                side.min(tip).min(0.9 * g)
+            };
+            arms_along(
+                &mut items,
+                rng,
+                &ctx,
+                spec.missing_arm_fraction,
+                (gx, gy),
+                (ux, uy),
+                rp,
+                &pos,
+                cuts,
+                id,
+                &len_of,
+                &|x, y, dx, dy, len, r| fit_in(id, x, y, dx, dy, len, r),
+            );
+        }
+    }
+    Layout {
+        items,
+        spacings,
+        clip: Some(clip),
+        stems,
     }
 }

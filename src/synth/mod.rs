@@ -16,10 +16,13 @@
 //! * everything is driven by `ChaCha8Rng` streams derived from `spec.seed`, so
 //!   the same spec always renders to the same pixels.
 
+mod featureless;
 mod geom;
+mod glyphs;
 mod io;
 mod layout;
 mod post;
+mod real;
 mod spec;
 
 use image::{ImageBuffer, Luma};
@@ -55,6 +58,25 @@ pub enum Style {
     Clean,
     /// Look of a real etched section: packed, coarsened, partly sectioned arms.
     Etched,
+    /// A section that cuts the secondary arms across: rows of rounded or
+    /// oval spots, spots fused along a row in places, rows of several
+    /// orientations in different grains (`morphology` is not used).
+    Cut,
+    /// Packed equiaxed rosettes whose grains touch: four to six primary arms
+    /// per grain, arms fused at their roots, coarsened shapes, shading per
+    /// grain, eutectic in the channels (`morphology` is not used).
+    Dense,
+    /// Columnar or equiaxed arms (after `morphology`) with the
+    /// interdendritic region drawn as a eutectic lace: dark particles and
+    /// light holes over a wide range of sizes.
+    Lace,
+    /// One of `cut`, `dense` or `lace` (drawn per field, see
+    /// `Truth::drawn_as`) thresholded to two phases, with an arm-phase area
+    /// fraction drawn from 35 % to 80 %.
+    Binary,
+    /// No dendritic structure at all (noise, two-phase blobs, scratches,
+    /// gradients, text): the truth has `sdas_um: null`, `featureless: true`.
+    Featureless,
 }
 
 /// Contrast of the scale bar against its surroundings.
@@ -134,19 +156,46 @@ pub struct ScaleBarTruth {
     pub bar_level: u16,
 }
 
+/// A primary arm of an equiaxed grain, or a columnar trunk, as drawn.
+#[derive(Serialize, Deserialize, Clone, Debug, PartialEq)]
+pub struct StemTruth {
+    /// Root (the grain's nucleus), pixel coordinates.
+    pub x: f64,
+    pub y: f64,
+    /// Direction, degrees counter-clockwise from +x as seen on screen.
+    pub angle_deg: f64,
+    pub length_px: f64,
+}
+
+/// `null` in JSON reads as NaN (a spacing that does not exist); serde_json
+/// writes a non-finite number as `null`.
+fn f64_or_nan<'de, D: serde::Deserializer<'de>>(d: D) -> Result<f64, D::Error> {
+    Ok(Option::<f64>::deserialize(d)?.unwrap_or(f64::NAN))
+}
+
 /// Ground truth for one rendered image.
+///
+/// For `featureless` fields `sdas_um`, `sdas_px` and `sdas_sd_px` are NaN
+/// in Rust and `null` in `truth.json` (so two such records never compare
+/// equal with `==`). Fields added after the first schema are left out of
+/// the JSON when they do not apply, so records of the `clean` and `etched`
+/// styles are written exactly as before.
 #[derive(Serialize, Deserialize, Clone, Debug, PartialEq)]
 pub struct Truth {
     pub file: String,
     pub morphology: Morphology,
     pub style: Style,
     /// True mean spacing of the drawn arm lattice, micrometres.
+    #[serde(deserialize_with = "f64_or_nan")]
     pub sdas_um: f64,
     /// True mean spacing of the drawn arm lattice, pixels (mean of the
     /// centre-to-centre distances of consecutive arm positions along the
-    /// trunks / primary arms, positions of missing arms included).
+    /// trunks / primary arms / rows of spots, positions of missing arms
+    /// included).
+    #[serde(deserialize_with = "f64_or_nan")]
     pub sdas_px: f64,
     /// Standard deviation of the individual spacings, pixels.
+    #[serde(deserialize_with = "f64_or_nan")]
     pub sdas_sd_px: f64,
     /// Number of individual spacings averaged into `sdas_px`.
     pub sdas_count: usize,
@@ -158,6 +207,33 @@ pub struct Truth {
     /// before texture, noise and blur).
     pub dendrite_area_fraction: f64,
     pub spec: FieldSpec,
+    /// The field has no dendritic structure (style `featureless`).
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub featureless: bool,
+    /// What a featureless field holds (e.g. "noise", "two-phase", "text").
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub contents: Option<Vec<String>>,
+    /// Style `cut`: mean distance between neighbouring rows of spots,
+    /// measured normal to the rows (never the SDAS).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub row_spacing_um: Option<f64>,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub row_spacing_px: Option<f64>,
+    /// Style `cut`: row direction of each grain holding a counted spacing,
+    /// degrees in [0, 180), counter-clockwise from +x as seen on screen.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub row_angles_deg: Option<Vec<f64>>,
+    /// Styles `dense` and `lace` (and `binary` of them): the primary arms
+    /// (equiaxed) or trunks (columnar, running across the field) drawn.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub stems: Option<Vec<StemTruth>>,
+    /// Style `binary`: the style that was drawn and then thresholded.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub drawn_as: Option<Style>,
+    /// Style `binary`: fraction of non-overlay pixels in the light phase
+    /// (arms plus light holes of the lace), before any inversion.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub light_phase_fraction: Option<f64>,
 }
 
 /// Errors of the synthetic generator.
@@ -186,6 +262,9 @@ pub enum SynthError {
 /// Render one synthetic micrograph and its truth record (`file` left empty).
 pub fn render(spec: &FieldSpec) -> Result<(Gray16, Truth), SynthError> {
     spec::validate(spec)?;
+    if !matches!(spec.style, Style::Clean | Style::Etched) {
+        return real::render(spec);
+    }
     let w = spec.width as usize;
     let h = spec.height as usize;
     let etched = spec.style == Style::Etched;
@@ -270,6 +349,14 @@ pub fn render(spec: &FieldSpec) -> Result<(Gray16, Truth), SynthError> {
         scale_bar: bar_truth,
         dendrite_area_fraction: q(fraction, 9),
         spec: spec.clone(),
+        featureless: false,
+        contents: None,
+        row_spacing_um: None,
+        row_spacing_px: None,
+        row_angles_deg: None,
+        stems: None,
+        drawn_as: None,
+        light_phase_fraction: None,
     };
     Ok((img, truth))
 }

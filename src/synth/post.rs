@@ -71,7 +71,7 @@ fn poly(c: &[f64; 5], x: f64, y: f64) -> f64 {
 }
 
 /// Standard normal white noise, one ChaCha stream per row (parallel and reproducible).
-fn white_noise(w: usize, h: usize, seed: u64, stream: u64) -> Vec<f32> {
+pub(crate) fn white_noise(w: usize, h: usize, seed: u64, stream: u64) -> Vec<f32> {
     let mut out = vec![0.0f32; w * h];
     out.par_chunks_mut(w).enumerate().for_each(|(y, row)| {
         let mut rng = ChaCha8Rng::seed_from_u64(mix(mix(seed, stream), y as u64));
