@@ -148,15 +148,30 @@ impl CoarseningParams {
             },
             ce_wt_pct: need("ce_wt_pct", r.ce_wt_pct, positive, "positive (wt%)")?,
             melting_point_degc: match r.melting_point_degc {
-                Some(t) => Some(need("melting_point_degC", Some(t), |v| v > -273.15, "a temperature (degC)")?),
+                Some(t) => Some(need(
+                    "melting_point_degC",
+                    Some(t),
+                    |v| v > -273.15,
+                    "a temperature (degC)",
+                )?),
                 None => None,
             },
             eutectic_temperature_degc: match r.eutectic_temperature_degc {
-                Some(t) => Some(need("eutectic_temperature_degC", Some(t), |v| v > -273.15, "a temperature (degC)")?),
+                Some(t) => Some(need(
+                    "eutectic_temperature_degC",
+                    Some(t),
+                    |v| v > -273.15,
+                    "a temperature (degC)",
+                )?),
                 None => None,
             },
             max_solubility_wt_pct: match r.max_solubility_wt_pct {
-                Some(c) => Some(need("max_solubility_wt_pct", Some(c), positive, "positive (wt%)")?),
+                Some(c) => Some(need(
+                    "max_solubility_wt_pct",
+                    Some(c),
+                    positive,
+                    "positive (wt%)",
+                )?),
                 None => None,
             },
         };

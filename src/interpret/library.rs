@@ -430,21 +430,23 @@ impl Correlation {
                     .map(|s| format!(" ({s})"))
                     .unwrap_or_default()
             )),
-            Some(r) => parts.push(format!(
-                "{} {} {}",
-                if self.form == Form::CoolingRate {
-                    "CR"
-                } else {
-                    "t_f"
-                },
-                range_text(r),
-                self.variable_unit.name,
-                )
-                + &r.status
+            Some(r) => parts.push(
+                format!(
+                    "{} {} {}",
+                    if self.form == Form::CoolingRate {
+                        "CR"
+                    } else {
+                        "t_f"
+                    },
+                    range_text(r),
+                    self.variable_unit.name,
+                ) + &r
+                    .status
                     .as_deref()
                     .filter(|s| *s != "found")
                     .map(|s| format!(" ({s})"))
-                    .unwrap_or_default()),
+                    .unwrap_or_default(),
+            ),
             None => parts.push("fitted range not recorded".into()),
         }
         parts.join("; ")
@@ -624,8 +626,7 @@ fn validate(e: EntryRaw, origin: &str, builtin: bool) -> Result<Correlation, Str
     }
     if e.fitted_range.is_some() && e.fitted_sdas_um.is_some() {
         return Err(
-            "give either \"fitted_range\" (of the variable) or \"fitted_sdas_um\", not both"
-                .into(),
+            "give either \"fitted_range\" (of the variable) or \"fitted_sdas_um\", not both".into(),
         );
     }
     for (name, range) in [
@@ -634,8 +635,7 @@ fn validate(e: EntryRaw, origin: &str, builtin: bool) -> Result<Correlation, Str
     ] {
         if let Some(r) = range {
             let ok = |v: Option<f64>| v.is_none_or(|v| v.is_finite() && v > 0.0);
-            if !ok(r.min) || !ok(r.max) || matches!((r.min, r.max), (Some(a), Some(b)) if a > b)
-            {
+            if !ok(r.min) || !ok(r.max) || matches!((r.min, r.max), (Some(a), Some(b)) if a > b) {
                 return Err(format!("\"{name}\" must have positive bounds, min <= max"));
             }
         }

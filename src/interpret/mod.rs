@@ -576,7 +576,9 @@ fn compare(chosen: &Interpretation, alt: &Interpretation) -> Comparison {
     };
     let note = match overlap {
         Some(true) => "the intervals overlap".to_string(),
-        Some(false) => "the intervals do not overlap: the laws disagree beyond their intervals".to_string(),
+        Some(false) => {
+            "the intervals do not overlap: the laws disagree beyond their intervals".to_string()
+        }
         None => "no interval on one side: agreement cannot be judged".to_string(),
     };
     Comparison {
