@@ -88,6 +88,7 @@ impl AlloyArgs {
         let lib = load_library(self.correlations.as_deref())?;
         let settings = armspace::interpret::Settings {
             correlation: armspace::interpret::library::find(&lib, id)?.clone(),
+            library: lib.clone(),
             composition: self.composition.clone().unwrap_or_default(),
             freezing_range: self.freezing_range,
             extrapolate: self.extrapolate,

@@ -14,6 +14,16 @@
 //! prefactor and this form of M are from memory and marked so in the data).
 //! Textbooks write the denominator m (1 - k) (C_0 - C_E); with m < 0 and
 //! C_0 < C_E that is the same positive number.
+//!
+//! The ln(C_E / C_0) comes from integrating over the liquid's composition
+//! from C_0 to C_E with one liquidus slope, so m and k must be those of a
+//! straight-line phase diagram through the solvent's melting point T_m and
+//! the eutectic (T_E, C_E): m = (T_E - T_m) / C_E and k = C_alpha / C_E,
+//! with C_alpha the solute's maximum solubility in the solid. An entry that
+//! states T_m, T_E and C_alpha is checked against that
+//! ([`CoarseningParams::phase_diagram_mismatch`]); a slope read off the
+//! curved liquidus near C_0 instead (e.g. -2.65 K/wt% for Al-Cu against the
+//! chord's -3.38) makes M wrong by the ratio of the two.
 
 use serde::{Deserialize, Serialize};
 
@@ -43,6 +53,12 @@ pub struct CoarseningRaw {
     #[serde(default)]
     c0_wt_pct: Option<Param>,
     ce_wt_pct: Option<Param>,
+    #[serde(default, rename = "melting_point_degC")]
+    melting_point_degc: Option<Param>,
+    #[serde(default, rename = "eutectic_temperature_degC")]
+    eutectic_temperature_degc: Option<Param>,
+    #[serde(default)]
+    max_solubility_wt_pct: Option<Param>,
 }
 
 /// Validated model parameters (SI units, compositions in wt%).
@@ -59,7 +75,23 @@ pub struct CoarseningParams {
     /// Default nominal composition, used when none is given.
     pub c0_wt_pct: Option<Param>,
     pub ce_wt_pct: Param,
+    /// The phase diagram the slope and partition coefficient should agree
+    /// with (module docs): the solvent's melting point, the eutectic
+    /// temperature and the solute's maximum solubility in the solid.
+    #[serde(rename = "melting_point_degC")]
+    pub melting_point_degc: Option<Param>,
+    #[serde(rename = "eutectic_temperature_degC")]
+    pub eutectic_temperature_degc: Option<Param>,
+    pub max_solubility_wt_pct: Option<Param>,
 }
+
+/// Largest relative difference between a stated slope or partition
+/// coefficient and the straight-line phase diagram's before a warning:
+/// tables print these values to two significant figures, which alone is up
+/// to 5 % off (half a unit in the last place of 10..99), while the
+/// diagram's temperatures (about 1 K in 100) and compositions give the
+/// straight-line values to 1-2 %.
+pub const PHASE_DIAGRAM_TOLERANCE: f64 = 0.05;
 
 fn need(
     name: &str,
@@ -115,11 +147,80 @@ impl CoarseningParams {
                 None => None,
             },
             ce_wt_pct: need("ce_wt_pct", r.ce_wt_pct, positive, "positive (wt%)")?,
+            melting_point_degc: match r.melting_point_degc {
+                Some(t) => Some(need(
+                    "melting_point_degC",
+                    Some(t),
+                    |v| v > -273.15,
+                    "a temperature (degC)",
+                )?),
+                None => None,
+            },
+            eutectic_temperature_degc: match r.eutectic_temperature_degc {
+                Some(t) => Some(need(
+                    "eutectic_temperature_degC",
+                    Some(t),
+                    |v| v > -273.15,
+                    "a temperature (degC)",
+                )?),
+                None => None,
+            },
+            max_solubility_wt_pct: match r.max_solubility_wt_pct {
+                Some(c) => Some(need(
+                    "max_solubility_wt_pct",
+                    Some(c),
+                    positive,
+                    "positive (wt%)",
+                )?),
+                None => None,
+            },
         };
         if let Some(c0) = &p.c0_wt_pct {
             p.m_constant(c0.value)?;
         }
         Ok(p)
+    }
+
+    /// The straight-line phase diagram's liquidus slope (T_E - T_m) / C_E,
+    /// K/wt%, when the entry states both temperatures.
+    pub fn chord_slope(&self) -> Option<f64> {
+        let tm = self.melting_point_degc.as_ref()?.value;
+        let te = self.eutectic_temperature_degc.as_ref()?.value;
+        Some((te - tm) / self.ce_wt_pct.value)
+    }
+
+    /// The straight-line phase diagram's partition coefficient C_alpha / C_E,
+    /// when the entry states the maximum solubility.
+    pub fn chord_partition(&self) -> Option<f64> {
+        Some(self.max_solubility_wt_pct.as_ref()?.value / self.ce_wt_pct.value)
+    }
+
+    /// Why the slope or partition coefficient disagree with the entry's own
+    /// phase diagram by more than [`PHASE_DIAGRAM_TOLERANCE`], if they do.
+    pub fn phase_diagram_mismatch(&self) -> Option<String> {
+        let mut out = Vec::new();
+        let m = self.liquidus_slope_k_per_wt_pct.value;
+        if let Some(chord) = self.chord_slope() {
+            if (m / chord - 1.0).abs() > PHASE_DIAGRAM_TOLERANCE {
+                out.push(format!(
+                    "the liquidus slope {m} K/wt% is not the straight liquidus from the melting point to the eutectic ({chord:.3} K/wt%)"
+                ));
+            }
+        }
+        let k = self.partition_coefficient.value;
+        if let Some(chord) = self.chord_partition() {
+            if (k / chord - 1.0).abs() > PHASE_DIAGRAM_TOLERANCE {
+                out.push(format!(
+                    "the partition coefficient {k} is not the maximum solubility over the eutectic composition ({chord:.4})"
+                ));
+            }
+        }
+        (!out.is_empty()).then(|| {
+            format!(
+                "coarsening parameters inconsistent with their phase diagram: {}; M is off by about the same ratio",
+                out.join("; ")
+            )
+        })
     }
 
     /// The coarsening constant M (m^3/s) at nominal composition c0 (wt%).

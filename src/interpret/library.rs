@@ -88,12 +88,54 @@ fn sdas_unit_factor(text: &str) -> Option<f64> {
     }
 }
 
-/// Composition range of validity, wt%; a missing bound is unknown.
-#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize, Default)]
+/// A range of validity (a composition in wt%, or the fitted range of the
+/// law's variable or of lambda2); a missing bound is unknown. Bounds are
+/// inclusive unless `min_exclusive` is set, so two forms that share a
+/// boundary (Won & Thomas: C <= 0.15 and C > 0.15) give it to exactly one.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, Default)]
 #[serde(deny_unknown_fields)]
 pub struct Range {
     pub min: Option<f64>,
     pub max: Option<f64>,
+    /// The lower bound itself is outside the range.
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub min_exclusive: bool,
+    /// Where the bounds come from: "found" (read in the source), "from
+    /// memory", or "assumed" (a conservative guard set by armspace, not the
+    /// source's range); None for user files (their own).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub status: Option<String>,
+    /// What exactly is known about the bounds, and why an assumed bound is
+    /// where it is.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub note: Option<String>,
+}
+
+impl Range {
+    /// Whether `x` lies inside (unknown bounds do not exclude).
+    pub fn contains(&self, x: f64) -> bool {
+        let above_min = self
+            .min
+            .is_none_or(|m| if self.min_exclusive { x > m } else { x >= m });
+        above_min && self.max.is_none_or(|m| x <= m)
+    }
+
+    /// Bounds read in the source, or a range without a status (a user's own).
+    pub fn is_from_source(&self) -> bool {
+        matches!(self.status.as_deref(), None | Some("found"))
+    }
+}
+
+/// A stated fact about an entry in words (e.g. how lambda2 was measured),
+/// with where it comes from.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Statement {
+    pub value: String,
+    #[serde(default)]
+    pub status: Option<String>,
+    #[serde(default)]
+    pub source: Option<String>,
 }
 
 /// Where an entry's numbers come from.
@@ -210,8 +252,16 @@ pub struct Correlation {
     /// Range of the variable over which the law was fitted, in
     /// `variable_unit` (bounds may be unknown); None when not recorded.
     pub fitted_range: Option<Range>,
+    /// The same as a range of lambda2 (um), when the source states that
+    /// instead; converted to the variable at the composition by the law.
+    pub fitted_sdas_um: Option<Range>,
     /// One standard deviation of lambda2 about the fit, percent, when published.
     pub scatter_pct: Option<f64>,
+    /// Where the scatter comes from, or why it is not known.
+    pub scatter_note: Option<String>,
+    /// How lambda2 was measured in the source (line intercept, centre to
+    /// centre, ...), or "unknown".
+    pub measuring_convention: Statement,
     pub status: Status,
     pub status_note: String,
     pub source: Source,
@@ -278,9 +328,7 @@ impl Correlation {
     fn check_composition(&self, composition: &Composition) -> Result<(), String> {
         for (el, range) in &self.composition {
             if let Some(&c) = composition.get(el) {
-                let below = range.min.is_some_and(|m| c < m);
-                let above = range.max.is_some_and(|m| c > m);
-                if below || above {
+                if !range.contains(c) {
                     return Err(format!(
                         "covers {el} {} wt%; {el} = {c} wt% is outside it",
                         range_text(range)
@@ -289,6 +337,30 @@ impl Correlation {
             }
         }
         Ok(())
+    }
+
+    /// The fitted range in the law's variable (its own unit) at a
+    /// composition: `fitted_range` as given, or `fitted_sdas_um` inverted
+    /// through the law (bounds swap for a cooling-rate law, whose lambda2
+    /// falls as the rate rises). None when neither is on record.
+    pub fn variable_range(&self, law: &PowerLaw) -> Option<Range> {
+        if let Some(r) = &self.fitted_range {
+            return Some(r.clone());
+        }
+        let s = self.fitted_sdas_um.as_ref()?;
+        let inv = |v: Option<f64>| v.and_then(|v| law.invert(crate::units::Micrometres(v)));
+        let (lo, hi) = if law.exponent < 0.0 {
+            (inv(s.max), inv(s.min))
+        } else {
+            (inv(s.min), inv(s.max))
+        };
+        Some(Range {
+            min: lo,
+            max: hi,
+            min_exclusive: false,
+            status: s.status.clone(),
+            note: s.note.clone(),
+        })
     }
 
     /// The law written out, e.g. "lambda2 = 97.01 x CR^-0.4935 (um, K/s)".
@@ -348,26 +420,48 @@ impl Correlation {
             .iter()
             .map(|(el, r)| format!("{el} {} wt%", range_text(r)))
             .collect();
-        match &self.fitted_range {
-            Some(r) => parts.push(format!(
-                "{} {} {}",
-                if self.form == Form::CoolingRate {
-                    "CR"
-                } else {
-                    "t_f"
-                },
+        match self.fitted_range.as_ref().or(self.fitted_sdas_um.as_ref()) {
+            Some(r) if self.fitted_range.is_none() => parts.push(format!(
+                "lambda2 {} um{}",
                 range_text(r),
-                self.variable_unit.name
+                r.status
+                    .as_deref()
+                    .filter(|s| *s != "found")
+                    .map(|s| format!(" ({s})"))
+                    .unwrap_or_default()
             )),
+            Some(r) => parts.push(
+                format!(
+                    "{} {} {}",
+                    if self.form == Form::CoolingRate {
+                        "CR"
+                    } else {
+                        "t_f"
+                    },
+                    range_text(r),
+                    self.variable_unit.name,
+                ) + &r
+                    .status
+                    .as_deref()
+                    .filter(|s| *s != "found")
+                    .map(|s| format!(" ({s})"))
+                    .unwrap_or_default(),
+            ),
             None => parts.push("fitted range not recorded".into()),
         }
         parts.join("; ")
     }
 }
 
-fn range_text(r: &Range) -> String {
+/// A range as text: "0-0.15", or ">0.15-1" when the lower bound is excluded.
+pub fn range_text(r: &Range) -> String {
     let b = |v: Option<f64>| v.map_or("?".to_string(), |v| format!("{v}"));
-    format!("{}-{}", b(r.min), b(r.max))
+    format!(
+        "{}{}-{}",
+        if r.min_exclusive { ">" } else { "" },
+        b(r.min),
+        b(r.max)
+    )
 }
 
 // ---- the file format ------------------------------------------------------
@@ -396,7 +490,13 @@ struct EntryRaw {
     #[serde(default)]
     fitted_range: Option<Range>,
     #[serde(default)]
+    fitted_sdas_um: Option<Range>,
+    #[serde(default)]
     scatter_pct: Option<f64>,
+    #[serde(default)]
+    scatter_note: Option<String>,
+    #[serde(default)]
+    measuring_convention: Option<Statement>,
     status: Option<String>,
     #[serde(default)]
     status_note: Option<String>,
@@ -524,10 +624,49 @@ fn validate(e: EntryRaw, origin: &str, builtin: bool) -> Result<Correlation, Str
             ));
         }
     }
-    if let Some(r) = &e.fitted_range {
-        let ok = |v: Option<f64>| v.is_none_or(|v| v.is_finite() && v > 0.0);
-        if !ok(r.min) || !ok(r.max) || matches!((r.min, r.max), (Some(a), Some(b)) if a > b) {
-            return Err("\"fitted_range\" must have positive bounds, min <= max".into());
+    if e.fitted_range.is_some() && e.fitted_sdas_um.is_some() {
+        return Err(
+            "give either \"fitted_range\" (of the variable) or \"fitted_sdas_um\", not both".into(),
+        );
+    }
+    for (name, range) in [
+        ("fitted_range", &e.fitted_range),
+        ("fitted_sdas_um", &e.fitted_sdas_um),
+    ] {
+        if let Some(r) = range {
+            let ok = |v: Option<f64>| v.is_none_or(|v| v.is_finite() && v > 0.0);
+            if !ok(r.min) || !ok(r.max) || matches!((r.min, r.max), (Some(a), Some(b)) if a > b) {
+                return Err(format!("\"{name}\" must have positive bounds, min <= max"));
+            }
+        }
+    }
+    for (name, r) in e
+        .composition_wt_pct
+        .values()
+        .chain(e.fitted_range.iter())
+        .chain(e.fitted_sdas_um.iter())
+        .map(|r| ("range", r))
+    {
+        if let Some(s) = r.status.as_deref() {
+            if !["found", "from memory", "assumed"].contains(&s) {
+                return Err(format!(
+                    "unknown {name} status '{s}' (accepted: found, from memory, assumed)"
+                ));
+            }
+        }
+    }
+    if builtin {
+        // A built-in range says where its bounds come from (the
+        // interpretation warns on every result whose range is not the
+        // source's).
+        let unlabelled = e
+            .composition_wt_pct
+            .values()
+            .chain(e.fitted_range.iter())
+            .chain(e.fitted_sdas_um.iter())
+            .any(|r| r.status.is_none());
+        if unlabelled {
+            return Err("a built-in range needs a \"status\"".into());
         }
     }
     if let Some(s) = e.scatter_pct {
@@ -563,7 +702,14 @@ fn validate(e: EntryRaw, origin: &str, builtin: bool) -> Result<Correlation, Str
         variable_unit,
         law,
         fitted_range: e.fitted_range,
+        fitted_sdas_um: e.fitted_sdas_um,
         scatter_pct: e.scatter_pct,
+        scatter_note: e.scatter_note,
+        measuring_convention: e.measuring_convention.unwrap_or(Statement {
+            value: "unknown".into(),
+            status: None,
+            source: None,
+        }),
         status,
         status_note: e.status_note.unwrap_or_default(),
         source,

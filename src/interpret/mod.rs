@@ -99,6 +99,10 @@ pub struct Quantity {
     pub derived: Option<&'static str>,
     /// Why there is no value, when there is none.
     pub reason: Option<String>,
+    /// The 95 % interval with the correlation's published scatter combined
+    /// with the SDAS's (module docs); null when no scatter is published, in
+    /// which case `ci95` leaves the law's own scatter out.
+    pub ci95_with_scatter: Option<[f64; 2]>,
 }
 
 impl Quantity {
@@ -114,6 +118,7 @@ impl Quantity {
             uncertainty_gain: self.uncertainty_gain.map(r),
             derived: self.derived,
             reason: self.reason.clone(),
+            ci95_with_scatter: self.ci95_with_scatter.map(|[a, b]| [r(a), r(b)]),
         }
     }
 
@@ -139,6 +144,43 @@ pub struct Interpretation {
     #[serde(rename = "freezing_range_K")]
     pub freezing_range_k: Option<f64>,
     pub warnings: Vec<String>,
+    /// Whether the correlation's scatter is published (then it is in
+    /// `ci95_with_scatter`); when false the intervals exclude it.
+    pub scatter_published: bool,
+    /// For an alternative: how it compares with the chosen law.
+    pub comparison: Option<Comparison>,
+    /// The other laws of the same alloy family that apply to the
+    /// composition, each interpreted the same way.
+    pub alternatives: Vec<Interpretation>,
+    /// Laws of the family that do not apply here, with the reason.
+    pub alternatives_not_applicable: Vec<NotApplicable>,
+}
+
+/// An alternative law set beside the chosen one.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct Comparison {
+    /// The quantity compared (a report field name), None when the two laws
+    /// give no common quantity.
+    pub quantity: Option<&'static str>,
+    /// The chosen law's value and interval of that quantity.
+    pub chosen_value: Option<f64>,
+    pub chosen_ci95: Option<[f64; 2]>,
+    /// This law's value and interval.
+    pub value: Option<f64>,
+    pub ci95: Option<[f64; 2]>,
+    /// This law's value over the chosen one's.
+    pub ratio: Option<f64>,
+    /// Whether the two intervals overlap; None without an interval on
+    /// either side.
+    pub intervals_overlap: Option<bool>,
+    pub note: String,
+}
+
+/// A law of the family that does not apply to the composition given.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct NotApplicable {
+    pub id: String,
+    pub reason: String,
 }
 
 impl Interpretation {
@@ -156,6 +198,18 @@ impl Interpretation {
             .map(|[a, b]| [round_significant(a, 3), round_significant(b, 3)]);
         out.cooling_rate_k_per_s = out.cooling_rate_k_per_s.rounded();
         out.solidification_time_s = out.solidification_time_s.rounded();
+        if let Some(fr) = &mut out.correlation.fitted_range {
+            fr.min = fr.min.map(r);
+            fr.max = fr.max.map(r);
+        }
+        if let Some(c) = &mut out.comparison {
+            c.chosen_value = c.chosen_value.map(r);
+            c.chosen_ci95 = c.chosen_ci95.map(|[a, b]| [r(a), r(b)]);
+            c.value = c.value.map(r);
+            c.ci95 = c.ci95.map(|[a, b]| [r(a), r(b)]);
+            c.ratio = c.ratio.map(|x| round_significant(x, 3));
+        }
+        out.alternatives = out.alternatives.iter().map(Self::rounded).collect();
         out
     }
 }
@@ -182,6 +236,19 @@ pub struct CorrelationRef {
     pub coefficient_um: f64,
     pub exponent: f64,
     pub variable_unit: &'static str,
+    /// The family the law is for; the alternatives are the other laws of it.
+    pub alloy_family: String,
+    /// Composition limits and fitted range in words, with the status of
+    /// bounds not read in the source.
+    pub validity: String,
+    /// The fitted range of the variable (in `variable_unit`) at this
+    /// composition, with where its bounds come from; null when not on record.
+    pub fitted_range: Option<library::Range>,
+    /// One standard deviation of lambda2 about the fit, percent; null when
+    /// not published.
+    pub scatter_pct: Option<f64>,
+    /// How lambda2 was measured in the source, or "unknown".
+    pub measuring_convention: String,
 }
 
 /// 95 % coverage factor of a normal distribution, for the published scatter
@@ -209,6 +276,32 @@ pub fn interpret(corr: &Correlation, req: &Request) -> Result<Interpretation, St
         )),
         _ => {}
     }
+    if let library::Law::Coarsening(p) = &corr.law {
+        if !req.composition.contains_key(&p.solute) {
+            if let Some(c0) = &p.c0_wt_pct {
+                warnings.push(format!(
+                    "no {s} content given: the model uses its default C0 = {} wt% {s}; give the alloy's own with --composition {s}=<wt%>",
+                    c0.value,
+                    s = p.solute
+                ));
+            }
+        }
+        if let Some(w) = p.phase_diagram_mismatch() {
+            warnings.push(format!("correlation '{}': {w}", corr.id));
+        }
+    }
+    // Composition limits that are not the source's are said on every result.
+    for (el, r) in &corr.composition {
+        if !r.is_from_source() {
+            warnings.push(format!(
+                "the {el} limits {} wt% of '{}' are {}, not read in its source",
+                library::range_text(r),
+                corr.id,
+                r.status.as_deref().unwrap_or("unknown")
+            ));
+        }
+    }
+    let fitted = corr.variable_range(&law);
     let corr_ref = CorrelationRef {
         id: corr.id.clone(),
         form: corr.form.name(),
@@ -223,6 +316,11 @@ pub fn interpret(corr: &Correlation, req: &Request) -> Result<Interpretation, St
         coefficient_um: law.coefficient,
         exponent: law.exponent,
         variable_unit: corr.variable_unit.name,
+        alloy_family: corr.alloy_family.clone(),
+        validity: corr.validity_text(),
+        fitted_range: fitted.clone(),
+        scatter_pct: corr.scatter_pct,
+        measuring_convention: corr.measuring_convention.value.clone(),
     };
     let freezing = req.freezing_range.map(|k| k.0);
     let mut out = Interpretation {
@@ -234,6 +332,10 @@ pub fn interpret(corr: &Correlation, req: &Request) -> Result<Interpretation, St
         solidification_time_s: Quantity::default(),
         freezing_range_k: freezing,
         warnings,
+        scatter_published: corr.scatter_pct.is_some(),
+        comparison: None,
+        alternatives: Vec::new(),
+        alternatives_not_applicable: Vec::new(),
     };
     let Some(sdas) = req.sdas.filter(|s| s.0.is_finite() && s.0 > 0.0) else {
         let reason = "no SDAS value to interpret".to_string();
@@ -247,32 +349,42 @@ pub fn interpret(corr: &Correlation, req: &Request) -> Result<Interpretation, St
     let x = law.invert(sdas).ok_or("the SDAS cannot be inverted")?;
     let to_base = corr.variable_unit.to_base;
     let gain = 1.0 / law.exponent.abs();
-    let interval = sdas_interval(sdas.0, req.ci95, corr.scatter_pct);
+    // The measurement's part alone (ci95), and with the correlation's own
+    // scatter when it is published (ci95_with_scatter); reported apart so a
+    // reader sees which part dominates.
+    let measured = sdas_interval(sdas.0, req.ci95, None);
+    let with_scatter = corr
+        .scatter_pct
+        .and_then(|s| sdas_interval(sdas.0, req.ci95, Some(s)));
+    let invert = |i: Option<[f64; 2]>| {
+        i.and_then(|[lo, hi]| {
+            law.invert_interval(Micrometres(lo), Micrometres(hi))
+                .map(|[a, b]| [a * to_base, b * to_base])
+        })
+    };
     match (req.ci95.is_some(), corr.scatter_pct.is_some()) {
         (_, false) => out.warnings.push(format!(
-            "correlation '{}' has no published scatter on record: the interval carries the SDAS uncertainty only",
+            "correlation '{}' has no published scatter on record: the intervals carry the SDAS uncertainty only, not the scatter of the law itself (ci95_with_scatter is null)",
             corr.id
         )),
         (false, true) => out.warnings.push(
-            "no SDAS interval given: the interval carries the correlation's scatter only".into(),
+            "no SDAS interval given: ci95_with_scatter carries the correlation's scatter only".into(),
         ),
         _ => {}
     }
     let mut primary = Quantity {
         value: Some(x * to_base),
-        ci95: interval.and_then(|[lo, hi]| {
-            law.invert_interval(Micrometres(lo), Micrometres(hi))
-                .map(|[a, b]| [a * to_base, b * to_base])
-        }),
+        ci95: invert(measured),
         ci95_rel_pct: None,
         uncertainty_gain: Some(gain),
         derived: Some("correlation"),
         reason: None,
+        ci95_with_scatter: invert(with_scatter),
     };
     if let Some(ci) = primary.ci95 {
         primary.ci95_rel_pct = Some(rel_pct(x * to_base, ci));
     }
-    if primary.ci95.is_none() && interval.is_none() {
+    if primary.ci95.is_none() && primary.ci95_with_scatter.is_none() {
         primary.reason = Some("no interval: give the SDAS interval (--ci) or use a correlation with a published scatter".into());
     }
 
@@ -281,25 +393,37 @@ pub fn interpret(corr: &Correlation, req: &Request) -> Result<Interpretation, St
         Form::CoolingRate => "cooling rate",
         _ => "solidification time",
     };
-    match corr.fitted_range {
+    match &fitted {
         None => out.warnings.push(format!(
             "the fitted range of '{}' is not on record: whether this {var_name} is an extrapolation cannot be checked",
             corr.id
         )),
         Some(r) => {
+            let range = format!(
+                "{}-{} {}",
+                r.min.map_or("?".into(), |v| format!("{}", round_significant(v, 4))),
+                r.max.map_or("?".into(), |v| format!("{}", round_significant(v, 4))),
+                corr.variable_unit.name
+            );
+            if !r.is_from_source() {
+                out.warnings.push(format!(
+                    "the fitted range of '{}' is not on record: the range {range} checked here is {}, not the source's",
+                    corr.id,
+                    match r.status.as_deref() {
+                        Some("assumed") => "a conservative guard assumed by armspace",
+                        Some("from memory") => "recalled (from memory)",
+                        _ => "of unknown origin",
+                    }
+                ));
+            }
             let below = r.min.filter(|&m| x < m);
             let above = r.max.filter(|&m| x > m);
             let far = below.is_some_and(|m| x < m / FAR_OUTSIDE)
                 || above.is_some_and(|m| x > m * FAR_OUTSIDE);
             if below.is_some() || above.is_some() {
-                let range = format!(
-                    "{}-{} {}",
-                    r.min.map_or("?".into(), |v| format!("{v}")),
-                    r.max.map_or("?".into(), |v| format!("{v}")),
-                    corr.variable_unit.name
-                );
                 let text = format!(
-                    "{var_name} {x:.4} {} is outside the fitted range {range}",
+                    "{var_name} {} {} is outside the fitted range {range}",
+                    round_significant(x, 4),
                     corr.variable_unit.name
                 );
                 if far && !req.extrapolate {
@@ -331,6 +455,7 @@ pub fn interpret(corr: &Correlation, req: &Request) -> Result<Interpretation, St
                 uncertainty_gain: Some(gain),
                 derived: Some(derived),
                 reason: None,
+                ci95_with_scatter: primary.ci95_with_scatter.map(|[a, b]| [dt / b, dt / a]),
             }
         }
         (Some(_), None) => Quantity::none(format!("no {var_name} to derive it from")),
@@ -349,6 +474,127 @@ pub fn interpret(corr: &Correlation, req: &Request) -> Result<Interpretation, St
         }
     }
     Ok(out)
+}
+
+/// Whether two entries are for the same alloy family (the family names of
+/// the library, compared without regard to case).
+pub fn same_family(a: &Correlation, b: &Correlation) -> bool {
+    let f = |c: &Correlation| c.alloy_family.trim().to_lowercase();
+    !f(a).is_empty() && f(a) == f(b)
+}
+
+/// The interpretation with the chosen correlation, and beside it every
+/// other entry of `library` for the same alloy family that applies to the
+/// composition ([`Interpretation::alternatives`], each with its
+/// [`Comparison`] to the chosen one); entries of the family that do not
+/// apply are listed with the reason. A warning says when two laws disagree
+/// beyond their 95 % intervals: the choice of law then matters more than
+/// the measurement.
+pub fn interpret_with_alternatives(
+    corr: &Correlation,
+    library: &[Correlation],
+    req: &Request,
+) -> Result<Interpretation, String> {
+    let mut out = interpret(corr, req)?;
+    for other in library
+        .iter()
+        .filter(|c| c.id != corr.id && same_family(c, corr))
+    {
+        match interpret(other, req) {
+            Ok(mut alt) => {
+                let cmp = compare(&out, &alt);
+                if cmp.intervals_overlap == Some(false) {
+                    out.warnings.push(format!(
+                        "correlations '{}' and '{}' disagree beyond their 95 % intervals on the {}: {} against {} (ratio {}); the choice of law matters more than the measurement here",
+                        corr.id,
+                        other.id,
+                        match cmp.quantity {
+                            Some("cooling_rate_K_per_s") => "cooling rate (K/s)",
+                            Some(_) => "solidification time (s)",
+                            None => "result",
+                        },
+                        describe(cmp.chosen_value, cmp.chosen_ci95),
+                        describe(cmp.value, cmp.ci95),
+                        cmp.ratio.map_or("?".into(), |r| format!("{}", round_significant(r, 3)))
+                    ));
+                }
+                alt.comparison = Some(cmp);
+                out.alternatives.push(alt);
+            }
+            Err(e) => out.alternatives_not_applicable.push(NotApplicable {
+                id: other.id.clone(),
+                reason: e,
+            }),
+        }
+    }
+    Ok(out)
+}
+
+fn describe(value: Option<f64>, ci: Option<[f64; 2]>) -> String {
+    let r = |x: f64| round_significant(x, 4);
+    match (value, ci) {
+        (Some(v), Some([a, b])) => format!("{} ({} to {})", r(v), r(a), r(b)),
+        (Some(v), None) => format!("{}", r(v)),
+        _ => "none".into(),
+    }
+}
+
+/// How an alternative compares with the chosen interpretation, on the
+/// chosen law's own quantity when the alternative gives it, else on the
+/// other one. The widest interval each has is compared (with the scatter
+/// when published, else the measurement's).
+fn compare(chosen: &Interpretation, alt: &Interpretation) -> Comparison {
+    let pick = |i: &Interpretation, cr: bool| {
+        if cr {
+            i.cooling_rate_k_per_s.clone()
+        } else {
+            i.solidification_time_s.clone()
+        }
+    };
+    let first_cr = chosen.correlation.form == Form::CoolingRate.name();
+    let found = [first_cr, !first_cr].into_iter().find_map(|cr| {
+        let (a, b) = (pick(chosen, cr), pick(alt, cr));
+        (a.value.is_some() && b.value.is_some()).then_some((cr, a, b))
+    });
+    let Some((cr, a, b)) = found else {
+        return Comparison {
+            quantity: None,
+            chosen_value: None,
+            chosen_ci95: None,
+            value: None,
+            ci95: None,
+            ratio: None,
+            intervals_overlap: None,
+            note: "no quantity both laws give (a freezing range links the two forms)".into(),
+        };
+    };
+    let ia = a.ci95_with_scatter.or(a.ci95);
+    let ib = b.ci95_with_scatter.or(b.ci95);
+    let overlap = match (ia, ib) {
+        (Some([a0, a1]), Some([b0, b1])) => Some(a0 <= b1 && b0 <= a1),
+        _ => None,
+    };
+    let note = match overlap {
+        Some(true) => "the intervals overlap".to_string(),
+        Some(false) => {
+            "the intervals do not overlap: the laws disagree beyond their intervals".to_string()
+        }
+        None => "no interval on one side: agreement cannot be judged".to_string(),
+    };
+    Comparison {
+        quantity: Some(if cr {
+            "cooling_rate_K_per_s"
+        } else {
+            "solidification_time_s"
+        }),
+        chosen_value: a.value,
+        chosen_ci95: ia,
+        value: b.value,
+        ci95: ib,
+        ratio: a.value.zip(b.value).map(|(x, y)| y / x),
+        intervals_overlap: overlap,
+        note,
+    }
 }
 
 /// The SDAS interval widened by the correlation's scatter (module docs);
@@ -380,6 +626,9 @@ fn rel_pct(value: f64, [lo, hi]: [f64; 2]) -> [f64; 2] {
 #[derive(Clone, Debug)]
 pub struct Settings {
     pub correlation: Correlation,
+    /// The library the correlation comes from: its other entries of the
+    /// same family are interpreted beside it.
+    pub library: Vec<Correlation>,
     pub composition: Composition,
     pub freezing_range: Option<Kelvin>,
     pub extrapolate: bool,
@@ -398,8 +647,9 @@ impl Settings {
         sdas: Option<Micrometres>,
         ci95: Option<[Micrometres; 2]>,
     ) -> Result<Interpretation, String> {
-        interpret(
+        interpret_with_alternatives(
             &self.correlation,
+            &self.library,
             &Request {
                 sdas,
                 ci95,
