@@ -21,8 +21,18 @@ pub struct Estimate {
     pub ci95: Option<[Micrometres; 2]>,
     /// Number of independent measurements behind the value (tiles, lines).
     pub n: usize,
+    /// The methods whose values entered the combined value.
     pub methods: Vec<Method>,
     pub reason: Option<String>,
+    /// Methods that gave a value which did not enter the combined value,
+    /// each with the reason.
+    pub left_out: Vec<(Method, String)>,
+    /// The Birge ratio of the combined values (observed scatter against the
+    /// stated uncertainties; above 1 it widened the interval), when two or
+    /// more values with intervals were combined.
+    pub birge_ratio: Option<f64>,
+    /// Warnings of the combination (uncorroborated or left-out values).
+    pub warnings: Vec<Warning>,
 }
 
 impl Estimate {
@@ -34,6 +44,9 @@ impl Estimate {
             n: 0,
             methods: vec![],
             reason: Some(reason.into()),
+            left_out: vec![],
+            birge_ratio: None,
+            warnings: vec![],
         }
     }
 }
@@ -56,7 +69,7 @@ pub fn disagreements(outcomes: &[Outcome], cal: UmPerPx) -> Vec<Warning> {
 /// apart (relative to the first), or `None`.
 pub fn disagreement(a: (Method, Micrometres), b: (Method, Micrometres)) -> Option<Warning> {
     let diff = b.1 .0 / a.1 .0 - 1.0;
-    (diff.abs() > METHOD_DISAGREEMENT).then(|| {
+    (!agree(a.1 .0, b.1 .0)).then(|| {
         Warning::new(
             "methods.disagree",
             format!(
@@ -71,23 +84,63 @@ pub fn disagreement(a: (Method, Micrometres), b: (Method, Micrometres)) -> Optio
     })
 }
 
+/// Whether two values of the same spacing agree: the larger at most
+/// [`METHOD_DISAGREEMENT`] above the smaller.
+fn agree(a: f64, b: f64) -> bool {
+    a > 0.0 && b > 0.0 && a.max(b) / a.min(b) - 1.0 <= METHOD_DISAGREEMENT
+}
+
+/// The likely reason why a value lies so far from the others, from their
+/// ratio: a period about 1.4 to 2.1 times the arm spacing is what the rows of
+/// arms cut across, or the trunks, give; a period 2 or 3 times shorter is a
+/// harmonic; a much finer one is texture between the arms (the eutectic)
+/// (common practice, no single source).
+fn likely_reason(ratio: f64) -> &'static str {
+    if ratio > 1.0 {
+        "a longer period than the arms (the spacing between rows of arms cut across, trunks, or arms missed)"
+    } else {
+        "a finer period than the arms (eutectic or etch texture between the arms, a harmonic, or arms split)"
+    }
+}
+
 /// One method's contribution to the image's value, in pixels.
 struct Part {
     method: Method,
     value: f64,
-    ci: Option<[f64; 2]>,
+    /// 95 % half-width.
+    half: f64,
     n: usize,
 }
 
 /// The image's SDAS from the methods that gave a value.
 ///
-/// With values that each carry a 95 % interval, the image's value is their
-/// inverse-variance weighted mean (weights 1 / h^2, h the half-width; the
-/// methods are treated as independent: one counts arms on lines, the other
-/// reads spectra) and its half-width 1 / sqrt(sum of weights) (JCGM
-/// 100:2008, 5.1.2 with the sensitivity of a weighted mean). A value
-/// without an interval cannot be weighted and is not combined with one that
-/// has one.
+/// **Corroboration.** When more than one method was run, the image gets a
+/// value only when at least two methods, each with a value and a 95 %
+/// interval, agree within [`METHOD_DISAGREEMENT`]. The methods rest on
+/// different evidence (spectral periodicity, arms counted on lines, arm
+/// centres in rows), so on a field without arms their chance values are
+/// scattered over the whole range of spacings and two of them rarely fall
+/// within 10 % of each other; a lone value is the reading most often wrong
+/// (a row spacing, a texture, a chance period). A lone value stays in its
+/// method's block, marked there, and never enters the image's value or a
+/// decision. When only one method was run (by request), its value is the
+/// image's, with a warning that it is uncorroborated.
+///
+/// **Outliers.** The largest set of methods whose values agree pairwise is
+/// used; a method outside it is left out with the reason. When two equally
+/// large sets exist (A agrees with B, B with C, but A not with C), all their
+/// members are used and the interval widened by the Birge ratio, so that it
+/// covers the disagreement.
+///
+/// **Interval.** The value is the inverse-variance weighted mean (weights
+/// 1 / h^2, h the half-width). The methods measure the same arms, so their
+/// errors are correlated to an unknown degree; the half-width is the larger
+/// of the fully correlated bound, sum of w_i h_i with normalised weights
+/// (JCGM 100:2008, 5.2.2 with r = 1), and the independent one,
+/// 1 / sqrt(sum of weights) (5.1.2), scaled up by the Birge ratio
+/// R = sqrt(chi^2 / (k - 1)) when the values scatter more than their
+/// intervals allow (Birge 1932; the scale factor of the Particle Data
+/// Group's averages).
 ///
 /// The calibration's relative standard uncertainty u is a systematic factor
 /// common to every tile and line, so it widens the interval rather than
@@ -95,61 +148,178 @@ struct Part {
 /// value and k = [`Z95`] (uncorrelated contributions combined in
 /// quadrature, JCGM 100:2008, 5.1.2).
 pub fn combine(outcomes: &[Outcome], cal: UmPerPx, cal_rel_u: Option<f64>) -> Estimate {
+    let to_um = |px: f64| cal.to_um(Pixels(px)).0;
     let mut parts = Vec::new();
     let mut reasons = Vec::new();
+    let mut left_out = Vec::new();
     for o in outcomes {
-        match o.value {
-            Some(value) => parts.push(Part {
+        match (o.value, o.ci95) {
+            (Some(value), Some([lo, hi])) if value.0 > 0.0 && hi.0 >= lo.0 => parts.push(Part {
                 method: o.method,
                 value: value.0,
-                ci: o.ci95.map(|[a, b]| [a.0, b.0]),
+                half: (0.5 * (hi.0 - lo.0)).max(1e-9 * value.0),
                 n: o.n,
             }),
-            None => reasons.push(format!(
+            (Some(value), _) => {
+                let why = format!(
+                    "{:.2} um without a 95 % interval (too few independent measurements): not combined",
+                    to_um(value.0)
+                );
+                reasons.push(format!("{}: {why}", o.method.name()));
+                left_out.push((o.method, why));
+            }
+            (None, _) => reasons.push(format!(
                 "{}: {}",
                 o.method.name(),
                 o.reason.as_deref().unwrap_or("no value")
             )),
         }
     }
-    if parts.is_empty() {
-        return Estimate::none(if reasons.is_empty() {
-            "no method was run".into()
-        } else {
-            reasons.join("; ")
-        });
-    }
-    let with_ci: Vec<&Part> = parts.iter().filter(|p| p.ci.is_some()).collect();
-    let (value, half, used): (f64, Option<f64>, Vec<&Part>) = if with_ci.is_empty() {
-        let v = parts.iter().map(|p| p.value).sum::<f64>() / parts.len() as f64;
-        (v, None, parts.iter().collect())
-    } else {
-        let mut wsum = 0.0;
-        let mut wv = 0.0;
-        for p in &with_ci {
-            let [lo, hi] = p.ci.unwrap_or([p.value, p.value]);
-            let h = (0.5 * (hi - lo)).max(1e-9 * p.value.abs().max(1e-9));
-            let w = 1.0 / (h * h);
-            wsum += w;
-            wv += w * p.value;
-        }
-        (wv / wsum, Some(1.0 / wsum.sqrt()), with_ci)
+    let none = |reason: String, left_out: Vec<(Method, String)>, warnings: Vec<Warning>| Estimate {
+        left_out,
+        warnings,
+        ..Estimate::none(reason)
     };
-    let to_um = |px: f64| cal.to_um(Pixels(px)).0;
+    if outcomes.is_empty() {
+        return Estimate::none("no method was run");
+    }
+    let needed = outcomes.len().min(2);
+    if parts.len() < needed {
+        if let Some(p) = parts.first() {
+            let why = format!(
+                "{:.2} um is uncorroborated: no other method gives a value to check it against, and a value needs two methods that agree",
+                to_um(p.value)
+            );
+            reasons.insert(0, format!("{}: {why}", p.method.name()));
+            left_out.insert(0, (p.method, why));
+            let w = Warning::new(
+                "combine.uncorroborated",
+                format!(
+                    "only {} gave a value ({:.2} um); it is not corroborated by another method and is not used as the image's value",
+                    p.method.name(),
+                    to_um(p.value)
+                ),
+            );
+            return none(reasons.join("; "), left_out, vec![w]);
+        }
+        return none(
+            if reasons.is_empty() { "no method gave a value".into() } else { reasons.join("; ") },
+            left_out,
+            vec![],
+        );
+    }
+    let mut warnings = Vec::new();
+    let used: Vec<&Part> = if needed == 1 {
+        warnings.push(Warning::new(
+            "combine.single-method",
+            format!(
+                "only one method ({}) was run: its value is not corroborated by another method",
+                parts[0].method.name()
+            ),
+        ));
+        vec![&parts[0]]
+    } else {
+        match largest_agreeing(&parts) {
+            Some(set) => set.into_iter().map(|i| &parts[i]).collect(),
+            None => {
+                let list: Vec<String> = parts
+                    .iter()
+                    .map(|p| format!("{} {:.2} um", p.method.name(), to_um(p.value)))
+                    .collect();
+                let (lo, hi) = parts.iter().fold((f64::INFINITY, 0.0f64), |(a, b), p| {
+                    (a.min(p.value), b.max(p.value))
+                });
+                let why = format!(
+                    "the methods disagree ({}; the largest {:.0} % above the smallest) and no two agree within {:.0} %: one of them reads {} or {}",
+                    list.join(", "),
+                    100.0 * (hi / lo - 1.0),
+                    100.0 * METHOD_DISAGREEMENT,
+                    likely_reason(2.0),
+                    likely_reason(0.5),
+                );
+                let w = Warning::new("combine.disagree", why.clone());
+                return none(why, left_out, vec![w]);
+            }
+        }
+    };
+    let (value, half, birge) = weighted(&used);
+    for p in parts.iter().filter(|p| !used.iter().any(|u| u.method == p.method)) {
+        let why = format!(
+            "{:.2} um disagrees with the {} method(s) that agree ({:+.1} %): likely {}",
+            to_um(p.value),
+            used.len(),
+            100.0 * (p.value / value - 1.0),
+            likely_reason(p.value / value)
+        );
+        warnings.push(Warning::new(
+            "combine.left-out",
+            format!("{} left out of the image's value: {why}", p.method.name()),
+        ));
+        left_out.push((p.method, why));
+    }
     let x = to_um(value);
-    let ci95 = half.map(|h| {
-        let h = to_um(h);
-        let u = cal_rel_u.unwrap_or(0.0) * Z95 * x;
-        let total = (h * h + u * u).sqrt();
-        [Micrometres(x - total), Micrometres(x + total)]
-    });
+    let h = to_um(half);
+    let u = cal_rel_u.unwrap_or(0.0) * Z95 * x;
+    let total = (h * h + u * u).sqrt();
     Estimate {
         value: Some(Micrometres(x)),
-        ci95,
+        ci95: Some([Micrometres(x - total), Micrometres(x + total)]),
         n: used.iter().map(|p| p.n).sum(),
         methods: used.iter().map(|p| p.method).collect(),
         reason: None,
+        left_out,
+        birge_ratio: birge,
+        warnings,
     }
+}
+
+/// Indices of the largest set of parts whose values agree pairwise (at
+/// least two); when several sets of that size exist, the union of them.
+/// `None` when no two parts agree.
+fn largest_agreeing(parts: &[Part]) -> Option<Vec<usize>> {
+    let k = parts.len();
+    if k > 16 {
+        return None;
+    }
+    let mut best: Vec<u32> = Vec::new();
+    let mut best_size = 1;
+    for mask in 1u32..(1 << k) {
+        let members: Vec<usize> = (0..k).filter(|i| mask & (1 << i) != 0).collect();
+        if members.len() < best_size.max(2) {
+            continue;
+        }
+        let ok = members.iter().enumerate().all(|(a, &i)| {
+            members[a + 1..].iter().all(|&j| agree(parts[i].value, parts[j].value))
+        });
+        if !ok {
+            continue;
+        }
+        if members.len() > best_size {
+            best_size = members.len();
+            best.clear();
+        }
+        best.push(mask);
+    }
+    let union = best.iter().fold(0u32, |a, &m| a | m);
+    (union != 0).then(|| (0..k).filter(|i| union & (1 << i) != 0).collect())
+}
+
+/// Weighted mean, 95 % half-width and Birge ratio of the parts (see
+/// [`combine`]).
+fn weighted(parts: &[&Part]) -> (f64, f64, Option<f64>) {
+    let w: Vec<f64> = parts.iter().map(|p| 1.0 / (p.half * p.half)).collect();
+    let wsum: f64 = w.iter().sum();
+    let mean = parts.iter().zip(&w).map(|(p, w)| w * p.value).sum::<f64>() / wsum;
+    let independent = 1.0 / wsum.sqrt();
+    let correlated = parts.iter().zip(&w).map(|(p, w)| w / wsum * p.half).sum::<f64>();
+    if parts.len() < 2 {
+        return (mean, independent, None);
+    }
+    // chi^2 with standard uncertainties u_i = h_i / Z95.
+    let chi2 = Z95 * Z95 * parts.iter().zip(&w).map(|(p, w)| w * (p.value - mean).powi(2)).sum::<f64>();
+    let birge = (chi2 / (parts.len() - 1) as f64).sqrt();
+    let half = correlated.max(independent * birge.max(1.0));
+    (mean, half, Some(birge))
 }
 
 /// The combined value as the evidence compared with a limit.
@@ -163,14 +333,16 @@ pub fn value_evidence(sdas: &Estimate, cal_rel_u: f64) -> Evidence {
 }
 
 /// The largest local value of an image, from the first method in registry
-/// order that gave a value and has used local measurements (the FFT's tile
-/// map before the intercept's lines), with a 95 % interval from that
+/// order whose value entered the image's value (`sdas`) and that has used
+/// local measurements (the FFT's tile map before the intercept's lines);
+/// none when the image has no value. With a 95 % interval from that
 /// method's local spread (the tiles' robust standard deviation, or the
 /// lines' standard deviation, which also holds the real variation across
 /// the field and so overstates a single value's uncertainty: a cautious
 /// choice) and the calibration's uncertainty in quadrature.
-pub fn max_local(outcomes: &[Outcome], cal: UmPerPx, cal_rel_u: f64) -> Evidence {
-    let found = outcomes.iter().filter(|o| o.value.is_some()).find_map(|o| {
+pub fn max_local(outcomes: &[Outcome], sdas: &Estimate, cal: UmPerPx, cal_rel_u: f64) -> Evidence {
+    let used = |o: &&Outcome| o.value.is_some() && sdas.methods.contains(&o.method);
+    let found = outcomes.iter().filter(used).find_map(|o| {
         let max = o
             .local
             .iter()
@@ -238,28 +410,127 @@ mod tests {
         }
     }
 
+    fn half(e: &Estimate) -> f64 {
+        let [lo, hi] = e.ci95.unwrap();
+        0.5 * (hi.0 - lo.0)
+    }
+
     #[test]
-    fn inverse_variance_weighted_mean() {
-        // JCGM 100:2008, 5.1.2, for the mean of two independent estimates
-        // weighted by 1/h^2: worked by hand, values 10 (half-width 1) and
-        // 12 (half-width 2): weights 1 and 1/4, mean (10 + 3) / 1.25 = 10.4,
-        // half-width 1 / sqrt(1.25) = 0.894 43.
+    fn agreeing_methods_give_the_weighted_mean_with_the_correlated_bound() {
+        // Worked by hand (JCGM 100:2008, 5.1.2 and 5.2.2 with r = 1):
+        // values 10 (half-width 1) and 10.5 (half-width 2), 5 % apart:
+        // weights 1 and 1/4, mean (10 + 2.625) / 1.25 = 10.1; independent
+        // half-width 1 / sqrt(1.25) = 0.894; fully correlated
+        // (1 x 1 + 0.25 x 2) / 1.25 = 1.2; Birge ratio
+        // sqrt(1.96^2 x (0.1^2 + 0.25 x 0.4^2)) = 0.438 < 1, no scaling.
         let cal = UmPerPx::new(1.0).unwrap();
         let o = [
             outcome(Method::Fft, Some(10.0), Some([9.0, 11.0]), 5),
-            outcome(Method::Intercept, Some(12.0), Some([10.0, 14.0]), 7),
+            outcome(Method::Intercept, Some(10.5), Some([8.5, 12.5]), 7),
+        ];
+        let e = combine(&o, cal, None);
+        assert!((e.value.unwrap().0 - 10.1).abs() < 1e-12);
+        assert!((half(&e) - 1.2).abs() < 1e-12);
+        assert!((e.birge_ratio.unwrap() - (Z95 * Z95 * 0.05f64).sqrt()).abs() < 1e-12);
+        assert_eq!(e.n, 12);
+        assert_eq!(e.methods, vec![Method::Fft, Method::Intercept]);
+        assert!(e.warnings.is_empty() && e.left_out.is_empty());
+        // A 1 % calibration uncertainty adds 1.96 x 0.01 x 10.1 in quadrature.
+        let e = combine(&o, cal, Some(0.01));
+        let expect = (1.44f64 + (Z95 * 0.101).powi(2)).sqrt();
+        assert!((half(&e) - expect).abs() < 1e-12);
+    }
+
+    #[test]
+    fn scatter_beyond_the_intervals_widens_by_the_birge_ratio() {
+        // Birge (1932): values 10 and 10.8, each with half-width 0.2 (8 %
+        // apart, so they agree, but 0.8 apart against a standard
+        // uncertainty of 0.2 / 1.96 each). Weights 25 each, mean 10.4,
+        // independent half-width 1 / sqrt(50); chi^2 = 1.96^2 x 25 x
+        // (0.16 + 0.16), R = sqrt(chi^2 / 1), and R / sqrt(50) = 1.96 x 0.4.
+        let cal = UmPerPx::new(1.0).unwrap();
+        let o = [
+            outcome(Method::Fft, Some(10.0), Some([9.8, 10.2]), 5),
+            outcome(Method::Intercept, Some(10.8), Some([10.6, 11.0]), 7),
         ];
         let e = combine(&o, cal, None);
         assert!((e.value.unwrap().0 - 10.4).abs() < 1e-12);
+        assert!((half(&e) - Z95 * 0.4).abs() < 1e-9);
+        // The widened interval covers both values.
         let [lo, hi] = e.ci95.unwrap();
-        assert!((0.5 * (hi.0 - lo.0) - 1.0 / 1.25f64.sqrt()).abs() < 1e-12);
-        assert_eq!(e.n, 12);
-        assert_eq!(e.methods, vec![Method::Fft, Method::Intercept]);
-        // A 1 % calibration uncertainty adds 1.96 x 0.01 x 10.4 in quadrature.
-        let e = combine(&o, cal, Some(0.01));
-        let [lo, hi] = e.ci95.unwrap();
-        let expect = (0.8f64 + (Z95 * 0.104).powi(2)).sqrt();
-        assert!((0.5 * (hi.0 - lo.0) - expect).abs() < 1e-12);
+        assert!(lo.0 < 10.0 && hi.0 > 10.8);
+    }
+
+    #[test]
+    fn a_lone_value_is_not_the_images_value() {
+        let cal = UmPerPx::new(2.0).unwrap();
+        let o = [
+            outcome(Method::Fft, None, None, 0),
+            outcome(Method::Intercept, Some(10.0), Some([9.0, 11.0]), 7),
+        ];
+        let e = combine(&o, cal, None);
+        assert!(e.value.is_none() && e.ci95.is_none());
+        assert_eq!(e.warnings[0].code, "combine.uncorroborated");
+        assert_eq!(e.left_out[0].0, Method::Intercept);
+        let reason = e.reason.unwrap();
+        assert!(reason.contains("20.00 um is uncorroborated"), "{reason}");
+        assert!(reason.contains("fft: nothing"), "{reason}");
+        // Nor is a value without an interval.
+        let o = [
+            outcome(Method::Fft, Some(10.0), None, 3),
+            outcome(Method::Intercept, Some(10.0), Some([9.0, 11.0]), 7),
+        ];
+        let e = combine(&o, cal, None);
+        assert!(e.value.is_none());
+        assert_eq!(e.left_out.len(), 2);
+        assert!(e.left_out[1].1.contains("without a 95 % interval"));
+    }
+
+    #[test]
+    fn disagreeing_methods_give_no_value() {
+        let cal = UmPerPx::new(1.0).unwrap();
+        let o = [
+            outcome(Method::Fft, Some(15.0), Some([14.0, 16.0]), 5),
+            outcome(Method::Intercept, Some(10.0), Some([9.0, 11.0]), 7),
+        ];
+        let e = combine(&o, cal, None);
+        assert!(e.value.is_none());
+        assert_eq!(e.warnings[0].code, "combine.disagree");
+        assert!(e.reason.unwrap().contains("50 % above the smallest"));
+    }
+
+    #[test]
+    fn one_method_run_by_request_gives_its_value_with_a_warning() {
+        let cal = UmPerPx::new(1.0).unwrap();
+        let o = [outcome(Method::Intercept, Some(10.0), Some([9.0, 11.0]), 7)];
+        let e = combine(&o, cal, None);
+        assert_eq!(e.value.unwrap().0, 10.0);
+        assert!((half(&e) - 1.0).abs() < 1e-12);
+        assert_eq!(e.warnings[0].code, "combine.single-method");
+    }
+
+    fn parts(values: &[f64]) -> Vec<Part> {
+        values
+            .iter()
+            .map(|&value| Part {
+                method: Method::Fft,
+                value,
+                half: 1.0,
+                n: 1,
+            })
+            .collect()
+    }
+
+    #[test]
+    fn the_largest_agreeing_set_leaves_the_outlier_out() {
+        // 10 and 10.5 agree (5 %), 14 agrees with neither.
+        assert_eq!(largest_agreeing(&parts(&[10.0, 10.5, 14.0])), Some(vec![0, 1]));
+        assert_eq!(largest_agreeing(&parts(&[14.0, 10.0, 10.5])), Some(vec![1, 2]));
+        // A chain: 10 ~ 10.9 (9 %), 10.9 ~ 11.9 (9.2 %), 10 !~ 11.9 (19 %):
+        // two sets of two, no majority, all kept (and the Birge ratio widens).
+        assert_eq!(largest_agreeing(&parts(&[10.0, 10.9, 11.9])), Some(vec![0, 1, 2]));
+        assert_eq!(largest_agreeing(&parts(&[10.0, 13.0, 17.0])), None);
+        assert_eq!(largest_agreeing(&parts(&[10.0, 10.2, 10.4])), Some(vec![0, 1, 2]));
     }
 
     #[test]
@@ -282,7 +553,11 @@ mod tests {
             outcome(Method::Fft, None, None, 0),
             outcome(Method::Intercept, Some(20.0), Some([18.0, 22.0]), 7),
         ];
-        let e = max_local(&o, cal, 0.0);
+        // Only a method whose value entered the image's value counts.
+        assert!(max_local(&o, &Estimate::none("x"), cal, 0.0).value.is_none());
+        let mut sdas = Estimate::none("");
+        sdas.methods = vec![Method::Intercept];
+        let e = max_local(&o, &sdas, cal, 0.0);
         // The largest line, 1.2 x 20 px, at 0.5 um/px; its interval is the
         // spread (1 px = 0.5 um) times 1.96.
         assert!((e.value.unwrap().0 - 12.0).abs() < 1e-12);

@@ -227,6 +227,7 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
     }
     warnings.extend(combine::disagreements(&outcomes, um_per_px));
     let sdas = combine::combine(&outcomes, um_per_px, calibration.rel_uncertainty);
+    warnings.extend(sdas.warnings.iter().cloned());
     let overlay = opts.overlay_dir.as_ref().and_then(|dir| {
         let picture = crate::overlay::measurement(
             &loaded.image,
@@ -262,7 +263,7 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
             spec,
             path,
             combine::value_evidence(&sdas, u),
-            combine::max_local(&outcomes, um_per_px, u),
+            combine::max_local(&outcomes, &sdas, um_per_px, u),
         )
     });
     ImageResult {

@@ -200,6 +200,16 @@ pub struct SdasReport {
     pub n: usize,
     pub methods: Vec<&'static str>,
     pub reason: Option<String>,
+    /// Methods that gave a value which did not enter this one, and why.
+    pub left_out: Vec<LeftOutReport>,
+    /// Birge ratio of the combined values (null with fewer than two).
+    pub birge_ratio: Option<f64>,
+}
+
+#[derive(Serialize, Debug)]
+pub struct LeftOutReport {
+    pub method: &'static str,
+    pub reason: String,
 }
 
 #[derive(Serialize, Debug, Default)]
@@ -477,6 +487,16 @@ pub fn image_report(r: &ImageResult, opts: &MeasureOptions) -> ImageReport {
             n: r.sdas.n,
             methods: r.sdas.methods.iter().map(|m| m.name()).collect(),
             reason: r.sdas.reason.clone(),
+            left_out: r
+                .sdas
+                .left_out
+                .iter()
+                .map(|(m, why)| LeftOutReport {
+                    method: m.name(),
+                    reason: why.clone(),
+                })
+                .collect(),
+            birge_ratio: r.sdas.birge_ratio.map(|b| round(b, 4)),
         },
         methods: match cal {
             Some(c) => methods_report(&r.methods, c, opts),
