@@ -261,6 +261,15 @@ pub fn combine(outcomes: &[Outcome], cal: UmPerPx, cal_rel_u: Option<f64>) -> Es
     let h = to_um(half);
     let u = cal_rel_u.unwrap_or(0.0) * Z95 * x;
     let total = (h * h + u * u).sqrt();
+    if total >= x {
+        // A spacing is positive; an interval that reaches zero says the
+        // value is not known even to its order (`methods::require_support`).
+        let why = format!(
+            "the combined 95 % interval ({:.2} um +/- {:.2} um, with the calibration's uncertainty) reaches zero: no supported value",
+            x, total
+        );
+        return none(why, left_out, warnings);
+    }
     Estimate {
         value: Some(Micrometres(x)),
         ci95: Some([Micrometres(x - total), Micrometres(x + total)]),
@@ -398,6 +407,7 @@ mod tests {
                 })
                 .unwrap_or_default(),
             for_target: None,
+            indicative: None,
             detail: Detail::Intercept(InterceptOutcome {
                 value_px: value,
                 ci95_px: ci,
@@ -484,6 +494,19 @@ mod tests {
         assert!(e.value.is_none());
         assert_eq!(e.left_out.len(), 2);
         assert!(e.left_out[1].1.contains("without a 95 % interval"));
+    }
+
+    #[test]
+    fn an_interval_reaching_zero_gives_no_value() {
+        // A 60 % relative standard calibration uncertainty: 1.96 x 0.6 > 1.
+        let cal = UmPerPx::new(1.0).unwrap();
+        let o = [
+            outcome(Method::Fft, Some(10.0), Some([9.0, 11.0]), 5),
+            outcome(Method::Intercept, Some(10.0), Some([9.0, 11.0]), 7),
+        ];
+        let e = combine(&o, cal, Some(0.6));
+        assert!(e.value.is_none());
+        assert!(e.reason.unwrap().contains("reaches zero"));
     }
 
     #[test]

@@ -231,6 +231,10 @@ pub struct InterceptReport {
     pub lines_for_target: Option<usize>,
     pub convention: &'static str,
     pub reason: Option<String>,
+    /// A figure without the support a value needs (too few independent
+    /// measurements for an interval, or an interval reaching zero): never
+    /// used.
+    pub indicative: Option<f64>,
     pub lines: Vec<LineReport>,
 }
 
@@ -256,6 +260,8 @@ pub struct FftReport {
     pub orientation_deg: Option<f64>,
     pub orientation_coherence: Option<f64>,
     pub reason: Option<String>,
+    /// See `InterceptReport::indicative`.
+    pub indicative: Option<f64>,
     pub tiles: Vec<TileReport>,
 }
 
@@ -398,16 +404,31 @@ fn methods_report(
     opts: &MeasureOptions,
 ) -> MethodsReport {
     let mut m = MethodsReport::default();
+    // Value, interval and reason come from the common outcome: the evidence
+    // rule (`methods::require_support`) may have withdrawn a method's own
+    // value, which then appears only as `indicative`.
+    let value = |o: &methods::Outcome| o.value.map(|v| um(cal, v.0));
+    let ci95 = |o: &methods::Outcome| o.ci95.map(|[a, b]| [um(cal, a.0), um(cal, b.0)]);
+    let indicative = |o: &methods::Outcome| o.indicative.map(|v| um(cal, v.0));
     for o in outcomes {
         match &o.detail {
-            Detail::Fft(f) => m.fft = Some(fft_report(f, cal)),
+            Detail::Fft(f) => {
+                m.fft = Some(FftReport {
+                    value: value(o),
+                    ci95: ci95(o),
+                    reason: o.reason.clone(),
+                    indicative: indicative(o),
+                    ..fft_report(f, cal)
+                })
+            }
             Detail::Intercept(i) => {
-                m.intercept = Some(intercept_report(
-                    i,
-                    cal,
-                    opts.intercept.convention,
-                    o.for_target,
-                ))
+                m.intercept = Some(InterceptReport {
+                    value: value(o),
+                    ci95: ci95(o),
+                    reason: o.reason.clone(),
+                    indicative: indicative(o),
+                    ..intercept_report(i, cal, opts.intercept.convention, o.for_target)
+                })
             }
         }
     }
@@ -429,6 +450,7 @@ fn intercept_report(
         lines_for_target,
         convention: convention_name(convention),
         reason: i.reason.clone(),
+        indicative: None,
         lines: i
             .lines
             .iter()
@@ -456,6 +478,7 @@ fn fft_report(f: &FftOutcome, cal: UmPerPx) -> FftReport {
         orientation_deg: f.orientation_deg.map(|v| round(v, 2)),
         orientation_coherence: f.orientation_coherence.map(|v| round(v, 3)),
         reason: f.reason.clone(),
+        indicative: None,
         tiles: f
             .tiles
             .iter()

@@ -107,6 +107,9 @@ pub struct Outcome {
     /// relative accuracy to the target, at the same spread (set by
     /// [`Outcome::set_target`]; null for a method whose measurements overlap).
     pub for_target: Option<usize>,
+    /// A figure without the support a value needs ([`require_support`]):
+    /// reported, clearly marked, never used.
+    pub indicative: Option<Pixels>,
     pub detail: Detail,
 }
 
@@ -142,12 +145,47 @@ impl Outcome {
     }
 }
 
-/// Runs one method.
+/// Runs one method, and holds its value to the evidence rule
+/// ([`require_support`]).
 pub fn run(method: Method, inputs: &Inputs, params: &Params) -> Outcome {
-    match method {
+    let outcome = match method {
         Method::Fft => fft::measure(inputs.prepared, &params.fft).into_outcome(),
         Method::Intercept => intercept::measure(inputs.prepared, &params.intercept).into_outcome(),
+    };
+    require_support(outcome)
+}
+
+/// No value without evidence: a method's value stands only with a 95 %
+/// interval that lies above zero. A value without an interval rests on too
+/// few independent measurements to say how far off it may be; an interval
+/// that reaches zero or below says the measurements scatter as much as the
+/// spacing itself (a %RA of 100 % or more), which no periodic arm structure
+/// does. Either way the figure is kept only in the reason, marked as
+/// indicative, and never enters the image's value or a decision.
+pub fn require_support(mut o: Outcome) -> Outcome {
+    let Some(value) = o.value else {
+        return o;
+    };
+    let why = match o.ci95 {
+        None => Some(format!(
+            "too few independent measurements for a 95 % interval ({} in all)",
+            o.n
+        )),
+        Some([lo, hi]) if !(lo.0 > 0.0 && hi.0 >= lo.0 && hi.0.is_finite()) => Some(format!(
+            "its 95 % interval ({:.1} to {:.1} times the value) does not lie above zero: the measurements scatter as much as the spacing itself",
+            lo.0 / value.0, hi.0 / value.0
+        )),
+        _ => None,
+    };
+    if let Some(why) = why {
+        o.reason = Some(format!(
+            "no supported value: {why}; the figure it would give is reported as indicative only and is not used"
+        ));
+        o.indicative = Some(value);
+        o.value = None;
+        o.ci95 = None;
     }
+    o
 }
 
 /// Direction of the segment from (x0, y0) to (x1, y1) in image pixels (y
@@ -155,4 +193,48 @@ pub fn run(method: Method, inputs: &Inputs, params: &Params) -> Outcome {
 pub fn segment_dir_deg(x0: f64, y0: f64, x1: f64, y1: f64) -> f64 {
     let d = (-(y1 - y0)).atan2(x1 - x0).to_degrees();
     d.rem_euclid(180.0)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn outcome(value: f64, ci: Option<[f64; 2]>) -> Outcome {
+        Outcome {
+            method: Method::Intercept,
+            value: Some(Pixels(value)),
+            ci95: ci.map(|[a, b]| [Pixels(a), Pixels(b)]),
+            n: 3,
+            spread: None,
+            reason: None,
+            warnings: vec![],
+            local: vec![],
+            for_target: None,
+            indicative: None,
+            detail: Detail::Intercept(intercept::InterceptOutcome {
+                value_px: Some(value),
+                ci95_px: ci,
+                sd_px: None,
+                n_lines: 3,
+                rel_accuracy_pct: None,
+                lines: vec![],
+                reason: None,
+            }),
+        }
+    }
+
+    #[test]
+    fn a_value_needs_an_interval_above_zero() {
+        // A spacing is a positive length (a fact of geometry): an interval
+        // reaching zero, or none at all, leaves only an indicative figure.
+        let kept = require_support(outcome(10.0, Some([9.0, 11.0])));
+        assert_eq!(kept.value, Some(Pixels(10.0)));
+        assert!(kept.indicative.is_none() && kept.reason.is_none());
+        for ci in [None, Some([-2.3, 11.2]), Some([0.0, 20.0])] {
+            let o = require_support(outcome(4.46, ci));
+            assert!(o.value.is_none() && o.ci95.is_none(), "{ci:?}");
+            assert_eq!(o.indicative, Some(Pixels(4.46)));
+            assert!(o.reason.unwrap().starts_with("no supported value"));
+        }
+    }
 }

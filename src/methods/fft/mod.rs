@@ -189,6 +189,7 @@ impl FftOutcome {
             warnings,
             local,
             for_target: None,
+            indicative: None,
             detail: Detail::Fft(self),
         }
     }

@@ -282,6 +282,7 @@ impl InterceptOutcome {
             warnings: Vec::new(),
             local,
             for_target: None,
+            indicative: None,
             detail: Detail::Intercept(self),
         }
     }
