@@ -194,6 +194,20 @@ struct CalibrationArgs {
     /// Name of the profile to use from --profiles.
     #[arg(long, requires = "profiles")]
     profile: Option<String>,
+    /// The calibration to trust when the given ones conflict beyond their
+    /// uncertainties (otherwise such an image is not decided).
+    #[arg(long, value_enum)]
+    trust_calibration: Option<TrustArg>,
+}
+
+#[derive(Clone, Copy, ValueEnum)]
+enum TrustArg {
+    /// The --um-per-px value.
+    Manual,
+    /// The --profile value.
+    Profile,
+    /// The measured scale bar.
+    ScaleBar,
 }
 
 impl CalibrationArgs {
@@ -208,6 +222,11 @@ impl CalibrationArgs {
             scale_bar: self.scale_bar.map(|length| BarLength {
                 length,
                 rel_uncertainty: self.scale_bar_uncertainty_pct.unwrap_or(0.0) / 100.0,
+            }),
+            trust: self.trust_calibration.map(|t| match t {
+                TrustArg::Manual => calibrate::CalibrationSource::Manual,
+                TrustArg::Profile => calibrate::CalibrationSource::Profile,
+                TrustArg::ScaleBar => calibrate::CalibrationSource::ScaleBar,
             }),
         })
     }
@@ -562,6 +581,7 @@ fn run_calibrate(args: CalibrateArgs) -> ExitCode {
             length: args.scale_bar,
             rel_uncertainty: args.scale_bar_uncertainty_pct.unwrap_or(0.0) / 100.0,
         }),
+        trust: None,
     };
     if let Err(code) = create_overlay_dir(args.overlay.as_deref()) {
         return code;

@@ -259,12 +259,21 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
     }
     let acceptance = opts.spec.as_ref().map(|spec| {
         let u = calibration.rel_uncertainty.unwrap_or(0.0);
-        acceptance::assess(
+        let mut a = acceptance::assess(
             spec,
             path,
             combine::value_evidence(&sdas, u),
             combine::max_local(&outcomes, &sdas, um_per_px, u),
-        )
+        );
+        // A calibration the given sources contradict decides nothing: the
+        // value could be off by the factor between them.
+        if let (Some(conflict), Some(_)) = (&calibration.conflict, a.decision) {
+            a.decision = Some(acceptance::Decision::Indeterminate);
+            a.reason = format!("not decided: {conflict}");
+            a.measurements_to_decide = None;
+            a.fields_to_decide = None;
+        }
+        a
     });
     ImageResult {
         file: path.to_path_buf(),

@@ -411,3 +411,38 @@ fn the_csv_agrees_with_the_json_and_parallel_runs_agree() {
         assert_eq!(row[col("error")], img["error"].as_str().unwrap_or(""));
     }
 }
+
+#[test]
+fn a_calibration_the_sources_contradict_decides_nothing() {
+    // The demo's 6 mm step passes its 25 um limit when calibrated from its
+    // 200 um scale bar (README). A --um-per-px value five times finer than
+    // the bar's contradicts it far beyond any uncertainty: the image must not
+    // be decided (exit status 5, indeterminate) until one source is named as
+    // trusted; then it is decided as usual.
+    let img = "fixtures/demo/plate-CVF-SP4-step06mm.png";
+    let spec = "fixtures/demo-spec.json";
+    let run = armspace(&["measure", img, "--scale-bar", "200um", "--spec", spec]);
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    let rep: Value = serde_json::from_str(&run.stdout).unwrap();
+    let bar = rep["images"][0]["calibration"]["um_per_px"].as_f64().unwrap();
+    let manual = format!("{}", bar / 5.0);
+    let args = ["measure", img, "--scale-bar", "200um", "--um-per-px", &manual, "--spec", spec];
+    let run = armspace(&args);
+    assert_eq!(run.code, 5, "{}", run.stderr);
+    let rep: Value = serde_json::from_str(&run.stdout).unwrap();
+    let a = &rep["images"][0]["acceptance"];
+    assert_eq!(a["decision"], "indeterminate");
+    let reason = a["reason"].as_str().unwrap();
+    assert!(reason.contains("calibration sources conflict") && reason.contains("+400.0 %"), "{reason}");
+    assert!(rep["images"][0]["warning_codes"]
+        .as_array()
+        .unwrap()
+        .contains(&Value::from("calibration.conflict")));
+    let mut trusted = args.to_vec();
+    trusted.extend(["--trust-calibration", "scale-bar"]);
+    let run = armspace(&trusted);
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    let rep: Value = serde_json::from_str(&run.stdout).unwrap();
+    assert_eq!(rep["images"][0]["acceptance"]["decision"], "pass");
+    assert_eq!(rep["images"][0]["calibration"]["source"], "scale-bar");
+}

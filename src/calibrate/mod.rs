@@ -60,6 +60,10 @@ pub struct Calibration {
     pub bar: Option<ScaleBar>,
     /// Every source that offered a value, in order of precedence.
     pub offers: Vec<Offer>,
+    /// When sources the user gave (value, profile, scale bar) disagree
+    /// beyond their uncertainties and none was named as trusted: which and
+    /// by how much. The image is then undecidable.
+    pub conflict: Option<String>,
 }
 
 impl Calibration {
@@ -76,6 +80,7 @@ impl Calibration {
             rel_uncertainty: None,
             bar: None,
             offers: vec![offer],
+            conflict: None,
         }
     }
 }
@@ -95,6 +100,9 @@ pub struct CalibrationRequest {
     pub manual: Option<UmPerPx>,
     pub profile: Option<profile::Profile>,
     pub scale_bar: Option<BarLength>,
+    /// The source the user trusts when sources conflict; without it a
+    /// conflict leaves the image undecidable (`Calibration::conflict`).
+    pub trust: Option<CalibrationSource>,
 }
 
 /// Sources whose values differ by more than this (relative) are reported.
@@ -182,7 +190,21 @@ pub fn resolve(
         });
     }
     offers.sort_by_key(|o| o.source);
-    let Some(chosen) = offers.first().copied() else {
+    let trusted = match req.trust {
+        Some(t) => Some(offers.iter().copied().find(|o| o.source == t).ok_or_else(|| {
+            format!(
+                "the {} calibration is named as trusted, but this image has none (sources offered: {})",
+                t.name(),
+                if offers.is_empty() {
+                    "none".to_string()
+                } else {
+                    offers.iter().map(|o| o.source.name()).collect::<Vec<_>>().join(", ")
+                }
+            )
+        })?),
+        None => None,
+    };
+    let Some(chosen) = trusted.or_else(|| offers.first().copied()) else {
         return Err(match bar_failure {
             Some(reason) => format!(
                 "no scale bar found with confidence ({reason}); pass --um-per-px or --profile"
@@ -199,9 +221,13 @@ pub fn resolve(
             ),
         ));
     }
-    for o in offers.iter().skip(1) {
+    let conflict = if req.trust.is_none() { conflict_of(&offers) } else { None };
+    if let Some(c) = &conflict {
+        warnings.push(Warning::new("calibration.conflict", c.clone()));
+    }
+    for o in offers.iter().filter(|o| o.source != chosen.source) {
         let diff = o.um_per_px.get() / chosen.um_per_px.get() - 1.0;
-        if diff.abs() > DISAGREEMENT {
+        if diff.abs() > DISAGREEMENT && conflict.is_none() {
             warnings.push(Warning::new(
                 "calibration.sources-disagree",
                 format!(
@@ -226,9 +252,46 @@ pub fn resolve(
             rel_uncertainty: chosen.rel_uncertainty,
             bar,
             offers,
+            conflict,
         },
         warnings,
     ))
+}
+
+/// The first conflict between two calibrations the user gave (a value, a
+/// profile, a measured scale bar): values whose ratio differs from 1 by more
+/// than both [`DISAGREEMENT`] and 1.96 times their combined relative
+/// standard uncertainty (JCGM 100:2008, 5.1.2; a source without a stated
+/// uncertainty counts as exact), i.e. a difference their uncertainties do
+/// not explain. The file's resolution tags are left out: cameras write a
+/// default resolution (often 72 or 96 dpi) that says nothing of the
+/// objective, so a disagreement with them is usual and only warned about.
+fn conflict_of(offers: &[Offer]) -> Option<String> {
+    let given: Vec<&Offer> = offers
+        .iter()
+        .filter(|o| o.source != CalibrationSource::FileMetadata)
+        .collect();
+    for (i, a) in given.iter().enumerate() {
+        for b in &given[i + 1..] {
+            let ratio = b.um_per_px.get() / a.um_per_px.get();
+            let u = a.rel_uncertainty.unwrap_or(0.0).hypot(b.rel_uncertainty.unwrap_or(0.0));
+            let allowed = DISAGREEMENT.max(crate::stats::Z95 * u);
+            if (ratio - 1.0).abs() > allowed {
+                return Some(format!(
+                    "calibration sources conflict: {} gives {:.6} um/px, {} gives {:.6} um/px ({:+.1} %, beyond the {:.1} % their uncertainties allow); the image cannot be decided until one is named as trusted (--trust-calibration {} or {})",
+                    a.source.name(),
+                    a.um_per_px.get(),
+                    b.source.name(),
+                    b.um_per_px.get(),
+                    100.0 * (ratio - 1.0),
+                    100.0 * allowed,
+                    a.source.name(),
+                    b.source.name()
+                ));
+            }
+        }
+    }
+    None
 }
 
 /// Parses a user-given micrometres-per-pixel value, naming the problem.

@@ -98,6 +98,7 @@ fn precedence_manual_profile_bar_metadata() {
             length: Micrometres(100.0),
             rel_uncertainty: 0.0,
         }),
+        trust: None,
     };
     let (c, w) = resolve(&full, Some(&found), Some(um(0.5))).unwrap();
     assert_eq!(c.source, CalibrationSource::Manual);
@@ -135,15 +136,45 @@ fn disagreement_over_two_percent_is_a_warning() {
             length: Micrometres(100.0),
             rel_uncertainty: 0.0,
         }),
+        trust: None,
     };
     let (c, w) = resolve(&req, Some(&found), None).unwrap();
     assert_eq!(c.source, CalibrationSource::Manual);
     assert_eq!(w.len(), 1, "{w:?}");
+    // Two sources the user gave, 3 % apart with no stated uncertainty: a
+    // conflict, and the image is not decided.
     assert!(
-        w[0].code == "calibration.sources-disagree" && w[0].message.contains("scale-bar"),
+        w[0].code == "calibration.conflict" && w[0].message.contains("scale-bar"),
         "{}",
         w[0]
     );
+    assert!(c.conflict.is_some());
+    // Named as trusted, the bar is used and the other is only warned about.
+    let trusting = CalibrationRequest {
+        trust: Some(CalibrationSource::ScaleBar),
+        ..req.clone()
+    };
+    let (c, w) = resolve(&trusting, Some(&found), None).unwrap();
+    assert_eq!(c.source, CalibrationSource::ScaleBar);
+    assert!(c.conflict.is_none());
+    assert_eq!(w[0].code, "calibration.sources-disagree");
+    // A bar stated to 2 % (standard) allows 1.96 x 2 % = 3.9 %: no conflict.
+    let uncertain = CalibrationRequest {
+        scale_bar: Some(BarLength {
+            length: Micrometres(100.0),
+            rel_uncertainty: 0.02,
+        }),
+        ..req.clone()
+    };
+    let (c, _) = resolve(&uncertain, Some(&found), None).unwrap();
+    assert!(c.conflict.is_none());
+    // Trusting a source that is not offered is an error naming it.
+    let absent = CalibrationRequest {
+        trust: Some(CalibrationSource::Profile),
+        ..req.clone()
+    };
+    let e = resolve(&absent, Some(&found), None).unwrap_err();
+    assert!(e.contains("profile calibration is named as trusted"), "{e}");
     // 1.5 % apart: no warning.
     let req = CalibrationRequest {
         manual: Some(um(0.5075)),
