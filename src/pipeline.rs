@@ -228,6 +228,12 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
     warnings.extend(combine::disagreements(&outcomes, um_per_px));
     let sdas = combine::combine(&outcomes, um_per_px, calibration.rel_uncertainty);
     warnings.extend(sdas.warnings.iter().cloned());
+    warnings.extend(crate::interpret::plausibility::field_warning(
+        loaded.image.width as u32,
+        um_per_px.get(),
+    ));
+    let implausible = sdas.value.and_then(crate::interpret::plausibility::sdas_warning);
+    warnings.extend(implausible.iter().cloned());
     let overlay = opts.overlay_dir.as_ref().and_then(|dir| {
         let picture = crate::overlay::measurement(
             &loaded.image,
@@ -267,9 +273,14 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         );
         // A calibration the given sources contradict decides nothing: the
         // value could be off by the factor between them.
-        if let (Some(conflict), Some(_)) = (&calibration.conflict, a.decision) {
+        // Nor does an SDAS no cast metal shows (most likely a unit slip).
+        let doubt = calibration
+            .conflict
+            .clone()
+            .or_else(|| implausible.as_ref().map(|w| w.message.clone()));
+        if let (Some(doubt), Some(_)) = (doubt, a.decision) {
             a.decision = Some(acceptance::Decision::Indeterminate);
-            a.reason = format!("not decided: {conflict}");
+            a.reason = format!("not decided: {doubt}");
             a.measurements_to_decide = None;
             a.fields_to_decide = None;
         }

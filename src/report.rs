@@ -657,7 +657,7 @@ pub fn outcome(report: &Report) -> Outcome {
 }
 
 /// Columns of the CSV summary, one row per image.
-pub const CSV_COLUMNS: [&str; 17] = [
+pub const CSV_COLUMNS: [&str; 18] = [
     "file",
     "um_per_px",
     "calibration_source",
@@ -675,6 +675,7 @@ pub const CSV_COLUMNS: [&str; 17] = [
     "warnings",
     "error",
     "reason",
+    "warning_codes",
 ];
 
 /// The CSV summary of a report: two comment lines (tool, time, schema, and
@@ -724,6 +725,7 @@ pub fn csv_summary(report: &Report) -> Result<String, String> {
             i.warnings.len().to_string(),
             i.error.clone().unwrap_or_default(),
             i.sdas_um.reason.clone().unwrap_or_default(),
+            i.warning_codes.join(";"),
         ];
         w.write_record(&record).map_err(|e| e.to_string())?;
     }

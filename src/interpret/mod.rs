@@ -25,6 +25,7 @@
 pub mod acceptance;
 pub mod coarsening;
 pub mod library;
+pub mod plausibility;
 
 pub use library::{Composition, Correlation, Form};
 
