@@ -203,7 +203,11 @@ pub fn combine(outcomes: &[Outcome], cal: UmPerPx, cal_rel_u: Option<f64>) -> Es
             return none(reasons.join("; "), left_out, vec![w]);
         }
         return none(
-            if reasons.is_empty() { "no method gave a value".into() } else { reasons.join("; ") },
+            if reasons.is_empty() {
+                "no method gave a value".into()
+            } else {
+                reasons.join("; ")
+            },
             left_out,
             vec![],
         );
@@ -243,7 +247,10 @@ pub fn combine(outcomes: &[Outcome], cal: UmPerPx, cal_rel_u: Option<f64>) -> Es
         }
     };
     let (value, half, birge) = weighted(&used);
-    for p in parts.iter().filter(|p| !used.iter().any(|u| u.method == p.method)) {
+    for p in parts
+        .iter()
+        .filter(|p| !used.iter().any(|u| u.method == p.method))
+    {
         let why = format!(
             "{:.2} um disagrees with the {} method(s) that agree ({:+.1} %): likely {}",
             to_um(p.value),
@@ -298,7 +305,9 @@ fn largest_agreeing(parts: &[Part]) -> Option<Vec<usize>> {
             continue;
         }
         let ok = members.iter().enumerate().all(|(a, &i)| {
-            members[a + 1..].iter().all(|&j| agree(parts[i].value, parts[j].value))
+            members[a + 1..]
+                .iter()
+                .all(|&j| agree(parts[i].value, parts[j].value))
         });
         if !ok {
             continue;
@@ -320,12 +329,22 @@ fn weighted(parts: &[&Part]) -> (f64, f64, Option<f64>) {
     let wsum: f64 = w.iter().sum();
     let mean = parts.iter().zip(&w).map(|(p, w)| w * p.value).sum::<f64>() / wsum;
     let independent = 1.0 / wsum.sqrt();
-    let correlated = parts.iter().zip(&w).map(|(p, w)| w / wsum * p.half).sum::<f64>();
+    let correlated = parts
+        .iter()
+        .zip(&w)
+        .map(|(p, w)| w / wsum * p.half)
+        .sum::<f64>();
     if parts.len() < 2 {
         return (mean, independent, None);
     }
     // chi^2 with standard uncertainties u_i = h_i / Z95.
-    let chi2 = Z95 * Z95 * parts.iter().zip(&w).map(|(p, w)| w * (p.value - mean).powi(2)).sum::<f64>();
+    let chi2 = Z95
+        * Z95
+        * parts
+            .iter()
+            .zip(&w)
+            .map(|(p, w)| w * (p.value - mean).powi(2))
+            .sum::<f64>();
     let birge = (chi2 / (parts.len() - 1) as f64).sqrt();
     let half = correlated.max(independent * birge.max(1.0));
     (mean, half, Some(birge))
@@ -547,13 +566,25 @@ mod tests {
     #[test]
     fn the_largest_agreeing_set_leaves_the_outlier_out() {
         // 10 and 10.5 agree (5 %), 14 agrees with neither.
-        assert_eq!(largest_agreeing(&parts(&[10.0, 10.5, 14.0])), Some(vec![0, 1]));
-        assert_eq!(largest_agreeing(&parts(&[14.0, 10.0, 10.5])), Some(vec![1, 2]));
+        assert_eq!(
+            largest_agreeing(&parts(&[10.0, 10.5, 14.0])),
+            Some(vec![0, 1])
+        );
+        assert_eq!(
+            largest_agreeing(&parts(&[14.0, 10.0, 10.5])),
+            Some(vec![1, 2])
+        );
         // A chain: 10 ~ 10.9 (9 %), 10.9 ~ 11.9 (9.2 %), 10 !~ 11.9 (19 %):
         // two sets of two, no majority, all kept (and the Birge ratio widens).
-        assert_eq!(largest_agreeing(&parts(&[10.0, 10.9, 11.9])), Some(vec![0, 1, 2]));
+        assert_eq!(
+            largest_agreeing(&parts(&[10.0, 10.9, 11.9])),
+            Some(vec![0, 1, 2])
+        );
         assert_eq!(largest_agreeing(&parts(&[10.0, 13.0, 17.0])), None);
-        assert_eq!(largest_agreeing(&parts(&[10.0, 10.2, 10.4])), Some(vec![0, 1, 2]));
+        assert_eq!(
+            largest_agreeing(&parts(&[10.0, 10.2, 10.4])),
+            Some(vec![0, 1, 2])
+        );
     }
 
     #[test]
@@ -577,7 +608,9 @@ mod tests {
             outcome(Method::Intercept, Some(20.0), Some([18.0, 22.0]), 7),
         ];
         // Only a method whose value entered the image's value counts.
-        assert!(max_local(&o, &Estimate::none("x"), cal, 0.0).value.is_none());
+        assert!(max_local(&o, &Estimate::none("x"), cal, 0.0)
+            .value
+            .is_none());
         let mut sdas = Estimate::none("");
         sdas.methods = vec![Method::Intercept];
         let e = max_local(&o, &sdas, cal, 0.0);

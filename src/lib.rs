@@ -10,6 +10,7 @@ pub mod blocks;
 pub mod calibrate;
 pub mod combine;
 pub mod error;
+pub mod files;
 pub mod interpret;
 pub mod load;
 pub mod manual;

@@ -92,6 +92,9 @@ pub enum Input {
     Skipped { path: PathBuf, reason: String },
     /// A path given on the command line that does not exist.
     Missing(PathBuf),
+    /// A path given on the command line that cannot be measured (a FIFO or
+    /// device), with the reason: a failed entry of the batch.
+    Unusable { path: PathBuf, reason: String },
 }
 
 fn has_image_extension(path: &Path) -> bool {
@@ -110,22 +113,87 @@ fn is_hidden(path: &Path) -> bool {
 
 /// Expands the paths of a batch: files are taken as they are, folders are
 /// walked recursively in sorted order. In folders, hidden entries are ignored
-/// and files without an image extension are reported as skipped.
+/// and files without an image extension are reported as skipped. Each file
+/// and folder is visited once, by its resolved path: a link loop or a second
+/// link to the same place is named as skipped instead of measured again (or
+/// walked for ever). Special files (FIFOs, devices, sockets) are never read:
+/// skipped with the reason in a folder, refused when named. The tool's own
+/// pictures ([`crate::files::is_own_picture`]) are skipped wherever they are.
 pub fn collect_inputs(paths: &[PathBuf]) -> Vec<Input> {
     let mut out = Vec::new();
+    let mut seen = Seen::default();
     for p in paths {
-        if p.is_dir() {
-            walk(p, &mut out);
-        } else if p.exists() {
-            out.push(Input::Image(p.clone()));
-        } else {
-            out.push(Input::Missing(p.clone()));
+        match crate::files::kind(p) {
+            crate::files::Kind::Folder => walk(p, &mut out, &mut seen),
+            crate::files::Kind::Regular if crate::files::is_own_picture(p) => {
+                out.push(Input::Skipped {
+                    path: p.clone(),
+                    reason: "a picture written by armspace (an overlay), not a micrograph".into(),
+                })
+            }
+            crate::files::Kind::Regular => {
+                if let Some(first) = seen.file(p) {
+                    out.push(Input::Skipped {
+                        path: p.clone(),
+                        reason: format!(
+                            "the same file as {} (already in this batch)",
+                            first.display()
+                        ),
+                    });
+                } else {
+                    out.push(Input::Image(p.clone()));
+                }
+            }
+            crate::files::Kind::Special => out.push(Input::Unusable {
+                path: p.clone(),
+                reason: "is not a regular file (a FIFO, device or socket); not read".into(),
+            }),
+            crate::files::Kind::Missing => out.push(Input::Missing(p.clone())),
         }
     }
     out
 }
 
-fn walk(dir: &Path, out: &mut Vec<Input>) {
+/// Resolved paths already taken, each with the path by which it was first met.
+#[derive(Default)]
+struct Seen {
+    files: std::collections::HashMap<PathBuf, PathBuf>,
+    folders: std::collections::HashMap<PathBuf, PathBuf>,
+}
+
+impl Seen {
+    /// `None` the first time a file is met, else the path it was first met by.
+    fn file(&mut self, p: &Path) -> Option<PathBuf> {
+        Self::first(&mut self.files, p)
+    }
+
+    fn folder(&mut self, p: &Path) -> Option<PathBuf> {
+        Self::first(&mut self.folders, p)
+    }
+
+    fn first(map: &mut std::collections::HashMap<PathBuf, PathBuf>, p: &Path) -> Option<PathBuf> {
+        let key = std::fs::canonicalize(p).unwrap_or_else(|_| p.to_path_buf());
+        match map.get(&key) {
+            Some(first) => Some(first.clone()),
+            None => {
+                map.insert(key, p.to_path_buf());
+                None
+            }
+        }
+    }
+}
+
+fn walk(dir: &Path, out: &mut Vec<Input>, seen: &mut Seen) {
+    if let Some(first) = seen.folder(dir) {
+        out.push(Input::Skipped {
+            path: dir.to_path_buf(),
+            reason: format!(
+                "a link back to {} (already walked); each folder is measured once",
+                first.display()
+            ),
+        });
+        return;
+    }
     let mut entries: Vec<PathBuf> = match std::fs::read_dir(dir) {
         Ok(rd) => rd.filter_map(|e| e.ok().map(|e| e.path())).collect(),
         Err(e) => {
@@ -141,25 +209,43 @@ fn walk(dir: &Path, out: &mut Vec<Input>) {
         if is_hidden(&p) {
             continue;
         }
-        if p.is_dir() {
-            walk(&p, out);
-        } else if has_image_extension(&p) {
-            out.push(Input::Image(p));
-        } else {
-            out.push(Input::Skipped {
+        match crate::files::kind(&p) {
+            crate::files::Kind::Folder => walk(&p, out, seen),
+            crate::files::Kind::Special => out.push(Input::Skipped {
+                path: p,
+                reason: "not a regular file (a FIFO, device or socket); not read".into(),
+            }),
+            crate::files::Kind::Missing => out.push(Input::Skipped {
+                path: p,
+                reason: "a link to nothing".into(),
+            }),
+            crate::files::Kind::Regular if !has_image_extension(&p) => out.push(Input::Skipped {
                 path: p,
                 reason: "not an image file (by its extension)".into(),
-            });
+            }),
+            crate::files::Kind::Regular if crate::files::is_own_picture(&p) => {
+                out.push(Input::Skipped {
+                    path: p,
+                    reason: "a picture written by armspace (an overlay), not a micrograph".into(),
+                })
+            }
+            crate::files::Kind::Regular => match seen.file(&p) {
+                Some(first) => out.push(Input::Skipped {
+                    reason: format!(
+                        "the same file as {} (already in this batch)",
+                        first.display()
+                    ),
+                    path: p,
+                }),
+                None => out.push(Input::Image(p)),
+            },
         }
     }
 }
 
 /// Reads, checks and decodes one image file.
 pub fn load(path: &Path, opts: &LoadOptions) -> Result<Loaded> {
-    let bytes = std::fs::read(path).map_err(|source| Error::Read {
-        path: path.to_path_buf(),
-        source,
-    })?;
+    let bytes = crate::files::read_image_bytes(path)?;
     load_bytes(path, &bytes, opts)
 }
 

@@ -412,12 +412,10 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
         target_rel_accuracy_pct: args.target_ra_pct,
         methods,
         overlay_dir: args.overlay.clone(),
+        protected: Default::default(),
         interpret,
         spec,
     };
-    if let Err(code) = create_overlay_dir(args.overlay.as_deref()) {
-        return code;
-    }
     let inputs = collect_inputs(&args.paths);
     if !inputs
         .iter()
@@ -426,6 +424,34 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
         eprintln!("armspace: no image files found in the given paths");
         return ExitCode::from(EXIT_NOT_MEASURED);
     }
+    // Every output is checked before the first image is measured: none may
+    // replace an input (after resolving links), and each must be writable.
+    let mut protected = armspace::files::Protected::new(inputs.iter().filter_map(|i| match i {
+        armspace::load::Input::Image(p) => Some(p.as_path()),
+        _ => None,
+    }));
+    for p in [
+        args.spec.as_deref(),
+        args.calibration.profiles.as_deref(),
+        args.alloy.correlations.as_deref(),
+    ]
+    .into_iter()
+    .flatten()
+    {
+        protected.add(p);
+    }
+    for (path, role) in [(&args.out, "report"), (&args.csv, "CSV summary")] {
+        if let Some(path) = path {
+            if let Err(e) = protected.check_output(path, role) {
+                eprintln!("armspace: {e}");
+                return ExitCode::from(EXIT_USAGE);
+            }
+        }
+    }
+    if let Err(code) = create_overlay_dir(args.overlay.as_deref()) {
+        return code;
+    }
+    let opts = MeasureOptions { protected, ..opts };
     let pool = match rayon::ThreadPoolBuilder::new()
         .num_threads(args.jobs.map_or(0, usize::from))
         .build()
@@ -496,27 +522,36 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
     for s in &rep.skipped {
         eprintln!("skipped  {}: {}", s.file, s.reason);
     }
+    // The report first, then the CSV; one failing never costs the other.
+    let mut write_failed = false;
+    match &args.out {
+        Some(path) => match armspace::files::write_output(path, json.as_bytes()) {
+            Ok(()) => eprintln!("report written to {}", path.display()),
+            Err(e) => {
+                eprintln!("armspace: {e}");
+                write_failed = true;
+            }
+        },
+        None => {
+            if let Err(e) = armspace::files::write_stdout(&json) {
+                eprintln!("armspace: cannot write the report to standard output: {e}");
+                write_failed = true;
+            }
+        }
+    }
     if let Some(path) = &args.csv {
         let written = report::csv_summary(&rep)
             .map_err(|e| format!("{}: {e}", path.display()))
             .and_then(|text| {
-                report::write_atomic(path, text.as_bytes()).map_err(|e| e.to_string())
+                armspace::files::write_output(path, text.as_bytes()).map_err(|e| e.to_string())
             });
-        if let Err(e) = written {
-            eprintln!("armspace: {e}");
-            return ExitCode::from(EXIT_FATAL);
-        }
-        eprintln!("CSV summary written to {}", path.display());
-    }
-    match &args.out {
-        Some(path) => {
-            if let Err(e) = report::write_atomic(path, json.as_bytes()) {
+        match written {
+            Ok(()) => eprintln!("CSV summary written to {}", path.display()),
+            Err(e) => {
                 eprintln!("armspace: {e}");
-                return ExitCode::from(EXIT_FATAL);
+                write_failed = true;
             }
-            eprintln!("report written to {}", path.display());
         }
-        None => print!("{json}"),
     }
     let s = &rep.summary;
     eprintln!(
@@ -547,6 +582,9 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
             a.verdict
                 .map_or("no images".to_string(), |d| d.name().to_uppercase())
         );
+    }
+    if write_failed {
+        return ExitCode::from(EXIT_FATAL);
     }
     ExitCode::from(match report::outcome(&rep) {
         report::Outcome::Ok => EXIT_OK,
@@ -648,8 +686,8 @@ fn run_calibrate(args: CalibrateArgs) -> ExitCode {
 
 fn run_stats(args: StatsArgs) -> ExitCode {
     let origin = args.file.display().to_string();
-    let result = std::fs::read_to_string(&args.file)
-        .map_err(|e| format!("{origin}: cannot read: {e}"))
+    let result = armspace::files::read_text(&args.file, "file of measured lines")
+        .map_err(|e| e.to_string())
         .and_then(|text| armspace::manual::parse(&text, &origin))
         .and_then(|lines| armspace::manual::summarise(lines, &origin, args.target_ra_pct));
     match result {
@@ -694,8 +732,8 @@ fn run_synth(args: SynthArgs) -> ExitCode {
             armspace::synth::write_set_styled(&args.outdir, args.seed, args.count as usize, style)
                 .map_err(|e| e.to_string())
         }
-        Some(path) => std::fs::read_to_string(path)
-            .map_err(|e| format!("{}: cannot read: {e}", path.display()))
+        Some(path) => armspace::files::read_text(path, "field-description file")
+            .map_err(|e| e.to_string())
             .and_then(|text| {
                 serde_json::from_str::<armspace::synth::SpecFile>(&text)
                     .map_err(|e| format!("{}: not a valid spec file: {e}", path.display()))
@@ -725,10 +763,10 @@ fn run_synth(args: SynthArgs) -> ExitCode {
 /// serialised is a failed run.
 fn print_json(value: &impl serde::Serialize) -> Result<(), ExitCode> {
     match serde_json::to_string_pretty(value) {
-        Ok(j) => {
-            println!("{j}");
-            Ok(())
-        }
+        Ok(j) => armspace::files::write_stdout(&format!("{j}\n")).map_err(|e| {
+            eprintln!("armspace: cannot write to standard output: {e}");
+            ExitCode::from(EXIT_FATAL)
+        }),
         Err(e) => {
             eprintln!("armspace: {e}");
             Err(ExitCode::from(EXIT_FATAL))
@@ -749,8 +787,13 @@ fn load_library(
 fn run_correlations(args: CorrelationsArgs) -> ExitCode {
     match load_library(args.correlations.as_deref()) {
         Ok(lib) => {
-            print!("{}", armspace::interpret::library::table(&lib));
-            ExitCode::from(EXIT_OK)
+            match armspace::files::write_stdout(&armspace::interpret::library::table(&lib)) {
+                Ok(()) => ExitCode::from(EXIT_OK),
+                Err(e) => {
+                    eprintln!("armspace: cannot write to standard output: {e}");
+                    ExitCode::from(EXIT_FATAL)
+                }
+            }
         }
         Err(e) => {
             eprintln!("armspace: {e}");

@@ -138,13 +138,24 @@ fn draw_bar(out: &mut RgbImage, bar: Option<&ScaleBar>) {
     }
 }
 
-/// Encodes a PNG in memory and writes it atomically.
+/// Encodes a PNG in memory, marked as this tool's picture
+/// ([`crate::files::OWN_PICTURE_TEXT`]), and writes it atomically.
 pub fn write_png(path: &Path, img: &RgbImage) -> crate::Result<()> {
-    let mut buf = std::io::Cursor::new(Vec::new());
-    img.write_to(&mut buf, image::ImageFormat::Png)
-        .map_err(|e| crate::Error::Write {
-            path: path.to_path_buf(),
-            source: std::io::Error::other(e.to_string()),
-        })?;
-    crate::report::write_atomic(path, buf.get_ref())
+    let encode = || -> Result<Vec<u8>, png::EncodingError> {
+        let mut buf = Vec::new();
+        let mut enc = png::Encoder::new(&mut buf, img.width(), img.height());
+        enc.set_color(png::ColorType::Rgb);
+        enc.set_depth(png::BitDepth::Eight);
+        let (key, value) = crate::files::OWN_PICTURE_TEXT;
+        enc.add_text_chunk(key.to_string(), value.to_string())?;
+        let mut w = enc.write_header()?;
+        w.write_image_data(img.as_raw())?;
+        w.finish()?;
+        Ok(buf)
+    };
+    let bytes = encode().map_err(|e| crate::Error::Write {
+        path: path.to_path_buf(),
+        source: std::io::Error::other(e.to_string()),
+    })?;
+    crate::files::write_output(path, &bytes)
 }

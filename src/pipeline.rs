@@ -33,6 +33,8 @@ pub struct MeasureOptions {
     pub methods: Vec<Method>,
     /// Folder for a picture per image of what was measured.
     pub overlay_dir: Option<PathBuf>,
+    /// Files no output may replace (the run's inputs, resolved).
+    pub protected: crate::files::Protected,
     /// Correlation and alloy for cooling rate and solidification time.
     pub interpret: Option<crate::interpret::Settings>,
     /// SDAS limits and the decision rule.
@@ -54,6 +56,7 @@ impl MeasureOptions {
             target_rel_accuracy_pct: 10.0,
             methods: vec![Method::Fft, Method::Intercept],
             overlay_dir: None,
+            protected: crate::files::Protected::default(),
             interpret: None,
             spec: None,
         }
@@ -232,7 +235,9 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         loaded.image.width as u32,
         um_per_px.get(),
     ));
-    let implausible = sdas.value.and_then(crate::interpret::plausibility::sdas_warning);
+    let implausible = sdas
+        .value
+        .and_then(crate::interpret::plausibility::sdas_warning);
     warnings.extend(implausible.iter().cloned());
     let overlay = opts.overlay_dir.as_ref().and_then(|dir| {
         let picture = crate::overlay::measurement(
@@ -242,6 +247,16 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
             opts.fft.min_quality,
         );
         let target = dir.join(overlay_name(path, &info.sha256));
+        if opts.protected.is_protected(&target) {
+            warnings.push(Warning::new(
+                "overlay.not-written",
+                format!(
+                    "overlay not written: {} is an input of this run",
+                    target.display()
+                ),
+            ));
+            return None;
+        }
         match crate::overlay::write_png(&target, &picture) {
             Ok(()) => Some(target),
             Err(e) => {
@@ -328,6 +343,15 @@ pub fn measure_batch(
                 Input::Missing(p) => Some(ImageResult::failed(
                     p.clone(),
                     crate::Error::Missing { path: p.clone() }.to_string(),
+                    opts,
+                )),
+                Input::Unusable { path, reason } => Some(ImageResult::failed(
+                    path.clone(),
+                    crate::Error::Input {
+                        path: path.clone(),
+                        reason: reason.clone(),
+                    }
+                    .to_string(),
                     opts,
                 )),
                 Input::Skipped { .. } => None,

@@ -11,8 +11,6 @@ use crate::methods::{self, Detail};
 use crate::pipeline::{ImageResult, MeasureOptions, Skipped};
 use crate::units::{Pixels, UmPerPx};
 use serde::Serialize;
-use std::io::Write;
-use std::path::Path;
 
 pub const SCHEMA: &str = "armspace.report/1";
 
@@ -756,41 +754,6 @@ pub fn to_json(report: &Report) -> String {
     s
 }
 
-/// Writes a file atomically: to a temporary file in the same folder, flushed
-/// to disk, then renamed over the target. A failure leaves no partial file.
-pub fn write_atomic(path: &Path, bytes: &[u8]) -> crate::Result<()> {
-    let err = |source: std::io::Error| crate::Error::Write {
-        path: path.to_path_buf(),
-        source,
-    };
-    let dir = match path.parent() {
-        Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
-        _ => std::path::PathBuf::from("."),
-    };
-    if !dir.is_dir() {
-        return Err(err(std::io::Error::new(
-            std::io::ErrorKind::NotFound,
-            format!("folder {} does not exist", dir.display()),
-        )));
-    }
-    let name = path
-        .file_name()
-        .map(|n| n.to_string_lossy().into_owned())
-        .unwrap_or_else(|| "output".into());
-    let tmp = dir.join(format!(".{name}.tmp-{}", std::process::id()));
-    let result = (|| {
-        let mut f = std::fs::File::create(&tmp)?;
-        f.write_all(bytes)?;
-        f.sync_all()?;
-        std::fs::rename(&tmp, path)
-    })();
-    if let Err(e) = result {
-        let _ = std::fs::remove_file(&tmp);
-        return Err(err(e));
-    }
-    Ok(())
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -800,22 +763,5 @@ mod tests {
         assert_eq!(round(1.234_56, 2), 1.23);
         assert_eq!(round(-0.000_01, 2), 0.0);
         assert!(round(-0.000_01, 2).is_sign_positive());
-    }
-
-    #[test]
-    fn atomic_write_replaces_and_cleans_up() {
-        let dir = tempfile::tempdir().unwrap();
-        let p = dir.path().join("r.json");
-        write_atomic(&p, b"one").unwrap();
-        write_atomic(&p, b"two").unwrap();
-        assert_eq!(std::fs::read(&p).unwrap(), b"two");
-        let names: Vec<_> = std::fs::read_dir(dir.path()).unwrap().collect();
-        assert_eq!(names.len(), 1, "temporary file left behind");
-        let missing = dir.path().join("no-such-dir").join("r.json");
-        let e = write_atomic(&missing, b"x").unwrap_err().to_string();
-        assert!(
-            e.contains("no-such-dir") && e.contains("does not exist"),
-            "{e}"
-        );
     }
 }

@@ -280,7 +280,8 @@ fn exit_statuses_tell_the_casting_from_the_tool() {
         &[&bad_s, "--spec", &write_spec(specs.path(), 10.0, 40.0)],
     );
     assert_eq!(run.code, 4, "{}", run.stderr);
-    // A bad spec is a usage error (2); an unwritable CSV is a failed run (1).
+    // A bad spec is a usage error (2); so is an output that cannot be
+    // written, found before any image is measured.
     let run = measure(d, &["--spec", "/no/such/spec.json"]);
     assert_eq!(run.code, 2, "{}", run.stderr);
     assert!(run.stderr.contains("/no/such/spec.json"));
@@ -289,7 +290,7 @@ fn exit_statuses_tell_the_casting_from_the_tool() {
     assert_eq!(run.code, 2, "{}", run.stderr);
     assert!(run.stderr.contains("same file"), "{}", run.stderr);
     let run = measure(d, &["--csv", "/no/such/folder/out.csv"]);
-    assert_eq!(run.code, 1, "{}", run.stderr);
+    assert_eq!(run.code, 2, "{}", run.stderr);
     assert!(run.stderr.contains("out.csv"), "{}", run.stderr);
 }
 
@@ -424,16 +425,30 @@ fn a_calibration_the_sources_contradict_decides_nothing() {
     let run = armspace(&["measure", img, "--scale-bar", "200um", "--spec", spec]);
     assert_eq!(run.code, 0, "{}", run.stderr);
     let rep: Value = serde_json::from_str(&run.stdout).unwrap();
-    let bar = rep["images"][0]["calibration"]["um_per_px"].as_f64().unwrap();
+    let bar = rep["images"][0]["calibration"]["um_per_px"]
+        .as_f64()
+        .unwrap();
     let manual = format!("{}", bar / 5.0);
-    let args = ["measure", img, "--scale-bar", "200um", "--um-per-px", &manual, "--spec", spec];
+    let args = [
+        "measure",
+        img,
+        "--scale-bar",
+        "200um",
+        "--um-per-px",
+        &manual,
+        "--spec",
+        spec,
+    ];
     let run = armspace(&args);
     assert_eq!(run.code, 5, "{}", run.stderr);
     let rep: Value = serde_json::from_str(&run.stdout).unwrap();
     let a = &rep["images"][0]["acceptance"];
     assert_eq!(a["decision"], "indeterminate");
     let reason = a["reason"].as_str().unwrap();
-    assert!(reason.contains("calibration sources conflict") && reason.contains("+400.0 %"), "{reason}");
+    assert!(
+        reason.contains("calibration sources conflict") && reason.contains("+400.0 %"),
+        "{reason}"
+    );
     assert!(rep["images"][0]["warning_codes"]
         .as_array()
         .unwrap()

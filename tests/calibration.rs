@@ -249,7 +249,9 @@ fn measure_calibrates_from_the_bar_and_reports_disagreement() {
         .filter_map(|w| w.as_str())
         .collect();
     assert!(
-        warnings.iter().any(|w| w.contains("conflict") && w.contains("-3.8 %")),
+        warnings
+            .iter()
+            .any(|w| w.contains("conflict") && w.contains("-3.8 %")),
         "{warnings:?}"
     );
 }

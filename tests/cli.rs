@@ -174,7 +174,7 @@ fn unwritable_output_fails_cleanly_and_leaves_no_file() {
         "--out",
         &path_str(&target),
     ]);
-    assert_eq!(run.code, 1, "{}", run.stderr);
+    assert_eq!(run.code, 2, "{}", run.stderr); // found before measuring
     assert!(run.stderr.contains("missing-folder"), "{}", run.stderr);
     assert!(!target.exists());
     // The output path is an existing folder: cannot be replaced by a file.
@@ -186,7 +186,7 @@ fn unwritable_output_fails_cleanly_and_leaves_no_file() {
         "--out",
         &path_str(dir.path()),
     ]);
-    assert_eq!(run.code, 1, "{}", run.stderr);
+    assert_eq!(run.code, 2, "{}", run.stderr); // found before measuring
     let leftovers: Vec<_> = std::fs::read_dir(dir.path())
         .unwrap()
         .filter_map(|e| e.ok())

@@ -24,7 +24,8 @@ fn count_values(seeds: &[u64], per_seed: usize) -> (usize, usize, Vec<(String, u
     let mut per_method: Vec<(String, usize)> = Vec::new();
     for &seed in seeds {
         let dir = tempfile::tempdir().unwrap();
-        let truths = write_set_styled(dir.path(), seed, per_seed, Some(Style::Featureless)).unwrap();
+        let truths =
+            write_set_styled(dir.path(), seed, per_seed, Some(Style::Featureless)).unwrap();
         for t in truths {
             assert!(t.sdas_um.is_nan(), "a featureless field has no truth");
             let opts = MeasureOptions::manual(UmPerPx::new(t.um_per_px).unwrap());
@@ -57,7 +58,9 @@ fn count_values(seeds: &[u64], per_seed: usize) -> (usize, usize, Vec<(String, u
             }
         }
     }
-    eprintln!("{fields} featureless fields: {combined} with a combined value; per method {per_method:?}");
+    eprintln!(
+        "{fields} featureless fields: {combined} with a combined value; per method {per_method:?}"
+    );
     (fields, combined, per_method)
 }
 
@@ -76,5 +79,8 @@ fn at_most_one_percent_of_300_featureless_fields_get_a_value() {
     // (3 of 300) get any combined value.
     let (fields, combined, _) = count_values(&[7311, 7312, 7313, 7314, 7315], 60);
     assert_eq!(fields, 300);
-    assert!(combined <= 3, "{combined} of 300 featureless fields got a value");
+    assert!(
+        combined <= 3,
+        "{combined} of 300 featureless fields got a value"
+    );
 }

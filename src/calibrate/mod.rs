@@ -221,7 +221,11 @@ pub fn resolve(
             ),
         ));
     }
-    let conflict = if req.trust.is_none() { conflict_of(&offers) } else { None };
+    let conflict = if req.trust.is_none() {
+        conflict_of(&offers)
+    } else {
+        None
+    };
     if let Some(c) = &conflict {
         warnings.push(Warning::new("calibration.conflict", c.clone()));
     }
@@ -274,7 +278,10 @@ fn conflict_of(offers: &[Offer]) -> Option<String> {
     for (i, a) in given.iter().enumerate() {
         for b in &given[i + 1..] {
             let ratio = b.um_per_px.get() / a.um_per_px.get();
-            let u = a.rel_uncertainty.unwrap_or(0.0).hypot(b.rel_uncertainty.unwrap_or(0.0));
+            let u = a
+                .rel_uncertainty
+                .unwrap_or(0.0)
+                .hypot(b.rel_uncertainty.unwrap_or(0.0));
             let allowed = DISAGREEMENT.max(crate::stats::Z95 * u);
             if (ratio - 1.0).abs() > allowed {
                 return Some(format!(

@@ -88,8 +88,7 @@ pub fn parse(text: &str, name: &str, origin: &str) -> Result<Profile, String> {
 
 /// Reads the profile `name` from a file.
 pub fn load(path: &Path, name: &str) -> Result<Profile, String> {
-    let text = std::fs::read_to_string(path)
-        .map_err(|e| format!("{}: cannot read: {e}", path.display()))?;
+    let text = crate::files::read_text(path, "profile file").map_err(|e| e.to_string())?;
     parse(&text, name, &path.display().to_string())
 }
 

@@ -152,8 +152,7 @@ impl Spec {
     }
 
     pub fn load(path: &std::path::Path) -> Result<Self, String> {
-        let text = std::fs::read_to_string(path)
-            .map_err(|e| format!("{}: cannot read: {e}", path.display()))?;
+        let text = crate::files::read_text(path, "specification").map_err(|e| e.to_string())?;
         Self::parse(&text, &path.display().to_string())
     }
 

@@ -735,8 +735,7 @@ pub fn builtin() -> Vec<Correlation> {
 /// The built-in library plus the entries of a user file; an id used twice is
 /// an error.
 pub fn with_file(path: &std::path::Path) -> Result<Vec<Correlation>, String> {
-    let text = std::fs::read_to_string(path)
-        .map_err(|e| format!("{}: cannot read: {e}", path.display()))?;
+    let text = crate::files::read_text(path, "correlation file").map_err(|e| e.to_string())?;
     let user = parse(&text, &path.display().to_string(), false)?;
     let mut all = builtin();
     for c in user {

@@ -1,0 +1,402 @@
+//! Files at the edges: reading inputs without blocking on special files, and
+//! writing outputs that never harm an input.
+//!
+//! Rules, each for a reason a lab meets:
+//! - An output is never written over an input. Paths are compared after
+//!   resolving links (`std::fs::canonicalize`), so `./img.png`, an absolute
+//!   path and a symlink to the micrograph are all the same file.
+//! - Regular files are written atomically (a temporary file in the same
+//!   folder, flushed, then renamed), so a failure leaves the old file or none,
+//!   never half a file. A symlink named as an output is followed and its
+//!   target replaced; the link stays.
+//! - A special file named as an output (a device such as `/dev/null`, a FIFO)
+//!   is written through, never replaced: renaming over `/dev/null` would
+//!   destroy the device for the whole machine.
+//! - Inputs that are not regular files (FIFOs, devices, sockets) are not read:
+//!   reading a FIFO waits for a writer that may never come.
+//! - Text inputs (specifications, profiles, correlation libraries, reports)
+//!   are bounded in size, so a wrong file named by mistake is refused at once.
+
+use std::collections::HashSet;
+use std::io::Write;
+use std::path::{Path, PathBuf};
+
+use crate::{Error, Result};
+
+/// Largest text input read (specifications, profiles, correlation libraries,
+/// reports fed to `stats`): far above any real one (a report of thousands of
+/// images is a few MB), small enough that a wrong file is refused quickly.
+pub const MAX_TEXT_BYTES: u64 = 64 * 1024 * 1024;
+
+/// What a path names, seen through links.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Kind {
+    Regular,
+    Folder,
+    /// A FIFO, character or block device, or socket.
+    Special,
+    Missing,
+}
+
+/// The kind of file `path` names, following links.
+pub fn kind(path: &Path) -> Kind {
+    match std::fs::metadata(path) {
+        Ok(m) if m.is_file() => Kind::Regular,
+        Ok(m) if m.is_dir() => Kind::Folder,
+        Ok(_) => Kind::Special,
+        Err(_) => Kind::Missing,
+    }
+}
+
+/// Reads a text input (UTF-8) of at most [`MAX_TEXT_BYTES`], refusing special
+/// files and folders with a message naming the file; `what` says what the
+/// file was meant to be ("specification", "profile file" ...).
+pub fn read_text(path: &Path, what: &str) -> Result<String> {
+    let input = |reason: String| Error::Input {
+        path: path.to_path_buf(),
+        reason,
+    };
+    match kind(path) {
+        Kind::Regular => {}
+        Kind::Folder => return Err(input(format!("is a folder, not a {what}"))),
+        Kind::Special => {
+            return Err(input(format!(
+                "is not a regular file (a FIFO, device or socket); a {what} must be a file"
+            )))
+        }
+        Kind::Missing => {
+            return Err(Error::Missing {
+                path: path.to_path_buf(),
+            })
+        }
+    }
+    let read_err = |source: std::io::Error| Error::Read {
+        path: path.to_path_buf(),
+        source,
+    };
+    let len = std::fs::metadata(path).map_err(read_err)?.len();
+    if len > MAX_TEXT_BYTES {
+        return Err(input(format!(
+            "is {:.1} MB, too large for a {what} (at most {} MB)",
+            len as f64 / 1e6,
+            MAX_TEXT_BYTES / (1024 * 1024)
+        )));
+    }
+    let bytes = std::fs::read(path).map_err(read_err)?;
+    String::from_utf8(bytes).map_err(|_| input(format!("is not UTF-8 text; a {what} is JSON")))
+}
+
+/// Reads an image file, refusing special files and folders.
+pub fn read_image_bytes(path: &Path) -> Result<Vec<u8>> {
+    match kind(path) {
+        Kind::Regular => std::fs::read(path).map_err(|source| Error::Read {
+            path: path.to_path_buf(),
+            source,
+        }),
+        Kind::Folder => Err(Error::Input {
+            path: path.to_path_buf(),
+            reason: "is a folder, not an image file".into(),
+        }),
+        Kind::Special => Err(Error::Input {
+            path: path.to_path_buf(),
+            reason: "is not a regular file (a FIFO, device or socket); not read".into(),
+        }),
+        Kind::Missing => Err(Error::Missing {
+            path: path.to_path_buf(),
+        }),
+    }
+}
+
+/// The file an output path will land on, links resolved: the canonical path
+/// of an existing target, or the canonical folder joined with the name.
+/// `None` when the folder does not exist.
+pub fn resolved_output(path: &Path) -> Option<PathBuf> {
+    if let Ok(p) = std::fs::canonicalize(path) {
+        return Some(p);
+    }
+    let dir = match path.parent() {
+        Some(p) if !p.as_os_str().is_empty() => p,
+        _ => Path::new("."),
+    };
+    let name = path.file_name()?;
+    std::fs::canonicalize(dir).ok().map(|d| d.join(name))
+}
+
+/// The set of files a run reads, by their resolved paths, against which every
+/// output is checked.
+#[derive(Clone, Debug, Default)]
+pub struct Protected {
+    files: HashSet<PathBuf>,
+}
+
+impl Protected {
+    pub fn new<'a>(inputs: impl IntoIterator<Item = &'a Path>) -> Self {
+        Self {
+            files: inputs
+                .into_iter()
+                .filter_map(|p| std::fs::canonicalize(p).ok())
+                .collect(),
+        }
+    }
+
+    /// Adds one more file that must not be written over (a spec, a profile).
+    pub fn add(&mut self, path: &Path) {
+        if let Ok(p) = std::fs::canonicalize(path) {
+            self.files.insert(p);
+        }
+    }
+
+    /// Whether writing to `path` would replace a protected file.
+    pub fn is_protected(&self, path: &Path) -> bool {
+        resolved_output(path).is_some_and(|p| self.files.contains(&p))
+    }
+
+    /// Checks, before anything is measured, that `path` can take the output
+    /// called `role` ("report", "CSV summary"): it is not an input, not a
+    /// folder, and its folder exists and accepts a new file. Special files
+    /// (devices, FIFOs) pass: they are written through.
+    pub fn check_output(&self, path: &Path, role: &str) -> Result<()> {
+        let refuse = |reason: String| Error::Input {
+            path: path.to_path_buf(),
+            reason,
+        };
+        if self.is_protected(path) {
+            return Err(refuse(format!(
+                "is an input of this run; the {role} would be written over it (choose another name)"
+            )));
+        }
+        match kind(path) {
+            Kind::Folder => {
+                return Err(refuse(format!("is a folder; the {role} needs a file name")))
+            }
+            Kind::Special => return Ok(()),
+            Kind::Regular | Kind::Missing => {}
+        }
+        let target = resolved_output(path).ok_or_else(|| {
+            refuse(format!(
+                "the folder for the {role} does not exist (create it first)"
+            ))
+        })?;
+        probe_folder(&target)
+            .map_err(|e| refuse(format!("the {role} cannot be written in its folder: {e}")))
+    }
+}
+
+/// Creates and removes a temporary file beside `target`, the only sure test
+/// that the folder accepts new files (permissions, read-only mounts, quotas).
+fn probe_folder(target: &Path) -> std::io::Result<()> {
+    let tmp = temp_beside(target, "probe");
+    std::fs::File::create(&tmp)?;
+    std::fs::remove_file(&tmp)
+}
+
+fn temp_beside(target: &Path, tag: &str) -> PathBuf {
+    let dir = match target.parent() {
+        Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
+        _ => PathBuf::from("."),
+    };
+    let name = target
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_else(|| "output".into());
+    dir.join(format!(".{name}.{tag}-{}", std::process::id()))
+}
+
+/// Writes an output file: atomically for a regular (or new) file, following
+/// a link to its target; through, without replacing it, for a special file.
+pub fn write_output(path: &Path, bytes: &[u8]) -> Result<()> {
+    let err = |source: std::io::Error| Error::Write {
+        path: path.to_path_buf(),
+        source,
+    };
+    match kind(path) {
+        Kind::Folder => return Err(err(std::io::Error::other("is a folder"))),
+        Kind::Special => {
+            let mut f = std::fs::OpenOptions::new()
+                .write(true)
+                .open(path)
+                .map_err(err)?;
+            f.write_all(bytes).map_err(err)?;
+            return f.flush().map_err(err);
+        }
+        Kind::Regular | Kind::Missing => {}
+    }
+    // A link (even one whose target does not exist yet) is followed, so the
+    // link stays and its target is replaced.
+    let target = match std::fs::symlink_metadata(path) {
+        Ok(m) if m.file_type().is_symlink() => resolved_output(path).ok_or_else(|| {
+            err(std::io::Error::new(
+                std::io::ErrorKind::NotFound,
+                "a link whose target's folder does not exist",
+            ))
+        })?,
+        _ => path.to_path_buf(),
+    };
+    let dir = match target.parent() {
+        Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
+        _ => PathBuf::from("."),
+    };
+    if !dir.is_dir() {
+        return Err(err(std::io::Error::new(
+            std::io::ErrorKind::NotFound,
+            format!("folder {} does not exist", dir.display()),
+        )));
+    }
+    let tmp = temp_beside(&target, "tmp");
+    let result = (|| {
+        let mut f = std::fs::File::create(&tmp)?;
+        f.write_all(bytes)?;
+        f.sync_all()?;
+        std::fs::rename(&tmp, &target)
+    })();
+    if let Err(e) = result {
+        let _ = std::fs::remove_file(&tmp);
+        return Err(err(e));
+    }
+    Ok(())
+}
+
+/// Writes to standard output, returning the failure (a closed pipe, a full
+/// disk) as a value instead of panicking as `print!` does.
+pub fn write_stdout(text: &str) -> std::io::Result<()> {
+    let mut out = std::io::stdout().lock();
+    out.write_all(text.as_bytes())?;
+    out.flush()
+}
+
+/// The PNG text entry (keyword, value) that marks a picture written by this
+/// tool, so that a later run over a folder holding its overlays does not
+/// measure them as micrographs.
+pub const OWN_PICTURE_TEXT: (&str, &str) = ("Software", "armspace overlay");
+
+/// Whether `path` is a PNG written by this tool: its text entry
+/// [`OWN_PICTURE_TEXT`] stands before the image data (the encoder writes it
+/// with the header), so only the file's first chunks are read.
+pub fn is_own_picture(path: &Path) -> bool {
+    use std::io::Read;
+    let Ok(f) = std::fs::File::open(path) else {
+        return false;
+    };
+    let mut head = Vec::new();
+    if f.take(64 * 1024).read_to_end(&mut head).is_err() {
+        return false;
+    }
+    own_picture_bytes(&head)
+}
+
+fn own_picture_bytes(head: &[u8]) -> bool {
+    const SIGNATURE: &[u8] = b"\x89PNG\r\n\x1a\n";
+    if !head.starts_with(SIGNATURE) {
+        return false;
+    }
+    let want: Vec<u8> = [
+        OWN_PICTURE_TEXT.0.as_bytes(),
+        &[0],
+        OWN_PICTURE_TEXT.1.as_bytes(),
+    ]
+    .concat();
+    let mut at = SIGNATURE.len();
+    while at + 8 <= head.len() {
+        let len = u32::from_be_bytes([head[at], head[at + 1], head[at + 2], head[at + 3]]) as usize;
+        let kind = &head[at + 4..at + 8];
+        let data = head.get(at + 8..at + 8 + len);
+        match (kind, data) {
+            (b"IDAT", _) | (_, None) => return false,
+            (b"tEXt", Some(d)) if d.starts_with(&want) => return true,
+            _ => at += 12 + len,
+        }
+    }
+    false
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn atomic_write_replaces_and_cleans_up() {
+        let dir = tempfile::tempdir().unwrap();
+        let p = dir.path().join("r.json");
+        write_output(&p, b"one").unwrap();
+        write_output(&p, b"two").unwrap();
+        assert_eq!(std::fs::read(&p).unwrap(), b"two");
+        assert_eq!(std::fs::read_dir(dir.path()).unwrap().count(), 1);
+        let missing = dir.path().join("no/such/r.json");
+        let e = write_output(&missing, b"x").unwrap_err().to_string();
+        assert!(e.contains("does not exist"), "{e}");
+    }
+
+    #[cfg(unix)]
+    #[test]
+    fn a_link_is_followed_and_kept() {
+        let dir = tempfile::tempdir().unwrap();
+        let real = dir.path().join("real.json");
+        std::fs::write(&real, b"old").unwrap();
+        let link = dir.path().join("link.json");
+        std::os::unix::fs::symlink(&real, &link).unwrap();
+        write_output(&link, b"new").unwrap();
+        assert!(std::fs::symlink_metadata(&link)
+            .unwrap()
+            .file_type()
+            .is_symlink());
+        assert_eq!(std::fs::read(&real).unwrap(), b"new");
+    }
+
+    #[cfg(unix)]
+    #[test]
+    fn a_device_is_written_through_not_replaced() {
+        let null = Path::new("/dev/null");
+        if kind(null) != Kind::Special {
+            return; // no /dev/null on this machine: nothing to check
+        }
+        write_output(null, b"discarded").unwrap();
+        assert_eq!(kind(null), Kind::Special);
+    }
+
+    #[test]
+    fn an_input_is_protected_under_any_spelling() {
+        let dir = tempfile::tempdir().unwrap();
+        let img = dir.path().join("img.png");
+        std::fs::write(&img, b"micrograph").unwrap();
+        let protected = Protected::new([img.as_path()]);
+        let other_spelling = dir.path().join(".").join("img.png");
+        let e = protected
+            .check_output(&other_spelling, "report")
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("is an input"), "{e}");
+        assert!(protected
+            .check_output(&dir.path().join("r.json"), "report")
+            .is_ok());
+        let e = protected
+            .check_output(&dir.path().join("none/r.json"), "report")
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("does not exist"), "{e}");
+    }
+
+    #[test]
+    fn own_pictures_are_recognised() {
+        let dir = tempfile::tempdir().unwrap();
+        let img = image::RgbImage::from_pixel(8, 8, image::Rgb([1, 2, 3]));
+        let own = dir.path().join("own.png");
+        crate::overlay::write_png(&own, &img).unwrap();
+        assert!(is_own_picture(&own));
+        let other = dir.path().join("other.png");
+        img.save(&other).unwrap();
+        assert!(!is_own_picture(&other));
+    }
+
+    #[test]
+    fn text_inputs_are_bounded_and_typed() {
+        let dir = tempfile::tempdir().unwrap();
+        let e = read_text(dir.path(), "specification")
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("is a folder"), "{e}");
+        let bin = dir.path().join("b.json");
+        std::fs::write(&bin, [0xff, 0xfe, 0x00]).unwrap();
+        let e = read_text(&bin, "specification").unwrap_err().to_string();
+        assert!(e.contains("not UTF-8"), "{e}");
+    }
+}
