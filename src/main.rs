@@ -262,6 +262,7 @@ fn parse_percent(s: &str) -> Result<f64, String> {
 enum MethodArg {
     Fft,
     Intercept,
+    Centres,
     All,
 }
 
@@ -358,7 +359,8 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
     let methods = match args.method {
         MethodArg::Fft => vec![Method::Fft],
         MethodArg::Intercept => vec![Method::Intercept],
-        MethodArg::All => vec![Method::Fft, Method::Intercept],
+        MethodArg::Centres => vec![Method::Centres],
+        MethodArg::All => Method::ALL.to_vec(),
     };
     let calibration = match args.calibration.request() {
         Ok(c) => c,

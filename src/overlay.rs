@@ -3,11 +3,13 @@
 //! Colours read on a grey micrograph. One caption explains a picture:
 //! "cyan: direction along which the arms repeat in each reliable FFT tile
 //! (short: rejected as an outlier, orange); green: intercept test lines, red
-//! ticks at the arm centres they cross; magenta: the scale bar and its
+//! ticks at the arm centres they cross; blue: chains of arm centres (dots at
+//! the centres); magenta: the scale bar and its
 //! measured length; yellow: region excluded from measurement".
 
 use crate::calibrate::scale_bar::ScaleBar;
 use crate::load::GrayImage;
+use crate::methods::centres::CentresOutcome;
 use crate::methods::fft::FftOutcome;
 use crate::methods::intercept::InterceptOutcome;
 use crate::methods::{Detail, Outcome};
@@ -22,6 +24,7 @@ pub const CYAN: Rgb<u8> = Rgb([0, 230, 255]);
 pub const ORANGE: Rgb<u8> = Rgb([255, 140, 0]);
 pub const GREEN: Rgb<u8> = Rgb([40, 255, 60]);
 pub const RED: Rgb<u8> = Rgb([255, 40, 40]);
+pub const BLUE: Rgb<u8> = Rgb([40, 110, 255]);
 
 /// The grey image as RGB, for drawing on.
 pub fn to_rgb(img: &GrayImage) -> RgbImage {
@@ -77,6 +80,7 @@ pub fn measurement(
         match &o.detail {
             Detail::Fft(f) => draw_fft(&mut out, f, fft_min_quality),
             Detail::Intercept(i) => draw_intercept(&mut out, i),
+            Detail::Centres(c) => draw_centres(&mut out, c),
         }
     }
     draw_bar(&mut out, bar);
@@ -112,6 +116,29 @@ fn draw_intercept(out: &mut RgbImage, i: &InterceptOutcome) {
         for &(cx, cy) in &l.arm_centres_px {
             let (cx, cy) = (cx as f32, cy as f32);
             draw_line_segment_mut(out, (cx - nx, cy - ny), (cx + nx, cy + ny), RED);
+        }
+    }
+}
+
+/// Each chain of arm centres as a blue polyline, with a dot at each centre.
+fn draw_centres(out: &mut RgbImage, c: &CentresOutcome) {
+    for ch in &c.chains {
+        for pair in ch.points.windows(2) {
+            let (a, b) = (pair[0], pair[1]);
+            draw_line_segment_mut(
+                out,
+                (a[0] as f32, a[1] as f32),
+                (b[0] as f32, b[1] as f32),
+                BLUE,
+            );
+        }
+        for p in &ch.points {
+            imageproc::drawing::draw_filled_circle_mut(
+                out,
+                (p[0].round() as i32, p[1].round() as i32),
+                2,
+                BLUE,
+            );
         }
     }
 }

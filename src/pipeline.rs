@@ -212,6 +212,7 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
     let params = methods::Params {
         fft: opts.fft,
         intercept: opts.intercept,
+        centres: Default::default(),
     };
     let inputs = Inputs {
         prepared: &prepared,

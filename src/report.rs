@@ -216,6 +216,40 @@ pub struct MethodsReport {
     pub fft: Option<FftReport>,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub intercept: Option<InterceptReport>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub centres: Option<CentresReport>,
+}
+
+#[derive(Serialize, Debug)]
+pub struct CentresReport {
+    pub value: Option<f64>,
+    pub ci95: Option<[f64; 2]>,
+    pub n_chains: usize,
+    pub sd: Option<f64>,
+    pub rel_accuracy_pct: Option<f64>,
+    /// Chains in all that would bring %RA to the target, at the same spread.
+    pub chains_for_target: Option<usize>,
+    /// Arm-body centres found (after the thickness rule).
+    pub n_centres: usize,
+    /// Median distance between neighbouring parallel chains (the row or
+    /// trunk spacing where the arms are cut across); never SDAS.
+    pub row_spacing_um: Option<f64>,
+    /// Fraction of the chains whose nearest chain runs parallel to them, and
+    /// the largest such fraction in the random point sets of the chance test.
+    pub parallel_fraction: Option<f64>,
+    pub chance_parallel_max: Option<f64>,
+    /// The phase whose centres were taken as the arms ("darker", "brighter").
+    pub arm_phase: Option<&'static str>,
+    pub reason: Option<String>,
+    pub indicative: Option<f64>,
+    pub chains: Vec<ChainReport>,
+}
+
+#[derive(Serialize, Debug)]
+pub struct ChainReport {
+    /// The centres along the chain, [x, y] in um from the top-left corner.
+    pub points_um: Vec<[f64; 2]>,
+    pub sdas_um: f64,
 }
 
 #[derive(Serialize, Debug)]
@@ -426,6 +460,35 @@ fn methods_report(
                     reason: o.reason.clone(),
                     indicative: indicative(o),
                     ..intercept_report(i, cal, opts.intercept.convention, o.for_target)
+                })
+            }
+            Detail::Centres(c) => {
+                m.centres = Some(CentresReport {
+                    value: value(o),
+                    ci95: ci95(o),
+                    n_chains: c.n_chains,
+                    sd: c.sd_px.map(|v| um(cal, v)),
+                    rel_accuracy_pct: c.rel_accuracy_pct.map(|v| round(v, 2)),
+                    chains_for_target: o.for_target,
+                    n_centres: c.centres.len(),
+                    row_spacing_um: c.row_spacing_px.map(|v| um(cal, v)),
+                    parallel_fraction: c.parallel_fraction.map(|v| round(v, 3)),
+                    chance_parallel_max: c.chance_parallel_max.map(|v| round(v, 3)),
+                    arm_phase: c.arm_phase,
+                    reason: o.reason.clone(),
+                    indicative: indicative(o),
+                    chains: c
+                        .chains
+                        .iter()
+                        .map(|ch| ChainReport {
+                            points_um: ch
+                                .points
+                                .iter()
+                                .map(|p| [um(cal, p[0]), um(cal, p[1])])
+                                .collect(),
+                            sdas_um: um(cal, ch.spacing_px),
+                        })
+                        .collect(),
                 })
             }
         }

@@ -2,6 +2,7 @@
 //! what it computes. A block depends on no stage or method.
 
 pub mod blur;
+pub mod centres;
 pub mod orientation;
 pub mod select;
 pub mod spectrum;

@@ -12,6 +12,7 @@
 //! and its arm in [`run`] (the one registration), its [`Detail`] variant,
 //! and its report detail and schema entry (`report`).
 
+pub mod centres;
 pub mod fft;
 pub mod intercept;
 
@@ -25,11 +26,12 @@ use crate::units::Pixels;
 pub enum Method {
     Fft,
     Intercept,
+    Centres,
 }
 
 impl Method {
     /// Every method, in registry order.
-    pub const ALL: [Method; 2] = [Method::Fft, Method::Intercept];
+    pub const ALL: [Method; 3] = [Method::Fft, Method::Intercept, Method::Centres];
 
     /// Whether the method's local measurements are independent of each
     /// other (intercept lines laid apart), so that their count is the
@@ -38,6 +40,8 @@ impl Method {
         match self {
             Method::Fft => false,
             Method::Intercept => true,
+            // Chains share no centre.
+            Method::Centres => true,
         }
     }
 
@@ -46,6 +50,7 @@ impl Method {
         match self {
             Method::Fft => "fft",
             Method::Intercept => "intercept",
+            Method::Centres => "centres",
         }
     }
 }
@@ -55,6 +60,7 @@ impl Method {
 pub struct Params {
     pub fft: fft::FftParams,
     pub intercept: intercept::InterceptParams,
+    pub centres: centres::CentresParams,
 }
 
 /// What the shared stages give the methods.
@@ -86,6 +92,7 @@ pub struct Local {
 pub enum Detail {
     Fft(fft::FftOutcome),
     Intercept(intercept::InterceptOutcome),
+    Centres(centres::CentresOutcome),
 }
 
 /// One method's result for one image, in pixels.
@@ -136,6 +143,14 @@ impl Outcome {
         }
     }
 
+    /// The centres detail, when this is the centres method's outcome.
+    pub fn centres(&self) -> Option<&centres::CentresOutcome> {
+        match &self.detail {
+            Detail::Centres(c) => Some(c),
+            _ => None,
+        }
+    }
+
     /// The intercept detail, when this is the intercept method's outcome.
     pub fn intercept(&self) -> Option<&intercept::InterceptOutcome> {
         match &self.detail {
@@ -151,6 +166,7 @@ pub fn run(method: Method, inputs: &Inputs, params: &Params) -> Outcome {
     let outcome = match method {
         Method::Fft => fft::measure(inputs.prepared, &params.fft).into_outcome(),
         Method::Intercept => intercept::measure(inputs.prepared, &params.intercept).into_outcome(),
+        Method::Centres => centres::measure(inputs.prepared, &params.centres).into_outcome(),
     };
     require_support(outcome)
 }
