@@ -6,7 +6,7 @@
 //! Each case renders a synthetic etched micrograph once (src/synth), writes it
 //! as PNG, and times the whole per-image pipeline on a single-threaded rayon
 //! pool: read, hash, decode, scale-bar search, calibration, preprocessing,
-//! both methods (FFT and intercept) and their statistics. Criterion reports
+//! all three methods (FFT, intercept, centres) and their statistics. Criterion reports
 //! the time per image and the throughput in elements (pixels) per second.
 
 use armspace::pipeline::{measure_file, MeasureOptions};

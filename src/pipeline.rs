@@ -42,7 +42,7 @@ pub struct MeasureOptions {
 }
 
 impl MeasureOptions {
-    /// Every parameter at its default, both methods, a manual calibration.
+    /// Every parameter at its default, every method, a manual calibration.
     pub fn manual(um_per_px: UmPerPx) -> Self {
         Self {
             calibration: CalibrationRequest {
@@ -54,7 +54,7 @@ impl MeasureOptions {
             fft: FftParams::default(),
             intercept: InterceptParams::default(),
             target_rel_accuracy_pct: 10.0,
-            methods: vec![Method::Fft, Method::Intercept],
+            methods: Method::ALL.to_vec(),
             overlay_dir: None,
             protected: crate::files::Protected::default(),
             interpret: None,

@@ -313,7 +313,9 @@ fn analyse_phase(phase: &[bool], w: usize, h: usize, params: &CentresParams) -> 
     if parallel.is_some() {
         for _ in 0..params.null_sets {
             let pts = random_hard_core(n_null, nw, nh, hard_core, &mut rng);
-            let l = neighbour_links(&pts, params.neighbours, |_, _| true);
+            // Every random point is its own body, so its nearest neighbours
+            // are the links: no wider search is needed.
+            let l = neighbour_links(&pts, ROW_NEIGHBOURS, |_, _| true);
             let Some(f) = parallel_fraction(&build_chains(&pts, &l, params)) else {
                 continue;
             };
@@ -540,8 +542,12 @@ const PARALLEL_DEG: f64 = 15.0;
 /// `min_gaps` are dropped (their centres stay free for no other chain: a
 /// greedy pass, deterministic for a given set of points).
 fn build_chains(points: &[[f64; 2]], links: &[Vec<usize>], p: &CentresParams) -> Vec<Chain> {
-    let dist =
-        |a: usize, b: usize| (points[b][0] - points[a][0]).hypot(points[b][1] - points[a][1]);
+    let dist = |a: usize, b: usize| {
+        // sqrt of the sum of squares: pixel coordinates are far from the
+        // overflow `hypot` guards against, and this is the hot loop.
+        let (dx, dy) = (points[b][0] - points[a][0], points[b][1] - points[a][1]);
+        (dx * dx + dy * dy).sqrt()
+    };
     let mut pairs: Vec<(f64, usize, usize)> = links
         .iter()
         .enumerate()
@@ -680,7 +686,8 @@ fn random_hard_core(n: usize, w: f64, h: f64, min_dist: f64, rng: &mut SplitMix)
             for xx in cx.saturating_sub(1)..=(cx + 1).min(gw - 1) {
                 for &k in &grid[yy * gw + xx] {
                     let q: [f64; 2] = pts[k];
-                    if (q[0] - p[0]).hypot(q[1] - p[1]) < min_dist {
+                    let (dx, dy) = (q[0] - p[0], q[1] - p[1]);
+                    if dx * dx + dy * dy < min_dist * min_dist {
                         free = false;
                         break 'g;
                     }
