@@ -497,8 +497,25 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
                 .as_deref()
                 .map(|z| format!(" [{z}]"))
                 .unwrap_or_default();
+            // What was compared, named, with its interval and the limit.
+            let statistic = match a.statistic {
+                armspace::interpret::acceptance::Statistic::Value => "image value",
+                armspace::interpret::acceptance::Statistic::MaxLocal => "largest local value",
+            };
+            let compared = match (a.compared_um, a.compared_ci95_um, a.limit_um) {
+                (Some(v), Some([lo, hi]), Some(l)) => {
+                    format!(" ({statistic} {v:.2} um, 95% CI {lo:.2} to {hi:.2}; limit {l} um)")
+                }
+                (Some(v), None, Some(l)) => format!(" ({statistic} {v:.2} um; limit {l} um)"),
+                (None, _, Some(l)) => format!(" ({statistic}: none; limit {l} um)"),
+                _ => String::new(),
+            };
             match a.decision {
-                Some(d) => eprintln!("  {}{zone}: {}", d.name().to_uppercase(), a.reason),
+                Some(d) => eprintln!(
+                    "  {}{zone}{compared}: {}",
+                    d.name().to_uppercase(),
+                    a.reason
+                ),
                 None => eprintln!("  NOT ASSESSED{zone}: {}", a.reason),
             }
         }

@@ -718,7 +718,7 @@ pub fn outcome(report: &Report) -> Outcome {
 }
 
 /// Columns of the CSV summary, one row per image.
-pub const CSV_COLUMNS: [&str; 18] = [
+pub const CSV_COLUMNS: [&str; 32] = [
     "file",
     "um_per_px",
     "calibration_source",
@@ -737,16 +737,29 @@ pub const CSV_COLUMNS: [&str; 18] = [
     "error",
     "reason",
     "warning_codes",
+    "centres_um",
+    "statistic",
+    "compared_um",
+    "compared_ci95_low_um",
+    "compared_ci95_high_um",
+    "calibration_rel_uncertainty",
+    "cooling_rate_ci95_low_K_per_s",
+    "cooling_rate_ci95_high_K_per_s",
+    "solidification_time_ci95_low_s",
+    "solidification_time_ci95_high_s",
+    "correlation",
+    "tool",
+    "schema",
+    "caution",
 ];
 
-/// The CSV summary of a report: two comment lines (tool, time, schema, and
-/// the caution), a header, then a row per image in the report's order.
-/// Empty cells are nulls.
+/// The CSV summary of a report: the header on the first row (so that a
+/// spreadsheet's import finds it and the delimiter), then a row per image in
+/// the report's order. Columns are only ever added at the end. The tool,
+/// the report's schema and the caution are columns of every row, so that no
+/// row travels without them. Empty cells are nulls.
 pub fn csv_summary(report: &Report) -> Result<String, String> {
-    let mut out = format!(
-        "# {} {} {}, {}\n# caution: {}\n",
-        report.tool.name, report.tool.version, report.schema, report.created_utc, report.caution
-    );
+    let mut out = String::new();
     let mut w = csv::WriterBuilder::new().from_writer(Vec::new());
     w.write_record(CSV_COLUMNS).map_err(|e| e.to_string())?;
     let num = |v: Option<f64>| v.map(|x| format!("{x}")).unwrap_or_default();
@@ -787,6 +800,26 @@ pub fn csv_summary(report: &Report) -> Result<String, String> {
             i.error.clone().unwrap_or_default(),
             i.sdas_um.reason.clone().unwrap_or_default(),
             i.warning_codes.join(";"),
+            num(i.methods.centres.as_ref().and_then(|m| m.value)),
+            acc.map(|a| {
+                serde_json::to_value(a.statistic)
+                    .ok()
+                    .and_then(|v| v.as_str().map(String::from))
+                    .unwrap_or_default()
+            })
+            .unwrap_or_default(),
+            num(acc.and_then(|a| a.compared_um)),
+            num(acc.and_then(|a| a.compared_ci95_um.map(|c| c[0]))),
+            num(acc.and_then(|a| a.compared_ci95_um.map(|c| c[1]))),
+            num(cal.and_then(|c| c.rel_uncertainty)),
+            num(interp.and_then(|t| t.cooling_rate_k_per_s.ci95.map(|c| c[0]))),
+            num(interp.and_then(|t| t.cooling_rate_k_per_s.ci95.map(|c| c[1]))),
+            num(interp.and_then(|t| t.solidification_time_s.ci95.map(|c| c[0]))),
+            num(interp.and_then(|t| t.solidification_time_s.ci95.map(|c| c[1]))),
+            interp.map(|t| t.correlation.id.clone()).unwrap_or_default(),
+            format!("{} {}", report.tool.name, report.tool.version),
+            report.schema.to_string(),
+            report.caution.to_string(),
         ];
         w.write_record(&record).map_err(|e| e.to_string())?;
     }

@@ -294,14 +294,10 @@ fn exit_statuses_tell_the_casting_from_the_tool() {
     assert!(run.stderr.contains("out.csv"), "{}", run.stderr);
 }
 
-/// Parses the CSV summary: comment lines, then a header and rows.
+/// Parses the CSV summary as a spreadsheet would: the header on the first
+/// row (RFC 4180's optional header line), then the rows.
 fn read_csv(text: &str) -> (Vec<String>, Vec<Vec<String>>) {
-    let body: String = text
-        .lines()
-        .filter(|l| !l.starts_with('#'))
-        .map(|l| format!("{l}\n"))
-        .collect();
-    let mut r = csv::Reader::from_reader(body.as_bytes());
+    let mut r = csv::Reader::from_reader(text.as_bytes());
     let header = r.headers().unwrap().iter().map(String::from).collect();
     let rows = r
         .records()
@@ -363,14 +359,14 @@ fn the_csv_agrees_with_the_json_and_parallel_runs_agree() {
     );
 
     let (csv_text, json_text) = &texts[0];
-    assert!(csv_text
-        .lines()
-        .nth(1)
-        .unwrap()
-        .contains("qualified personnel"));
+    assert!(csv_text.starts_with("file,"), "the header is the first row");
     let rep: Value = serde_json::from_str(json_text).unwrap();
     let (header, rows) = read_csv(csv_text);
     let col = |name: &str| header.iter().position(|h| h == name).unwrap();
+    for row in &rows {
+        assert!(row[col("caution")].contains("qualified personnel"));
+        assert_eq!(row[col("schema")], "armspace.report/1");
+    }
     let images = rep["images"].as_array().unwrap();
     assert_eq!(rows.len(), images.len());
     let num = |cell: &str| -> Option<f64> { (!cell.is_empty()).then(|| cell.parse().unwrap()) };
@@ -410,6 +406,32 @@ fn the_csv_agrees_with_the_json_and_parallel_runs_agree() {
             img["warnings"].as_array().unwrap().len().to_string()
         );
         assert_eq!(row[col("error")], img["error"].as_str().unwrap_or(""));
+        assert_eq!(
+            num(&row[col("centres_um")]),
+            img["methods"]["centres"]["value"].as_f64()
+        );
+        assert_eq!(
+            row[col("statistic")],
+            img["acceptance"]["statistic"].as_str().unwrap()
+        );
+        assert_eq!(
+            num(&row[col("compared_um")]),
+            img["acceptance"]["compared_um"].as_f64()
+        );
+        assert_eq!(
+            num(&row[col("compared_ci95_high_um")]),
+            img["acceptance"]["compared_ci95_um"][1].as_f64()
+        );
+        assert_eq!(
+            num(&row[col("cooling_rate_ci95_low_K_per_s")]),
+            img["interpretation"]["cooling_rate_K_per_s"]["ci95"][0].as_f64()
+        );
+        assert_eq!(
+            row[col("correlation")],
+            img["interpretation"]["correlation"]["id"]
+                .as_str()
+                .unwrap_or("")
+        );
     }
 }
 
