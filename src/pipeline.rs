@@ -273,11 +273,20 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         .interpret
         .as_ref()
         .map(|settings| settings.apply(sdas.value, sdas.ci95));
-    if let Some(Err(e)) = &interpretation {
-        warnings.push(Warning::new(
+    match &interpretation {
+        Some(Err(e)) => warnings.push(Warning::new(
             "interpretation.none",
             format!("no interpretation: {e}"),
-        ));
+        )),
+        // The interpretation's caveats bear on the cooling rate and
+        // solidification time quoted beside the SDAS: they go wherever the
+        // image's warnings go (stderr, CSV), not only into its block.
+        Some(Ok(i)) => warnings.extend(
+            i.warnings
+                .iter()
+                .map(|w| Warning::new("interpretation.caveat", w.clone())),
+        ),
+        None => {}
     }
     let acceptance = opts.spec.as_ref().map(|spec| {
         let u = calibration.rel_uncertainty.unwrap_or(0.0);

@@ -426,6 +426,16 @@ fn the_csv_agrees_with_the_json_and_parallel_runs_agree() {
             num(&row[col("cooling_rate_ci95_low_K_per_s")]),
             img["interpretation"]["cooling_rate_K_per_s"]["ci95"][0].as_f64()
         );
+        // The interpretation's caveats (textbook parameters, a default
+        // composition, no published scatter) bear on the quoted cooling
+        // rate: they travel with the row, not only in the JSON block.
+        if img["interpretation"]["cooling_rate_K_per_s"]["value"].is_number() {
+            assert!(
+                row[col("warning_codes")].contains("interpretation.caveat"),
+                "{}",
+                row[col("warning_codes")]
+            );
+        }
         assert_eq!(
             row[col("correlation")],
             img["interpretation"]["correlation"]["id"]
