@@ -262,21 +262,33 @@ pub fn load_bytes(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loade
     if bytes.is_empty() {
         return Err(format_err("the file is empty".into()));
     }
+    // TIFF files the image crate does not take (grey floats, BigTIFF) are
+    // decoded with the tiff crate directly.
+    let is_tiff = [b"II*\0", b"MM\0*", b"II+\0", b"MM\0+"]
+        .iter()
+        .any(|m| bytes.starts_with(*m));
     let reader = ImageReader::new(Cursor::new(bytes))
         .with_guessed_format()
         .map_err(|e| format_err(e.to_string()))?;
-    let format = reader
-        .format()
-        .ok_or_else(|| format_err("the file's content is not a known image format".into()))?;
+    let Some(format) = reader.format() else {
+        if is_tiff {
+            return load_tiff_direct(path, bytes, opts);
+        }
+        return Err(format_err(
+            "the file's content is not a known image format".into(),
+        ));
+    };
     if !matches!(
         format,
         ImageFormat::Png | ImageFormat::Jpeg | ImageFormat::Tiff | ImageFormat::Bmp
     ) {
         return Err(format_err(format!("{format:?} files are not supported")));
     }
-    let (width, height) = reader
-        .into_dimensions()
-        .map_err(|e| decode_err(format!("header unreadable: {e}")))?;
+    let (width, height) = match reader.into_dimensions() {
+        Ok(d) => d,
+        Err(_) if format == ImageFormat::Tiff => return load_tiff_direct(path, bytes, opts),
+        Err(e) => return Err(decode_err(format!("header unreadable: {e}"))),
+    };
     check_size(path, width, height, opts)?;
 
     let mut warnings = Vec::new();
@@ -297,7 +309,8 @@ pub fn load_bytes(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loade
     limits.max_alloc = Some(px.saturating_mul(16).saturating_add(64 << 20));
     reader.limits(limits);
     let decoded = reader.decode().map_err(|e| decode_err(e.to_string()))?;
-    let (image, bit_depth) = to_gray(decoded);
+    let (mut image, bit_depth) = to_gray(decoded);
+    replace_non_finite(&mut image, &mut warnings).map_err(decode_err)?;
 
     let sha256 = hex(&Sha256::digest(bytes));
     Ok(Loaded {
@@ -368,6 +381,131 @@ fn tiff_info(bytes: &[u8]) -> TiffInfo {
         more_pages: d.more_images(),
         resolution: x.map(|x| (x, y.unwrap_or(x), unit)),
     }
+}
+
+/// Float files may hold NaN or infinite samples (a masked region, a failed
+/// pixel). They carry no grey level; more than 1 % of them leave too little
+/// of the field to trust (an error), fewer are set to the median of the rest
+/// (a level that adds no edge of its own) with a warning.
+fn replace_non_finite(
+    image: &mut GrayImage,
+    warnings: &mut Vec<String>,
+) -> std::result::Result<(), String> {
+    let bad = image.data.iter().filter(|v| !v.is_finite()).count();
+    if bad == 0 {
+        return Ok(());
+    }
+    let frac = bad as f64 / image.data.len().max(1) as f64;
+    if frac > 0.01 {
+        return Err(format!(
+            "{bad} of {} samples ({:.1} %) are NaN or infinite: too few usable pixels",
+            image.data.len(),
+            100.0 * frac
+        ));
+    }
+    let mut finite: Vec<f32> = image
+        .data
+        .iter()
+        .copied()
+        .filter(|v| v.is_finite())
+        .collect();
+    let fill = crate::stats::median_in_place(&mut finite) as f32;
+    for v in image.data.iter_mut().filter(|v| !v.is_finite()) {
+        *v = fill;
+    }
+    warnings.push(format!(
+        "{bad} NaN or infinite samples were set to the median grey level"
+    ));
+    Ok(())
+}
+
+/// Decodes a TIFF with the tiff crate itself: grey floats (32 or 64 bit),
+/// BigTIFF, and the integer layouts, grey or RGB(A). Float samples in any
+/// range are mapped linearly onto [0, 1] by their finite minimum and
+/// maximum (a linear map changes no spacing, and preprocessing normalises
+/// the grey levels anyway).
+fn load_tiff_direct(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loaded> {
+    use tiff::decoder::{Decoder, DecodingResult, Limits};
+    use tiff::ColorType;
+    let decode_err = |reason: String| Error::Decode {
+        path: path.to_path_buf(),
+        reason,
+    };
+    let mut d = Decoder::new(Cursor::new(bytes))
+        .map_err(|e| decode_err(format!("TIFF header unreadable: {e}")))?;
+    let (width, height) = d
+        .dimensions()
+        .map_err(|e| decode_err(format!("TIFF header unreadable: {e}")))?;
+    check_size(path, width, height, opts)?;
+    let px = width as usize * height as usize;
+    let mut limits = Limits::default();
+    limits.decoding_buffer_size = px.saturating_mul(32).saturating_add(64 << 20);
+    limits.intermediate_buffer_size = limits.decoding_buffer_size;
+    d = d.with_limits(limits);
+    let channels = match d.colortype().map_err(|e| decode_err(e.to_string()))? {
+        ColorType::Gray(_) => 1,
+        ColorType::GrayA(_) => 2,
+        ColorType::RGB(_) => 3,
+        ColorType::RGBA(_) => 4,
+        other => {
+            return Err(decode_err(format!(
+                "TIFF colour type {other:?} is not supported; save the image as grey or RGB"
+            )))
+        }
+    };
+    let mut warnings = Vec::new();
+    if d.more_images() {
+        warnings.push("multi-page TIFF: only the first page is measured".to_string());
+    }
+    let result = d.read_image().map_err(|e| decode_err(e.to_string()))?;
+    let (mut data, depth, float) = match result {
+        DecodingResult::U8(v) => (samples_to_gray(&v, channels, 1.0 / 255.0), 8, false),
+        DecodingResult::U16(v) => (samples_to_gray(&v, channels, 1.0 / 65535.0), 16, false),
+        DecodingResult::F32(v) => (samples_to_gray(&v, channels, 1.0), 32, true),
+        DecodingResult::F64(v) => {
+            let v: Vec<f32> = v.into_iter().map(|x| x as f32).collect();
+            (samples_to_gray(&v, channels, 1.0), 32, true)
+        }
+        _ => {
+            return Err(decode_err(
+                "TIFF sample format not supported (signed or wide integers); save as 8- or 16-bit unsigned or as float".into(),
+            ))
+        }
+    };
+    if data.len() != px {
+        return Err(decode_err(format!(
+            "the TIFF holds {} samples for {width} x {height} pixels",
+            data.len()
+        )));
+    }
+    if float {
+        let (lo, hi) = data
+            .iter()
+            .filter(|v| v.is_finite())
+            .fold((f32::INFINITY, f32::NEG_INFINITY), |(a, b), &v| {
+                (a.min(v), b.max(v))
+            });
+        if lo.is_finite() && (lo < 0.0 || hi > 1.0) && hi > lo {
+            for v in data.iter_mut() {
+                *v = (*v - lo) / (hi - lo);
+            }
+        }
+    }
+    let mut image = GrayImage {
+        width: width as usize,
+        height: height as usize,
+        data,
+    };
+    replace_non_finite(&mut image, &mut warnings).map_err(decode_err)?;
+    let info = tiff_info(bytes);
+    Ok(Loaded {
+        image,
+        bit_depth: depth,
+        sha256: hex(&Sha256::digest(bytes)),
+        format: ImageFormat::Tiff,
+        resolution: info.resolution,
+        warnings,
+    })
 }
 
 /// SHA-256 of a file's bytes, as lowercase hexadecimal.

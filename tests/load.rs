@@ -157,3 +157,77 @@ fn the_pixel_limit_is_checked_from_the_header_before_decoding() {
     .unwrap_err();
     assert!(matches!(e, Error::Decode { .. }), "{e}");
 }
+
+#[test]
+fn float_samples_that_are_not_numbers() {
+    // A float TIFF may hold NaN (a masked region): a few are set to the
+    // median grey with a warning; a large part makes the file unusable,
+    // with a message naming it. Written with the tiff crate's encoder
+    // (Gray32Float), the TIFF 6.0 SampleFormat = 3 layout.
+    use tiff::encoder::{colortype::Gray32Float, TiffEncoder};
+    let dir = tempfile::tempdir().unwrap();
+    let write = |name: &str, nan_every: usize| {
+        let (w, h) = (256u32, 256u32);
+        let data: Vec<f32> = (0..w * h)
+            .map(|i| {
+                let x = (i % w) as f32;
+                if (i as usize) % nan_every == 0 {
+                    f32::NAN
+                } else {
+                    0.5 + 0.4 * (x * std::f32::consts::TAU / 16.0).sin()
+                }
+            })
+            .collect();
+        let path = dir.path().join(name);
+        let f = std::fs::File::create(&path).unwrap();
+        TiffEncoder::new(f)
+            .unwrap()
+            .write_image::<Gray32Float>(w, h, &data)
+            .unwrap();
+        path
+    };
+    let few = write("few.tif", 1000);
+    let many = write("many.tif", 20);
+    let opts = armspace::load::LoadOptions::default();
+    let l = armspace::load::load(&few, &opts).unwrap();
+    assert!(l.image.data.iter().all(|v| v.is_finite()));
+    assert!(
+        l.warnings.iter().any(|w| w.contains("NaN")),
+        "{:?}",
+        l.warnings
+    );
+    let e = armspace::load::load(&many, &opts).unwrap_err().to_string();
+    assert!(e.contains("many.tif") && e.contains("NaN"), "{e}");
+}
+
+#[test]
+fn float_and_big_tiffs_are_read() {
+    // Grey 32-bit float samples (SampleFormat 3) in any range, and BigTIFF
+    // (64-bit offsets), both written with the tiff crate's encoder: the
+    // samples come back as written, mapped linearly onto [0, 1].
+    use tiff::encoder::{colortype::Gray16, colortype::Gray32Float, TiffEncoder};
+    let dir = tempfile::tempdir().unwrap();
+    let (w, h) = (64u32, 48u32);
+    let floats: Vec<f32> = (0..w * h).map(|i| 100.0 + (i % 7) as f32 * 50.0).collect();
+    let fp = dir.path().join("float.tif");
+    TiffEncoder::new(std::fs::File::create(&fp).unwrap())
+        .unwrap()
+        .write_image::<Gray32Float>(w, h, &floats)
+        .unwrap();
+    let l = armspace::load::load(&fp, &Default::default()).unwrap();
+    assert_eq!(l.bit_depth, 32);
+    for (got, want) in l.image.data.iter().zip(&floats) {
+        assert!((got - (want - 100.0) / 300.0).abs() < 1e-6);
+    }
+    let words: Vec<u16> = (0..w * h).map(|i| (i * 13 % 65536) as u16).collect();
+    let bp = dir.path().join("big.tif");
+    TiffEncoder::new_big(std::fs::File::create(&bp).unwrap())
+        .unwrap()
+        .write_image::<Gray16>(w, h, &words)
+        .unwrap();
+    let l = armspace::load::load(&bp, &Default::default()).unwrap();
+    assert_eq!((l.image.width, l.image.height, l.bit_depth), (64, 48, 16));
+    for (got, want) in l.image.data.iter().zip(&words) {
+        assert!((got - *want as f32 / 65535.0).abs() < 1e-7);
+    }
+}

@@ -121,8 +121,8 @@ pub const END_UNCERTAINTY_PX: f64 = 0.288_675_134_594_812_9;
 /// (as a standard error), and the bar's own stated uncertainty, combined in
 /// quadrature (GUM 5.1.2, uncorrelated inputs).
 pub fn from_bar(bar: &ScaleBar, length: &BarLength) -> Result<Offer, String> {
-    if bar.length_px <= 0.0 {
-        return Err("the scale bar has no length".into());
+    if !(bar.length_px > 0.0 && bar.length_px.is_finite()) {
+        return Err("the scale bar's length could not be measured (its ends are not sharp enough to locate)".into());
     }
     let um = UmPerPx::new(length.length.0 / bar.length_px)?;
     let u_px = (2.0 * END_UNCERTAINTY_PX * END_UNCERTAINTY_PX

@@ -424,7 +424,7 @@ fn edge(row: &[f32], a: usize, b: usize, sign: f64) -> Option<f64> {
     let d = |x: usize| sign * (row[x + 1] - row[x]) as f64;
     let peak = (a..=b).max_by(|p, q| d(*p).total_cmp(&d(*q)))?;
     let top = d(peak);
-    if top <= 0.0 {
+    if !(top > 0.0 && top.is_finite()) {
         return None;
     }
     let floor = 0.5 * top;
@@ -441,7 +441,8 @@ fn edge(row: &[f32], a: usize, b: usize, sign: f64) -> Option<f64> {
         sum += d(x);
         moment += d(x) * (x as f64 + 0.5);
     }
-    Some(moment / sum)
+    let x = moment / sum;
+    x.is_finite().then_some(x)
 }
 
 /// The largest rectangle around `bar` whose border lines are at least 75 %
