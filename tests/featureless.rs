@@ -45,14 +45,14 @@ fn count_values(seeds: &[u64], per_seed: usize) -> (usize, usize, Vec<(String, u
                         per_method.len() - 1
                     }
                 };
-                if o.value.is_some() {
+                if let Some(v) = o.value {
                     per_method[k].1 += 1;
                     eprintln!(
                         "seed {seed} {} ({:?}): {} gives {:.2} px",
                         t.file,
                         t.contents,
                         o.method.name(),
-                        o.value.unwrap().0
+                        v.0
                     );
                 }
             }

@@ -194,15 +194,15 @@ fn coarsening_constant_is_recomputed_from_the_cited_values() {
 
     // The former Al-Cu set (slope -2.65 and k = 0.14 of Sci. Rep. 7 (2017)
     // 45770) with the same diagram is flagged: -2.65 / -3.377 = 0.785.
-    let text = user_file(&format!(
-        r#"{{"id": "old-alcu", "form": "coarsening", "sdas_unit": "um", "variable_unit": "s",
-            "coarsening": {{"solute": "Cu", "prefactor": {{"value": 5.5}},
-              "gibbs_thomson_K_m": {{"value": 2.36e-7}}, "diffusivity_m2_per_s": {{"value": 2.4e-9}},
-              "liquidus_slope_K_per_wt_pct": {{"value": -2.65}}, "partition_coefficient": {{"value": 0.14}},
-              "ce_wt_pct": {{"value": 33.2}}, "melting_point_degC": {{"value": 660.32}},
-              "eutectic_temperature_degC": {{"value": 548.2}}, "max_solubility_wt_pct": {{"value": 5.65}}}},
-            "source": {{"authors": "Lab", "year": 2026, "title": "parameter set", "published_in": "report"}}}}"#
-    ));
+    let text = user_file(
+        r#"{"id": "old-alcu", "form": "coarsening", "sdas_unit": "um", "variable_unit": "s",
+            "coarsening": {"solute": "Cu", "prefactor": {"value": 5.5},
+              "gibbs_thomson_K_m": {"value": 2.36e-7}, "diffusivity_m2_per_s": {"value": 2.4e-9},
+              "liquidus_slope_K_per_wt_pct": {"value": -2.65}, "partition_coefficient": {"value": 0.14},
+              "ce_wt_pct": {"value": 33.2}, "melting_point_degC": {"value": 660.32},
+              "eutectic_temperature_degC": {"value": 548.2}, "max_solubility_wt_pct": {"value": 5.65}},
+            "source": {"authors": "Lab", "year": 2026, "title": "parameter set", "published_in": "report"}}"#,
+    );
     let lib = parse(&text, "old.json", false).unwrap();
     let i = interpret_with(
         &lib[0],
