@@ -464,80 +464,24 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
             return ExitCode::from(EXIT_FATAL);
         }
     };
-    let progress = progress_bar(inputs.len());
-    let (results, skipped) = pool.install(|| measure_batch(&inputs, &opts, &|| progress.inc(1)));
+    // The progress counts images only: skipped entries are listed at the end.
+    let images = inputs
+        .iter()
+        .filter(|i| !matches!(i, armspace::load::Input::Skipped { .. }))
+        .count();
+    let progress = progress_bar(images);
+    // Each image's lines as soon as it is measured (the report keeps input
+    // order); printed above the progress bar.
+    let on_done = |r: &armspace::pipeline::ImageResult| {
+        let img = report::image_report(r, &opts);
+        progress.suspend(|| print_image(&img));
+        progress.inc(1);
+    };
+    let (results, skipped) = pool.install(|| measure_batch(&inputs, &opts, &on_done));
     progress.finish_and_clear();
     let given: Vec<String> = args.paths.iter().map(|p| p.display().to_string()).collect();
     let rep = report::build(&given, &opts, &results, &skipped, report::now_utc());
     let json = report::to_json(&rep);
-
-    for img in &rep.images {
-        match (&img.error, img.sdas_um.value) {
-            (Some(e), _) => eprintln!("error    {e}"),
-            (None, Some(v)) => {
-                let ci = img
-                    .sdas_um
-                    .ci95
-                    .map(|[a, b]| format!(" (95% CI {a:.2} to {b:.2})"))
-                    .unwrap_or_default();
-                eprintln!(
-                    "measured {}: SDAS {v:.2} um{ci}, n = {}",
-                    img.file, img.sdas_um.n
-                );
-            }
-            (None, None) => eprintln!(
-                "no value {}: {}",
-                img.file,
-                img.sdas_um.reason.as_deref().unwrap_or("no reason given")
-            ),
-        }
-        if let Some(a) = &img.acceptance {
-            let zone = a
-                .zone
-                .as_deref()
-                .map(|z| format!(" [{z}]"))
-                .unwrap_or_default();
-            // What was compared, named, with its interval and the limit.
-            let statistic = match a.statistic {
-                armspace::interpret::acceptance::Statistic::Value => "image value",
-                armspace::interpret::acceptance::Statistic::MaxLocal => "largest local value",
-            };
-            let compared = match (a.compared_um, a.compared_ci95_um, a.limit_um) {
-                (Some(v), Some([lo, hi]), Some(l)) => {
-                    format!(" ({statistic} {v:.2} um, 95% CI {lo:.2} to {hi:.2}; limit {l} um)")
-                }
-                (Some(v), None, Some(l)) => format!(" ({statistic} {v:.2} um; limit {l} um)"),
-                (None, _, Some(l)) => format!(" ({statistic}: none; limit {l} um)"),
-                _ => String::new(),
-            };
-            match a.decision {
-                Some(d) => eprintln!(
-                    "  {}{zone}{compared}: {}",
-                    d.name().to_uppercase(),
-                    a.reason
-                ),
-                None => eprintln!("  NOT ASSESSED{zone}: {}", a.reason),
-            }
-        }
-        if let Some(i) = &img.interpretation {
-            let q =
-                |name: &str, unit: &str, v: &armspace::interpret::Quantity| match (v.value, v.ci95)
-                {
-                    (Some(x), Some([a, b])) => format!("{name} {x} {unit} (95% CI {a} to {b})"),
-                    (Some(x), None) => format!("{name} {x} {unit}"),
-                    _ => format!("{name}: none"),
-                };
-            eprintln!(
-                "  {}; {} [{}]",
-                q("cooling rate", "K/s", &i.cooling_rate_k_per_s),
-                q("solidification time", "s", &i.solidification_time_s),
-                i.correlation.id
-            );
-        }
-        for w in &img.warnings {
-            eprintln!("  warning: {w}");
-        }
-    }
     for s in &rep.skipped {
         eprintln!("skipped  {}: {}", s.file, s.reason);
     }
@@ -611,6 +555,75 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
         report::Outcome::NotMeasured => EXIT_NOT_MEASURED,
         report::Outcome::Indeterminate => EXIT_INDETERMINATE,
     })
+}
+
+/// An image's lines on stderr: its value or why there is none, the decision
+/// naming what was compared, the interpretation, and its warnings.
+fn print_image(img: &report::ImageReport) {
+    match (&img.error, img.sdas_um.value) {
+        (Some(e), _) => eprintln!("error    {e}"),
+        (None, Some(v)) => {
+            let ci = img
+                .sdas_um
+                .ci95
+                .map(|[a, b]| format!(" (95% CI {a:.2} to {b:.2})"))
+                .unwrap_or_default();
+            eprintln!(
+                "measured {}: SDAS {v:.2} um{ci}, n = {}",
+                img.file, img.sdas_um.n
+            );
+        }
+        (None, None) => eprintln!(
+            "no value {}: {}",
+            img.file,
+            img.sdas_um.reason.as_deref().unwrap_or("no reason given")
+        ),
+    }
+    if let Some(a) = &img.acceptance {
+        let zone = a
+            .zone
+            .as_deref()
+            .map(|z| format!(" [{z}]"))
+            .unwrap_or_default();
+        // What was compared, named, with its interval and the limit.
+        let statistic = match a.statistic {
+            armspace::interpret::acceptance::Statistic::Value => "image value",
+            armspace::interpret::acceptance::Statistic::MaxLocal => "largest local value",
+        };
+        let compared = match (a.compared_um, a.compared_ci95_um, a.limit_um) {
+            (Some(v), Some([lo, hi]), Some(l)) => {
+                format!(" ({statistic} {v:.2} um, 95% CI {lo:.2} to {hi:.2}; limit {l} um)")
+            }
+            (Some(v), None, Some(l)) => format!(" ({statistic} {v:.2} um; limit {l} um)"),
+            (None, _, Some(l)) => format!(" ({statistic}: none; limit {l} um)"),
+            _ => String::new(),
+        };
+        match a.decision {
+            Some(d) => eprintln!(
+                "  {}{zone}{compared}: {}",
+                d.name().to_uppercase(),
+                a.reason
+            ),
+            None => eprintln!("  NOT ASSESSED{zone}: {}", a.reason),
+        }
+    }
+    if let Some(i) = &img.interpretation {
+        let q = |name: &str, unit: &str, v: &armspace::interpret::Quantity| match (v.value, v.ci95)
+        {
+            (Some(x), Some([a, b])) => format!("{name} {x} {unit} (95% CI {a} to {b})"),
+            (Some(x), None) => format!("{name} {x} {unit}"),
+            _ => format!("{name}: none"),
+        };
+        eprintln!(
+            "  {}; {} [{}]",
+            q("cooling rate", "K/s", &i.cooling_rate_k_per_s),
+            q("solidification time", "s", &i.solidification_time_s),
+            i.correlation.id
+        );
+    }
+    for w in &img.warnings {
+        eprintln!("  warning: {w}");
+    }
 }
 
 /// A progress bar on stderr when stderr is a terminal; hidden otherwise, so

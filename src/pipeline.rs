@@ -339,11 +339,13 @@ pub fn overlay_name(path: &std::path::Path, sha256: &str) -> String {
 }
 
 /// Measures a batch in parallel; results come back in input order.
-/// `on_done` is called once per finished image (for progress display).
+/// `on_done` is called with each image's result as soon as it is finished
+/// (in the order they finish: for progress and results as they come);
+/// skipped entries are not images and are not passed to it.
 pub fn measure_batch(
     inputs: &[Input],
     opts: &MeasureOptions,
-    on_done: &(dyn Fn() + Sync),
+    on_done: &(dyn Fn(&ImageResult) + Sync),
 ) -> (Vec<ImageResult>, Vec<Skipped>) {
     let results: Vec<Option<ImageResult>> = inputs
         .par_iter()
@@ -366,7 +368,9 @@ pub fn measure_batch(
                 )),
                 Input::Skipped { .. } => None,
             };
-            on_done();
+            if let Some(r) = &r {
+                on_done(r);
+            }
             r
         })
         .collect();
