@@ -321,6 +321,15 @@ fn half_spacing_ratio(tiles: &[TileResult]) -> Option<f64> {
 /// harmonic, and the measured spacing would be half the true one.
 const HARMONIC_RATIO: f64 = 2.0;
 
+/// Power at half the peak's frequency, as a fraction of the peak's, below
+/// which nothing there can be a fundamental: rows whose second harmonic
+/// outshines their fundamental still put a good part of the harmonic's power
+/// into it (arms and channels of nearly equal width give a weak second
+/// harmonic, unequal widths a strong fundamental), never 1 % (-20 dB). A
+/// ratio to the ring's median alone fails where the ring holds almost no
+/// power (a clean grating, whose ring median is the quantisation floor).
+const FUNDAMENTAL_FLOOR: f64 = 0.01;
+
 /// Whether a tile's period is compatible with the period reproduced across
 /// scales: within a factor sqrt 2, the geometric midpoint between that period
 /// and its second harmonic or sub-harmonic. A tile outside it has locked on a
@@ -387,8 +396,15 @@ fn analyse_tiles_with(
                 .map(|&(x, y)| {
                     an.power(&img.image.data, w, x, y, &mut buf);
                     let peak = choose_peak_with(&mut search, &buf, params, lone_peaks_only);
-                    let half_ratio =
-                        peak.map_or(f64::NAN, |p| search.ratio_at(p.fx / 2.0, p.fy / 2.0));
+                    let half_ratio = peak.map_or(f64::NAN, |p| {
+                        let half = search.power_at(p.fx / 2.0, p.fy / 2.0);
+                        let top = search.power_at(p.fx, p.fy);
+                        if half < FUNDAMENTAL_FLOOR * top {
+                            0.0 // nothing there that could be a fundamental
+                        } else {
+                            search.ratio_at(p.fx / 2.0, p.fy / 2.0)
+                        }
+                    });
                     let (cx, cy) = (x as f64 + n as f64 / 2.0, y as f64 + n as f64 / 2.0);
                     match peak {
                         Some(p) => TileResult {

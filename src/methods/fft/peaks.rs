@@ -387,6 +387,18 @@ impl CandidateSearch {
     /// After `run`: the smoothed power at frequency (fx, fy) (cycles per
     /// pixel, in the half plane or on its edge) over the median of its
     /// frequency ring; NaN where that is undefined.
+    /// Smoothed power at the frequency (fx, fy), cycles per pixel (the
+    /// half plane, as [`Self::ratio_at`]); NaN outside it.
+    pub fn power_at(&self, fx: f64, fy: f64) -> f64 {
+        let n = self.n as f64;
+        let (u, v) = (fx * n, fy * n);
+        if (-1.0..=(self.n / 2) as f64 - 1.0).contains(&v) {
+            bilinear_periodic(&self.smooth, self.n, u, v)
+        } else {
+            f64::NAN
+        }
+    }
+
     pub fn ratio_at(&self, fx: f64, fy: f64) -> f64 {
         let n = self.n as f64;
         let (u, v) = (fx * n, fy * n);

@@ -376,3 +376,27 @@ fn finer_period_parallel_to_a_coarser_one_is_dropped() {
     // Perpendicular: the fine period is the secondary spacing.
     assert!((build(120.0).unwrap() - 5.1).abs() < 1e-9);
 }
+
+#[test]
+fn a_clean_grating_is_measured() {
+    // A pure sinusoid has no power at half its frequency (a fact of Fourier
+    // analysis), so it must not be taken for the second harmonic of a longer
+    // period: the simplest periodic field gets its period. 8-bit levels, as
+    // a camera would record it.
+    for period in [8.0, 20.0] {
+        let n = 512;
+        let data: Vec<f32> = sinusoid(n, period, 0.0)
+            .into_iter()
+            .map(|v| ((0.5 + 0.4 * v) * 255.0).round() / 255.0)
+            .collect();
+        let img = GrayImage::from_vec(n, n, data).unwrap();
+        let out = measure(
+            &prepare(&img, None, &PreprocessParams::default()),
+            &FftParams::default(),
+        );
+        let v = out
+            .value_px
+            .unwrap_or_else(|| panic!("{period}: {:?}", out.reason));
+        assert!((v / period - 1.0).abs() < 0.01, "{period}: {v}");
+    }
+}
