@@ -305,6 +305,10 @@ struct SynthArgs {
     /// etched alternate. The same seed gives the same fields in any style.
     #[arg(long, value_enum)]
     style: Option<SynthStyle>,
+    /// Write into a folder that already holds files (images of the same
+    /// names and truth.json are replaced; others stay and are not in the truth).
+    #[arg(long)]
+    replace: bool,
 }
 
 #[derive(Clone, Copy, ValueEnum)]
@@ -750,6 +754,18 @@ fn run_stats(args: StatsArgs) -> ExitCode {
 }
 
 fn run_synth(args: SynthArgs) -> ExitCode {
+    // A set mixed with an older one would carry a truth.json that does not
+    // describe every image beside it: refuse unless asked.
+    let holds_files = std::fs::read_dir(&args.outdir)
+        .map(|mut d| d.next().is_some())
+        .unwrap_or(false);
+    if holds_files && !args.replace {
+        eprintln!(
+            "armspace: {}: the folder is not empty; choose an empty or new folder, or give --replace",
+            args.outdir.display()
+        );
+        return ExitCode::from(EXIT_USAGE);
+    }
     let result = match &args.specs {
         None => {
             let style = args.style.map(|s| match s {

@@ -330,6 +330,15 @@ fn synth_writes_images_and_truth() {
     let truth: Value =
         serde_json::from_str(&std::fs::read_to_string(out.join("truth.json")).unwrap()).unwrap();
     assert_eq!(truth["images"].as_array().unwrap().len(), 3);
+    // The same folder again: refused (a truth.json that would not describe
+    // every image beside it), unless --replace is given.
+    let again = ["synth", &path_str(&out), "--seed", "4", "--count", "2"];
+    let run = armspace(&again);
+    assert_eq!(run.code, 2, "{}", run.stderr);
+    assert!(run.stderr.contains("not empty"), "{}", run.stderr);
+    let mut replace = again.to_vec();
+    replace.push("--replace");
+    assert_eq!(armspace(&replace).code, 0);
     // --style draws every field in one style.
     let clean = dir.path().join("clean");
     let run = armspace(&[
