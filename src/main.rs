@@ -56,9 +56,10 @@ enum Command {
 /// Interpretation of SDAS through a published correlation.
 #[derive(clap::Args)]
 struct AlloyArgs {
-    /// Correlation id (see `armspace correlations`) for cooling rate and solidification time.
-    #[arg(long)]
-    alloy: Option<String>,
+    /// Correlation id (see `armspace correlations`) for cooling rate and
+    /// solidification time (`--alloy` is the old name, still accepted).
+    #[arg(long = "correlation", visible_alias = "alloy", value_name = "ID")]
+    correlation: Option<String>,
     /// Nominal composition in wt%, e.g. Si=7,Cu=0.2 (composition-dependent correlations need it).
     #[arg(long, value_parser = armspace::interpret::parse_composition)]
     composition: Option<armspace::interpret::Composition>,
@@ -77,10 +78,10 @@ impl AlloyArgs {
     /// The interpretation settings, checked against the composition; None
     /// without --alloy.
     fn settings(&self) -> Result<Option<armspace::interpret::Settings>, String> {
-        let Some(id) = &self.alloy else {
+        let Some(id) = &self.correlation else {
             if self.composition.is_some() || self.freezing_range.is_some() || self.extrapolate {
                 return Err(
-                    "--composition, --freezing-range and --extrapolate need --alloy".into(),
+                    "--composition, --freezing-range and --extrapolate need --correlation".into(),
                 );
             }
             return Ok(None);
@@ -295,8 +296,9 @@ struct SynthArgs {
     count: u32,
     /// Render the fields described in this JSON file instead of random ones
     /// ({"images": [{"file": "a.png", "spec": {...}}]}; see DEVELOPERS.md).
-    #[arg(long, conflicts_with_all = ["seed", "count", "style"])]
-    specs: Option<PathBuf>,
+    /// (`--specs` is the old name, still accepted.)
+    #[arg(long = "fields", visible_alias = "specs", value_name = "FILE", conflicts_with_all = ["seed", "count", "style"])]
+    fields: Option<PathBuf>,
     /// Draw every field in one style (clean: smooth bars with the nuisances
     /// only; etched: the look of an etched section; cut: arms cut across,
     /// rows of spots; dense: packed equiaxed grains; lace: arms with a
@@ -766,7 +768,7 @@ fn run_synth(args: SynthArgs) -> ExitCode {
         );
         return ExitCode::from(EXIT_USAGE);
     }
-    let result = match &args.specs {
+    let result = match &args.fields {
         None => {
             let style = args.style.map(|s| match s {
                 SynthStyle::Clean => armspace::synth::Style::Clean,
@@ -851,8 +853,8 @@ fn run_correlations(args: CorrelationsArgs) -> ExitCode {
 }
 
 fn run_interpret(args: InterpretArgs) -> ExitCode {
-    if args.alloy.alloy.is_none() {
-        eprintln!("armspace: interpret needs --alloy ID (see `armspace correlations`)");
+    if args.alloy.correlation.is_none() {
+        eprintln!("armspace: interpret needs --correlation ID (see `armspace correlations`)");
         return ExitCode::from(EXIT_USAGE);
     }
     if let Some([lo, hi]) = args.ci {

@@ -592,10 +592,21 @@ fn the_commands_list_and_interpret() {
         "40um",
         "--ci",
         "36,44",
-        "--alloy",
+        "--correlation",
         "al-si-coarsening",
     ]);
     assert_eq!(run.code, 0, "{}", run.stderr);
+    // The old name stays an alias for a release and gives the same answer.
+    let old = armspace(&[
+        "interpret",
+        "--sdas",
+        "40um",
+        "--ci",
+        "36,44",
+        "--alloy",
+        "al-si-coarsening",
+    ]);
+    assert_eq!(old.stdout, run.stdout);
     let v: serde_json::Value = serde_json::from_str(&run.stdout).unwrap();
     assert!(v["caution"]
         .as_str()
