@@ -19,8 +19,11 @@ pub const METHOD_DISAGREEMENT: f64 = 0.10;
 pub struct Estimate {
     pub value: Option<Micrometres>,
     pub ci95: Option<[Micrometres; 2]>,
-    /// Number of independent measurements behind the value (tiles, lines).
+    /// Number of local measurements behind the value (tiles, lines, chains).
     pub n: usize,
+    /// Of those, how many count as independent (overlapping FFT tiles
+    /// count a quarter each; `Method::independent_fraction`).
+    pub n_eff: f64,
     /// The methods whose values entered the combined value.
     pub methods: Vec<Method>,
     pub reason: Option<String>,
@@ -42,6 +45,7 @@ impl Estimate {
             value: None,
             ci95: None,
             n: 0,
+            n_eff: 0.0,
             methods: vec![],
             reason: Some(reason.into()),
             left_out: vec![],
@@ -319,6 +323,10 @@ pub fn combine(outcomes: &[Outcome], cal: UmPerPx, cal_rel_u: Option<f64>) -> Es
         value: Some(Micrometres(x)),
         ci95: Some([Micrometres(x - total), Micrometres(x + total)]),
         n: used.iter().map(|p| p.n).sum(),
+        n_eff: used
+            .iter()
+            .map(|p| p.n as f64 * p.method.independent_fraction())
+            .sum(),
         methods: used.iter().map(|p| p.method).collect(),
         reason: None,
         left_out,

@@ -193,9 +193,15 @@ pub fn calibration_report(c: &crate::calibrate::Calibration) -> CalibrationRepor
 
 #[derive(Serialize, Debug)]
 pub struct SdasReport {
+    /// Rounded to the uncertainty ([`digits_for_uncertainty`]).
     pub value: Option<f64>,
     pub ci95: Option<[f64; 2]>,
+    /// The value to 4 decimals, for programs that recompute with it.
+    pub value_unrounded: Option<f64>,
+    /// Local measurements behind the value (tiles, lines, chains).
     pub n: usize,
+    /// Of those, how many count as independent (an FFT tile a quarter).
+    pub n_eff: f64,
     pub methods: Vec<&'static str>,
     pub reason: Option<String>,
     /// Methods that gave a value which did not enter this one, and why.
@@ -421,6 +427,17 @@ pub fn round(x: f64, digits: i32) -> f64 {
     }
 }
 
+/// Decimals that give the 95 % half-width `half` two significant digits,
+/// to which the value and its interval are rounded (JCGM 100:2008, 7.2.6:
+/// an uncertainty needs at most two significant digits, and the estimate is
+/// rounded to the same place); at most 4, the report's precision.
+pub fn digits_for_uncertainty(half: f64) -> i32 {
+    if !(half.is_finite() && half > 0.0) {
+        return 4;
+    }
+    (1 - half.log10().floor() as i32).min(4)
+}
+
 fn um(cal: UmPerPx, px: f64) -> f64 {
     round(cal.to_um(Pixels(px)).0, 4)
 }
@@ -565,22 +582,33 @@ pub fn image_report(r: &ImageResult, opts: &MeasureOptions) -> ImageReport {
         bit_depth: r.info.as_ref().map(|i| i.bit_depth),
         calibration: r.calibration.as_ref().map(calibration_report),
         excluded_px: r.excluded.clone(),
-        sdas_um: SdasReport {
-            value: r.sdas.value.map(|v| round(v.0, 4)),
-            ci95: r.sdas.ci95.map(|[a, b]| [round(a.0, 4), round(b.0, 4)]),
-            n: r.sdas.n,
-            methods: r.sdas.methods.iter().map(|m| m.name()).collect(),
-            reason: r.sdas.reason.clone(),
-            left_out: r
+        sdas_um: {
+            let digits = r
                 .sdas
-                .left_out
-                .iter()
-                .map(|(m, why)| LeftOutReport {
-                    method: m.name(),
-                    reason: why.clone(),
-                })
-                .collect(),
-            birge_ratio: r.sdas.birge_ratio.map(|b| round(b, 4)),
+                .ci95
+                .map_or(4, |[a, b]| digits_for_uncertainty(0.5 * (b.0 - a.0)));
+            SdasReport {
+                value: r.sdas.value.map(|v| round(v.0, digits)),
+                ci95: r
+                    .sdas
+                    .ci95
+                    .map(|[a, b]| [round(a.0, digits), round(b.0, digits)]),
+                value_unrounded: r.sdas.value.map(|v| round(v.0, 4)),
+                n: r.sdas.n,
+                n_eff: round(r.sdas.n_eff, 1),
+                methods: r.sdas.methods.iter().map(|m| m.name()).collect(),
+                reason: r.sdas.reason.clone(),
+                left_out: r
+                    .sdas
+                    .left_out
+                    .iter()
+                    .map(|(m, why)| LeftOutReport {
+                        method: m.name(),
+                        reason: why.clone(),
+                    })
+                    .collect(),
+                birge_ratio: r.sdas.birge_ratio.map(|b| round(b, 4)),
+            }
         },
         methods: match cal {
             Some(c) => methods_report(&r.methods, c, opts),
@@ -853,6 +881,19 @@ pub fn to_json(report: &Report) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn rounding_to_the_uncertainty() {
+        // JCGM 100:2008, 7.2.6: two significant digits of the uncertainty.
+        assert_eq!(digits_for_uncertainty(14.8), 0); // 41.1115 +- 14.8 -> 41 +- 15
+        assert_eq!(round(41.1115, digits_for_uncertainty(14.8)), 41.0);
+        assert_eq!(digits_for_uncertainty(0.65), 2); // 17.57 +- 0.65
+        assert_eq!(digits_for_uncertainty(1.2), 1);
+        assert_eq!(digits_for_uncertainty(250.0), -1); // to tens
+        assert_eq!(round(1234.0, -1), 1230.0);
+        assert_eq!(digits_for_uncertainty(1e-7), 4);
+        assert_eq!(digits_for_uncertainty(f64::NAN), 4);
+    }
 
     #[test]
     fn rounding() {

@@ -45,6 +45,17 @@ impl Method {
         }
     }
 
+    /// The fraction of the method's local measurements that count as
+    /// independent: 1 for lines and chains laid apart; for FFT tiles
+    /// overlapping by half in each direction, (stride / size)^2 = 1/4 (each
+    /// tile shares its area with its neighbours; [`fft::TILE_INDEPENDENCE`]).
+    pub fn independent_fraction(self) -> f64 {
+        match self {
+            Method::Fft => fft::TILE_INDEPENDENCE,
+            Method::Intercept | Method::Centres => 1.0,
+        }
+    }
+
     /// The method's name in the report, the CSV and on the command line.
     pub fn name(self) -> &'static str {
         match self {

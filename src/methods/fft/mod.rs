@@ -321,6 +321,10 @@ fn half_spacing_ratio(tiles: &[TileResult]) -> Option<f64> {
 /// harmonic, and the measured spacing would be half the true one.
 const HARMONIC_RATIO: f64 = 2.0;
 
+/// Fraction of the tiles that count as independent samples: tiles of size n
+/// laid at a stride of n / 2 share their area, (stride / n)^2 = 1/4.
+pub const TILE_INDEPENDENCE: f64 = 0.25;
+
 /// Power at half the peak's frequency, as a fraction of the peak's, below
 /// which nothing there can be a fundamental: rows whose second harmonic
 /// outshines their fundamental still put a good part of the harmonic's power
@@ -501,8 +505,7 @@ fn aggregate(mut tiles: Vec<TileResult>, n: usize, params: &FftParams) -> FftOut
     let kw: Vec<f64> = kept.iter().map(|&i| tiles[i].quality.ln()).collect();
     let value = stats::weighted_median(&kv, &kw);
     let spread = value.and_then(|m| stats::mad_sd(&kv, m));
-    let overlap = 0.25; // (stride / n)^2 with stride = n / 2
-    let n_eff = (kept.len() as f64 * overlap).max(1.0);
+    let n_eff = (kept.len() as f64 * TILE_INDEPENDENCE).max(1.0);
     let ci = match (value, spread) {
         (Some(m), Some(s)) if n_eff >= 2.0 => stats::t_quantile(0.975, n_eff - 1.0).map(|t| {
             let half = t * 1.2533 * s / n_eff.sqrt();
