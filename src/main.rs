@@ -569,14 +569,21 @@ fn print_image(img: &report::ImageReport) {
     match (&img.error, img.sdas_um.value) {
         (Some(e), _) => eprintln!("error    {e}"),
         (None, Some(v)) => {
+            // As many decimals as the report keeps (two significant digits
+            // of the interval's half-width).
+            let d = img
+                .sdas_um
+                .ci95
+                .map_or(2, |[a, b]| report::digits_for_uncertainty(0.5 * (b - a)))
+                .clamp(0, 4) as usize;
             let ci = img
                 .sdas_um
                 .ci95
-                .map(|[a, b]| format!(" (95% CI {a:.2} to {b:.2})"))
+                .map(|[a, b]| format!(" (95% CI {a:.d$} to {b:.d$})"))
                 .unwrap_or_default();
             eprintln!(
-                "measured {}: SDAS {v:.2} um{ci}, n = {}",
-                img.file, img.sdas_um.n
+                "measured {}: SDAS {v:.d$} um{ci}, n = {} ({:.1} independent)",
+                img.file, img.sdas_um.n, img.sdas_um.n_eff
             );
         }
         (None, None) => eprintln!(
