@@ -6,8 +6,8 @@ use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
-use std::io::{Cursor, Write};
-use std::path::{Path, PathBuf};
+use std::io::Cursor;
+use std::path::Path;
 
 /// Schema tag of `truth.json`.
 pub const TRUTH_SCHEMA: &str = "armspace.synth-truth/1";
@@ -26,29 +26,16 @@ fn io_err(path: &Path) -> impl FnOnce(std::io::Error) -> SynthError + '_ {
     }
 }
 
-/// Write `bytes` to `path` atomically: temp file in the same directory, then rename.
+/// Writes `bytes` to `path` through the crate's one output writer
+/// (`files::write_output`: atomic, never replacing a device or FIFO).
 fn write_atomic(path: &Path, bytes: &[u8]) -> Result<(), SynthError> {
-    let dir = match path.parent() {
-        Some(d) if !d.as_os_str().is_empty() => d.to_path_buf(),
-        _ => PathBuf::from("."),
-    };
-    let name = path
-        .file_name()
-        .map(|n| n.to_string_lossy().into_owned())
-        .unwrap_or_else(|| "out".to_string());
-    let tmp = dir.join(format!(".{name}.tmp-{}", std::process::id()));
-    let result = (|| {
-        let mut f = std::fs::File::create(&tmp).map_err(io_err(&tmp))?;
-        f.write_all(bytes).map_err(io_err(&tmp))?;
-        f.sync_all().map_err(io_err(&tmp))?;
-        drop(f);
-        std::fs::rename(&tmp, path).map_err(io_err(path))
-    })();
-    if result.is_err() {
-        // Best effort cleanup; the original error is what matters.
-        let _ = std::fs::remove_file(&tmp);
-    }
-    result
+    crate::files::write_output(path, bytes).map_err(|e| match e {
+        crate::Error::Write { path, source } => SynthError::Io { path, source },
+        other => SynthError::Io {
+            path: path.to_path_buf(),
+            source: std::io::Error::other(other.to_string()),
+        },
+    })
 }
 
 fn to_u8(img: &Gray16) -> ImageBuffer<Luma<u8>, Vec<u8>> {
