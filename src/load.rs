@@ -311,6 +311,15 @@ pub fn load_bytes(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loade
     let decoded = reader.decode().map_err(|e| decode_err(e.to_string()))?;
     let (mut image, bit_depth) = to_gray(decoded);
     replace_non_finite(&mut image, &mut warnings).map_err(decode_err)?;
+    if format == ImageFormat::Jpeg {
+        let missing = jpeg_fill_rows(&image);
+        if missing >= JPEG_MCU_ROWS {
+            return Err(decode_err(format!(
+                "the JPEG ends early: its last {missing} of {} rows are the decoder's flat grey fill (level 128) for data that is not in the file",
+                image.height
+            )));
+        }
+    }
 
     let sha256 = hex(&Sha256::digest(bytes));
     Ok(Loaded {
@@ -381,6 +390,28 @@ fn tiff_info(bytes: &[u8]) -> TiffInfo {
         more_pages: d.more_images(),
         resolution: x.map(|x| (x, y.unwrap_or(x), unit)),
     }
+}
+
+/// Rows of one block row of a JPEG (8 px; 16 with chroma subsampling).
+const JPEG_MCU_ROWS: usize = 8;
+
+/// Trailing rows of a decoded JPEG in which every sample is exactly level
+/// 128 of 255. A baseline decoder given a file cut short fills the blocks it
+/// never received with a zero DC coefficient, i.e. the flat mid level (ITU-T
+/// T.81: samples are level-shifted by 128 after the inverse DCT); a real
+/// micrograph never holds whole rows of one exact level, because of noise
+/// and of the quantisation's ringing.
+fn jpeg_fill_rows(image: &GrayImage) -> usize {
+    let fill = 128.0f32 / 255.0;
+    let w = image.width;
+    (0..image.height)
+        .rev()
+        .take_while(|&y| {
+            image.data[y * w..(y + 1) * w]
+                .iter()
+                .all(|v| (v - fill).abs() < 1e-5)
+        })
+        .count()
 }
 
 /// Float files may hold NaN or infinite samples (a masked region, a failed

@@ -231,3 +231,25 @@ fn float_and_big_tiffs_are_read() {
         assert!((got - *want as f32 / 65535.0).abs() < 1e-7);
     }
 }
+
+#[test]
+fn a_jpeg_cut_short_is_refused() {
+    // A baseline decoder fills the blocks a truncated file never delivered
+    // with level 128 (ITU-T T.81 level shift of a zero DC coefficient); such
+    // a file must not be measured as if the grey were structure.
+    let dir = tempfile::tempdir().unwrap();
+    let img = image::GrayImage::from_fn(256, 256, |x, y| {
+        image::Luma([(128.0 + 90.0 * ((x as f32 / 7.0).sin() * (y as f32 / 11.0).cos())) as u8])
+    });
+    let mut buf = std::io::Cursor::new(Vec::new());
+    img.write_to(&mut buf, image::ImageFormat::Jpeg).unwrap();
+    let bytes = buf.into_inner();
+    let full = dir.path().join("full.jpg");
+    let half = dir.path().join("half.jpg");
+    std::fs::write(&full, &bytes).unwrap();
+    std::fs::write(&half, &bytes[..bytes.len() / 2]).unwrap();
+    let opts = armspace::load::LoadOptions::default();
+    assert!(armspace::load::load(&full, &opts).is_ok());
+    let e = armspace::load::load(&half, &opts).unwrap_err().to_string();
+    assert!(e.contains("half.jpg") && e.contains("ends early"), "{e}");
+}
