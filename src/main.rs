@@ -235,7 +235,7 @@ impl CalibrationArgs {
 
 #[derive(clap::Args)]
 struct CalibrateArgs {
-    /// Image files.
+    /// Image files or folders (walked as `measure` walks them).
     #[arg(required = true)]
     images: Vec<PathBuf>,
     /// Physical length of the scale bar, with its unit (100um, 0.1mm, 500nm).
@@ -674,9 +674,34 @@ fn run_calibrate(args: CalibrateArgs) -> ExitCode {
     };
     let mut all_ok = true;
     let mut out = Vec::new();
-    for path in &args.images {
+    // Folders are walked as `measure` walks them; what is not an image is
+    // named as skipped, a missing or special path is an error entry.
+    let inputs = collect_inputs(&args.images);
+    let protected = armspace::files::Protected::new(inputs.iter().filter_map(|i| match i {
+        armspace::load::Input::Image(p) => Some(p.as_path()),
+        _ => None,
+    }));
+    for input in &inputs {
+        let path = match input {
+            armspace::load::Input::Image(p) => p,
+            armspace::load::Input::Skipped { path, reason } => {
+                eprintln!("skipped  {}: {reason}", path.display());
+                continue;
+            }
+            armspace::load::Input::Missing(p) | armspace::load::Input::Unusable { path: p, .. } => {
+                p
+            }
+        };
         let mut entry = serde_json::json!({"file": path.display().to_string()});
-        match load(path, &opts) {
+        let loaded = match input {
+            armspace::load::Input::Missing(p) => Err(armspace::Error::Missing { path: p.clone() }),
+            armspace::load::Input::Unusable { path, reason } => Err(armspace::Error::Input {
+                path: path.clone(),
+                reason: reason.clone(),
+            }),
+            _ => load(path, &opts),
+        };
+        match loaded {
             Err(e) => {
                 entry["error"] = e.to_string().into();
                 all_ok = false;
@@ -709,6 +734,15 @@ fn run_calibrate(args: CalibrateArgs) -> ExitCode {
                         .map(|s| s.to_string_lossy().into_owned())
                         .unwrap_or_else(|| "image".into());
                     let target = dir.join(format!("{stem}.calibration.png"));
+                    if protected.is_protected(&target) {
+                        eprintln!(
+                            "armspace: {}: is an input of this run; its calibration picture is not written",
+                            target.display()
+                        );
+                        all_ok = false;
+                        out.push(entry);
+                        continue;
+                    }
                     let picture =
                         armspace::overlay::calibration(&loaded.image, detected.as_ref().ok());
                     if let Err(e) = armspace::overlay::write_png(&target, &picture) {

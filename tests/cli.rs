@@ -376,6 +376,29 @@ fn synth_writes_images_and_truth() {
 }
 
 #[test]
+fn calibrate_takes_a_folder_as_measure_does() {
+    // fixtures/demo: four images with a 200 um bar 160 px long (1.25 um/px,
+    // fixtures/README.md) and truth.json, which is not an image.
+    let run = armspace(&[
+        "calibrate",
+        &path_str(&repo_file("fixtures/demo")),
+        "--scale-bar",
+        "200um",
+    ]);
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    let v: Value = serde_json::from_str(&run.stdout).unwrap();
+    let entries = v.as_array().unwrap();
+    assert_eq!(entries.len(), 4);
+    for e in entries {
+        assert!(
+            (e["um_per_px"].as_f64().unwrap() - 1.25).abs() < 0.01,
+            "{e}"
+        );
+    }
+    assert!(run.stderr.contains("truth.json"), "{}", run.stderr);
+}
+
+#[test]
 fn calibrate_prints_the_bar_and_draws_it() {
     // fixtures/demo: a 200 um bar drawn 160 px long (1.25 um/px, fixtures/README.md).
     let dir = tempfile::tempdir().unwrap();
