@@ -282,6 +282,11 @@ struct StatsArgs {
     /// Target percent relative accuracy, for the number of lines it needs.
     #[arg(long, default_value_t = 10.0, value_parser = parse_percent)]
     target_ra_pct: f64,
+    /// How a line's spacing follows from its length and arm count, as for
+    /// `measure`: centre-to-centre takes length_um as the distance between
+    /// the first and last arm centres, L/(n-1); length-over-count, L/n.
+    #[arg(long, value_enum, default_value = "centre-to-centre")]
+    convention: ConventionArg,
 }
 
 #[derive(clap::Args)]
@@ -764,11 +769,17 @@ fn run_calibrate(args: CalibrateArgs) -> ExitCode {
 }
 
 fn run_stats(args: StatsArgs) -> ExitCode {
+    let convention = match args.convention {
+        ConventionArg::CentreToCentre => Convention::CentreToCentre,
+        ConventionArg::LengthOverCount => Convention::LengthOverCount,
+    };
     let origin = args.file.display().to_string();
     let result = armspace::files::read_text(&args.file, "file of measured lines")
         .map_err(|e| e.to_string())
-        .and_then(|text| armspace::manual::parse(&text, &origin))
-        .and_then(|lines| armspace::manual::summarise(lines, &origin, args.target_ra_pct));
+        .and_then(|text| armspace::manual::parse(&text, &origin, convention))
+        .and_then(|lines| {
+            armspace::manual::summarise(lines, &origin, args.target_ra_pct, convention)
+        });
     match result {
         Ok(s) => {
             eprintln!(

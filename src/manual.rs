@@ -8,9 +8,14 @@
 //! 180,5
 //! ```
 //!
-//! Each line's spacing is length / arms (the line method as usually taught:
-//! the line spans as many arm periods as it crosses arms). Other columns are
+//! Each line's spacing follows the convention chosen, as for `measure`:
+//! centre to centre (the default), length / (arms - 1), where `length_um` is
+//! the distance between the centres of the first and last arms counted; or
+//! length over count, length / arms (the line method as usually taught: the
+//! line spans as many arm periods as it crosses arms). Other columns are
 //! ignored; a header row naming `length_um` and `arms` is required.
+
+use crate::methods::intercept::Convention;
 
 use crate::stats::{measurements_for_target, Summary};
 use serde::Serialize;
@@ -39,8 +44,9 @@ pub struct ManualStats {
     pub lines: Vec<ManualLine>,
 }
 
-/// Reads lines from CSV text; `origin` names the file in messages.
-pub fn parse(text: &str, origin: &str) -> Result<Vec<ManualLine>, String> {
+/// Reads lines from CSV text under a convention; `origin` names the file in
+/// messages.
+pub fn parse(text: &str, origin: &str, convention: Convention) -> Result<Vec<ManualLine>, String> {
     let mut rdr = csv::ReaderBuilder::new()
         .trim(csv::Trim::All)
         .flexible(true)
@@ -86,13 +92,21 @@ pub fn parse(text: &str, origin: &str) -> Result<Vec<ManualLine>, String> {
         if !(length.is_finite() && length > 0.0) {
             return Err(format!("{origin}: row {row}: length_um must be positive"));
         }
-        if arms == 0 {
-            return Err(format!("{origin}: row {row}: arms must be at least 1"));
+        let spacings = match convention {
+            Convention::LengthOverCount => arms as f64,
+            Convention::CentreToCentre => arms.saturating_sub(1) as f64,
+        };
+        if spacings < 1.0 {
+            return Err(format!(
+                "{origin}: row {row}: {arms} arm(s) give no spacing under the {} convention (at least {} needed)",
+                crate::report::convention_name(convention),
+                if convention == Convention::CentreToCentre { 2 } else { 1 }
+            ));
         }
         lines.push(ManualLine {
             length_um: length,
             arms,
-            sdas_um: length / arms as f64,
+            sdas_um: length / spacings,
         });
     }
     Ok(lines)
@@ -103,6 +117,7 @@ pub fn summarise(
     lines: Vec<ManualLine>,
     origin: &str,
     target_pct: f64,
+    convention: Convention,
 ) -> Result<ManualStats, String> {
     let values: Vec<f64> = lines.iter().map(|l| l.sdas_um).collect();
     let s = Summary::of(&values).ok_or_else(|| {
@@ -113,7 +128,7 @@ pub fn summarise(
     })?;
     Ok(ManualStats {
         file: origin.to_string(),
-        convention: "length / arms",
+        convention: crate::report::convention_name(convention),
         n_lines: s.n,
         mean_um: s.mean,
         sd_um: s.sd,
@@ -137,13 +152,21 @@ mod tests {
         // half-width 2.776 * 1.5811 / sqrt(5) = 1.963, %RA = 9.81.
         let text =
             "length_um,arms,operator\n100,5,A\n132,6,A\n# a comment\n90,5,B\n84,4,B\n95,5,B\n";
-        let s = summarise(parse(text, "m.csv").unwrap(), "m.csv", 10.0).unwrap();
+        let c = Convention::LengthOverCount;
+        let s = summarise(parse(text, "m.csv", c).unwrap(), "m.csv", 10.0, c).unwrap();
         assert_eq!(s.n_lines, 5);
         assert!((s.mean_um - 20.0).abs() < 1e-12);
         assert!((s.sd_um - 2.5f64.sqrt()).abs() < 1e-12);
         assert!((s.ci95_um[1] - 21.963).abs() < 2e-3);
         assert!((s.rel_accuracy_pct - 9.81).abs() < 0.01);
         assert_eq!(s.lines_for_target, Some(5));
+        // Centre to centre: the same lengths between first and last arm
+        // centres span one spacing fewer: 100/4 = 25 um, 132/5 = 26.4 um.
+        let c = Convention::CentreToCentre;
+        let s = summarise(parse(text, "m.csv", c).unwrap(), "m.csv", 10.0, c).unwrap();
+        assert!((s.lines[0].sdas_um - 25.0).abs() < 1e-12);
+        assert!((s.lines[1].sdas_um - 26.4).abs() < 1e-12);
+        assert_eq!(s.convention, "centre-to-centre");
     }
 
     #[test]
@@ -154,13 +177,22 @@ mod tests {
             ("length_um,arms\n10,3\nabc,3\n", "row 3: length_um 'abc'"),
             ("length_um,arms\n-4,3\n", "must be positive"),
             ("length_um,arms\n10,0\n", "at least 1"),
+            ("length_um,arms\n10,1\n", "at least 2"),
             ("length_um,arms\n10,\n", "no arms value"),
         ] {
-            let e = parse(text, "m.csv").unwrap_err();
+            // "at least 1" is the length-over-count floor, "at least 2" the
+            // centre-to-centre one (a single arm has no centre-to-centre span).
+            let c = if words == "at least 1" {
+                Convention::LengthOverCount
+            } else {
+                Convention::CentreToCentre
+            };
+            let e = parse(text, "m.csv", c).unwrap_err();
             assert!(e.contains("m.csv") && e.contains(words), "{text:?}: {e}");
         }
-        let one = parse("length_um,arms\n10,2\n", "m.csv").unwrap();
-        assert!(summarise(one, "m.csv", 10.0)
+        let c = Convention::CentreToCentre;
+        let one = parse("length_um,arms\n10,2\n", "m.csv", c).unwrap();
+        assert!(summarise(one, "m.csv", 10.0, c)
             .unwrap_err()
             .contains("at least two"));
     }

@@ -445,11 +445,24 @@ fn stats_of_hand_measured_lines() {
     let csv = dir.path().join("lines.csv");
     // The worked set of src/manual.rs: mean 20 um, %RA 9.81.
     std::fs::write(&csv, "length_um,arms\n100,5\n132,6\n90,5\n84,4\n95,5\n").unwrap();
-    let run = armspace(&["stats", &path_str(&csv), "--target-ra-pct", "5"]);
+    let run = armspace(&[
+        "stats",
+        &path_str(&csv),
+        "--target-ra-pct",
+        "5",
+        "--convention",
+        "length-over-count",
+    ]);
     assert_eq!(run.code, 0, "{}", run.stderr);
     let s: Value = serde_json::from_str(&run.stdout).unwrap();
     assert_eq!(s["n_lines"], 5);
     assert!((s["mean_um"].as_f64().unwrap() - 20.0).abs() < 1e-9);
+    // The default is measure's: centre to centre, L/(n-1): 100/4, 132/5,
+    // 90/4, 84/3, 95/4 = 25, 26.4, 22.5, 28, 23.75; mean 25.13 um.
+    let c2c = armspace(&["stats", &path_str(&csv)]);
+    let v: Value = serde_json::from_str(&c2c.stdout).unwrap();
+    assert_eq!(v["convention"], "centre-to-centre");
+    assert!((v["mean_um"].as_f64().unwrap() - 25.13).abs() < 1e-9);
     // 5 % needs 13 lines: t(0.975, 12) = 2.179 (NIST/SEMATECH table
     // 1.3.6.7.2): 2.179 x 1.5811 / sqrt(13) = 0.955 <= 1.0 um, while 12 lines
     // give 2.201 x 1.5811 / sqrt(12) = 1.005 > 1.0 um.

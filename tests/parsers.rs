@@ -15,7 +15,11 @@ fn feed(text: &str) {
     let _ = Spec::parse(text, "spec.json");
     let _ = library::parse(text, "user.json", false);
     let _ = armspace::calibrate::profile::parse(text, "x20", "profiles.json");
-    let _ = armspace::manual::parse(text, "lines.csv");
+    let _ = armspace::manual::parse(
+        text,
+        "lines.csv",
+        armspace::methods::intercept::Convention::CentreToCentre,
+    );
     let _ = parse_composition(text);
     let _ = parse_kelvin(text);
     let _ = armspace::calibrate::parse_length(text);
