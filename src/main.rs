@@ -56,10 +56,6 @@ enum Command {
 /// Interpretation of SDAS through a published correlation.
 #[derive(clap::Args)]
 struct AlloyArgs {
-    /// Correlation id (see `armspace correlations`) for cooling rate and
-    /// solidification time (`--alloy` is the old name, still accepted).
-    #[arg(long = "correlation", visible_alias = "alloy", value_name = "ID")]
-    correlation: Option<String>,
     /// Nominal composition in wt%, e.g. Si=7,Cu=0.2 (composition-dependent correlations need it).
     #[arg(long, value_parser = armspace::interpret::parse_composition)]
     composition: Option<armspace::interpret::Composition>,
@@ -75,10 +71,10 @@ struct AlloyArgs {
 }
 
 impl AlloyArgs {
-    /// The interpretation settings, checked against the composition; None
-    /// without --alloy.
-    fn settings(&self) -> Result<Option<armspace::interpret::Settings>, String> {
-        let Some(id) = &self.correlation else {
+    /// The interpretation settings for the correlation `id`, checked against
+    /// the composition; None without one.
+    fn settings(&self, id: Option<&str>) -> Result<Option<armspace::interpret::Settings>, String> {
+        let Some(id) = id else {
             if self.composition.is_some() || self.freezing_range.is_some() || self.extrapolate {
                 return Err(
                     "--composition, --freezing-range and --extrapolate need --correlation".into(),
@@ -114,6 +110,10 @@ struct InterpretArgs {
     /// Its 95% confidence interval, LOW,HIGH (um unless a unit is written), e.g. 36,44.
     #[arg(long, value_parser = parse_interval)]
     ci: Option<[armspace::units::Micrometres; 2]>,
+    /// Correlation id (see `armspace correlations`); `--alloy` is the old
+    /// name, still accepted.
+    #[arg(long = "correlation", visible_alias = "alloy", value_name = "ID")]
+    correlation: String,
     #[command(flatten)]
     alloy: AlloyArgs,
 }
@@ -166,6 +166,10 @@ struct MeasureArgs {
     /// Worker threads (default: one per core).
     #[arg(long, value_parser = clap::value_parser!(u16).range(1..))]
     jobs: Option<u16>,
+    /// Correlation id (see `armspace correlations`) for cooling rate and
+    /// solidification time (`--alloy` is the old name, still accepted).
+    #[arg(long = "correlation", visible_alias = "alloy", value_name = "ID")]
+    correlation: Option<String>,
     #[command(flatten)]
     alloy: AlloyArgs,
     /// SDAS acceptance spec (JSON: limit, zones by file-name pattern, statistic, decision rule).
@@ -380,7 +384,7 @@ fn run_measure(args: MeasureArgs) -> ExitCode {
             return ExitCode::from(EXIT_USAGE);
         }
     };
-    let interpret = match args.alloy.settings() {
+    let interpret = match args.alloy.settings(args.correlation.as_deref()) {
         Ok(s) => s,
         Err(e) => {
             eprintln!("armspace: {e}");
@@ -905,17 +909,13 @@ fn run_correlations(args: CorrelationsArgs) -> ExitCode {
 }
 
 fn run_interpret(args: InterpretArgs) -> ExitCode {
-    if args.alloy.correlation.is_none() {
-        eprintln!("armspace: interpret needs --correlation ID (see `armspace correlations`)");
-        return ExitCode::from(EXIT_USAGE);
-    }
     if let Some([lo, hi]) = args.ci {
         if !(lo.0 <= args.sdas.0 && args.sdas.0 <= hi.0) {
             eprintln!("armspace: the interval --ci does not contain the SDAS value");
             return ExitCode::from(EXIT_USAGE);
         }
     }
-    let settings = match args.alloy.settings() {
+    let settings = match args.alloy.settings(Some(&args.correlation)) {
         Ok(Some(s)) => s,
         Ok(None) => return ExitCode::from(EXIT_USAGE),
         Err(e) => {
