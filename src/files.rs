@@ -221,8 +221,9 @@ pub fn write_output(path: &Path, bytes: &[u8]) -> Result<()> {
         }
         Kind::Regular | Kind::Missing => {}
     }
-    // A link (even one whose target does not exist yet) is followed, so the
-    // link stays and its target is replaced.
+    // A link to an existing file is followed, so the link stays and its
+    // target is replaced; a dangling link cannot be resolved and is itself
+    // replaced by the new file.
     let target = match std::fs::symlink_metadata(path) {
         Ok(m) if m.file_type().is_symlink() => resolved_output(path).ok_or_else(|| {
             err(std::io::Error::new(
