@@ -33,7 +33,7 @@ fi
 
 root=$(cd "$(dirname "$0")/.." && pwd)
 cd "$root"
-cargo build --release --locked --bin armspace --example accuracy_eval >&2
+cargo build --release --locked --features synth --bin armspace --example accuracy_eval >&2
 target=${CARGO_TARGET_DIR:-$root/target}
 bin=$target/release/armspace
 eval_bin=$target/release/examples/accuracy_eval

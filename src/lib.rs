@@ -9,6 +9,7 @@
 pub mod blocks;
 pub mod calibrate;
 pub mod combine;
+pub mod console;
 pub mod error;
 pub mod files;
 pub mod interpret;
@@ -21,6 +22,7 @@ pub mod preprocess;
 pub mod report;
 pub mod segment;
 pub mod stats;
+#[cfg(feature = "synth")]
 pub mod synth;
 pub mod units;
 

@@ -1,0 +1,317 @@
+//! `armspace measure`: images and folders in, the JSON report (and CSV and
+//! pictures) out.
+
+use super::interpret::AlloyArgs;
+use super::{
+    create_overlay_dir, parse_percent, parse_positive, ConventionArg, EXIT_FATAL,
+    EXIT_INDETERMINATE, EXIT_LIMIT_FAILED, EXIT_NOT_MEASURED, EXIT_OK, EXIT_USAGE,
+};
+use armspace::calibrate::{self, parse_length, parse_um_per_px, BarLength, CalibrationRequest};
+use armspace::load::{collect_inputs, LoadOptions, DEFAULT_MAX_MEGAPIXELS};
+use armspace::methods::fft::FftParams;
+use armspace::methods::intercept::InterceptParams;
+use armspace::pipeline::{measure_batch, MeasureOptions, Method};
+use armspace::preprocess::PreprocessParams;
+use armspace::report;
+use clap::ValueEnum;
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+#[derive(clap::Args)]
+pub(super) struct MeasureArgs {
+    /// Image files or folders (walked recursively, sorted, hidden entries ignored).
+    #[arg(required = true)]
+    paths: Vec<PathBuf>,
+    #[command(flatten)]
+    calibration: CalibrationArgs,
+    /// Write the JSON report here (atomically); without it the report goes to stdout.
+    #[arg(long)]
+    out: Option<PathBuf>,
+    /// Measurement method(s).
+    #[arg(long, value_enum, default_value = "all")]
+    method: MethodArg,
+    /// Refuse images with more megapixels than this (checked before decoding).
+    #[arg(long, default_value_t = DEFAULT_MAX_MEGAPIXELS, value_parser = parse_positive, allow_negative_numbers = true)]
+    max_megapixels: f64,
+    /// How an intercept line's spacing is computed from its arm count.
+    #[arg(long, value_enum, default_value = "centre-to-centre")]
+    convention: ConventionArg,
+    /// Target percent relative accuracy of the intercept lines (reports how many lines reach it).
+    #[arg(long, default_value_t = 10.0, value_parser = parse_percent)]
+    target_ra_pct: f64,
+    /// Write a picture per image of what was measured into this folder.
+    #[arg(long)]
+    overlay: Option<PathBuf>,
+    /// Worker threads (default: one per core).
+    #[arg(long, value_parser = clap::value_parser!(u16).range(1..))]
+    jobs: Option<u16>,
+    /// Correlation id (see `armspace correlations`) for cooling rate and
+    /// solidification time (`--alloy` is the old name, still accepted).
+    #[arg(long = "correlation", visible_alias = "alloy", value_name = "ID")]
+    correlation: Option<String>,
+    #[command(flatten)]
+    alloy: AlloyArgs,
+    /// SDAS acceptance spec (JSON: limit, zones by file-name pattern, statistic, decision rule).
+    #[arg(long)]
+    spec: Option<PathBuf>,
+    /// Also write a CSV summary, a row per image (atomically).
+    #[arg(long)]
+    csv: Option<PathBuf>,
+}
+
+/// Calibration sources. Precedence: --um-per-px, then --profile, then the
+/// scale bar, then TIFF resolution tags.
+#[derive(clap::Args)]
+struct CalibrationArgs {
+    /// Calibration: micrometres per pixel (takes precedence over every other source).
+    #[arg(long, value_parser = parse_um_per_px, allow_negative_numbers = true)]
+    um_per_px: Option<armspace::units::UmPerPx>,
+    /// Physical length of the scale bar burned into the images, with its unit (100um, 0.1mm, 500nm).
+    #[arg(long, value_parser = parse_length, allow_hyphen_values = true)]
+    scale_bar: Option<armspace::units::Micrometres>,
+    /// Stated relative uncertainty of the scale bar itself, in percent.
+    #[arg(long, value_parser = parse_percent, requires = "scale_bar")]
+    scale_bar_uncertainty_pct: Option<f64>,
+    /// Calibration profile file (JSON, named profiles per objective or camera).
+    #[arg(long, requires = "profile")]
+    profiles: Option<PathBuf>,
+    /// Name of the profile to use from --profiles.
+    #[arg(long, requires = "profiles")]
+    profile: Option<String>,
+    /// The calibration to trust when the given ones conflict beyond their
+    /// uncertainties (otherwise such an image is not decided).
+    #[arg(long, value_enum)]
+    trust_calibration: Option<TrustArg>,
+}
+
+#[derive(Clone, Copy, ValueEnum)]
+enum TrustArg {
+    /// The --um-per-px value.
+    Manual,
+    /// The --profile value.
+    Profile,
+    /// The measured scale bar.
+    ScaleBar,
+}
+
+impl CalibrationArgs {
+    fn request(&self) -> Result<CalibrationRequest, String> {
+        let profile = match (&self.profiles, &self.profile) {
+            (Some(file), Some(name)) => Some(calibrate::profile::load(file, name)?),
+            _ => None,
+        };
+        Ok(CalibrationRequest {
+            manual: self.um_per_px,
+            profile,
+            scale_bar: self.scale_bar.map(|length| BarLength {
+                length,
+                rel_uncertainty: self.scale_bar_uncertainty_pct.unwrap_or(0.0) / 100.0,
+            }),
+            trust: self.trust_calibration.map(|t| match t {
+                TrustArg::Manual => calibrate::CalibrationSource::Manual,
+                TrustArg::Profile => calibrate::CalibrationSource::Profile,
+                TrustArg::ScaleBar => calibrate::CalibrationSource::ScaleBar,
+            }),
+        })
+    }
+}
+
+#[derive(Clone, Copy, ValueEnum)]
+enum MethodArg {
+    Fft,
+    Intercept,
+    Centres,
+    All,
+}
+
+pub(super) fn run(args: MeasureArgs) -> ExitCode {
+    let methods = match args.method {
+        MethodArg::Fft => vec![Method::Fft],
+        MethodArg::Intercept => vec![Method::Intercept],
+        MethodArg::Centres => vec![Method::Centres],
+        MethodArg::All => Method::ALL.to_vec(),
+    };
+    let calibration = match args.calibration.request() {
+        Ok(c) => c,
+        Err(e) => {
+            eprintln!("armspace: {e}");
+            return ExitCode::from(EXIT_USAGE);
+        }
+    };
+    let interpret = match args.alloy.settings(args.correlation.as_deref()) {
+        Ok(s) => s,
+        Err(e) => {
+            eprintln!("armspace: {e}");
+            return ExitCode::from(EXIT_USAGE);
+        }
+    };
+    if let (Some(csv), Some(out)) = (&args.csv, &args.out) {
+        if csv == out {
+            eprintln!(
+                "armspace: --csv and --out name the same file ({}); give each its own",
+                csv.display()
+            );
+            return ExitCode::from(EXIT_USAGE);
+        }
+    }
+    let spec = match args
+        .spec
+        .as_deref()
+        .map(armspace::interpret::acceptance::Spec::load)
+    {
+        None => None,
+        Some(Ok(s)) => Some(s),
+        Some(Err(e)) => {
+            eprintln!("armspace: {e}");
+            return ExitCode::from(EXIT_USAGE);
+        }
+    };
+    let opts = MeasureOptions {
+        calibration,
+        load: LoadOptions {
+            max_megapixels: args.max_megapixels,
+        },
+        preprocess: PreprocessParams::default(),
+        fft: FftParams::default(),
+        intercept: InterceptParams {
+            convention: args.convention.convention(),
+            ..InterceptParams::default()
+        },
+        target_rel_accuracy_pct: args.target_ra_pct,
+        methods,
+        overlay_dir: args.overlay.clone(),
+        protected: Default::default(),
+        interpret,
+        spec,
+    };
+    let inputs = collect_inputs(&args.paths);
+    if !inputs
+        .iter()
+        .any(|i| !matches!(i, armspace::load::Input::Skipped { .. }))
+    {
+        eprintln!("armspace: no image files found in the given paths");
+        return ExitCode::from(EXIT_NOT_MEASURED);
+    }
+    // Every output is checked before the first image is measured: none may
+    // replace an input (after resolving links), and each must be writable.
+    let mut protected = armspace::files::Protected::new(inputs.iter().filter_map(|i| match i {
+        armspace::load::Input::Image(p) => Some(p.as_path()),
+        _ => None,
+    }));
+    for p in [
+        args.spec.as_deref(),
+        args.calibration.profiles.as_deref(),
+        args.alloy.correlations.as_deref(),
+    ]
+    .into_iter()
+    .flatten()
+    {
+        protected.add(p);
+    }
+    for (path, role) in [(&args.out, "report"), (&args.csv, "CSV summary")] {
+        if let Some(path) = path {
+            if let Err(e) = protected.check_output(path, role) {
+                eprintln!("armspace: {e}");
+                return ExitCode::from(EXIT_USAGE);
+            }
+        }
+    }
+    if let Err(code) = create_overlay_dir(args.overlay.as_deref()) {
+        return code;
+    }
+    let opts = MeasureOptions { protected, ..opts };
+    let pool = match rayon::ThreadPoolBuilder::new()
+        .num_threads(args.jobs.map_or(0, usize::from))
+        .build()
+    {
+        Ok(p) => p,
+        Err(e) => {
+            eprintln!("armspace: cannot start worker threads: {e}");
+            return ExitCode::from(EXIT_FATAL);
+        }
+    };
+    // The progress counts images only: skipped entries are listed at the end.
+    let images = inputs
+        .iter()
+        .filter(|i| !matches!(i, armspace::load::Input::Skipped { .. }))
+        .count();
+    let progress = progress_bar(images);
+    // Each image's lines as soon as it is measured (the report keeps input
+    // order); printed above the progress bar.
+    let on_done = |r: &armspace::pipeline::ImageResult| {
+        let img = report::image_report(r, &opts);
+        progress.suspend(|| {
+            for line in armspace::console::image_lines(&img) {
+                eprintln!("{line}");
+            }
+        });
+        progress.inc(1);
+    };
+    let (results, skipped) = pool.install(|| measure_batch(&inputs, &opts, &on_done));
+    progress.finish_and_clear();
+    let given: Vec<String> = args.paths.iter().map(|p| p.display().to_string()).collect();
+    let rep = report::build(&given, &opts, &results, &skipped, report::now_utc());
+    let json = report::to_json(&rep);
+    for s in &rep.skipped {
+        eprintln!("skipped  {}: {}", s.file, s.reason);
+    }
+    // The report first, then the CSV; one failing never costs the other.
+    let mut write_failed = false;
+    match &args.out {
+        Some(path) => match armspace::files::write_output(path, json.as_bytes()) {
+            Ok(()) => eprintln!("report written to {}", path.display()),
+            Err(e) => {
+                eprintln!("armspace: {e}");
+                write_failed = true;
+            }
+        },
+        None => {
+            if let Err(e) = armspace::files::write_stdout(&json) {
+                eprintln!("armspace: cannot write the report to standard output: {e}");
+                write_failed = true;
+            }
+        }
+    }
+    if let Some(path) = &args.csv {
+        let written = report::csv_summary(&rep)
+            .map_err(|e| format!("{}: {e}", path.display()))
+            .and_then(|text| {
+                armspace::files::write_output(path, text.as_bytes()).map_err(|e| e.to_string())
+            });
+        match written {
+            Ok(()) => eprintln!("CSV summary written to {}", path.display()),
+            Err(e) => {
+                eprintln!("armspace: {e}");
+                write_failed = true;
+            }
+        }
+    }
+    for line in armspace::console::batch_lines(&rep) {
+        eprintln!("{line}");
+    }
+    if write_failed {
+        return ExitCode::from(EXIT_FATAL);
+    }
+    ExitCode::from(match report::outcome(&rep) {
+        report::Outcome::Ok => EXIT_OK,
+        report::Outcome::LimitFailed => EXIT_LIMIT_FAILED,
+        report::Outcome::NotMeasured => EXIT_NOT_MEASURED,
+        report::Outcome::Indeterminate => EXIT_INDETERMINATE,
+    })
+}
+
+/// A progress bar on stderr when stderr is a terminal; hidden otherwise, so
+/// that logs and pipes get no control characters.
+fn progress_bar(len: usize) -> indicatif::ProgressBar {
+    use std::io::IsTerminal;
+    if !std::io::stderr().is_terminal() {
+        return indicatif::ProgressBar::hidden();
+    }
+    let bar = indicatif::ProgressBar::new(len as u64);
+    if let Ok(style) = indicatif::ProgressStyle::with_template(
+        "{bar:40} {pos}/{len} images, {elapsed} elapsed, about {eta} left",
+    ) {
+        bar.set_style(style);
+    }
+    bar
+}

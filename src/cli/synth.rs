@@ -1,0 +1,101 @@
+//! `armspace synth` (built with `--features synth`): synthetic micrographs
+//! of known SDAS and their truth.json.
+
+use super::{EXIT_FATAL, EXIT_OK, EXIT_USAGE};
+use clap::ValueEnum;
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+#[derive(clap::Args)]
+pub(super) struct SynthArgs {
+    /// Output folder (created if needed).
+    outdir: PathBuf,
+    /// Seed of the random generator; the same seed gives the same images.
+    #[arg(long, default_value_t = 1)]
+    seed: u64,
+    /// Number of images.
+    #[arg(long, default_value_t = 8, value_parser = clap::value_parser!(u32).range(1..=10000))]
+    count: u32,
+    /// Render the fields described in this JSON file instead of random ones
+    /// ({"images": [{"file": "a.png", "spec": {...}}]}; see DEVELOPERS.md).
+    /// (`--specs` is the old name, still accepted.)
+    #[arg(long = "fields", visible_alias = "specs", value_name = "FILE", conflicts_with_all = ["seed", "count", "style"])]
+    fields: Option<PathBuf>,
+    /// Draw every field in one style (clean: smooth bars with the nuisances
+    /// only; etched: the look of an etched section; cut: arms cut across,
+    /// rows of spots; dense: packed equiaxed grains; lace: arms with a
+    /// eutectic lace between them; binary: one of those thresholded to two
+    /// phases; featureless: no dendrites at all); by default clean and
+    /// etched alternate. The same seed gives the same fields in any style.
+    #[arg(long, value_enum)]
+    style: Option<SynthStyle>,
+    /// Write into a folder that already holds files (images of the same
+    /// names and truth.json are replaced; others stay and are not in the truth).
+    #[arg(long)]
+    replace: bool,
+}
+
+#[derive(Clone, Copy, ValueEnum)]
+enum SynthStyle {
+    Clean,
+    Etched,
+    Cut,
+    Dense,
+    Lace,
+    Binary,
+    Featureless,
+}
+
+pub(super) fn run(args: SynthArgs) -> ExitCode {
+    // A set mixed with an older one would carry a truth.json that does not
+    // describe every image beside it: refuse unless asked.
+    let holds_files = std::fs::read_dir(&args.outdir)
+        .map(|mut d| d.next().is_some())
+        .unwrap_or(false);
+    if holds_files && !args.replace {
+        eprintln!(
+            "armspace: {}: the folder is not empty; choose an empty or new folder, or give --replace",
+            args.outdir.display()
+        );
+        return ExitCode::from(EXIT_USAGE);
+    }
+    let result = match &args.fields {
+        None => {
+            let style = args.style.map(|s| match s {
+                SynthStyle::Clean => armspace::synth::Style::Clean,
+                SynthStyle::Etched => armspace::synth::Style::Etched,
+                SynthStyle::Cut => armspace::synth::Style::Cut,
+                SynthStyle::Dense => armspace::synth::Style::Dense,
+                SynthStyle::Lace => armspace::synth::Style::Lace,
+                SynthStyle::Binary => armspace::synth::Style::Binary,
+                SynthStyle::Featureless => armspace::synth::Style::Featureless,
+            });
+            armspace::synth::write_set_styled(&args.outdir, args.seed, args.count as usize, style)
+                .map_err(|e| e.to_string())
+        }
+        Some(path) => armspace::files::read_text(path, "field-description file")
+            .map_err(|e| e.to_string())
+            .and_then(|text| {
+                serde_json::from_str::<armspace::synth::SpecFile>(&text)
+                    .map_err(|e| format!("{}: not a valid spec file: {e}", path.display()))
+            })
+            .and_then(|file| {
+                armspace::synth::write_specs(&args.outdir, &file.images, None)
+                    .map_err(|e| format!("{}: {e}", path.display()))
+            }),
+    };
+    match result {
+        Ok(truths) => {
+            eprintln!(
+                "wrote {} image(s) and truth.json to {}",
+                truths.len(),
+                args.outdir.display()
+            );
+            ExitCode::from(EXIT_OK)
+        }
+        Err(e) => {
+            eprintln!("armspace: {e}");
+            ExitCode::from(EXIT_FATAL)
+        }
+    }
+}

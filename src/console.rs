@@ -1,0 +1,121 @@
+//! The lines a person reads on the terminal while a batch is measured: each
+//! image's value or why there is none, its decision naming what was
+//! compared, its interpretation and warnings, and the batch summary. Pure
+//! text from the report types; the binary prints it.
+
+use crate::interpret::acceptance::Statistic;
+use crate::interpret::Quantity;
+use crate::report::{self, ImageReport, Report};
+
+/// An image's lines: its value or why there is none, the decision naming
+/// what was compared, the interpretation, and its warnings.
+pub fn image_lines(img: &ImageReport) -> Vec<String> {
+    let mut lines = Vec::new();
+    match (&img.error, img.sdas_um.value) {
+        (Some(e), _) => lines.push(format!("error    {e}")),
+        (None, Some(v)) => {
+            // As many decimals as the report keeps (two significant digits
+            // of the interval's half-width).
+            let d = img
+                .sdas_um
+                .ci95
+                .map_or(2, |[a, b]| report::digits_for_uncertainty(0.5 * (b - a)))
+                .clamp(0, 4) as usize;
+            let ci = img
+                .sdas_um
+                .ci95
+                .map(|[a, b]| format!(" (95% CI {a:.d$} to {b:.d$})"))
+                .unwrap_or_default();
+            lines.push(format!(
+                "measured {}: SDAS {v:.d$} um{ci}, n = {} ({:.1} independent)",
+                img.file, img.sdas_um.n, img.sdas_um.n_eff
+            ));
+        }
+        (None, None) => lines.push(format!(
+            "no value {}: {}",
+            img.file,
+            img.sdas_um.reason.as_deref().unwrap_or("no reason given")
+        )),
+    }
+    if let Some(a) = &img.acceptance {
+        let zone = a
+            .zone
+            .as_deref()
+            .map(|z| format!(" [{z}]"))
+            .unwrap_or_default();
+        // What was compared, named, with its interval and the limit.
+        let statistic = match a.statistic {
+            Statistic::Value => "image value",
+            Statistic::MaxLocal => "largest local value",
+        };
+        let compared = match (a.compared_um, a.compared_ci95_um, a.limit_um) {
+            (Some(v), Some([lo, hi]), Some(l)) => {
+                format!(" ({statistic} {v:.2} um, 95% CI {lo:.2} to {hi:.2}; limit {l} um)")
+            }
+            (Some(v), None, Some(l)) => format!(" ({statistic} {v:.2} um; limit {l} um)"),
+            (None, _, Some(l)) => format!(" ({statistic}: none; limit {l} um)"),
+            _ => String::new(),
+        };
+        lines.push(match a.decision {
+            Some(d) => format!(
+                "  {}{zone}{compared}: {}",
+                d.name().to_uppercase(),
+                a.reason
+            ),
+            None => format!("  NOT ASSESSED{zone}: {}", a.reason),
+        });
+    }
+    if let Some(i) = &img.interpretation {
+        let q = |name: &str, unit: &str, v: &Quantity| match (v.value, v.ci95) {
+            (Some(x), Some([a, b])) => format!("{name} {x} {unit} (95% CI {a} to {b})"),
+            (Some(x), None) => format!("{name} {x} {unit}"),
+            _ => format!("{name}: none"),
+        };
+        lines.push(format!(
+            "  {}; {} [{}]",
+            q("cooling rate", "K/s", &i.cooling_rate_k_per_s),
+            q("solidification time", "s", &i.solidification_time_s),
+            i.correlation.id
+        ));
+    }
+    for w in &img.warnings {
+        lines.push(format!("  warning: {w}"));
+    }
+    lines
+}
+
+/// The batch's closing lines: counts, each acceptance zone's tally and the
+/// batch verdict.
+pub fn batch_lines(rep: &Report) -> Vec<String> {
+    let s = &rep.summary;
+    let mut lines = vec![format!(
+        "{} image(s): {} measured, {} without a value, {} failed, {} skipped",
+        s.images, s.measured, s.without_value, s.failed, s.skipped
+    )];
+    if let Some(a) = &s.acceptance {
+        for z in &a.zones {
+            lines.push(format!(
+                "zone {} (limit {} um): {} image(s), {} pass, {} fail, {} indeterminate: {}",
+                z.zone.as_deref().unwrap_or("(general limit)"),
+                z.limit_um.map_or("none".into(), |l| l.to_string()),
+                z.images,
+                z.pass,
+                z.fail,
+                z.indeterminate,
+                z.verdict.map_or("no images", |d| d.name())
+            ));
+        }
+        if a.not_assessed > 0 {
+            lines.push(format!(
+                "{} image(s) matched no zone and were not assessed",
+                a.not_assessed
+            ));
+        }
+        lines.push(format!(
+            "batch verdict: {}",
+            a.verdict
+                .map_or("no images".to_string(), |d| d.name().to_uppercase())
+        ));
+    }
+    lines
+}
