@@ -183,34 +183,52 @@ impl Seen {
     }
 }
 
+/// Walks a folder with `walkdir` (links followed, entries sorted by name,
+/// depth first), which stops at a link back to a folder above it; a folder
+/// met a second time by another link is named and not walked again.
 fn walk(dir: &Path, out: &mut Vec<Input>, seen: &mut Seen) {
-    if let Some(first) = seen.folder(dir) {
-        out.push(Input::Skipped {
-            path: dir.to_path_buf(),
-            reason: format!(
-                "a link back to {} (already walked); each folder is measured once",
-                first.display()
-            ),
-        });
-        return;
-    }
-    let mut entries: Vec<PathBuf> = match std::fs::read_dir(dir) {
-        Ok(rd) => rd.filter_map(|e| e.ok().map(|e| e.path())).collect(),
-        Err(e) => {
-            out.push(Input::Skipped {
-                path: dir.to_path_buf(),
-                reason: format!("folder cannot be read: {e}"),
-            });
-            return;
-        }
-    };
-    entries.sort();
-    for p in entries {
-        if is_hidden(&p) {
-            continue;
-        }
+    let mut entries = walkdir::WalkDir::new(dir)
+        .follow_links(true)
+        .sort_by_file_name()
+        .into_iter()
+        .filter_entry(|e| e.depth() == 0 || !is_hidden(e.path()));
+    while let Some(entry) = entries.next() {
+        let entry = match entry {
+            Ok(e) => e,
+            Err(e) => {
+                let path = e.path().unwrap_or(dir).to_path_buf();
+                let reason = if let Some(ancestor) = e.loop_ancestor() {
+                    format!(
+                        "a link back to {} (already walked); each folder is measured once",
+                        ancestor.display()
+                    )
+                } else if e.depth() > 0 && crate::files::kind(&path) == crate::files::Kind::Missing
+                {
+                    "a link to nothing".into()
+                } else {
+                    match e.io_error() {
+                        Some(io) => format!("folder cannot be read: {io}"),
+                        None => format!("folder cannot be read: {e}"),
+                    }
+                };
+                out.push(Input::Skipped { path, reason });
+                continue;
+            }
+        };
+        let p = entry.path().to_path_buf();
         match crate::files::kind(&p) {
-            crate::files::Kind::Folder => walk(&p, out, seen),
+            crate::files::Kind::Folder => {
+                if let Some(first) = seen.folder(&p) {
+                    out.push(Input::Skipped {
+                        reason: format!(
+                            "a link back to {} (already walked); each folder is measured once",
+                            first.display()
+                        ),
+                        path: p,
+                    });
+                    entries.skip_current_dir();
+                }
+            }
             crate::files::Kind::Special => out.push(Input::Skipped {
                 path: p,
                 reason: "not a regular file (a FIFO, device or socket); not read".into(),
