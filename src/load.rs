@@ -458,7 +458,8 @@ fn replace_non_finite(
         .copied()
         .filter(|v| v.is_finite())
         .collect();
-    let fill = crate::stats::median_in_place(&mut finite) as f32;
+    // At most 1 % of the pixels are not finite here, so the median exists.
+    let fill = crate::stats::median_in_place(&mut finite).unwrap_or(0.0) as f32;
     for v in image.data.iter_mut().filter(|v| !v.is_finite()) {
         *v = fill;
     }

@@ -87,15 +87,15 @@ pub fn robust_location_scale(data: &[f32], mask: Option<&[bool]>) -> (f64, f64) 
         .filter(|(i, _)| !mask.is_some_and(|m| m[*i]))
         .map(|(_, v)| *v)
         .collect();
-    if sample.is_empty() {
+    // The same medians as `stats::median_in_place`, by radix selection; an
+    // empty sample (everything masked) has neither level nor spread.
+    let Some(med) = crate::blocks::select::median_by_selection(&sample) else {
         return (0.0, 0.0);
-    }
-    // The same medians as `stats::median_in_place`, by radix selection.
-    let med = crate::blocks::select::median_by_selection(&sample);
+    };
     for v in sample.iter_mut() {
         *v = (*v - med as f32).abs();
     }
-    let mad = crate::blocks::select::median_by_selection(&sample);
+    let mad = crate::blocks::select::median_by_selection(&sample).unwrap_or(0.0);
     (med, 1.4826 * mad)
 }
 

@@ -4,21 +4,25 @@
 use serde::Serialize;
 use statrs::distribution::{ContinuousCDF, StudentsT};
 
-/// Median of a slice, reordering it. Returns 0 for an empty slice.
-pub fn median_in_place(v: &mut [f32]) -> f64 {
+/// Median of a slice, reordering it: the middle value, or the mean of the
+/// two middle ones; `None` for an empty slice, as [`median`]. (The crate's
+/// one median: [`median`] for values that must stay in order, and
+/// `blocks::select::median_by_selection`, the same number bit for bit by
+/// radix selection for large images, are the same definition.)
+pub fn median_in_place(v: &mut [f32]) -> Option<f64> {
     if v.is_empty() {
-        return 0.0;
+        return None;
     }
     let n = v.len();
     let mid = n / 2;
     let (_, m, _) = v.select_nth_unstable_by(mid, |a, b| a.total_cmp(b));
     let upper = *m as f64;
-    if n % 2 == 1 {
+    Some(if n % 2 == 1 {
         upper
     } else {
         let lower = v[..mid].iter().copied().fold(f32::NEG_INFINITY, f32::max) as f64;
         0.5 * (lower + upper)
-    }
+    })
 }
 
 /// The 0.975 quantile of the standard normal distribution: the coverage
@@ -246,7 +250,9 @@ mod tests {
         assert_eq!(median(&[3.0, 1.0, 2.0]), Some(2.0));
         assert_eq!(median(&[4.0, 1.0, 3.0, 2.0]), Some(2.5));
         let mut v = [4.0f32, 1.0, 3.0, 2.0];
-        assert_eq!(median_in_place(&mut v), 2.5);
+        assert_eq!(median_in_place(&mut v), Some(2.5));
+        assert_eq!(median_in_place(&mut []), None);
+        assert_eq!(median(&[]), None);
         assert_eq!(
             weighted_median(&[1.0, 2.0, 3.0], &[1.0, 1.0, 5.0]),
             Some(3.0)

@@ -65,19 +65,19 @@ pub fn select_ranks<const K: usize, I: Iterator<Item = f32>>(
 
 /// The median of `v` as [`crate::stats::median_in_place`] gives it (the
 /// middle value, or the mean of the two middle ones), by radix selection
-/// ([`select_ranks`]), without reordering `v`. 0 for an empty slice. For
+/// ([`select_ranks`]), without reordering `v`. `None` for an empty slice. For
 /// finite values the same number, bit for bit (the lower middle value of
 /// an even count is the largest of the lower half either way).
-pub fn median_by_selection(v: &[f32]) -> f64 {
+pub fn median_by_selection(v: &[f32]) -> Option<f64> {
     let n = v.len();
     if n == 0 {
-        return 0.0;
+        return None;
     }
     let mid = n / 2;
-    if n % 2 == 1 {
+    Some(if n % 2 == 1 {
         select_ranks(|| v.iter().copied(), n, [mid])[0] as f64
     } else {
         let [lower, upper] = select_ranks(|| v.iter().copied(), n, [mid - 1, mid]);
         0.5 * (lower as f64 + upper as f64)
-    }
+    })
 }

@@ -30,10 +30,12 @@ use crate::load::GrayImage;
 use serde::Serialize;
 
 /// Which way the bar contrasts with what surrounds it.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, serde::Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub enum Polarity {
+    /// A dark bar on lighter surroundings.
     DarkOnLight,
+    /// A light bar on darker surroundings.
     LightOnDark,
 }
 
@@ -207,17 +209,15 @@ fn groups(img: &GrayImage, is_cand: &impl Fn(f32) -> bool) -> Vec<Group> {
     done
 }
 
-fn median_usize(v: &[usize]) -> usize {
-    let mut s = v.to_vec();
-    s.sort_unstable();
-    s[s.len() / 2]
+/// The median of pixel positions (the crate's one median), rounded to the
+/// nearest pixel; `None` for none.
+fn median_position(v: &[usize]) -> Option<usize> {
+    let v: Vec<f64> = v.iter().map(|&p| p as f64).collect();
+    crate::stats::median(&v).map(|m| m.round() as usize)
 }
 
 fn median_f32(mut v: Vec<f32>) -> Option<f32> {
-    if v.is_empty() {
-        return None;
-    }
-    Some(crate::stats::median_in_place(&mut v) as f32)
+    crate::stats::median_in_place(&mut v).map(|m| m as f32)
 }
 
 fn examine(
@@ -228,8 +228,8 @@ fn examine(
     range: f32,
 ) -> Option<ScaleBar> {
     let (w, h) = (img.width, img.height);
-    let x0 = median_usize(&g.starts);
-    let x1 = median_usize(&g.ends);
+    let x0 = median_position(&g.starts)?;
+    let x1 = median_position(&g.ends)?;
     let (y0, y1) = (g.y0, g.last_y());
     let thickness = y1 - y0 + 1;
     let length = x1 - x0 + 1;

@@ -252,10 +252,6 @@ pub struct CorrelationRef {
     pub measuring_convention: String,
 }
 
-/// 95 % coverage factor of a normal distribution, for the published scatter
-/// (given as one standard deviation).
-const K95: f64 = 1.96;
-
 /// A value more than this factor outside the fitted range is given only on
 /// request (an explicit extrapolation).
 pub const FAR_OUTSIDE: f64 = 3.0;
@@ -605,7 +601,7 @@ fn sdas_interval(
     ci95: Option<[Micrometres; 2]>,
     scatter_pct: Option<f64>,
 ) -> Option<[f64; 2]> {
-    let fit = scatter_pct.map_or(0.0, |s| K95 * (1.0 + s / 100.0).ln());
+    let fit = scatter_pct.map_or(0.0, |s| crate::stats::Z95 * (1.0 + s / 100.0).ln());
     let (d_lo, d_hi) = match ci95 {
         Some([lo, hi]) if lo.0 > 0.0 && hi.0 >= lo.0 => {
             ((value / lo.0).ln().max(0.0), (hi.0 / value).ln().max(0.0))

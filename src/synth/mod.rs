@@ -79,15 +79,10 @@ pub enum Style {
     Featureless,
 }
 
-/// Contrast of the scale bar against its surroundings.
-#[derive(Serialize, Deserialize, Clone, Copy, Debug, PartialEq, Eq)]
-#[serde(rename_all = "kebab-case")]
-pub enum Polarity {
-    /// Black bar (grey level 0), on a light backing box if one is drawn.
-    DarkOnLight,
-    /// White bar (full scale), on a dark backing box if one is drawn.
-    LightOnDark,
-}
+/// Contrast of the scale bar against its surroundings: the calibration's
+/// own type (a black bar is drawn at grey level 0, on a light backing box if
+/// one is drawn; a white bar at full scale, on a dark box).
+pub use crate::calibrate::scale_bar::Polarity;
 
 /// Lower corner holding the scale bar.
 #[derive(Serialize, Deserialize, Clone, Copy, Debug, PartialEq, Eq)]

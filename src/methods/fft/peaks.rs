@@ -474,7 +474,8 @@ impl CandidateSearch {
             self.ring_vals
                 .extend(bins.iter().map(|&i| smooth[i as usize] as f32));
             self.background
-                .push(stats::median_in_place(&mut self.ring_vals));
+                .push(stats::median_in_place(&mut self.ring_vals).unwrap_or(0.0));
+            // a ring without bins has no background
         }
         let background = &self.background;
         let ni = n as i64;

@@ -18,6 +18,11 @@ pub(crate) struct LayScratch {
     pub(crate) occupied: Vec<bool>,
 }
 
+/// Lays test lines along the trunks at the scale `lambda` (px): candidate
+/// starts on a grid of one spacing where the structure tensor is coherent
+/// (and agrees with a direction hint when one is given), strongest first;
+/// each line is traced along the local arm direction, sampled, counted, and
+/// marks its pixels as taken so that no two lines share a stretch.
 pub(crate) fn lay_lines(
     img: &Prepared,
     seg: &PhaseField,

@@ -100,8 +100,9 @@ pub enum Convention {
     /// Distance between the first and last arm centres divided by the number
     /// of spacings between them, L/(n-1).
     CentreToCentre,
-    /// Length of the line divided by the number of arms it crosses, L/n, with
-    /// an arm cut by an end of the line counted as one half.
+    /// Length over count, L/n: L runs from the middle of the gap before the
+    /// first whole arm to the middle of the gap after the last, so that it
+    /// spans n whole periods; arms cut by the line's ends are not counted.
     LengthOverCount,
 }
 
@@ -517,6 +518,10 @@ fn arm_line_fraction(field: &PhaseField, segments: &[Segment]) -> Option<f64> {
     (total > 0).then(|| fg as f64 / total as f64)
 }
 
+/// The method's value from its counted lines: lines further than 3.5 robust
+/// standard deviations from the median are left out (modified z-score), and
+/// the rest give the mean, its Student's t 95 % interval and %RA; fewer than
+/// two lines give no value, with the reason.
 fn aggregate(lines: Vec<Line>) -> InterceptOutcome {
     let all: Vec<f64> = lines.iter().map(|l| l.spacing_px).collect();
     let (Some(med), n_found) = (stats::median(&all), lines.len()) else {
@@ -643,7 +648,8 @@ fn phase_field(seg: Segmentation, sigma: f64) -> PhaseField {
         .map(|(g, _)| *g)
         .step_by(7)
         .collect();
-    let level = median_by_selection(&arm) as f32;
+    // No arm pixel at all: the level is the image's floor (0), as before.
+    let level = median_by_selection(&arm).unwrap_or(0.0) as f32;
     PhaseField {
         w: seg.width,
         h: seg.height,

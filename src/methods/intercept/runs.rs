@@ -134,7 +134,8 @@ pub struct Count {
     pub spacings: usize,
     /// Centre-to-centre spacing, L/(n-1).
     pub centre_to_centre: f64,
-    /// Line length over count, L/n, with half counts for arms cut by the ends.
+    /// Length over count, L/n, with L from the middle of the gap before the
+    /// first arm to the middle of the gap after the last (n whole periods).
     pub length_over_count: f64,
     /// Start and end of the piece of line counted, pixels from the line start.
     pub extent: (f64, f64),
