@@ -209,11 +209,14 @@ fn groups(img: &GrayImage, is_cand: &impl Fn(f32) -> bool) -> Vec<Group> {
     done
 }
 
-/// The median of pixel positions (the crate's one median), rounded to the
-/// nearest pixel; `None` for none.
-fn median_position(v: &[usize]) -> Option<usize> {
-    let v: Vec<f64> = v.iter().map(|&p| p as f64).collect();
-    crate::stats::median(&v).map(|m| m.round() as usize)
+/// The middle of the rows' end positions: the order statistic of rank
+/// n/2 (the upper middle one for an even count), not the crate's median,
+/// because a bar's end must be a pixel some row really has (the mean of two
+/// middle ones may fall between them). `None` for no rows.
+fn middle_position(v: &[usize]) -> Option<usize> {
+    let mut s = v.to_vec();
+    let mid = s.len() / 2;
+    (!s.is_empty()).then(|| *s.select_nth_unstable(mid).1)
 }
 
 fn median_f32(mut v: Vec<f32>) -> Option<f32> {
@@ -228,8 +231,8 @@ fn examine(
     range: f32,
 ) -> Option<ScaleBar> {
     let (w, h) = (img.width, img.height);
-    let x0 = median_position(&g.starts)?;
-    let x1 = median_position(&g.ends)?;
+    let x0 = middle_position(&g.starts)?;
+    let x1 = middle_position(&g.ends)?;
     let (y0, y1) = (g.y0, g.last_y());
     let thickness = y1 - y0 + 1;
     let length = x1 - x0 + 1;
