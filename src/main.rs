@@ -73,12 +73,16 @@ struct AlloyArgs {
 impl AlloyArgs {
     /// The interpretation settings for the correlation `id`, checked against
     /// the composition; None without one.
-    fn settings(&self, id: Option<&str>) -> Result<Option<armspace::interpret::Settings>, String> {
+    fn settings(
+        &self,
+        id: Option<&str>,
+    ) -> armspace::Result<Option<armspace::interpret::Settings>> {
         let Some(id) = id else {
             if self.composition.is_some() || self.freezing_range.is_some() || self.extrapolate {
-                return Err(
-                    "--composition, --freezing-range and --extrapolate need --correlation".into(),
-                );
+                return Err(armspace::Error::Usage {
+                    reason: "--composition, --freezing-range and --extrapolate need --correlation"
+                        .into(),
+                });
             }
             return Ok(None);
         };
@@ -119,10 +123,11 @@ struct InterpretArgs {
 }
 
 /// "36,44" or "36um,44um" as an interval in micrometres, lower bound first.
-fn parse_interval(s: &str) -> Result<[armspace::units::Micrometres; 2], String> {
+fn parse_interval(s: &str) -> armspace::Result<[armspace::units::Micrometres; 2]> {
+    let unusable = |reason: String| armspace::Error::Value { reason };
     let (a, b) = s
         .split_once(',')
-        .ok_or_else(|| format!("'{s}': write the interval as LOW,HIGH, e.g. 36,44"))?;
+        .ok_or_else(|| unusable(format!("'{s}': write the interval as LOW,HIGH, e.g. 36,44")))?;
     let one = |t: &str| {
         let t = t.trim();
         if t.chars().all(|c| c.is_ascii_digit() || c == '.') {
@@ -133,7 +138,9 @@ fn parse_interval(s: &str) -> Result<[armspace::units::Micrometres; 2], String> 
     };
     let (a, b) = (one(a)?, one(b)?);
     if a.0 > b.0 {
-        return Err(format!("'{s}': the lower bound is above the upper one"));
+        return Err(unusable(format!(
+            "'{s}': the lower bound is above the upper one"
+        )));
     }
     Ok([a, b])
 }
@@ -216,7 +223,7 @@ enum TrustArg {
 }
 
 impl CalibrationArgs {
-    fn request(&self) -> Result<CalibrationRequest, String> {
+    fn request(&self) -> armspace::Result<CalibrationRequest> {
         let profile = match (&self.profiles, &self.profile) {
             (Some(file), Some(name)) => Some(calibrate::profile::load(file, name)?),
             _ => None,
@@ -779,7 +786,6 @@ fn run_stats(args: StatsArgs) -> ExitCode {
     };
     let origin = args.file.display().to_string();
     let result = armspace::files::read_text(&args.file, "file of measured lines")
-        .map_err(|e| e.to_string())
         .and_then(|text| armspace::manual::parse(&text, &origin, convention))
         .and_then(|lines| {
             armspace::manual::summarise(lines, &origin, args.target_ra_pct, convention)
@@ -883,7 +889,7 @@ fn print_json(value: &impl serde::Serialize) -> Result<(), ExitCode> {
 /// The built-in correlations, plus those of a user's file when one is given.
 fn load_library(
     file: Option<&std::path::Path>,
-) -> Result<Vec<armspace::interpret::Correlation>, String> {
+) -> armspace::Result<Vec<armspace::interpret::Correlation>> {
     match file {
         Some(path) => armspace::interpret::library::with_file(path),
         None => Ok(armspace::interpret::library::builtin()),

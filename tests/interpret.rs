@@ -481,9 +481,9 @@ fn outside_the_fitted_range_warns_and_far_outside_needs_the_flag() {
 #[test]
 fn compositions_are_required_and_checked() {
     let s = entry("steel-c-le-0.15-won-thomas-2001");
-    let e = s.power_law(&Composition::new()).unwrap_err();
+    let e = s.power_law(&Composition::new()).unwrap_err().to_string();
     assert!(e.contains("--composition C="), "{e}");
-    let e = s.power_law(&comp("C=0.3")).unwrap_err();
+    let e = s.power_law(&comp("C=0.3")).unwrap_err().to_string();
     assert!(e.contains("outside"), "{e}");
     let r = entry("al-cu-si-cooling-rate-ronto-roosz-2001");
     assert!(
@@ -554,7 +554,7 @@ fn bad_correlation_files_are_refused_with_the_reason() {
         ("not json".to_string(), "expected"),
     ];
     for (text, expected) in cases {
-        let e = parse(&text, "mine.json", false).unwrap_err();
+        let e = parse(&text, "mine.json", false).unwrap_err().to_string();
         assert!(e.contains("mine.json"), "{e}");
         assert!(e.contains(expected), "expected '{expected}' in: {e}");
     }
@@ -573,7 +573,7 @@ fn bad_correlation_files_are_refused_with_the_reason() {
         )),
     )
     .unwrap();
-    let e = library::with_file(&path).unwrap_err();
+    let e = library::with_file(&path).unwrap_err().to_string();
     assert!(e.contains("duplicate id") && e.contains("mine.json"), "{e}");
 }
 
@@ -674,6 +674,7 @@ fn users_give_their_own_coarsening_parameters() {
     assert!(c
         .power_law(&Composition::new())
         .unwrap_err()
+        .to_string()
         .contains("--composition Si="));
     let law = c.power_law(&comp("Si=7")).unwrap();
     assert!(close(law.predict(100.0).unwrap().0, 56.63, 1e-3));
@@ -684,6 +685,7 @@ fn users_give_their_own_coarsening_parameters() {
     );
     assert!(parse(&bad, "mine.json", false)
         .unwrap_err()
+        .to_string()
         .contains("between 0 and 1"));
 }
 

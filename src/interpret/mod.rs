@@ -30,6 +30,7 @@ pub mod plausibility;
 pub use library::{Composition, Correlation, Form};
 
 use crate::units::{Kelvin, Micrometres};
+use crate::{Error, Result};
 use serde::Serialize;
 
 /// lambda2 (um) = coefficient x x^exponent, x in the law's own unit.
@@ -40,14 +41,16 @@ pub struct PowerLaw {
 }
 
 impl PowerLaw {
-    pub fn new(coefficient: f64, exponent: f64) -> Result<Self, String> {
+    pub fn new(coefficient: f64, exponent: f64) -> Result<Self> {
         if !(coefficient.is_finite() && coefficient > 0.0) {
-            return Err(format!(
-                "coefficient {coefficient} must be a positive number"
-            ));
+            return Err(Error::Correlation {
+                reason: format!("coefficient {coefficient} must be a positive number"),
+            });
         }
         if !(exponent.is_finite() && exponent != 0.0) {
-            return Err(format!("exponent {exponent} must be a non-zero number"));
+            return Err(Error::Correlation {
+                reason: format!("exponent {exponent} must be a non-zero number"),
+            });
         }
         Ok(Self {
             coefficient,
@@ -263,7 +266,7 @@ pub const FAR_OUTSIDE: f64 = 3.0;
 /// Inverts the SDAS with a correlation: cooling rate and solidification time
 /// with 95 % intervals, and the warnings a reader needs. Errors are about
 /// the request (a composition the correlation needs or excludes).
-pub fn interpret(corr: &Correlation, req: &Request) -> Result<Interpretation, String> {
+pub fn interpret(corr: &Correlation, req: &Request) -> Result<Interpretation> {
     let law = corr.power_law(&req.composition)?;
     let mut warnings = Vec::new();
     match corr.status {
@@ -347,7 +350,9 @@ pub fn interpret(corr: &Correlation, req: &Request) -> Result<Interpretation, St
     out.sdas_ci95_rel_pct = req.ci95.map(|[a, b]| rel_pct(sdas.0, [a.0, b.0]));
 
     // The primary quantity, in the correlation's own unit, then in K/s or s.
-    let x = law.invert(sdas).ok_or("the SDAS cannot be inverted")?;
+    let x = law.invert(sdas).ok_or_else(|| Error::Correlation {
+        reason: "the SDAS cannot be inverted".into(),
+    })?;
     let to_base = corr.variable_unit.to_base;
     let gain = 1.0 / law.exponent.abs();
     // The measurement's part alone (ci95), and with the correlation's own
@@ -495,7 +500,7 @@ pub fn interpret_with_alternatives(
     corr: &Correlation,
     library: &[Correlation],
     req: &Request,
-) -> Result<Interpretation, String> {
+) -> Result<Interpretation> {
     let mut out = interpret(corr, req)?;
     for other in library
         .iter()
@@ -524,7 +529,7 @@ pub fn interpret_with_alternatives(
             }
             Err(e) => out.alternatives_not_applicable.push(NotApplicable {
                 id: other.id.clone(),
-                reason: e,
+                reason: e.to_string(),
             }),
         }
     }
@@ -638,7 +643,7 @@ pub struct Settings {
 impl Settings {
     /// Checks once, before a batch, that the correlation applies to the
     /// composition given.
-    pub fn check(&self) -> Result<(), String> {
+    pub fn check(&self) -> Result<()> {
         self.correlation.power_law(&self.composition).map(|_| ())
     }
 
@@ -647,7 +652,7 @@ impl Settings {
         &self,
         sdas: Option<Micrometres>,
         ci95: Option<[Micrometres; 2]>,
-    ) -> Result<Interpretation, String> {
+    ) -> Result<Interpretation> {
         interpret_with_alternatives(
             &self.correlation,
             &self.library,
@@ -663,18 +668,23 @@ impl Settings {
 }
 
 /// Parses "C=0.1,Si=7" (wt%) into a composition.
-pub fn parse_composition(text: &str) -> Result<Composition, String> {
+pub fn parse_composition(text: &str) -> Result<Composition> {
+    let unusable = |reason: String| Error::Value { reason };
     let mut out = Composition::new();
     for part in text.split(',').map(str::trim).filter(|p| !p.is_empty()) {
-        let (el, v) = part
-            .split_once('=')
-            .ok_or_else(|| format!("'{part}': write each element as Symbol=wt%, e.g. Si=7"))?;
+        let (el, v) = part.split_once('=').ok_or_else(|| {
+            unusable(format!(
+                "'{part}': write each element as Symbol=wt%, e.g. Si=7"
+            ))
+        })?;
         let el = el.trim();
         let ok_symbol = (1..=2).contains(&el.len())
             && el.chars().next().is_some_and(|c| c.is_ascii_uppercase())
             && el.chars().skip(1).all(|c| c.is_ascii_lowercase());
         if !ok_symbol {
-            return Err(format!("'{el}' is not an element symbol (e.g. C, Si, Cu)"));
+            return Err(unusable(format!(
+                "'{el}' is not an element symbol (e.g. C, Si, Cu)"
+            )));
         }
         let v: f64 = v
             .trim()
@@ -682,22 +692,26 @@ pub fn parse_composition(text: &str) -> Result<Composition, String> {
             .trim_end_matches('%')
             .trim()
             .parse()
-            .map_err(|_| format!("'{part}': the content is not a number"))?;
+            .map_err(|_| unusable(format!("'{part}': the content is not a number")))?;
         if !(v.is_finite() && (0.0..=100.0).contains(&v)) {
-            return Err(format!("'{part}': the content must be 0 to 100 wt%"));
+            return Err(unusable(format!(
+                "'{part}': the content must be 0 to 100 wt%"
+            )));
         }
         if out.insert(el.to_string(), v).is_some() {
-            return Err(format!("'{el}' is given twice"));
+            return Err(unusable(format!("'{el}' is given twice")));
         }
     }
     if out.is_empty() {
-        return Err("no element given (e.g. --composition Si=7,Cu=0.2)".into());
+        return Err(unusable(
+            "no element given (e.g. --composition Si=7,Cu=0.2)".into(),
+        ));
     }
     Ok(out)
 }
 
 /// Parses a temperature interval: "60K", "60 K", "60degC", "60°C" or "60".
-pub fn parse_kelvin(text: &str) -> Result<Kelvin, String> {
+pub fn parse_kelvin(text: &str) -> Result<Kelvin> {
     let t = text.trim();
     let num = ["K", "degC", "\u{00b0}C", "C"]
         .iter()
@@ -706,9 +720,11 @@ pub fn parse_kelvin(text: &str) -> Result<Kelvin, String> {
         .trim();
     match num.parse::<f64>() {
         Ok(v) if v.is_finite() && v > 0.0 && v < 2000.0 => Ok(Kelvin(v)),
-        _ => Err(format!(
-            "'{text}' is not a temperature interval between 0 and 2000 K (e.g. 60K)"
-        )),
+        _ => Err(Error::Value {
+            reason: format!(
+                "'{text}' is not a temperature interval between 0 and 2000 K (e.g. 60K)"
+            ),
+        }),
     }
 }
 
