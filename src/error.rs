@@ -1,4 +1,10 @@
-//! Errors as values, each naming the file (or parameter) and what is wrong.
+//! Errors as values: one enum for the library (the synthetic-image
+//! generator `synth` keeps its own `SynthError`), each message saying what
+//! is wrong and naming what it is about (the file, the value as given,
+//! the options, the correlation). Checks that see only pixels or numbers (a
+//! scale bar, a calibration, the CSV encoding) leave the file's name to the
+//! caller that knows it. The `#[error]` texts are the messages users see and
+//! tests match: rewording one is a change of behaviour.
 
 use std::path::PathBuf;
 
@@ -32,8 +38,6 @@ pub enum Error {
     },
     #[error("{}: path does not exist", path.display())]
     Missing { path: PathBuf },
-    #[error("invalid {name}: {reason}")]
-    Parameter { name: String, reason: String },
     #[error("{}: cannot write: {source}", path.display())]
     Write {
         path: PathBuf,
@@ -41,6 +45,33 @@ pub enum Error {
     },
     #[error("{}: {reason}", path.display())]
     Input { path: PathBuf, reason: String },
+    /// A value that cannot be used: an option's argument as given, or a
+    /// micrometres-per-pixel calibration however it was obtained. `reason`
+    /// quotes the value and says what is wrong; the option is named by
+    /// whoever reports the error (the argument parser prints "invalid value
+    /// ... for '--option'").
+    #[error("{reason}")]
+    Value { reason: String },
+    /// An image's calibration cannot be settled: no scale bar stands out,
+    /// the resolution tags are unusable, no source was given, or the source
+    /// named as trusted has no value. These checks see the image's pixels
+    /// and numbers, not its file, so the caller says which image it was.
+    #[error("{reason}")]
+    Calibration { reason: String },
+    /// A correlation that cannot be used as asked: a composition it
+    /// excludes or needs, a model parameter out of range, an unknown id, an
+    /// invalid entry. `reason` says what; a caller that knows the entry's id
+    /// or file puts it in front.
+    #[error("{reason}")]
+    Correlation { reason: String },
+    /// Options that do not go together, or one given without another it
+    /// needs; `reason` names them.
+    #[error("{reason}")]
+    Usage { reason: String },
+    /// The CSV summary could not be encoded; the caller names the file it
+    /// was meant for.
+    #[error("{reason}")]
+    Csv { reason: String },
 }
 
 pub type Result<T> = std::result::Result<T, Error>;

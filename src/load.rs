@@ -328,7 +328,7 @@ pub fn load_bytes(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loade
     reader.limits(limits);
     let decoded = reader.decode().map_err(|e| decode_err(e.to_string()))?;
     let (mut image, bit_depth) = to_gray(decoded);
-    replace_non_finite(&mut image, &mut warnings).map_err(decode_err)?;
+    replace_non_finite(path, &mut image, &mut warnings)?;
     if format == ImageFormat::Jpeg {
         let missing = jpeg_fill_rows(&image);
         if missing >= JPEG_MCU_ROWS {
@@ -434,23 +434,27 @@ fn jpeg_fill_rows(image: &GrayImage) -> usize {
 
 /// Float files may hold NaN or infinite samples (a masked region, a failed
 /// pixel). They carry no grey level; more than 1 % of them leave too little
-/// of the field to trust (an error), fewer are set to the median of the rest
-/// (a level that adds no edge of its own) with a warning.
+/// of the field to trust (an error naming `path`), fewer are set to the
+/// median of the rest (a level that adds no edge of its own) with a warning.
 fn replace_non_finite(
+    path: &Path,
     image: &mut GrayImage,
     warnings: &mut Vec<String>,
-) -> std::result::Result<(), String> {
+) -> Result<()> {
     let bad = image.data.iter().filter(|v| !v.is_finite()).count();
     if bad == 0 {
         return Ok(());
     }
     let frac = bad as f64 / image.data.len().max(1) as f64;
     if frac > 0.01 {
-        return Err(format!(
-            "{bad} of {} samples ({:.1} %) are NaN or infinite: too few usable pixels",
-            image.data.len(),
-            100.0 * frac
-        ));
+        return Err(Error::Decode {
+            path: path.to_path_buf(),
+            reason: format!(
+                "{bad} of {} samples ({:.1} %) are NaN or infinite: too few usable pixels",
+                image.data.len(),
+                100.0 * frac
+            ),
+        });
     }
     let mut finite: Vec<f32> = image
         .data
@@ -546,7 +550,7 @@ fn load_tiff_direct(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loa
         height: height as usize,
         data,
     };
-    replace_non_finite(&mut image, &mut warnings).map_err(decode_err)?;
+    replace_non_finite(path, &mut image, &mut warnings)?;
     let info = tiff_info(bytes);
     Ok(Loaded {
         image,

@@ -18,6 +18,7 @@
 use crate::methods::intercept::Convention;
 
 use crate::stats::{measurements_for_target, Summary};
+use crate::{Error, Result};
 use serde::Serialize;
 
 /// One hand-measured line.
@@ -46,7 +47,11 @@ pub struct ManualStats {
 
 /// Reads lines from CSV text under a convention; `origin` names the file in
 /// messages.
-pub fn parse(text: &str, origin: &str, convention: Convention) -> Result<Vec<ManualLine>, String> {
+pub fn parse(text: &str, origin: &str, convention: Convention) -> Result<Vec<ManualLine>> {
+    let bad = |reason: String| Error::Input {
+        path: origin.into(),
+        reason,
+    };
     let mut rdr = csv::ReaderBuilder::new()
         .trim(csv::Trim::All)
         .flexible(true)
@@ -54,54 +59,54 @@ pub fn parse(text: &str, origin: &str, convention: Convention) -> Result<Vec<Man
         .from_reader(text.as_bytes());
     let headers = rdr
         .headers()
-        .map_err(|e| format!("{origin}: cannot read the header row: {e}"))?
+        .map_err(|e| bad(format!("cannot read the header row: {e}")))?
         .clone();
     let col = |name: &str| {
         headers
             .iter()
             .position(|h| h.eq_ignore_ascii_case(name))
             .ok_or_else(|| {
-                format!(
-                    "{origin}: no '{name}' column (the header row must name length_um and arms; it has: {})",
+                bad(format!(
+                    "no '{name}' column (the header row must name length_um and arms; it has: {})",
                     headers.iter().collect::<Vec<_>>().join(", ")
-                )
+                ))
             })
     };
     let (li, ai) = (col("length_um")?, col("arms")?);
     let mut lines = Vec::new();
     for (k, rec) in rdr.records().enumerate() {
         let row = k + 2;
-        let rec = rec.map_err(|e| format!("{origin}: row {row}: {e}"))?;
+        let rec = rec.map_err(|e| bad(format!("row {row}: {e}")))?;
         let field = |i: usize, name: &str| {
             rec.get(i)
                 .filter(|s| !s.is_empty())
-                .ok_or_else(|| format!("{origin}: row {row}: no {name} value"))
+                .ok_or_else(|| bad(format!("row {row}: no {name} value")))
         };
         let length: f64 = field(li, "length_um")?.parse().map_err(|_| {
-            format!(
-                "{origin}: row {row}: length_um '{}' is not a number",
+            bad(format!(
+                "row {row}: length_um '{}' is not a number",
                 &rec[li]
-            )
+            ))
         })?;
         let arms: u32 = field(ai, "arms")?.parse().map_err(|_| {
-            format!(
-                "{origin}: row {row}: arms '{}' is not a whole number",
+            bad(format!(
+                "row {row}: arms '{}' is not a whole number",
                 &rec[ai]
-            )
+            ))
         })?;
         if !(length.is_finite() && length > 0.0) {
-            return Err(format!("{origin}: row {row}: length_um must be positive"));
+            return Err(bad(format!("row {row}: length_um must be positive")));
         }
         let spacings = match convention {
             Convention::LengthOverCount => arms as f64,
             Convention::CentreToCentre => arms.saturating_sub(1) as f64,
         };
         if spacings < 1.0 {
-            return Err(format!(
-                "{origin}: row {row}: {arms} arm(s) give no spacing under the {} convention (at least {} needed)",
+            return Err(bad(format!(
+                "row {row}: {arms} arm(s) give no spacing under the {} convention (at least {} needed)",
                 crate::report::convention_name(convention),
                 if convention == Convention::CentreToCentre { 2 } else { 1 }
-            ));
+            )));
         }
         lines.push(ManualLine {
             length_um: length,
@@ -118,13 +123,14 @@ pub fn summarise(
     origin: &str,
     target_pct: f64,
     convention: Convention,
-) -> Result<ManualStats, String> {
+) -> Result<ManualStats> {
     let values: Vec<f64> = lines.iter().map(|l| l.sdas_um).collect();
-    let s = Summary::of(&values).ok_or_else(|| {
-        format!(
-            "{origin}: at least two lines are needed for an interval ({} given)",
+    let s = Summary::of(&values).ok_or_else(|| Error::Input {
+        path: origin.into(),
+        reason: format!(
+            "at least two lines are needed for an interval ({} given)",
             values.len()
-        )
+        ),
     })?;
     Ok(ManualStats {
         file: origin.to_string(),
@@ -187,13 +193,14 @@ mod tests {
             } else {
                 Convention::CentreToCentre
             };
-            let e = parse(text, "m.csv", c).unwrap_err();
+            let e = parse(text, "m.csv", c).unwrap_err().to_string();
             assert!(e.contains("m.csv") && e.contains(words), "{text:?}: {e}");
         }
         let c = Convention::CentreToCentre;
         let one = parse("length_um,arms\n10,2\n", "m.csv", c).unwrap();
         assert!(summarise(one, "m.csv", 10.0, c)
             .unwrap_err()
+            .to_string()
             .contains("at least two"));
     }
 }

@@ -73,7 +73,7 @@ pub struct ImageInfo {
 }
 
 /// Everything measured on one image, or why it could not be.
-#[derive(Clone, Debug)]
+#[derive(Debug)]
 pub struct ImageResult {
     pub file: PathBuf,
     pub info: Option<ImageInfo>,
@@ -91,7 +91,7 @@ pub struct ImageResult {
     /// The picture of what was measured, when one was written.
     pub overlay: Option<PathBuf>,
     /// Cooling rate and solidification time, when a correlation was given.
-    pub interpretation: Option<Result<crate::interpret::Interpretation, String>>,
+    pub interpretation: Option<crate::Result<crate::interpret::Interpretation>>,
     /// The decision against the spec's limit, when a spec was given.
     pub acceptance: Option<crate::interpret::acceptance::Acceptance>,
 }

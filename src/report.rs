@@ -786,10 +786,13 @@ pub const CSV_COLUMNS: [&str; 32] = [
 /// the report's order. Columns are only ever added at the end. The tool,
 /// the report's schema and the caution are columns of every row, so that no
 /// row travels without them. Empty cells are nulls.
-pub fn csv_summary(report: &Report) -> Result<String, String> {
+pub fn csv_summary(report: &Report) -> crate::Result<String> {
+    let encoding = |e: &dyn std::fmt::Display| crate::Error::Csv {
+        reason: e.to_string(),
+    };
     let mut out = String::new();
     let mut w = csv::WriterBuilder::new().from_writer(Vec::new());
-    w.write_record(CSV_COLUMNS).map_err(|e| e.to_string())?;
+    w.write_record(CSV_COLUMNS).map_err(|e| encoding(&e))?;
     let num = |v: Option<f64>| v.map(|x| format!("{x}")).unwrap_or_default();
     for i in &report.images {
         let cal = i.calibration.as_ref();
@@ -849,9 +852,9 @@ pub fn csv_summary(report: &Report) -> Result<String, String> {
             report.schema.to_string(),
             report.caution.to_string(),
         ];
-        w.write_record(&record).map_err(|e| e.to_string())?;
+        w.write_record(&record).map_err(|e| encoding(&e))?;
     }
-    let bytes = w.into_inner().map_err(|e| e.to_string())?;
+    let bytes = w.into_inner().map_err(|e| encoding(&e))?;
     out.push_str(&String::from_utf8_lossy(&bytes));
     Ok(out)
 }

@@ -24,15 +24,16 @@ pub struct UmPerPx(f64);
 
 impl UmPerPx {
     /// Checks that the value is a usable calibration.
-    pub fn new(value: f64) -> Result<Self, String> {
+    pub fn new(value: f64) -> crate::Result<Self> {
+        let unusable = |reason: String| Err(crate::Error::Value { reason });
         if !value.is_finite() {
-            return Err(format!("{value} is not a finite number"));
+            return unusable(format!("{value} is not a finite number"));
         }
         if value <= 0.0 {
-            return Err(format!("{value} is not positive"));
+            return unusable(format!("{value} is not positive"));
         }
         if !(1e-6..=1e6).contains(&value) {
-            return Err(format!(
+            return unusable(format!(
                 "{value} um/px is outside the plausible range 1e-6 to 1e6"
             ));
         }

@@ -195,7 +195,7 @@ fn bad_spec_files_are_refused_with_the_reason() {
         ),
         ("{", "EOF"),
     ] {
-        let e = Spec::parse(text, "spec.json").unwrap_err();
+        let e = Spec::parse(text, "spec.json").unwrap_err().to_string();
         assert!(
             e.contains("spec.json") && e.contains(expected),
             "expected '{expected}': {e}"

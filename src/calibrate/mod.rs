@@ -15,7 +15,7 @@
 pub mod profile;
 pub mod scale_bar;
 
-use crate::error::Warning;
+use crate::error::{Error, Result, Warning};
 use crate::units::{Micrometres, UmPerPx};
 use scale_bar::ScaleBar;
 use serde::Serialize;
@@ -120,9 +120,11 @@ pub const END_UNCERTAINTY_PX: f64 = 0.288_675_134_594_812_9;
 /// uncertainty: both ends' localisation, the spread of the per-row lengths
 /// (as a standard error), and the bar's own stated uncertainty, combined in
 /// quadrature (GUM 5.1.2, uncorrelated inputs).
-pub fn from_bar(bar: &ScaleBar, length: &BarLength) -> Result<Offer, String> {
+pub fn from_bar(bar: &ScaleBar, length: &BarLength) -> Result<Offer> {
     if !(bar.length_px > 0.0 && bar.length_px.is_finite()) {
-        return Err("the scale bar's length could not be measured (its ends are not sharp enough to locate)".into());
+        return Err(Error::Calibration {
+            reason: "the scale bar's length could not be measured (its ends are not sharp enough to locate)".into(),
+        });
     }
     let um = UmPerPx::new(length.length.0 / bar.length_px)?;
     let u_px = (2.0 * END_UNCERTAINTY_PX * END_UNCERTAINTY_PX
@@ -141,9 +143,9 @@ pub fn from_bar(bar: &ScaleBar, length: &BarLength) -> Result<Offer, String> {
 /// `metadata` is what the file's resolution tags give.
 pub fn resolve(
     req: &CalibrationRequest,
-    bar: Option<&Result<ScaleBar, String>>,
+    bar: Option<&Result<ScaleBar>>,
     metadata: Option<UmPerPx>,
-) -> Result<(Calibration, Vec<Warning>), String> {
+) -> Result<(Calibration, Vec<Warning>)> {
     let mut offers = Vec::new();
     let mut warnings = Vec::new();
     if let Some(v) = req.manual {
@@ -178,7 +180,7 @@ pub fn resolve(
                 offers.push(o);
                 used_bar = Some(b.clone());
             }
-            Some(Err(reason)) => bar_failure = Some(reason.clone()),
+            Some(Err(why)) => bar_failure = Some(why.to_string()),
             None => bar_failure = Some("the image was not searched for a scale bar".into()),
         }
     }
@@ -192,24 +194,28 @@ pub fn resolve(
     offers.sort_by_key(|o| o.source);
     let trusted = match req.trust {
         Some(t) => Some(offers.iter().copied().find(|o| o.source == t).ok_or_else(|| {
-            format!(
-                "the {} calibration is named as trusted, but this image has none (sources offered: {})",
-                t.name(),
-                if offers.is_empty() {
-                    "none".to_string()
-                } else {
-                    offers.iter().map(|o| o.source.name()).collect::<Vec<_>>().join(", ")
-                }
-            )
+            Error::Calibration {
+                reason: format!(
+                    "the {} calibration is named as trusted, but this image has none (sources offered: {})",
+                    t.name(),
+                    if offers.is_empty() {
+                        "none".to_string()
+                    } else {
+                        offers.iter().map(|o| o.source.name()).collect::<Vec<_>>().join(", ")
+                    }
+                ),
+            }
         })?),
         None => None,
     };
     let Some(chosen) = trusted.or_else(|| offers.first().copied()) else {
-        return Err(match bar_failure {
-            Some(reason) => format!(
-                "no scale bar found with confidence ({reason}); pass --um-per-px or --profile"
-            ),
-            None => "no calibration: give --um-per-px, --profile or --scale-bar (the file has no usable resolution tags)".into(),
+        return Err(Error::Calibration {
+            reason: match bar_failure {
+                Some(why) => format!(
+                    "no scale bar found with confidence ({why}); pass --um-per-px or --profile"
+                ),
+                None => "no calibration: give --um-per-px, --profile or --scale-bar (the file has no usable resolution tags)".into(),
+            },
         });
     };
     if let Some(reason) = bar_failure {
@@ -302,17 +308,17 @@ fn conflict_of(offers: &[Offer]) -> Option<String> {
 }
 
 /// Parses a user-given micrometres-per-pixel value, naming the problem.
-pub fn parse_um_per_px(text: &str) -> Result<UmPerPx, String> {
-    let v: f64 = text
-        .trim()
-        .parse()
-        .map_err(|_| format!("'{text}' is not a number"))?;
+pub fn parse_um_per_px(text: &str) -> Result<UmPerPx> {
+    let v: f64 = text.trim().parse().map_err(|_| Error::Value {
+        reason: format!("'{text}' is not a number"),
+    })?;
     UmPerPx::new(v)
 }
 
 /// Parses a length with its unit: um (also µm with the micro sign or the
 /// Greek mu), nm or mm, with or without a space: "100um", "0.5 mm".
-pub fn parse_length(text: &str) -> Result<Micrometres, String> {
+pub fn parse_length(text: &str) -> Result<Micrometres> {
+    let unusable = |reason: String| Error::Value { reason };
     let t = text.trim();
     let split = t
         .char_indices()
@@ -326,25 +332,25 @@ pub fn parse_length(text: &str) -> Result<Micrometres, String> {
     let value: f64 = num
         .trim()
         .parse()
-        .map_err(|_| format!("'{text}': no number before the unit"))?;
+        .map_err(|_| unusable(format!("'{text}': no number before the unit")))?;
     let factor = match unit {
         "um" | "\u{00b5}m" | "\u{03bc}m" => 1.0,
         "nm" => 1e-3,
         "mm" => 1e3,
         "" => {
-            return Err(format!(
+            return Err(unusable(format!(
                 "'{text}' has no unit: write it as 100um, 100µm, 0.1mm or 100000nm"
-            ))
+            )))
         }
         other => {
-            return Err(format!(
+            return Err(unusable(format!(
                 "'{text}': unknown unit '{other}' (accepted: um, µm, nm, mm)"
-            ))
+            )))
         }
     };
     let um = value * factor;
     if !(um.is_finite() && um > 0.0) {
-        return Err(format!("'{text}' is not a positive length"));
+        return Err(unusable(format!("'{text}' is not a positive length")));
     }
     Ok(Micrometres(um))
 }
@@ -359,19 +365,20 @@ pub fn from_resolution(
     x_per_unit: f64,
     y_per_unit: f64,
     unit: u16,
-) -> Result<(UmPerPx, Vec<String>), String> {
+) -> Result<(UmPerPx, Vec<String>)> {
+    let unusable = |reason: String| Err(Error::Calibration { reason });
     let unit_um = match unit {
         2 => 25_400.0,
         3 => 10_000.0,
-        1 => return Err("the resolution tags have no unit (ResolutionUnit = 1)".into()),
-        other => return Err(format!("unknown ResolutionUnit {other}")),
+        1 => return unusable("the resolution tags have no unit (ResolutionUnit = 1)".into()),
+        other => return unusable(format!("unknown ResolutionUnit {other}")),
     };
     if !(x_per_unit.is_finite() && x_per_unit > 0.0) {
-        return Err(format!("XResolution {x_per_unit} is not usable"));
+        return unusable(format!("XResolution {x_per_unit} is not usable"));
     }
     let um = unit_um / x_per_unit;
     if um > 50.0 {
-        return Err(format!(
+        return unusable(format!(
             "the resolution tags give {um:.1} um/px, a screen or print resolution, not a calibration"
         ));
     }

@@ -14,6 +14,7 @@
 //! `um_per_px`, an optional relative standard uncertainty and a note.
 
 use crate::units::UmPerPx;
+use crate::{Error, Result};
 use serde::Deserialize;
 use std::collections::BTreeMap;
 use std::path::Path;
@@ -48,19 +49,23 @@ enum Entry {
 
 /// Reads the profile `name` from a profile file's text; `origin` names the
 /// file in messages.
-pub fn parse(text: &str, name: &str, origin: &str) -> Result<Profile, String> {
+pub fn parse(text: &str, name: &str, origin: &str) -> Result<Profile> {
+    let bad = |reason: String| Error::Input {
+        path: origin.into(),
+        reason,
+    };
     let file: File = serde_json::from_str(text)
-        .map_err(|e| format!("{origin}: not a valid calibration profile file: {e}"))?;
+        .map_err(|e| bad(format!("not a valid calibration profile file: {e}")))?;
     let Some(entry) = file.profiles.get(name) else {
         let names: Vec<&str> = file.profiles.keys().map(|k| k.as_str()).collect();
-        return Err(format!(
-            "{origin}: no profile named '{name}' (the file has: {})",
+        return Err(bad(format!(
+            "no profile named '{name}' (the file has: {})",
             if names.is_empty() {
                 "none".to_string()
             } else {
                 names.join(", ")
             }
-        ));
+        )));
     };
     let (value, rel) = match entry {
         Entry::Value(v) => (*v, None),
@@ -71,12 +76,12 @@ pub fn parse(text: &str, name: &str, origin: &str) -> Result<Profile, String> {
         } => (*um_per_px, *rel_uncertainty),
     };
     let um_per_px =
-        UmPerPx::new(value).map_err(|e| format!("{origin}: profile '{name}': um_per_px {e}"))?;
+        UmPerPx::new(value).map_err(|e| bad(format!("profile '{name}': um_per_px {e}")))?;
     if let Some(r) = rel {
         if !(r.is_finite() && (0.0..1.0).contains(&r)) {
-            return Err(format!(
-                "{origin}: profile '{name}': rel_uncertainty {r} must be a fraction from 0 to 1"
-            ));
+            return Err(bad(format!(
+                "profile '{name}': rel_uncertainty {r} must be a fraction from 0 to 1"
+            )));
         }
     }
     Ok(Profile {
@@ -87,8 +92,8 @@ pub fn parse(text: &str, name: &str, origin: &str) -> Result<Profile, String> {
 }
 
 /// Reads the profile `name` from a file.
-pub fn load(path: &Path, name: &str) -> Result<Profile, String> {
-    let text = crate::files::read_text(path, "profile file").map_err(|e| e.to_string())?;
+pub fn load(path: &Path, name: &str) -> Result<Profile> {
+    let text = crate::files::read_text(path, "profile file")?;
     parse(&text, name, &path.display().to_string())
 }
 
@@ -103,22 +108,26 @@ mod tests {
         assert_eq!((p.um_per_px.get(), p.rel_uncertainty), (0.345, None));
         let p = parse(text, "x50", "p.json").unwrap();
         assert_eq!((p.um_per_px.get(), p.rel_uncertainty), (0.138, Some(0.004)));
-        let e = parse(text, "x100", "p.json").unwrap_err();
+        let e = parse(text, "x100", "p.json").unwrap_err().to_string();
         assert!(
             e.contains("p.json") && e.contains("x100") && e.contains("x20, x50"),
             "{e}"
         );
-        let e = parse(r#"{"profiles": {"a": -1}}"#, "a", "p.json").unwrap_err();
+        let e = parse(r#"{"profiles": {"a": -1}}"#, "a", "p.json")
+            .unwrap_err()
+            .to_string();
         assert!(e.contains("not positive"), "{e}");
         let e = parse(
             r#"{"profiles": {"a": {"um_per_px": 1, "rel_uncertainty": 3}}}"#,
             "a",
             "p.json",
         )
-        .unwrap_err();
+        .unwrap_err()
+        .to_string();
         assert!(e.contains("rel_uncertainty"), "{e}");
         assert!(parse("[1, 2]", "a", "p.json")
             .unwrap_err()
+            .to_string()
             .contains("not a valid"));
     }
 }

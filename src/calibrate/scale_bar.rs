@@ -84,10 +84,13 @@ impl Group {
 }
 
 /// Finds the scale bar, or says why there is none.
-pub fn detect(img: &GrayImage) -> Result<ScaleBar, String> {
+pub fn detect(img: &GrayImage) -> crate::Result<ScaleBar> {
+    let none = |reason: &str| crate::Error::Calibration {
+        reason: reason.into(),
+    };
     let (w, h) = (img.width, img.height);
     if w < 16 || h < 8 {
-        return Err("the image is too small to hold a scale bar".into());
+        return Err(none("the image is too small to hold a scale bar"));
     }
     let (lo, hi) = img
         .data
@@ -97,7 +100,9 @@ pub fn detect(img: &GrayImage) -> Result<ScaleBar, String> {
         });
     let range = hi - lo;
     if range < 0.05 {
-        return Err("the image has too little contrast to show a scale bar".into());
+        return Err(none(
+            "the image has too little contrast to show a scale bar",
+        ));
     }
     let mut found: Vec<ScaleBar> = Vec::new();
     for fraction in CANDIDATE_FRACTIONS {
@@ -140,7 +145,7 @@ pub fn detect(img: &GrayImage) -> Result<ScaleBar, String> {
         }
     }
     best.cloned()
-        .ok_or_else(|| "no solid horizontal bar stands out from the image".to_string())
+        .ok_or_else(|| none("no solid horizontal bar stands out from the image"))
 }
 
 /// Stacks of horizontal candidate runs with nearly equal ends.

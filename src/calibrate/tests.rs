@@ -30,7 +30,7 @@ fn lengths_rejected_with_a_reason() {
         ("abc", "no number"),
         ("", "no number"),
     ] {
-        let e = parse_length(text).unwrap_err();
+        let e = parse_length(text).unwrap_err().to_string();
         assert!(e.contains(words), "{text:?}: {e}");
     }
 }
@@ -90,7 +90,7 @@ fn precedence_manual_profile_bar_metadata() {
         um_per_px: um(0.5),
         rel_uncertainty: Some(0.003),
     };
-    let found: Result<ScaleBar, String> = Ok(bar(200.0)); // 100 um over 200 px: 0.5 um/px
+    let found: crate::Result<ScaleBar> = Ok(bar(200.0)); // 100 um over 200 px: 0.5 um/px
     let full = CalibrationRequest {
         manual: Some(um(0.5)),
         profile: Some(profile.clone()),
@@ -128,7 +128,7 @@ fn precedence_manual_profile_bar_metadata() {
 
 #[test]
 fn disagreement_over_two_percent_is_a_warning() {
-    let found: Result<ScaleBar, String> = Ok(bar(200.0)); // 0.5 um/px
+    let found: crate::Result<ScaleBar> = Ok(bar(200.0)); // 0.5 um/px
     let req = CalibrationRequest {
         manual: Some(um(0.515)), // +3 % against the bar
         profile: None,
@@ -173,7 +173,9 @@ fn disagreement_over_two_percent_is_a_warning() {
         trust: Some(CalibrationSource::Profile),
         ..req.clone()
     };
-    let e = resolve(&absent, Some(&found), None).unwrap_err();
+    let e = resolve(&absent, Some(&found), None)
+        .unwrap_err()
+        .to_string();
     assert!(e.contains("profile calibration is named as trusted"), "{e}");
     // 1.5 % apart: no warning.
     let req = CalibrationRequest {
@@ -186,7 +188,9 @@ fn disagreement_over_two_percent_is_a_warning() {
 
 #[test]
 fn a_missing_bar_fails_with_advice_or_falls_back() {
-    let missing: Result<ScaleBar, String> = Err("no solid horizontal bar stands out".into());
+    let missing: crate::Result<ScaleBar> = Err(crate::Error::Calibration {
+        reason: "no solid horizontal bar stands out".into(),
+    });
     let req = CalibrationRequest {
         scale_bar: Some(BarLength {
             length: Micrometres(100.0),
@@ -194,7 +198,7 @@ fn a_missing_bar_fails_with_advice_or_falls_back() {
         }),
         ..Default::default()
     };
-    let e = resolve(&req, Some(&missing), None).unwrap_err();
+    let e = resolve(&req, Some(&missing), None).unwrap_err().to_string();
     assert!(e.contains("--um-per-px") && e.contains("--profile"), "{e}");
     let (c, w) = resolve(
         &CalibrationRequest {
@@ -207,7 +211,9 @@ fn a_missing_bar_fails_with_advice_or_falls_back() {
     .unwrap();
     assert_eq!(c.source, CalibrationSource::Manual);
     assert_eq!(w[0].code, "calibration.bar-not-found");
-    let e = resolve(&CalibrationRequest::default(), None, None).unwrap_err();
+    let e = resolve(&CalibrationRequest::default(), None, None)
+        .unwrap_err()
+        .to_string();
     assert!(e.contains("no calibration"), "{e}");
 }
 
@@ -222,6 +228,7 @@ fn resolution_tags() {
     // 72 dpi, the usual default, is not a calibration.
     assert!(from_resolution(72.0, 72.0, 2)
         .unwrap_err()
+        .to_string()
         .contains("screen or print"));
     assert!(from_resolution(100.0, 100.0, 1).is_err());
     let (_, notes) = from_resolution(10_000.0, 9_000.0, 3).unwrap();

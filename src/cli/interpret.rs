@@ -30,12 +30,13 @@ impl AlloyArgs {
     pub(super) fn settings(
         &self,
         id: Option<&str>,
-    ) -> Result<Option<armspace::interpret::Settings>, String> {
+    ) -> armspace::Result<Option<armspace::interpret::Settings>> {
         let Some(id) = id else {
             if self.composition.is_some() || self.freezing_range.is_some() || self.extrapolate {
-                return Err(
-                    "--composition, --freezing-range and --extrapolate need --correlation".into(),
-                );
+                return Err(armspace::Error::Usage {
+                    reason: "--composition, --freezing-range and --extrapolate need --correlation"
+                        .into(),
+                });
             }
             return Ok(None);
         };
@@ -76,10 +77,11 @@ pub(super) struct InterpretArgs {
 }
 
 /// "36,44" or "36um,44um" as an interval in micrometres, lower bound first.
-fn parse_interval(s: &str) -> Result<[armspace::units::Micrometres; 2], String> {
+fn parse_interval(s: &str) -> armspace::Result<[armspace::units::Micrometres; 2]> {
+    let unusable = |reason: String| armspace::Error::Value { reason };
     let (a, b) = s
         .split_once(',')
-        .ok_or_else(|| format!("'{s}': write the interval as LOW,HIGH, e.g. 36,44"))?;
+        .ok_or_else(|| unusable(format!("'{s}': write the interval as LOW,HIGH, e.g. 36,44")))?;
     let one = |t: &str| {
         let t = t.trim();
         if t.chars().all(|c| c.is_ascii_digit() || c == '.') {
@@ -90,7 +92,9 @@ fn parse_interval(s: &str) -> Result<[armspace::units::Micrometres; 2], String> 
     };
     let (a, b) = (one(a)?, one(b)?);
     if a.0 > b.0 {
-        return Err(format!("'{s}': the lower bound is above the upper one"));
+        return Err(unusable(format!(
+            "'{s}': the lower bound is above the upper one"
+        )));
     }
     Ok([a, b])
 }
@@ -98,7 +102,7 @@ fn parse_interval(s: &str) -> Result<[armspace::units::Micrometres; 2], String> 
 /// The built-in correlations, plus those of a user's file when one is given.
 fn load_library(
     file: Option<&std::path::Path>,
-) -> Result<Vec<armspace::interpret::Correlation>, String> {
+) -> armspace::Result<Vec<armspace::interpret::Correlation>> {
     match file {
         Some(path) => armspace::interpret::library::with_file(path),
         None => Ok(armspace::interpret::library::builtin()),

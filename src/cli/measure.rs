@@ -95,7 +95,7 @@ enum TrustArg {
 }
 
 impl CalibrationArgs {
-    fn request(&self) -> Result<CalibrationRequest, String> {
+    fn request(&self) -> armspace::Result<CalibrationRequest> {
         let profile = match (&self.profiles, &self.profile) {
             (Some(file), Some(name)) => Some(calibrate::profile::load(file, name)?),
             _ => None,

@@ -95,17 +95,23 @@ pub fn run() -> ExitCode {
     }
 }
 
-fn parse_percent(s: &str) -> Result<f64, String> {
+/// A percentage from 0 (inclusive) to 100 (exclusive), with or without `%`.
+fn parse_percent(s: &str) -> armspace::Result<f64> {
     match s.trim().trim_end_matches('%').parse::<f64>() {
         Ok(v) if v.is_finite() && (0.0..100.0).contains(&v) => Ok(v),
-        _ => Err(format!("'{s}' is not a percentage from 0 to 100")),
+        _ => Err(armspace::Error::Value {
+            reason: format!("'{s}' is not a percentage from 0 to 100"),
+        }),
     }
 }
 
-fn parse_positive(s: &str) -> Result<f64, String> {
+/// A finite number above zero.
+fn parse_positive(s: &str) -> armspace::Result<f64> {
     match s.trim().parse::<f64>() {
         Ok(v) if v.is_finite() && v > 0.0 => Ok(v),
-        _ => Err(format!("'{s}' is not a positive number")),
+        _ => Err(armspace::Error::Value {
+            reason: format!("'{s}' is not a positive number"),
+        }),
     }
 }
 

@@ -22,7 +22,6 @@ pub(super) fn run(args: StatsArgs) -> ExitCode {
     let convention = args.convention.convention();
     let origin = args.file.display().to_string();
     let result = armspace::files::read_text(&args.file, "file of measured lines")
-        .map_err(|e| e.to_string())
         .and_then(|text| armspace::manual::parse(&text, &origin, convention))
         .and_then(|lines| {
             armspace::manual::summarise(lines, &origin, args.target_ra_pct, convention)

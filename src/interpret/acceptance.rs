@@ -108,51 +108,52 @@ fn valid_limit(v: f64) -> bool {
 
 impl Spec {
     /// Parses and checks a spec; `origin` names the file in messages.
-    pub fn parse(text: &str, origin: &str) -> Result<Self, String> {
-        let mut spec: Spec = serde_json::from_str(text).map_err(|e| format!("{origin}: {e}"))?;
+    pub fn parse(text: &str, origin: &str) -> crate::Result<Self> {
+        let bad = |reason: String| crate::Error::Input {
+            path: origin.into(),
+            reason,
+        };
+        let mut spec: Spec = serde_json::from_str(text).map_err(|e| bad(e.to_string()))?;
         if spec.format != FORMAT {
-            return Err(format!(
-                "{origin}: format '{}' is not '{FORMAT}'",
-                spec.format
-            ));
+            return Err(bad(format!("format '{}' is not '{FORMAT}'", spec.format)));
         }
         if spec.limit_um.is_none() && spec.zones.is_empty() {
-            return Err(format!(
-                "{origin}: no limit: give \"limit_um\" or at least one zone"
+            return Err(bad(
+                "no limit: give \"limit_um\" or at least one zone".into()
             ));
         }
         if let Some(l) = spec.limit_um {
             if !valid_limit(l) {
-                return Err(format!(
-                    "{origin}: \"limit_um\" must be a positive number of um, got {l}"
-                ));
+                return Err(bad(format!(
+                    "\"limit_um\" must be a positive number of um, got {l}"
+                )));
             }
         }
         let mut names = std::collections::BTreeSet::new();
         for z in &mut spec.zones {
             if z.name.trim().is_empty() {
-                return Err(format!("{origin}: a zone has no name"));
+                return Err(bad("a zone has no name".into()));
             }
             if !names.insert(z.name.clone()) {
-                return Err(format!("{origin}: zone '{}' is named twice", z.name));
+                return Err(bad(format!("zone '{}' is named twice", z.name)));
             }
             if !valid_limit(z.limit_um) {
-                return Err(format!(
-                    "{origin}: zone '{}': \"limit_um\" must be a positive number of um, got {}",
+                return Err(bad(format!(
+                    "zone '{}': \"limit_um\" must be a positive number of um, got {}",
                     z.name, z.limit_um
-                ));
+                )));
             }
             let glob = globset::GlobBuilder::new(&z.pattern)
                 .literal_separator(true)
                 .build()
-                .map_err(|e| format!("{origin}: zone '{}': pattern: {e}", z.name))?;
+                .map_err(|e| bad(format!("zone '{}': pattern: {e}", z.name)))?;
             z.matcher = Some(glob.compile_matcher());
         }
         Ok(spec)
     }
 
-    pub fn load(path: &std::path::Path) -> Result<Self, String> {
-        let text = crate::files::read_text(path, "specification").map_err(|e| e.to_string())?;
+    pub fn load(path: &std::path::Path) -> crate::Result<Self> {
+        let text = crate::files::read_text(path, "specification")?;
         Self::parse(&text, &path.display().to_string())
     }
 

@@ -25,6 +25,7 @@
 //! curved liquidus near C_0 instead (e.g. -2.65 K/wt% for Al-Cu against the
 //! chord's -3.38) makes M wrong by the ratio of the two.
 
+use crate::{Error, Result};
 use serde::{Deserialize, Serialize};
 
 /// One model parameter with where it comes from.
@@ -93,27 +94,30 @@ pub struct CoarseningParams {
 /// straight-line values to 1-2 %.
 pub const PHASE_DIAGRAM_TOLERANCE: f64 = 0.05;
 
-fn need(
-    name: &str,
-    p: Option<Param>,
-    check: impl Fn(f64) -> bool,
-    what: &str,
-) -> Result<Param, String> {
-    let p = p.ok_or_else(|| format!("coarsening: missing \"{name}\""))?;
+fn need(name: &str, p: Option<Param>, check: impl Fn(f64) -> bool, what: &str) -> Result<Param> {
+    let p = p.ok_or_else(|| Error::Correlation {
+        reason: format!("coarsening: missing \"{name}\""),
+    })?;
     if !(p.value.is_finite() && check(p.value)) {
-        return Err(format!(
-            "coarsening: \"{name}\" must be {what}, got {}",
-            p.value
-        ));
+        return Err(Error::Correlation {
+            reason: format!("coarsening: \"{name}\" must be {what}, got {}", p.value),
+        });
     }
     Ok(p)
 }
 
 impl CoarseningParams {
-    pub fn from_raw(r: CoarseningRaw) -> Result<Self, String> {
-        let solute = r.solute.filter(|s| !s.trim().is_empty()).ok_or(
-            "coarsening: missing \"solute\" (the element whose content is C0, e.g. \"Si\")",
-        )?;
+    pub fn from_raw(r: CoarseningRaw) -> Result<Self> {
+        let solute =
+            r.solute
+                .filter(|s| !s.trim().is_empty())
+                .ok_or_else(|| {
+                    Error::Correlation {
+                reason:
+                    "coarsening: missing \"solute\" (the element whose content is C0, e.g. \"Si\")"
+                        .into(),
+            }
+                })?;
         let positive = |v: f64| v > 0.0;
         let p = Self {
             solute,
@@ -224,13 +228,15 @@ impl CoarseningParams {
     }
 
     /// The coarsening constant M (m^3/s) at nominal composition c0 (wt%).
-    pub fn m_constant(&self, c0: f64) -> Result<f64, String> {
+    pub fn m_constant(&self, c0: f64) -> Result<f64> {
         let ce = self.ce_wt_pct.value;
         if !(c0.is_finite() && c0 > 0.0 && c0 < ce) {
-            return Err(format!(
-                "coarsening needs 0 < C0 < CE = {ce} wt% {}; got C0 = {c0}",
-                self.solute
-            ));
+            return Err(Error::Correlation {
+                reason: format!(
+                    "coarsening needs 0 < C0 < CE = {ce} wt% {}; got C0 = {c0}",
+                    self.solute
+                ),
+            });
         }
         let k = self.partition_coefficient.value;
         Ok(
@@ -241,15 +247,17 @@ impl CoarseningParams {
 
     /// B of lambda2 (um) = B t_f^(1/3) with t_f in seconds, at C0 (the given
     /// content of the solute, or the entry's default).
-    pub fn coefficient_um(&self, c0: Option<f64>) -> Result<f64, String> {
+    pub fn coefficient_um(&self, c0: Option<f64>) -> Result<f64> {
         let c0 = match (c0, &self.c0_wt_pct) {
             (Some(c), _) => c,
             (None, Some(d)) => d.value,
             (None, None) => {
-                return Err(format!(
-                    "needs the {s} content: give it with --composition {s}=<wt%>",
-                    s = self.solute
-                ))
+                return Err(Error::Correlation {
+                    reason: format!(
+                        "needs the {s} content: give it with --composition {s}=<wt%>",
+                        s = self.solute
+                    ),
+                })
             }
         };
         let m = self.m_constant(c0)?;

@@ -20,6 +20,7 @@
 
 use super::coarsening::CoarseningParams;
 use super::PowerLaw;
+use crate::{Error, Result};
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 
@@ -197,10 +198,12 @@ impl Coefficient {
     }
 
     /// The coefficient at a composition.
-    pub fn at(&self, composition: &Composition) -> Result<f64, String> {
+    pub fn at(&self, composition: &Composition) -> Result<f64> {
         let content = |el: &str| {
             composition.get(el).copied().ok_or_else(|| {
-                format!("needs the {el} content: give it with --composition {el}=<wt%>")
+                invalid(format!(
+                    "needs the {el} content: give it with --composition {el}=<wt%>"
+                ))
             })
         };
         let mut a = self.value;
@@ -210,16 +213,16 @@ impl Coefficient {
         for (el, term) in &self.power {
             let c = content(el)?;
             if c <= 0.0 {
-                return Err(format!(
+                return Err(invalid(format!(
                     "needs a positive {el} content (the fit has a power of {el}); got {c} wt%"
-                ));
+                )));
             }
             a *= c.powf(term.exponent + term.exponent_per_wt_pct * c);
         }
         if !(a.is_finite() && a > 0.0) {
-            return Err(format!(
+            return Err(invalid(format!(
                 "its coefficient is not positive at this composition ({a:.4}); the composition is outside what the fit describes"
-            ));
+            )));
         }
         Ok(a)
     }
@@ -297,8 +300,8 @@ impl Correlation {
     /// The law as lambda2 (um) = c x x^e, x in `variable_unit`, at a
     /// composition (for a coarsening entry, the solute's content, or its
     /// default C0).
-    pub fn power_law(&self, composition: &Composition) -> Result<PowerLaw, String> {
-        let what = |e: String| format!("correlation '{}' {e}", self.id);
+    pub fn power_law(&self, composition: &Composition) -> Result<PowerLaw> {
+        let what = |e: Error| invalid(format!("correlation '{}' {e}", self.id));
         self.check_composition(composition).map_err(what)?;
         let (c, e) = match &self.law {
             Law::Power {
@@ -325,14 +328,14 @@ impl Correlation {
 
     /// A composition outside an entry's stated range is refused: the entry
     /// does not describe that alloy.
-    fn check_composition(&self, composition: &Composition) -> Result<(), String> {
+    fn check_composition(&self, composition: &Composition) -> Result<()> {
         for (el, range) in &self.composition {
             if let Some(&c) = composition.get(el) {
                 if !range.contains(c) {
-                    return Err(format!(
+                    return Err(invalid(format!(
                         "covers {el} {} wt%; {el} = {c} wt% is outside it",
                         range_text(range)
-                    ));
+                    )));
                 }
             }
         }
@@ -505,12 +508,16 @@ struct EntryRaw {
 
 /// Parses and validates a correlation file; `origin` names it in messages.
 /// Every problem is reported with the entry's position and id.
-pub fn parse(text: &str, origin: &str, builtin: bool) -> Result<Vec<Correlation>, String> {
-    let raw: FileRaw = serde_json::from_str(text).map_err(|e| format!("{origin}: {e}"))?;
+pub fn parse(text: &str, origin: &str, builtin: bool) -> Result<Vec<Correlation>> {
+    let bad = |reason: String| Error::Input {
+        path: origin.into(),
+        reason,
+    };
+    let raw: FileRaw = serde_json::from_str(text).map_err(|e| bad(e.to_string()))?;
     match raw.format.as_deref() {
         Some(FORMAT) => {}
-        Some(other) => return Err(format!("{origin}: format '{other}' is not '{FORMAT}'")),
-        None => return Err(format!("{origin}: missing \"format\": \"{FORMAT}\"")),
+        Some(other) => return Err(bad(format!("format '{other}' is not '{FORMAT}'"))),
+        None => return Err(bad(format!("missing \"format\": \"{FORMAT}\""))),
     }
     let mut out: Vec<Correlation> = Vec::new();
     for (i, value) in raw.correlations.into_iter().enumerate() {
@@ -521,83 +528,104 @@ pub fn parse(text: &str, origin: &str, builtin: bool) -> Result<Vec<Correlation>
                 format!("entry {} ('{id}')", i + 1)
             });
         let entry: EntryRaw =
-            serde_json::from_value(value).map_err(|e| format!("{origin}: {label}: {e}"))?;
-        let c = validate(entry, origin, builtin).map_err(|e| format!("{origin}: {label}: {e}"))?;
+            serde_json::from_value(value).map_err(|e| bad(format!("{label}: {e}")))?;
+        let c = validate(entry, origin, builtin).map_err(|e| bad(format!("{label}: {e}")))?;
         if out.iter().any(|o| o.id == c.id) {
-            return Err(format!("{origin}: {label}: duplicate id '{}'", c.id));
+            return Err(bad(format!("{label}: duplicate id '{}'", c.id)));
         }
         out.push(c);
     }
     Ok(out)
 }
 
-fn positive(name: &str, v: Option<f64>) -> Result<f64, String> {
-    match v {
-        None => Err(format!("missing \"{name}\"")),
-        Some(v) if v.is_finite() && v > 0.0 => Ok(v),
-        Some(v) => Err(format!("\"{name}\" must be a positive number, got {v}")),
+/// A correlation that cannot be used as asked: an invalid entry, a
+/// composition it excludes or needs, an unknown id.
+fn invalid(reason: impl Into<String>) -> Error {
+    Error::Correlation {
+        reason: reason.into(),
     }
 }
 
-fn validate(e: EntryRaw, origin: &str, builtin: bool) -> Result<Correlation, String> {
+fn positive(name: &str, v: Option<f64>) -> Result<f64> {
+    match v {
+        None => Err(invalid(format!("missing \"{name}\""))),
+        Some(v) if v.is_finite() && v > 0.0 => Ok(v),
+        Some(v) => Err(invalid(format!(
+            "\"{name}\" must be a positive number, got {v}"
+        ))),
+    }
+}
+
+fn validate(e: EntryRaw, origin: &str, builtin: bool) -> Result<Correlation> {
     let id =
         e.id.filter(|s| !s.trim().is_empty())
-            .ok_or("missing \"id\"")?;
+            .ok_or_else(|| invalid("missing \"id\""))?;
     if id.chars().any(char::is_whitespace) {
-        return Err(format!("id '{id}' must not contain spaces"));
+        return Err(invalid(format!("id '{id}' must not contain spaces")));
     }
     let form = match e.form.as_deref() {
-        None => return Err("missing \"form\"".into()),
+        None => return Err(invalid("missing \"form\"")),
         Some("cooling_rate") => Form::CoolingRate,
         Some("solidification_time") => Form::SolidificationTime,
         Some("coarsening") => Form::Coarsening,
         Some(other) => {
-            return Err(format!(
+            return Err(invalid(format!(
                 "unknown form '{other}' (accepted: cooling_rate, solidification_time, coarsening)"
-            ))
+            )))
         }
     };
     let sdas_unit = e
         .sdas_unit
-        .ok_or("missing unit: \"sdas_unit\" (the unit of lambda2, e.g. \"um\")")?;
-    let sdas_to_um = sdas_unit_factor(&sdas_unit)
-        .ok_or_else(|| format!("unknown sdas_unit '{sdas_unit}' (accepted: um, mm, m)"))?;
-    let vu = e.variable_unit.ok_or_else(|| match form {
-        Form::CoolingRate => {
-            "missing unit: \"variable_unit\" (the cooling rate's unit, e.g. \"K/s\")".to_string()
-        }
-        _ => "missing unit: \"variable_unit\" (the time's unit, e.g. \"s\")".to_string(),
+        .ok_or_else(|| invalid("missing unit: \"sdas_unit\" (the unit of lambda2, e.g. \"um\")"))?;
+    let sdas_to_um = sdas_unit_factor(&sdas_unit).ok_or_else(|| {
+        invalid(format!(
+            "unknown sdas_unit '{sdas_unit}' (accepted: um, mm, m)"
+        ))
+    })?;
+    let vu = e.variable_unit.ok_or_else(|| {
+        invalid(match form {
+            Form::CoolingRate => {
+                "missing unit: \"variable_unit\" (the cooling rate's unit, e.g. \"K/s\")"
+            }
+            _ => "missing unit: \"variable_unit\" (the time's unit, e.g. \"s\")",
+        })
     })?;
     let variable_unit = match form {
         Form::CoolingRate => rate_unit(&vu).ok_or_else(|| {
-            format!(
+            invalid(format!(
                 "unknown cooling-rate unit '{vu}' (accepted: K/s, degC/s, K/min, degC/min, K/h)"
-            )
+            ))
         })?,
         _ => time_unit(&vu)
-            .ok_or_else(|| format!("unknown time unit '{vu}' (accepted: s, min, h)"))?,
+            .ok_or_else(|| invalid(format!("unknown time unit '{vu}' (accepted: s, min, h)")))?,
     };
     let law = match form {
         Form::Coarsening => {
             if e.coefficient.is_some() || e.exponent.is_some() {
-                return Err("a coarsening entry takes \"coarsening\" parameters, not \"coefficient\" or \"exponent\"".into());
+                return Err(invalid("a coarsening entry takes \"coarsening\" parameters, not \"coefficient\" or \"exponent\""));
             }
-            let raw = e.coarsening.ok_or("missing \"coarsening\" parameters")?;
+            let raw = e
+                .coarsening
+                .ok_or_else(|| invalid("missing \"coarsening\" parameters"))?;
             Law::Coarsening(Box::new(CoarseningParams::from_raw(raw)?))
         }
         _ => {
             if e.coarsening.is_some() {
-                return Err("\"coarsening\" parameters belong to form \"coarsening\"".into());
-            }
-            let coefficient = e.coefficient.ok_or("missing \"coefficient\"")?;
-            if !(coefficient.value.is_finite() && coefficient.value != 0.0) {
-                return Err(format!(
-                    "\"coefficient\" value must be a non-zero number, got {}",
-                    coefficient.value
+                return Err(invalid(
+                    "\"coarsening\" parameters belong to form \"coarsening\"",
                 ));
             }
+            let coefficient = e
+                .coefficient
+                .ok_or_else(|| invalid("missing \"coefficient\""))?;
+            if !(coefficient.value.is_finite() && coefficient.value != 0.0) {
+                return Err(invalid(format!(
+                    "\"coefficient\" value must be a non-zero number, got {}",
+                    coefficient.value
+                )));
+            }
             if coefficient.linear.is_empty() && coefficient.value < 0.0 {
-                return Err("\"coefficient\" must be positive".into());
+                return Err(invalid("\"coefficient\" must be positive"));
             }
             let all_finite = coefficient.linear.values().all(|v| v.is_finite())
                 && coefficient
@@ -605,10 +633,10 @@ fn validate(e: EntryRaw, origin: &str, builtin: bool) -> Result<Correlation, Str
                     .values()
                     .all(|t| t.exponent.is_finite() && t.exponent_per_wt_pct.is_finite());
             if !all_finite {
-                return Err("\"coefficient\" terms must be finite numbers".into());
+                return Err(invalid("\"coefficient\" terms must be finite numbers"));
             }
             let exponent = positive("exponent", e.exponent).map_err(|m| {
-                format!("{m} (write the magnitude: lambda2 = A CR^-n takes n > 0, lambda2 = B t_f^m takes m > 0)")
+                invalid(format!("{m} (write the magnitude: lambda2 = A CR^-n takes n > 0, lambda2 = B t_f^m takes m > 0)"))
             })?;
             Law::Power {
                 coefficient,
@@ -619,15 +647,15 @@ fn validate(e: EntryRaw, origin: &str, builtin: bool) -> Result<Correlation, Str
     for (el, r) in &e.composition_wt_pct {
         let ok = |v: Option<f64>| v.is_none_or(|v| v.is_finite() && v >= 0.0);
         if !ok(r.min) || !ok(r.max) || matches!((r.min, r.max), (Some(a), Some(b)) if a > b) {
-            return Err(format!(
+            return Err(invalid(format!(
                 "composition range of {el} is not a valid wt% range"
-            ));
+            )));
         }
     }
     if e.fitted_range.is_some() && e.fitted_sdas_um.is_some() {
-        return Err(
-            "give either \"fitted_range\" (of the variable) or \"fitted_sdas_um\", not both".into(),
-        );
+        return Err(invalid(
+            "give either \"fitted_range\" (of the variable) or \"fitted_sdas_um\", not both",
+        ));
     }
     for (name, range) in [
         ("fitted_range", &e.fitted_range),
@@ -636,7 +664,9 @@ fn validate(e: EntryRaw, origin: &str, builtin: bool) -> Result<Correlation, Str
         if let Some(r) = range {
             let ok = |v: Option<f64>| v.is_none_or(|v| v.is_finite() && v > 0.0);
             if !ok(r.min) || !ok(r.max) || matches!((r.min, r.max), (Some(a), Some(b)) if a > b) {
-                return Err(format!("\"{name}\" must have positive bounds, min <= max"));
+                return Err(invalid(format!(
+                    "\"{name}\" must have positive bounds, min <= max"
+                )));
             }
         }
     }
@@ -649,9 +679,9 @@ fn validate(e: EntryRaw, origin: &str, builtin: bool) -> Result<Correlation, Str
     {
         if let Some(s) = r.status.as_deref() {
             if !["found", "from memory", "assumed"].contains(&s) {
-                return Err(format!(
+                return Err(invalid(format!(
                     "unknown {name} status '{s}' (accepted: found, from memory, assumed)"
-                ));
+                )));
             }
         }
     }
@@ -666,14 +696,14 @@ fn validate(e: EntryRaw, origin: &str, builtin: bool) -> Result<Correlation, Str
             .chain(e.fitted_sdas_um.iter())
             .any(|r| r.status.is_none());
         if unlabelled {
-            return Err("a built-in range needs a \"status\"".into());
+            return Err(invalid("a built-in range needs a \"status\""));
         }
     }
     if let Some(s) = e.scatter_pct {
         if !(s.is_finite() && s > 0.0 && s < 100.0) {
-            return Err(format!(
+            return Err(invalid(format!(
                 "\"scatter_pct\" must be between 0 and 100, got {s}"
-            ));
+            )));
         }
     }
     let status = match e.status.as_deref() {
@@ -681,16 +711,14 @@ fn validate(e: EntryRaw, origin: &str, builtin: bool) -> Result<Correlation, Str
         Some("from memory") => Status::FromMemory,
         Some("model") => Status::Model,
         Some("user") | None if !builtin => Status::User,
-        None => return Err("missing \"status\"".into()),
+        None => return Err(invalid("missing \"status\"")),
         Some(other) => {
-            return Err(format!(
+            return Err(invalid(format!(
                 "unknown status '{other}' (accepted: found, from memory, model, user)"
-            ))
+            )))
         }
     };
-    let source = e.source.ok_or(
-        "missing \"source\" (authors, year, title, published_in; for your own data, name your report)",
-    )?;
+    let source = e.source.ok_or_else(|| invalid("missing \"source\" (authors, year, title, published_in; for your own data, name your report)"))?;
     Ok(Correlation {
         id,
         alloy_family: e.alloy_family.unwrap_or_default(),
@@ -734,17 +762,16 @@ pub fn builtin() -> Vec<Correlation> {
 
 /// The built-in library plus the entries of a user file; an id used twice is
 /// an error.
-pub fn with_file(path: &std::path::Path) -> Result<Vec<Correlation>, String> {
-    let text = crate::files::read_text(path, "correlation file").map_err(|e| e.to_string())?;
+pub fn with_file(path: &std::path::Path) -> Result<Vec<Correlation>> {
+    let text = crate::files::read_text(path, "correlation file")?;
     let user = parse(&text, &path.display().to_string(), false)?;
     let mut all = builtin();
     for c in user {
         if all.iter().any(|b| b.id == c.id) {
-            return Err(format!(
-                "{}: duplicate id '{}' (already a built-in correlation)",
-                path.display(),
-                c.id
-            ));
+            return Err(Error::Input {
+                path: path.to_path_buf(),
+                reason: format!("duplicate id '{}' (already a built-in correlation)", c.id),
+            });
         }
         all.push(c);
     }
@@ -752,13 +779,13 @@ pub fn with_file(path: &std::path::Path) -> Result<Vec<Correlation>, String> {
 }
 
 /// The entry with this id, or a message listing the ids there are.
-pub fn find<'a>(library: &'a [Correlation], id: &str) -> Result<&'a Correlation, String> {
+pub fn find<'a>(library: &'a [Correlation], id: &str) -> Result<&'a Correlation> {
     library.iter().find(|c| c.id == id).ok_or_else(|| {
         let ids: Vec<&str> = library.iter().map(|c| c.id.as_str()).collect();
-        format!(
+        invalid(format!(
             "no correlation '{id}'; known: {} (see `armspace correlations`)",
             ids.join(", ")
-        )
+        ))
     })
 }
 

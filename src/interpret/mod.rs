@@ -16,7 +16,8 @@
 //! Uncertainty ([`interpret`]): the SDAS 95 % interval and the correlation's
 //! published scatter (one standard deviation of lambda2 about the fit, s %)
 //! are combined in log space, side by side:
-//! d = sqrt( ln(value / bound)^2 + (1.96 ln(1 + s/100))^2 ),
+//! d = sqrt( ln(value / bound)^2 + (z ln(1 + s/100))^2 ), with z = 1.959964
+//! the 0.975 normal quantile (`stats::Z95`),
 //! and the widened interval [value e^-d_low, value e^+d_high] is inverted.
 //! A relative uncertainty u of lambda2 becomes about u / exponent in the
 //! inverted quantity: 10 % in SDAS is about 30 % in t_f when m is near 1/3.
@@ -30,6 +31,7 @@ pub mod plausibility;
 pub use library::{Composition, Correlation, Form};
 
 use crate::units::{Kelvin, Micrometres};
+use crate::{Error, Result};
 use serde::Serialize;
 
 /// lambda2 (um) = coefficient x x^exponent, x in the law's own unit.
@@ -40,14 +42,16 @@ pub struct PowerLaw {
 }
 
 impl PowerLaw {
-    pub fn new(coefficient: f64, exponent: f64) -> Result<Self, String> {
+    pub fn new(coefficient: f64, exponent: f64) -> Result<Self> {
         if !(coefficient.is_finite() && coefficient > 0.0) {
-            return Err(format!(
-                "coefficient {coefficient} must be a positive number"
-            ));
+            return Err(Error::Correlation {
+                reason: format!("coefficient {coefficient} must be a positive number"),
+            });
         }
         if !(exponent.is_finite() && exponent != 0.0) {
-            return Err(format!("exponent {exponent} must be a non-zero number"));
+            return Err(Error::Correlation {
+                reason: format!("exponent {exponent} must be a non-zero number"),
+            });
         }
         Ok(Self {
             coefficient,
@@ -259,7 +263,7 @@ pub const FAR_OUTSIDE: f64 = 3.0;
 /// Inverts the SDAS with a correlation: cooling rate and solidification time
 /// with 95 % intervals, and the warnings a reader needs. Errors are about
 /// the request (a composition the correlation needs or excludes).
-pub fn interpret(corr: &Correlation, req: &Request) -> Result<Interpretation, String> {
+pub fn interpret(corr: &Correlation, req: &Request) -> Result<Interpretation> {
     let law = corr.power_law(&req.composition)?;
     let mut warnings = Vec::new();
     match corr.status {
@@ -343,7 +347,9 @@ pub fn interpret(corr: &Correlation, req: &Request) -> Result<Interpretation, St
     out.sdas_ci95_rel_pct = req.ci95.map(|[a, b]| rel_pct(sdas.0, [a.0, b.0]));
 
     // The primary quantity, in the correlation's own unit, then in K/s or s.
-    let x = law.invert(sdas).ok_or("the SDAS cannot be inverted")?;
+    let x = law.invert(sdas).ok_or_else(|| Error::Correlation {
+        reason: "the SDAS cannot be inverted".into(),
+    })?;
     let to_base = corr.variable_unit.to_base;
     let gain = 1.0 / law.exponent.abs();
     // The measurement's part alone (ci95), and with the correlation's own
@@ -491,7 +497,7 @@ pub fn interpret_with_alternatives(
     corr: &Correlation,
     library: &[Correlation],
     req: &Request,
-) -> Result<Interpretation, String> {
+) -> Result<Interpretation> {
     let mut out = interpret(corr, req)?;
     for other in library
         .iter()
@@ -520,7 +526,7 @@ pub fn interpret_with_alternatives(
             }
             Err(e) => out.alternatives_not_applicable.push(NotApplicable {
                 id: other.id.clone(),
-                reason: e,
+                reason: e.to_string(),
             }),
         }
     }
@@ -634,7 +640,7 @@ pub struct Settings {
 impl Settings {
     /// Checks once, before a batch, that the correlation applies to the
     /// composition given.
-    pub fn check(&self) -> Result<(), String> {
+    pub fn check(&self) -> Result<()> {
         self.correlation.power_law(&self.composition).map(|_| ())
     }
 
@@ -643,7 +649,7 @@ impl Settings {
         &self,
         sdas: Option<Micrometres>,
         ci95: Option<[Micrometres; 2]>,
-    ) -> Result<Interpretation, String> {
+    ) -> Result<Interpretation> {
         interpret_with_alternatives(
             &self.correlation,
             &self.library,
@@ -659,18 +665,23 @@ impl Settings {
 }
 
 /// Parses "C=0.1,Si=7" (wt%) into a composition.
-pub fn parse_composition(text: &str) -> Result<Composition, String> {
+pub fn parse_composition(text: &str) -> Result<Composition> {
+    let unusable = |reason: String| Error::Value { reason };
     let mut out = Composition::new();
     for part in text.split(',').map(str::trim).filter(|p| !p.is_empty()) {
-        let (el, v) = part
-            .split_once('=')
-            .ok_or_else(|| format!("'{part}': write each element as Symbol=wt%, e.g. Si=7"))?;
+        let (el, v) = part.split_once('=').ok_or_else(|| {
+            unusable(format!(
+                "'{part}': write each element as Symbol=wt%, e.g. Si=7"
+            ))
+        })?;
         let el = el.trim();
         let ok_symbol = (1..=2).contains(&el.len())
             && el.chars().next().is_some_and(|c| c.is_ascii_uppercase())
             && el.chars().skip(1).all(|c| c.is_ascii_lowercase());
         if !ok_symbol {
-            return Err(format!("'{el}' is not an element symbol (e.g. C, Si, Cu)"));
+            return Err(unusable(format!(
+                "'{el}' is not an element symbol (e.g. C, Si, Cu)"
+            )));
         }
         let v: f64 = v
             .trim()
@@ -678,22 +689,26 @@ pub fn parse_composition(text: &str) -> Result<Composition, String> {
             .trim_end_matches('%')
             .trim()
             .parse()
-            .map_err(|_| format!("'{part}': the content is not a number"))?;
+            .map_err(|_| unusable(format!("'{part}': the content is not a number")))?;
         if !(v.is_finite() && (0.0..=100.0).contains(&v)) {
-            return Err(format!("'{part}': the content must be 0 to 100 wt%"));
+            return Err(unusable(format!(
+                "'{part}': the content must be 0 to 100 wt%"
+            )));
         }
         if out.insert(el.to_string(), v).is_some() {
-            return Err(format!("'{el}' is given twice"));
+            return Err(unusable(format!("'{el}' is given twice")));
         }
     }
     if out.is_empty() {
-        return Err("no element given (e.g. --composition Si=7,Cu=0.2)".into());
+        return Err(unusable(
+            "no element given (e.g. --composition Si=7,Cu=0.2)".into(),
+        ));
     }
     Ok(out)
 }
 
 /// Parses a temperature interval: "60K", "60 K", "60degC", "60°C" or "60".
-pub fn parse_kelvin(text: &str) -> Result<Kelvin, String> {
+pub fn parse_kelvin(text: &str) -> Result<Kelvin> {
     let t = text.trim();
     let num = ["K", "degC", "\u{00b0}C", "C"]
         .iter()
@@ -702,9 +717,11 @@ pub fn parse_kelvin(text: &str) -> Result<Kelvin, String> {
         .trim();
     match num.parse::<f64>() {
         Ok(v) if v.is_finite() && v > 0.0 && v < 2000.0 => Ok(Kelvin(v)),
-        _ => Err(format!(
-            "'{text}' is not a temperature interval between 0 and 2000 K (e.g. 60K)"
-        )),
+        _ => Err(Error::Value {
+            reason: format!(
+                "'{text}' is not a temperature interval between 0 and 2000 K (e.g. 60K)"
+            ),
+        }),
     }
 }
 
