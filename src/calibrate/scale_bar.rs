@@ -27,10 +27,11 @@
 //! beyond (the edge of a backing box) is ignored.
 
 use crate::load::GrayImage;
+use schemars::JsonSchema;
 use serde::Serialize;
 
 /// Which way the bar contrasts with what surrounds it.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, JsonSchema)]
 #[serde(rename_all = "kebab-case")]
 pub enum Polarity {
     DarkOnLight,
