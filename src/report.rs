@@ -3,6 +3,15 @@
 //! pipeline's results, and its atomic writing.
 //!
 //! Later versions add fields; they never remove or retype one.
+//!
+//! The JSON Schema is generated from these types ([`json_schema`], schemars):
+//! doc comments become its descriptions, and `#[schemars(...)]` attributes
+//! add the constraints the Rust types cannot say (a positive length, the
+//! names a string can take). `tests/schema.rs` checks the committed
+//! schema/report.schema.json against it (`ARMSPACE_BLESS=1` rewrites it).
+
+mod schema;
+pub use schema::json_schema;
 
 use crate::interpret::acceptance::{self, Acceptance, Decision, Spec};
 use crate::methods::fft::FftOutcome;
@@ -10,6 +19,7 @@ use crate::methods::intercept::{Convention, InterceptOutcome};
 use crate::methods::{self, Detail};
 use crate::pipeline::{ImageResult, MeasureOptions, Skipped};
 use crate::units::{Pixels, UmPerPx};
+use schemars::JsonSchema;
 use serde::Serialize;
 
 pub const SCHEMA: &str = "armspace.report/1";
@@ -19,60 +29,99 @@ pub const CAUTION: &str = "armspace results support, and never replace, the judg
 qualified personnel and the applicable specification and codes. Check the calibration and \
 the pictures of what was measured before a result is used for the release of a casting.";
 
-#[derive(Serialize, Debug)]
+/// A batch of SDAS measurements. Later versions add fields; they never
+/// remove or retype one. Lengths are micrometres unless a field name says
+/// _px.
+#[derive(Serialize, JsonSchema, Debug)]
+#[schemars(
+    title = "armspace report, schema armspace.report/1",
+    extend("$id" = schema::ID)
+)]
 pub struct Report {
+    /// The contract and its version.
+    #[schemars(extend("const" = SCHEMA))]
     pub schema: &'static str,
     pub tool: Tool,
+    /// Time of the run, RFC 3339 in UTC (SOURCE_DATE_EPOCH fixes it for
+    /// reproducible output).
+    #[schemars(regex(pattern = r"^[0-9]{4}-[0-9]{2}-[0-9]{2}T[0-9]{2}:[0-9]{2}:[0-9]{2}Z$"))]
     pub created_utc: String,
+    /// Carried by every report: results support, and never replace, the
+    /// judgement of qualified personnel.
+    #[schemars(length(min = 1))]
     pub caution: &'static str,
     pub parameters: Parameters,
+    /// One entry per image, in input order.
     pub images: Vec<ImageReport>,
+    /// Files passed over in folders, with the reason.
     pub skipped: Vec<SkippedReport>,
     pub summary: Summary,
 }
 
-#[derive(Serialize, Debug)]
+/// The program that wrote the report.
+#[derive(Serialize, JsonSchema, Debug)]
 pub struct Tool {
+    #[schemars(extend("const" = env!("CARGO_PKG_NAME")))]
     pub name: &'static str,
     pub version: &'static str,
 }
 
-#[derive(Serialize, Debug)]
+/// Everything needed to repeat the run.
+#[derive(Serialize, JsonSchema, Debug)]
 pub struct Parameters {
+    /// The inputs (files and folders) as given.
     pub inputs: Vec<String>,
     /// --um-per-px, when given.
+    #[schemars(extend("exclusiveMinimum" = 0))]
     pub um_per_px: Option<f64>,
     /// --profile: the profile's name, value and stated uncertainty.
     pub profile: Option<ProfileParameters>,
     /// --scale-bar: the bar's stated length (um) and relative uncertainty.
+    #[schemars(extend("exclusiveMinimum" = 0))]
     pub scale_bar_um: Option<f64>,
+    #[schemars(range(min = 0))]
     pub scale_bar_rel_uncertainty: Option<f64>,
+    /// The methods asked for, in the order they run.
+    #[schemars(schema_with = "schema::method_names")]
     pub methods: Vec<&'static str>,
+    /// Images larger than this many megapixels are refused before decoding.
+    #[schemars(extend("exclusiveMinimum" = 0))]
     pub max_megapixels: f64,
     pub preprocess: PreprocessParameters,
     pub fft: FftParameters,
     pub intercept: InterceptParameters,
     /// The spec (--spec): limits, zones, statistic and rule; absent without it.
     #[serde(skip_serializing_if = "Option::is_none")]
+    #[schemars(with = "Spec")]
     pub spec: Option<Spec>,
-    /// --alloy and what goes with it; absent without --alloy.
+    /// --correlation and what goes with it; absent without it.
     #[serde(skip_serializing_if = "Option::is_none")]
+    #[schemars(with = "InterpretationParameters")]
     pub interpretation: Option<InterpretationParameters>,
 }
 
-#[derive(Serialize, Debug)]
+/// The interpretation settings (--correlation).
+#[derive(Serialize, JsonSchema, Debug)]
 pub struct InterpretationParameters {
+    /// The correlation's id.
     pub correlation: String,
+    /// --composition: wt% by element symbol.
+    #[schemars(schema_with = "schema::composition")]
     pub composition_wt_pct: crate::interpret::Composition,
+    /// --freezing-range, K.
     #[serde(rename = "freezing_range_K")]
     pub freezing_range_k: Option<f64>,
+    /// --extrapolate: values more than 3x beyond the fitted range are given.
     pub extrapolate: bool,
 }
 
-#[derive(Serialize, Debug)]
+#[derive(Serialize, JsonSchema, Debug)]
 pub struct InterceptParameters {
     /// "centre-to-centre" (L/(n-1)) or "length-over-count" (L/n).
+    #[schemars(schema_with = "schema::convention")]
     pub convention: &'static str,
+    /// The relative accuracy (%RA) the lines-for-target counts aim at.
+    #[schemars(extend("exclusiveMinimum" = 0))]
     pub target_rel_accuracy_pct: f64,
 }
 
@@ -83,20 +132,22 @@ pub fn convention_name(c: Convention) -> &'static str {
     }
 }
 
-#[derive(Serialize, Debug)]
+#[derive(Serialize, JsonSchema, Debug)]
 pub struct ProfileParameters {
     pub name: String,
+    #[schemars(extend("exclusiveMinimum" = 0))]
     pub um_per_px: f64,
+    #[schemars(range(min = 0))]
     pub rel_uncertainty: Option<f64>,
 }
 
-#[derive(Serialize, Debug)]
+#[derive(Serialize, JsonSchema, Debug)]
 pub struct PreprocessParameters {
     /// null: chosen per image from its size (reported per image in methods.fft).
     pub background_sigma_px: Option<f64>,
 }
 
-#[derive(Serialize, Debug)]
+#[derive(Serialize, JsonSchema, Debug)]
 pub struct FftParameters {
     pub min_period_px: f64,
     pub periods_per_tile: f64,
@@ -105,12 +156,22 @@ pub struct FftParameters {
     pub coarse_window_max_px: usize,
 }
 
-#[derive(Serialize, Debug)]
+/// One image: what was read, the calibration, the SDAS and each method's
+/// detail. An image that could not be read has an `error` and no value.
+#[derive(Serialize, JsonSchema, Debug)]
+#[schemars(rename = "image", transform = schema::error_means_no_value)]
 pub struct ImageReport {
+    /// The path as given or as found in a folder.
     pub file: String,
+    /// SHA-256 of the file's bytes, lower-case hex.
+    #[schemars(regex(pattern = r"^[0-9a-f]{64}$"))]
     pub sha256: Option<String>,
+    #[schemars(range(min = 1))]
     pub width: Option<u32>,
+    #[schemars(range(min = 1))]
     pub height: Option<u32>,
+    /// Bits per sample of the decoded image.
+    #[schemars(extend("enum" = [8, 16, 32, null]))]
     pub bit_depth: Option<u8>,
     pub calibration: Option<CalibrationReport>,
     /// Rectangles excluded from measurement (scale bar, its box and label
@@ -118,45 +179,64 @@ pub struct ImageReport {
     pub excluded_px: Vec<[u32; 4]>,
     pub sdas_um: SdasReport,
     pub methods: MethodsReport,
+    /// What a reviewer should know about the result, in words.
     pub warnings: Vec<String>,
-    /// The stable code of each warning, in the same order as `warnings`.
+    /// The stable code of each warning (stage.what), in the order of
+    /// `warnings`.
+    #[schemars(inner(regex(pattern = r"^[a-z]+\.[a-z-]+$")))]
     pub warning_codes: Vec<&'static str>,
+    /// Why the image could not be read or decoded; null when it was.
     pub error: Option<String>,
     /// Path of the picture of what was measured (with --overlay), else null.
     pub overlay: Option<String>,
-    /// Cooling rate and solidification time (with --alloy), else absent.
+    /// Cooling rate and solidification time (with --correlation), else absent.
     #[serde(skip_serializing_if = "Option::is_none")]
+    #[schemars(with = "crate::interpret::Interpretation")]
     pub interpretation: Option<crate::interpret::Interpretation>,
     /// The decision against the spec's limit (with --spec), else absent.
     #[serde(skip_serializing_if = "Option::is_none")]
+    #[schemars(with = "Acceptance")]
     pub acceptance: Option<Acceptance>,
 }
 
-#[derive(Serialize, Debug)]
+/// The calibration applied to the image.
+#[derive(Serialize, JsonSchema, Debug)]
 pub struct CalibrationReport {
+    #[schemars(extend("exclusiveMinimum" = 0))]
     pub um_per_px: f64,
+    /// The source whose value was applied.
     pub source: crate::calibrate::CalibrationSource,
     /// Relative standard uncertainty of um_per_px, when known.
+    #[schemars(range(min = 0))]
     pub rel_uncertainty: Option<f64>,
     /// The scale bar, when the calibration came from it.
     #[serde(skip_serializing_if = "Option::is_none")]
+    #[schemars(with = "BarReport")]
     pub bar: Option<BarReport>,
     /// The value each available source gave, by source name.
+    #[schemars(schema_with = "schema::calibration_sources")]
     pub sources: std::collections::BTreeMap<&'static str, f64>,
 }
 
 /// A detected scale bar, pixel coordinates from the top-left corner
 /// (inclusive indices).
-#[derive(Serialize, Debug)]
+#[derive(Serialize, JsonSchema, Debug)]
+#[schemars(rename = "bar")]
 pub struct BarReport {
+    /// Edge-to-edge length, px.
+    #[schemars(extend("exclusiveMinimum" = 0))]
     pub length_px: f64,
     pub x0: u32,
     pub y0: u32,
     pub x1: u32,
     pub y1: u32,
+    #[schemars(range(min = 1))]
     pub thickness_px: u32,
     pub polarity: crate::calibrate::scale_bar::Polarity,
+    /// 0 to 1: the weakest of the fill, uniformity and edge-contrast tests.
+    #[schemars(range(min = 0, max = 1))]
     pub confidence: f64,
+    /// Contrasting box behind the bar, when there is one: [x0, y0, x1, y1].
     pub backing_box: Option<[u32; 4]>,
 }
 
@@ -191,42 +271,61 @@ pub fn calibration_report(c: &crate::calibrate::Calibration) -> CalibrationRepor
     }
 }
 
-#[derive(Serialize, Debug)]
+/// The image's SDAS from the methods that agree, um.
+#[derive(Serialize, JsonSchema, Debug)]
 pub struct SdasReport {
     /// Rounded to the uncertainty ([`digits_for_uncertainty`]).
+    #[schemars(
+        description = "The image's SDAS, um; it and ci95 are rounded to two significant digits of the interval's half-width. Null, with a reason, when there is no value."
+    )]
     pub value: Option<f64>,
+    /// 95 % interval, lower bound first.
     pub ci95: Option<[f64; 2]>,
     /// The value to 4 decimals, for programs that recompute with it.
     pub value_unrounded: Option<f64>,
     /// Local measurements behind the value (tiles, lines, chains).
     pub n: usize,
     /// Of those, how many count as independent (an FFT tile a quarter).
+    #[schemars(range(min = 0))]
     pub n_eff: f64,
+    /// The methods whose values were combined into this one.
+    #[schemars(schema_with = "schema::method_names")]
     pub methods: Vec<&'static str>,
+    /// Why there is no value, when there is none.
     pub reason: Option<String>,
     /// Methods that gave a value which did not enter this one, and why.
     pub left_out: Vec<LeftOutReport>,
     /// Birge ratio of the combined values (null with fewer than two).
+    #[schemars(range(min = 0))]
     pub birge_ratio: Option<f64>,
 }
 
-#[derive(Serialize, Debug)]
+#[derive(Serialize, JsonSchema, Debug)]
 pub struct LeftOutReport {
+    #[schemars(schema_with = "schema::method_name")]
     pub method: &'static str,
     pub reason: String,
 }
 
-#[derive(Serialize, Debug, Default)]
+/// Each method's result and its local measurements, um (absent for a method
+/// not run, and all absent without a calibration).
+#[derive(Serialize, JsonSchema, Debug, Default)]
 pub struct MethodsReport {
     #[serde(skip_serializing_if = "Option::is_none")]
+    #[schemars(with = "FftReport")]
     pub fft: Option<FftReport>,
     #[serde(skip_serializing_if = "Option::is_none")]
+    #[schemars(with = "InterceptReport")]
     pub intercept: Option<InterceptReport>,
     #[serde(skip_serializing_if = "Option::is_none")]
+    #[schemars(with = "CentresReport")]
     pub centres: Option<CentresReport>,
 }
 
-#[derive(Serialize, Debug)]
+/// The centres method: arm-body centres linked into chains along rows
+/// (spacing = end-to-end distance / gaps).
+#[derive(Serialize, JsonSchema, Debug)]
+#[schemars(rename = "centres")]
 pub struct CentresReport {
     pub value: Option<f64>,
     pub ci95: Option<[f64; 2]>,
@@ -245,20 +344,24 @@ pub struct CentresReport {
     pub parallel_fraction: Option<f64>,
     pub chance_parallel_max: Option<f64>,
     /// The phase whose centres were taken as the arms ("darker", "brighter").
+    #[schemars(extend("enum" = ["darker", "brighter", null]))]
     pub arm_phase: Option<&'static str>,
     pub reason: Option<String>,
+    /// A figure without the support a value needs; never used.
     pub indicative: Option<f64>,
     pub chains: Vec<ChainReport>,
 }
 
-#[derive(Serialize, Debug)]
+#[derive(Serialize, JsonSchema, Debug)]
 pub struct ChainReport {
     /// The centres along the chain, [x, y] in um from the top-left corner.
     pub points_um: Vec<[f64; 2]>,
     pub sdas_um: f64,
 }
 
-#[derive(Serialize, Debug)]
+/// The line-intercept method.
+#[derive(Serialize, JsonSchema, Debug)]
+#[schemars(rename = "intercept", transform = schema::no_value_has_a_reason)]
 pub struct InterceptReport {
     pub value: Option<f64>,
     pub ci95: Option<[f64; 2]>,
@@ -267,59 +370,92 @@ pub struct InterceptReport {
     pub rel_accuracy_pct: Option<f64>,
     /// Lines in all that would bring %RA to the target, at the same spread.
     pub lines_for_target: Option<usize>,
+    #[schemars(schema_with = "schema::convention")]
     pub convention: &'static str,
     pub reason: Option<String>,
     /// A figure without the support a value needs (too few independent
     /// measurements for an interval, or an interval reaching zero): never
     /// used.
+    #[schemars(extend("exclusiveMinimum" = 0))]
     pub indicative: Option<f64>,
     pub lines: Vec<LineReport>,
 }
 
-#[derive(Serialize, Debug)]
+/// A test line, its ends in um from the top-left corner.
+#[derive(Serialize, JsonSchema, Debug)]
 pub struct LineReport {
     pub x0_um: f64,
     pub y0_um: f64,
     pub x1_um: f64,
     pub y1_um: f64,
+    /// Arms counted along the line.
+    #[schemars(range(min = 2))]
     pub arms: usize,
+    #[schemars(extend("exclusiveMinimum" = 0))]
     pub sdas_um: f64,
 }
 
-#[derive(Serialize, Debug)]
+/// The FFT method: SDAS from the spectral periodicity of tiles.
+#[derive(Serialize, JsonSchema, Debug)]
+#[schemars(rename = "fft", transform = schema::no_value_has_a_reason)]
 pub struct FftReport {
     pub value: Option<f64>,
     pub ci95: Option<[f64; 2]>,
+    /// Robust standard deviation of the used tiles' spacings.
     pub spread_um: Option<f64>,
+    /// Tiles whose spacing entered the value.
     pub n_tiles: usize,
+    /// Tiles whose spectra were analysed.
     pub n_tiles_analysed: usize,
+    /// Side of the square tiles, px.
     pub window_px: usize,
+    /// Side of the square tiles, um.
     pub window_um: f64,
+    /// Mean direction along which the used tiles repeat, degrees
+    /// counter-clockwise from the image's +x axis with y up, in [0, 180)
+    /// (180 only by rounding).
+    #[schemars(range(min = 0, max = 180))]
     pub orientation_deg: Option<f64>,
+    /// Axial coherence of the used tiles' directions, 0 (all ways) to 1 (one
+    /// way).
+    #[schemars(range(min = 0, max = 1))]
     pub orientation_coherence: Option<f64>,
     pub reason: Option<String>,
     /// See `InterceptReport::indicative`.
+    #[schemars(
+        description = "A figure without the support a value needs (too few independent measurements for an interval, or an interval reaching zero): never used.",
+        extend("exclusiveMinimum" = 0)
+    )]
     pub indicative: Option<f64>,
     pub tiles: Vec<TileReport>,
 }
 
-#[derive(Serialize, Debug)]
+/// A tile, its centre in um from the top-left corner.
+#[derive(Serialize, JsonSchema, Debug)]
 pub struct TileReport {
     pub x_um: f64,
     pub y_um: f64,
+    /// Null when the tile gave no spacing.
     pub sdas_um: Option<f64>,
+    /// Direction along which the spacing repeats, degrees counter-clockwise
+    /// from +x with y up.
     pub dir_deg: Option<f64>,
+    /// The chosen spectral peak's prominence.
     pub quality: f64,
+    /// Whether the tile entered the value.
     pub used: bool,
 }
 
-#[derive(Serialize, Debug)]
+/// A file passed over in a folder (not an image by its extension, one of
+/// the tool's own pictures, ...), with the reason.
+#[derive(Serialize, JsonSchema, Debug)]
 pub struct SkippedReport {
     pub file: String,
     pub reason: String,
 }
 
-#[derive(Serialize, Debug)]
+/// Counts of the batch and the range of its values.
+#[derive(Serialize, JsonSchema, Debug)]
 pub struct Summary {
     /// Images attempted (skipped files excluded).
     pub images: usize,
@@ -336,13 +472,14 @@ pub struct Summary {
     pub sdas_um_max: Option<f64>,
     /// Verdicts per zone and for the batch (with --spec), else absent.
     #[serde(skip_serializing_if = "Option::is_none")]
+    #[schemars(with = "AcceptanceSummary")]
     pub acceptance: Option<AcceptanceSummary>,
 }
 
 /// Verdicts of a batch against its spec: fail when any image failed;
 /// otherwise indeterminate when any is indeterminate or was not assessed
 /// (or could not be read); otherwise pass.
-#[derive(Serialize, Debug)]
+#[derive(Serialize, JsonSchema, Debug)]
 pub struct AcceptanceSummary {
     pub verdict: Option<Decision>,
     pub pass: usize,
@@ -355,7 +492,8 @@ pub struct AcceptanceSummary {
     pub zones: Vec<ZoneSummary>,
 }
 
-#[derive(Serialize, Debug)]
+/// The verdict of one zone, or of the images under the spec's general limit.
+#[derive(Serialize, JsonSchema, Debug)]
 pub struct ZoneSummary {
     /// The zone's name; null for images under the spec's general limit.
     pub zone: Option<String>,

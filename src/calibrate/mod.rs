@@ -18,10 +18,11 @@ pub mod scale_bar;
 use crate::error::{Error, Result, Warning};
 use crate::units::{Micrometres, UmPerPx};
 use scale_bar::ScaleBar;
+use schemars::JsonSchema;
 use serde::Serialize;
 
 /// Where a calibration came from.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord, Serialize)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord, Serialize, JsonSchema)]
 #[serde(rename_all = "kebab-case")]
 pub enum CalibrationSource {
     Manual,

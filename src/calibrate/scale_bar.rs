@@ -27,15 +27,16 @@
 //! beyond (the edge of a backing box) is ignored.
 
 use crate::load::GrayImage;
+use schemars::JsonSchema;
 use serde::Serialize;
 
 /// Which way the bar contrasts with what surrounds it.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, serde::Deserialize)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, serde::Deserialize, JsonSchema)]
 #[serde(rename_all = "kebab-case")]
 pub enum Polarity {
-    /// A dark bar on lighter surroundings.
+    // A dark bar on lighter surroundings.
     DarkOnLight,
-    /// A light bar on darker surroundings.
+    // A light bar on darker surroundings.
     LightOnDark,
 }
 

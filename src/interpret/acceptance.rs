@@ -23,12 +23,13 @@
 //! is); d <= c means only a better calibration can decide it.
 
 use crate::units::Micrometres;
+use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 
 pub const FORMAT: &str = "armspace.spec/1";
 
 /// Which number is compared with the limit.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize, Default)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize, JsonSchema, Default)]
 #[serde(rename_all = "snake_case")]
 pub enum Statistic {
     /// The image's SDAS value and its 95 % interval.
@@ -39,8 +40,10 @@ pub enum Statistic {
     MaxLocal,
 }
 
-/// The decision rule.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize, Default)]
+/// The decision rule: `guarded` (pass only when the whole 95 % interval is
+/// at or below the limit, fail only when it is all above) or `simple` (the
+/// value alone).
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize, JsonSchema, Default)]
 #[serde(rename_all = "snake_case")]
 pub enum Rule {
     #[default]
@@ -48,7 +51,7 @@ pub enum Rule {
     Simple,
 }
 
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, PartialOrd, Ord)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, JsonSchema, PartialOrd, Ord)]
 #[serde(rename_all = "snake_case")]
 pub enum Decision {
     Pass,
@@ -68,11 +71,12 @@ impl Decision {
 
 /// A zone: images whose file name matches `pattern` ('*' and '?'
 /// wildcards; a pattern with '/' is matched against the path as given).
-#[derive(Clone, Debug, Serialize, Deserialize)]
+#[derive(Clone, Debug, Serialize, Deserialize, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct Zone {
     pub name: String,
     pub pattern: String,
+    #[schemars(extend("exclusiveMinimum" = 0))]
     pub limit_um: f64,
     #[serde(default)]
     pub statistic: Option<Statistic>,
@@ -83,9 +87,10 @@ pub struct Zone {
 }
 
 /// A validated spec file.
-#[derive(Clone, Debug, Serialize, Deserialize)]
+#[derive(Clone, Debug, Serialize, Deserialize, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct Spec {
+    #[schemars(extend("const" = FORMAT))]
     pub format: String,
     /// Free text naming the specification (drawing, revision).
     #[serde(default)]
@@ -93,6 +98,7 @@ pub struct Spec {
     /// Limit for images that match no zone; without it such an image is not
     /// assessed (and the batch cannot pass).
     #[serde(default)]
+    #[schemars(extend("exclusiveMinimum" = 0))]
     pub limit_um: Option<f64>,
     #[serde(default)]
     pub statistic: Statistic,
@@ -182,10 +188,13 @@ pub struct Evidence {
     pub calibration_half_um: f64,
 }
 
-/// The acceptance of one image.
-#[derive(Clone, Debug, PartialEq, Serialize)]
+/// The image's decision against the spec's SDAS limit (with --spec).
+#[derive(Clone, Debug, PartialEq, Serialize, JsonSchema)]
+#[schemars(rename = "acceptance", deny_unknown_fields)]
 pub struct Acceptance {
+    /// The zone the image falls in; null under the spec's general limit.
     pub zone: Option<String>,
+    #[schemars(extend("exclusiveMinimum" = 0))]
     pub limit_um: Option<f64>,
     pub statistic: Statistic,
     pub rule: Rule,
@@ -198,8 +207,10 @@ pub struct Acceptance {
     pub reason: String,
     /// For an indeterminate result: about how many measurements (tiles or
     /// lines) in all would most likely decide it, when more would.
+    #[schemars(range(min = 1))]
     pub measurements_to_decide: Option<usize>,
     /// The same as a number of fields like this one, in all.
+    #[schemars(range(min = 1))]
     pub fields_to_decide: Option<usize>,
 }
 

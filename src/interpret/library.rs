@@ -21,6 +21,7 @@
 use super::coarsening::CoarseningParams;
 use super::PowerLaw;
 use crate::{Error, Result};
+use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 
@@ -31,7 +32,7 @@ pub const FORMAT: &str = "armspace.correlations/1";
 pub type Composition = BTreeMap<String, f64>;
 
 /// What the law relates lambda2 to.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, JsonSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum Form {
     CoolingRate,
@@ -93,7 +94,7 @@ fn sdas_unit_factor(text: &str) -> Option<f64> {
 /// law's variable or of lambda2); a missing bound is unknown. Bounds are
 /// inclusive unless `min_exclusive` is set, so two forms that share a
 /// boundary (Won & Thomas: C <= 0.15 and C > 0.15) give it to exactly one.
-#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, Default)]
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, JsonSchema, Default)]
 #[serde(deny_unknown_fields)]
 pub struct Range {
     pub min: Option<f64>,
@@ -103,12 +104,14 @@ pub struct Range {
     pub min_exclusive: bool,
     /// Where the bounds come from: "found" (read in the source), "from
     /// memory", or "assumed" (a conservative guard set by armspace, not the
-    /// source's range); None for user files (their own).
+    /// source's range); absent for user files (their own).
     #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[schemars(with = "String")]
     pub status: Option<String>,
     /// What exactly is known about the bounds, and why an assumed bound is
     /// where it is.
     #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[schemars(with = "String")]
     pub note: Option<String>,
 }
 
@@ -273,7 +276,7 @@ pub struct Correlation {
 }
 
 /// Whether an entry's numbers were read in the source.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, JsonSchema)]
 pub enum Status {
     #[serde(rename = "found")]
     Found,

@@ -32,6 +32,7 @@ pub use library::{Composition, Correlation, Form};
 
 use crate::units::{Kelvin, Micrometres};
 use crate::{Error, Result};
+use schemars::JsonSchema;
 use serde::Serialize;
 
 /// lambda2 (um) = coefficient x x^exponent, x in the law's own unit.
@@ -92,8 +93,10 @@ pub struct Request {
 }
 
 /// An inverted quantity in the tool's units (K/s or s).
-#[derive(Clone, Debug, Default, PartialEq, Serialize)]
+#[derive(Clone, Debug, Default, PartialEq, Serialize, JsonSchema)]
+#[schemars(rename = "quantity", deny_unknown_fields)]
 pub struct Quantity {
+    #[schemars(extend("exclusiveMinimum" = 0))]
     pub value: Option<f64>,
     pub ci95: Option<[f64; 2]>,
     /// Relative deviation of the interval's bounds from the value, percent.
@@ -101,12 +104,21 @@ pub struct Quantity {
     /// Relative uncertainty here per relative uncertainty of the SDAS (1/exponent).
     pub uncertainty_gain: Option<f64>,
     /// How the value was obtained ("correlation" or "freezing range / ...").
+    #[schemars(extend("enum" = [
+        "correlation",
+        "freezing range / cooling rate",
+        "freezing range / solidification time",
+        null
+    ]))]
     pub derived: Option<&'static str>,
     /// Why there is no value, when there is none.
     pub reason: Option<String>,
     /// The 95 % interval with the correlation's published scatter combined
     /// with the SDAS's (module docs); null when no scatter is published, in
     /// which case `ci95` leaves the law's own scatter out.
+    #[schemars(
+        description = "The 95 % interval with the correlation's published scatter combined with the SDAS's (in log space); null when no scatter is published, in which case ci95 leaves the law's own scatter out."
+    )]
     pub ci95_with_scatter: Option<[f64; 2]>,
 }
 
@@ -135,8 +147,10 @@ impl Quantity {
     }
 }
 
-/// The interpretation of one SDAS with one correlation.
-#[derive(Clone, Debug, PartialEq, Serialize)]
+/// Cooling rate and local solidification time from the image's SDAS
+/// through a published correlation (with --correlation).
+#[derive(Clone, Debug, PartialEq, Serialize, JsonSchema)]
+#[schemars(rename = "interpretation", deny_unknown_fields)]
 pub struct Interpretation {
     pub correlation: CorrelationRef,
     pub sdas_um: Option<f64>,
@@ -162,10 +176,12 @@ pub struct Interpretation {
 }
 
 /// An alternative law set beside the chosen one.
-#[derive(Clone, Debug, PartialEq, Serialize)]
+#[derive(Clone, Debug, PartialEq, Serialize, JsonSchema)]
+#[schemars(deny_unknown_fields)]
 pub struct Comparison {
-    /// The quantity compared (a report field name), None when the two laws
+    /// The quantity compared (a report field name), null when the two laws
     /// give no common quantity.
+    #[schemars(extend("enum" = ["cooling_rate_K_per_s", "solidification_time_s", null]))]
     pub quantity: Option<&'static str>,
     /// The chosen law's value and interval of that quantity.
     pub chosen_value: Option<f64>,
@@ -175,14 +191,15 @@ pub struct Comparison {
     pub ci95: Option<[f64; 2]>,
     /// This law's value over the chosen one's.
     pub ratio: Option<f64>,
-    /// Whether the two intervals overlap; None without an interval on
+    /// Whether the two intervals overlap; null without an interval on
     /// either side.
     pub intervals_overlap: Option<bool>,
     pub note: String,
 }
 
 /// A law of the family that does not apply to the composition given.
-#[derive(Clone, Debug, PartialEq, Serialize)]
+#[derive(Clone, Debug, PartialEq, Serialize, JsonSchema)]
+#[schemars(deny_unknown_fields)]
 pub struct NotApplicable {
     pub id: String,
     pub reason: String,
@@ -229,15 +246,18 @@ pub fn round_significant(x: f64, digits: i32) -> f64 {
 }
 
 /// The correlation used, as the report names it.
-#[derive(Clone, Debug, PartialEq, Serialize)]
+#[derive(Clone, Debug, PartialEq, Serialize, JsonSchema)]
 pub struct CorrelationRef {
     pub id: String,
+    #[schemars(with = "library::Form")]
     pub form: &'static str,
     pub law: String,
+    #[schemars(with = "library::Status")]
     pub status: &'static str,
     pub source: String,
     /// The law's coefficient at the given composition: lambda2 (um) =
     /// coefficient x x^exponent, x in `variable_unit`.
+    #[schemars(extend("exclusiveMinimum" = 0))]
     pub coefficient_um: f64,
     pub exponent: f64,
     pub variable_unit: &'static str,
