@@ -1,0 +1,117 @@
+//! The CSV summary: one row per image, the columns of [`CSV_COLUMNS`].
+
+use super::*;
+
+/// Columns of the CSV summary, one row per image.
+pub const CSV_COLUMNS: [&str; 32] = [
+    "file",
+    "um_per_px",
+    "calibration_source",
+    "sdas_um",
+    "ci95_low_um",
+    "ci95_high_um",
+    "n",
+    "fft_um",
+    "intercept_um",
+    "cooling_rate_K_per_s",
+    "solidification_time_s",
+    "zone",
+    "limit_um",
+    "decision",
+    "warnings",
+    "error",
+    "reason",
+    "warning_codes",
+    "centres_um",
+    "statistic",
+    "compared_um",
+    "compared_ci95_low_um",
+    "compared_ci95_high_um",
+    "calibration_rel_uncertainty",
+    "cooling_rate_ci95_low_K_per_s",
+    "cooling_rate_ci95_high_K_per_s",
+    "solidification_time_ci95_low_s",
+    "solidification_time_ci95_high_s",
+    "correlation",
+    "tool",
+    "schema",
+    "caution",
+];
+
+/// The CSV summary of a report: the header on the first row (so that a
+/// spreadsheet's import finds it and the delimiter), then a row per image in
+/// the report's order. Columns are only ever added at the end. The tool,
+/// the report's schema and the caution are columns of every row, so that no
+/// row travels without them. Empty cells are nulls.
+pub fn csv_summary(report: &Report) -> crate::Result<String> {
+    let encoding = |e: &dyn std::fmt::Display| crate::Error::Csv {
+        reason: e.to_string(),
+    };
+    let mut out = String::new();
+    let mut w = csv::WriterBuilder::new().from_writer(Vec::new());
+    w.write_record(CSV_COLUMNS).map_err(|e| encoding(&e))?;
+    let num = |v: Option<f64>| v.map(|x| format!("{x}")).unwrap_or_default();
+    for i in &report.images {
+        let cal = i.calibration.as_ref();
+        let interp = i.interpretation.as_ref();
+        let acc = i.acceptance.as_ref();
+        let record = [
+            i.file.clone(),
+            num(cal.map(|c| c.um_per_px)),
+            cal.map(|c| {
+                serde_json::to_value(c.source)
+                    .ok()
+                    .and_then(|v| v.as_str().map(String::from))
+                    .unwrap_or_default()
+            })
+            .unwrap_or_default(),
+            num(i.sdas_um.value),
+            num(i.sdas_um.ci95.map(|c| c[0])),
+            num(i.sdas_um.ci95.map(|c| c[1])),
+            i.sdas_um.n.to_string(),
+            num(i.methods.fft.as_ref().and_then(|f| f.value)),
+            num(i.methods.intercept.as_ref().and_then(|m| m.value)),
+            num(interp.and_then(|t| t.cooling_rate_k_per_s.value)),
+            num(interp.and_then(|t| t.solidification_time_s.value)),
+            acc.and_then(|a| a.zone.clone()).unwrap_or_default(),
+            num(acc.and_then(|a| a.limit_um)),
+            acc.and_then(|a| a.decision)
+                .map(|d| d.name().to_string())
+                .unwrap_or_else(|| {
+                    if acc.is_some() {
+                        "not assessed".into()
+                    } else {
+                        String::new()
+                    }
+                }),
+            i.warnings.len().to_string(),
+            i.error.clone().unwrap_or_default(),
+            i.sdas_um.reason.clone().unwrap_or_default(),
+            i.warning_codes.join(";"),
+            num(i.methods.centres.as_ref().and_then(|m| m.value)),
+            acc.map(|a| {
+                serde_json::to_value(a.statistic)
+                    .ok()
+                    .and_then(|v| v.as_str().map(String::from))
+                    .unwrap_or_default()
+            })
+            .unwrap_or_default(),
+            num(acc.and_then(|a| a.compared_um)),
+            num(acc.and_then(|a| a.compared_ci95_um.map(|c| c[0]))),
+            num(acc.and_then(|a| a.compared_ci95_um.map(|c| c[1]))),
+            num(cal.and_then(|c| c.rel_uncertainty)),
+            num(interp.and_then(|t| t.cooling_rate_k_per_s.ci95.map(|c| c[0]))),
+            num(interp.and_then(|t| t.cooling_rate_k_per_s.ci95.map(|c| c[1]))),
+            num(interp.and_then(|t| t.solidification_time_s.ci95.map(|c| c[0]))),
+            num(interp.and_then(|t| t.solidification_time_s.ci95.map(|c| c[1]))),
+            interp.map(|t| t.correlation.id.clone()).unwrap_or_default(),
+            format!("{} {}", report.tool.name, report.tool.version),
+            report.schema.to_string(),
+            report.caution.to_string(),
+        ];
+        w.write_record(&record).map_err(|e| encoding(&e))?;
+    }
+    let bytes = w.into_inner().map_err(|e| encoding(&e))?;
+    out.push_str(&String::from_utf8_lossy(&bytes));
+    Ok(out)
+}
