@@ -4,5 +4,6 @@
 pub mod blur;
 pub mod centres;
 pub mod orientation;
+pub mod point_pattern;
 pub mod select;
 pub mod spectrum;
