@@ -68,6 +68,24 @@ pub struct Seconds(pub f64);
 #[serde(transparent)]
 pub struct Kelvin(pub f64);
 
+/// The link between the two forms of a correlation: over a freezing range
+/// dT, the local solidification time is t_f = dT / CR (a constant cooling
+/// rate through the freezing range; common practice, no single source).
+impl std::ops::Div<KelvinPerSecond> for Kelvin {
+    type Output = Seconds;
+    fn div(self, rate: KelvinPerSecond) -> Seconds {
+        Seconds(self.0 / rate.0)
+    }
+}
+
+/// The same link the other way: CR = dT / t_f.
+impl std::ops::Div<Seconds> for Kelvin {
+    type Output = KelvinPerSecond;
+    fn div(self, time: Seconds) -> KelvinPerSecond {
+        KelvinPerSecond(self.0 / time.0)
+    }
+}
+
 impl fmt::Display for Micrometres {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         write!(f, "{:.3} um", self.0)
@@ -83,6 +101,13 @@ impl fmt::Display for Pixels {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn freezing_range_links_rate_and_time() {
+        // 50 K at 5 K/s takes 10 s, and 50 K in 10 s is 5 K/s.
+        assert_eq!(Kelvin(50.0) / KelvinPerSecond(5.0), Seconds(10.0));
+        assert_eq!(Kelvin(50.0) / Seconds(10.0), KelvinPerSecond(5.0));
+    }
 
     #[test]
     fn conversion_round_trips() {

@@ -32,7 +32,7 @@ pub use alternatives::{interpret_with_alternatives, same_family};
 
 pub use library::{Composition, Correlation, Form};
 
-use crate::units::{Kelvin, Micrometres};
+use crate::units::{Kelvin, KelvinPerSecond, Micrometres, Seconds};
 use crate::{Error, Result};
 use schemars::JsonSchema;
 use serde::Serialize;
@@ -208,6 +208,16 @@ pub struct NotApplicable {
 }
 
 impl Interpretation {
+    /// The cooling rate, when there is one, in its unit.
+    pub fn cooling_rate(&self) -> Option<KelvinPerSecond> {
+        self.cooling_rate_k_per_s.value.map(KelvinPerSecond)
+    }
+
+    /// The local solidification time, when there is one, in its unit.
+    pub fn solidification_time(&self) -> Option<Seconds> {
+        self.solidification_time_s.value.map(Seconds)
+    }
+
     /// The same interpretation with numbers to 4 significant digits, for
     /// reports (the inputs are not more precise than that).
     pub fn rounded(&self) -> Self {
@@ -471,8 +481,13 @@ pub fn interpret(corr: &Correlation, req: &Request) -> Result<Interpretation> {
                 Form::CoolingRate => "freezing range / cooling rate",
                 _ => "freezing range / solidification time",
             };
-            let value = dt / v;
-            let ci95 = primary.ci95.map(|[a, b]| [dt / b, dt / a]);
+            // t_f = dT / CR, or CR = dT / t_f, by the units' own types.
+            let across = |x: f64| match corr.form {
+                Form::CoolingRate => (Kelvin(dt) / KelvinPerSecond(x)).0,
+                _ => (Kelvin(dt) / Seconds(x)).0,
+            };
+            let value = across(v);
+            let ci95 = primary.ci95.map(|[a, b]| [across(b), across(a)]);
             Quantity {
                 value: Some(value),
                 ci95,
@@ -480,7 +495,9 @@ pub fn interpret(corr: &Correlation, req: &Request) -> Result<Interpretation> {
                 uncertainty_gain: Some(gain),
                 derived: Some(derived),
                 reason: None,
-                ci95_with_scatter: primary.ci95_with_scatter.map(|[a, b]| [dt / b, dt / a]),
+                ci95_with_scatter: primary
+                    .ci95_with_scatter
+                    .map(|[a, b]| [across(b), across(a)]),
             }
         }
         (Some(_), None) => Quantity::none(format!("no {var_name} to derive it from")),

@@ -71,8 +71,8 @@ pub fn csv_summary(report: &Report) -> crate::Result<String> {
             i.sdas_um.n.to_string(),
             num(i.methods.fft.as_ref().and_then(|f| f.value)),
             num(i.methods.intercept.as_ref().and_then(|m| m.value)),
-            num(interp.and_then(|t| t.cooling_rate_k_per_s.value)),
-            num(interp.and_then(|t| t.solidification_time_s.value)),
+            num(interp.and_then(|t| t.cooling_rate().map(|r| r.0))),
+            num(interp.and_then(|t| t.solidification_time().map(|t| t.0))),
             acc.and_then(|a| a.zone.clone()).unwrap_or_default(),
             num(acc.and_then(|a| a.limit_um)),
             acc.and_then(|a| a.decision)
