@@ -505,8 +505,8 @@ mod tests {
             for_target: None,
             indicative: None,
             detail: Detail::Intercept(InterceptOutcome {
-                value_px: value,
-                ci95_px: ci,
+                value_px: value.map(Pixels),
+                ci95_px: ci.map(|c| c.map(Pixels)),
                 sd_px: None,
                 n_lines: n,
                 rel_accuracy_pct: None,

@@ -94,7 +94,7 @@ fn errors(
     results
         .iter()
         .filter(|(t, _)| t.morphology == m && s.is_none_or(|s| t.style == s))
-        .map(|(t, o)| o.value_px.map(|v| v / t.sdas_px - 1.0))
+        .map(|(t, o)| o.value_px.map(|p| p.0).map(|v| v / t.sdas_px - 1.0))
         .collect()
 }
 
@@ -107,6 +107,7 @@ fn print_all(results: &[(Truth, InterceptOutcome)]) {
             t.spec.invert,
             t.sdas_px,
             o.value_px
+                .map(|p| p.0)
                 .map(|v| format!("{v:6.2} px {:+6.2} %", 100.0 * (v / t.sdas_px - 1.0)))
                 .unwrap_or_else(|| "none".into()),
             o.n_lines,
@@ -255,7 +256,7 @@ fn timing_of_a_1024_square_image() {
             t.style,
             t.sdas_px,
             1e3 * dt,
-            o.value_px.map(|v| (v * 100.0).round() / 100.0),
+            o.value_px.map(|p| p.0).map(|v| (v * 100.0).round() / 100.0),
             o.n_lines
         );
     }

@@ -131,7 +131,7 @@ fn featureless_images_give_no_value_with_a_reason() {
         assert!(
             o.value_px.is_none(),
             "white noise (seed {seed}) gave {:?} from {} lines",
-            o.value_px,
+            o.value_px.map(|p| p.0),
             o.n_lines
         );
         assert!(o.reason.is_some());
@@ -165,8 +165,8 @@ fn inverted_contrast_gives_the_same_value_within_2_percent() {
         )
         .unwrap();
         let p = InterceptParams::default();
-        let a = measure(&prepared(&img), &p).value_px.unwrap();
-        let b = measure(&prepared(&inv), &p).value_px.unwrap();
+        let a = measure(&prepared(&img), &p).value_px.map(|p| p.0).unwrap();
+        let b = measure(&prepared(&inv), &p).value_px.map(|p| p.0).unwrap();
         eprintln!("truth {truth:.2}: {a:.3} vs inverted {b:.3}");
         assert!((a / b - 1.0).abs() <= 0.02, "{a} vs {b}");
     }
@@ -180,7 +180,7 @@ fn measurement_is_deterministic_and_respects_the_convention() {
     let a = measure(&prep, &p);
     let b = measure(&prep, &p);
     assert_eq!(a, b);
-    let v = a.value_px.unwrap();
+    let v = a.value_px.map(|p| p.0).unwrap();
     assert!((v / truth - 1.0).abs() < 0.05, "{v} vs {truth}");
     // Each line's spacing is its centre span over its count (convention L/(n-1)).
     for l in &a.lines {
@@ -198,7 +198,7 @@ fn measurement_is_deterministic_and_respects_the_convention() {
             ..p
         },
     );
-    let w = c.value_px.unwrap();
+    let w = c.value_px.map(|p| p.0).unwrap();
     assert!((w / truth - 1.0).abs() < 0.05, "L/n {w} vs {truth}");
 }
 

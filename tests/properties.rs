@@ -44,6 +44,7 @@ fn sdas_px(img: &GrayImage) -> Option<f64> {
         &FftParams::default(),
     )
     .value_px
+    .map(|p| p.0)
 }
 
 fn rotate90(img: &GrayImage) -> GrayImage {

@@ -50,6 +50,7 @@ use crate::blocks::centres::{distance, maxima, neck_between, Centre};
 use crate::blocks::point_pattern::{kd_tree, nearest_distances, random_hard_core, SplitMix};
 use crate::preprocess::Prepared;
 use crate::segment::{segment, SegmentParams};
+use crate::units::Pixels;
 use kiddo::SquaredEuclidean;
 
 /// Parameters of the centres method.
@@ -134,9 +135,9 @@ impl Chain {
 /// The centres method's result, pixels.
 #[derive(Clone, Debug, PartialEq, Default)]
 pub struct CentresOutcome {
-    pub value_px: Option<f64>,
-    pub ci95_px: Option<[f64; 2]>,
-    pub sd_px: Option<f64>,
+    pub value_px: Option<Pixels>,
+    pub ci95_px: Option<[Pixels; 2]>,
+    pub sd_px: Option<Pixels>,
     pub n_chains: usize,
     pub rel_accuracy_pct: Option<f64>,
     /// Centres of the arm bodies taken (after the thickness rule).
@@ -185,10 +186,10 @@ impl CentresOutcome {
             .collect();
         Outcome {
             method: Method::Centres,
-            value: self.value_px.map(Pixels),
-            ci95: self.ci95_px.map(|[a, b]| [Pixels(a), Pixels(b)]),
+            value: self.value_px,
+            ci95: self.ci95_px,
             n: self.n_chains,
-            spread: self.sd_px.map(Pixels),
+            spread: self.sd_px,
             reason: self.reason.clone(),
             warnings: Vec::new(),
             local,
@@ -384,9 +385,9 @@ fn analyse_phase(phase: &[bool], w: usize, h: usize, params: &CentresParams) -> 
     }
     let ci = s.ci95();
     CentresOutcome {
-        value_px: Some(s.mean),
-        ci95_px: Some(ci),
-        sd_px: Some(s.sd),
+        value_px: Some(Pixels(s.mean)),
+        ci95_px: Some(ci.map(Pixels)),
+        sd_px: Some(Pixels(s.sd)),
         n_chains: chains.len(),
         rel_accuracy_pct: Some(100.0 * (ci[1] - s.mean) / s.mean),
         chains,
@@ -701,9 +702,10 @@ mod tests {
             let o = measure(&img, &CentresParams::default());
             let v = o
                 .value_px
+                .map(|p| p.0)
                 .unwrap_or_else(|| panic!("{angle}: {:?}", o.reason));
             assert!((v / 20.0 - 1.0).abs() < 0.03, "{angle}: {v}");
-            let [lo, hi] = o.ci95_px.unwrap();
+            let [lo, hi] = o.ci95_px.map(|c| c.map(|p| p.0)).unwrap();
             assert!(lo <= v && v <= hi);
             let rows = o.row_spacing_px.unwrap();
             assert!((rows / 34.0 - 1.0).abs() < 0.1, "{angle}: rows {rows}");
@@ -718,7 +720,7 @@ mod tests {
         // Spots 2 px in radius are below the resolution the method claims.
         let fine = rows_of_spots(200, 200, 6.0, 10.0, 2.0, 0.0);
         let o = measure(&fine, &CentresParams::default());
-        assert!(o.value_px.is_none(), "{:?}", o.value_px);
+        assert!(o.value_px.is_none(), "{:?}", o.value_px.map(|p| p.0));
     }
 
     #[test]

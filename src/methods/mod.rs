@@ -239,8 +239,8 @@ mod tests {
             for_target: None,
             indicative: None,
             detail: Detail::Intercept(intercept::InterceptOutcome {
-                value_px: Some(value),
-                ci95_px: ci,
+                value_px: Some(Pixels(value)),
+                ci95_px: ci.map(|c| c.map(Pixels)),
                 sd_px: None,
                 n_lines: 3,
                 rel_accuracy_pct: None,

@@ -182,7 +182,7 @@ pub(super) fn methods_report(
                     value: value(o),
                     ci95: ci95(o),
                     n_chains: c.n_chains,
-                    sd: c.sd_px.map(|v| um(cal, v)),
+                    sd: c.sd_px.map(|v| um(cal, v.0)),
                     rel_accuracy_pct: c.rel_accuracy_pct.map(|v| round(v, 2)),
                     chains_for_target: o.for_target,
                     n_centres: c.centres.len(),
@@ -218,10 +218,10 @@ fn intercept_report(
     lines_for_target: Option<usize>,
 ) -> InterceptReport {
     InterceptReport {
-        value: i.value_px.map(|v| um(cal, v)),
-        ci95: i.ci95_px.map(|[a, b]| [um(cal, a), um(cal, b)]),
+        value: i.value_px.map(|v| um(cal, v.0)),
+        ci95: i.ci95_px.map(|[a, b]| [um(cal, a.0), um(cal, b.0)]),
         n_lines: i.n_lines,
-        sd: i.sd_px.map(|v| um(cal, v)),
+        sd: i.sd_px.map(|v| um(cal, v.0)),
         rel_accuracy_pct: i.rel_accuracy_pct.map(|v| round(v, 2)),
         lines_for_target,
         convention: convention_name(convention),
@@ -244,9 +244,9 @@ fn intercept_report(
 
 fn fft_report(f: &FftOutcome, cal: UmPerPx) -> FftReport {
     FftReport {
-        value: f.value_px.map(|v| um(cal, v)),
-        ci95: f.ci95_px.map(|[a, b]| [um(cal, a), um(cal, b)]),
-        spread_um: f.spread_px.map(|v| um(cal, v)),
+        value: f.value_px.map(|v| um(cal, v.0)),
+        ci95: f.ci95_px.map(|[a, b]| [um(cal, a.0), um(cal, b.0)]),
+        spread_um: f.spread_px.map(|v| um(cal, v.0)),
         n_tiles: f.n_tiles_used,
         n_tiles_analysed: f.n_tiles_analysed,
         window_px: f.window_px,

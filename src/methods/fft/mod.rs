@@ -48,6 +48,7 @@ mod peaks;
 use crate::blocks::spectrum::{hann_peak_offset, smooth_sizes, SpectrumAnalyser};
 use crate::preprocess::Prepared;
 use crate::stats;
+use crate::units::Pixels;
 use ladder::*;
 pub use peaks::*;
 use rayon::prelude::*;
@@ -102,10 +103,10 @@ pub struct TileResult {
 /// The method's result for one image, in pixels.
 #[derive(Clone, Debug, PartialEq)]
 pub struct FftOutcome {
-    pub value_px: Option<f64>,
-    pub ci95_px: Option<[f64; 2]>,
+    pub value_px: Option<Pixels>,
+    pub ci95_px: Option<[Pixels; 2]>,
     /// Robust standard deviation of the used tiles' spacings.
-    pub spread_px: Option<f64>,
+    pub spread_px: Option<Pixels>,
     pub n_tiles_used: usize,
     /// Number of tiles whose spectra were analysed.
     pub n_tiles_analysed: usize,
@@ -147,7 +148,7 @@ impl FftOutcome {
         use crate::units::Pixels;
         let mut warnings = Vec::new();
         if let Some(v) = self.value_px {
-            let periods = self.window_px as f64 / v;
+            let periods = self.window_px as f64 / v.0;
             if periods < 3.0 {
                 warnings.push(Warning::new(
                     "fft.small-field",
@@ -181,10 +182,10 @@ impl FftOutcome {
             .collect();
         Outcome {
             method: Method::Fft,
-            value: self.value_px.map(Pixels),
-            ci95: self.ci95_px.map(|[a, b]| [Pixels(a), Pixels(b)]),
+            value: self.value_px,
+            ci95: self.ci95_px,
             n: self.n_tiles_used,
-            spread: self.spread_px.map(Pixels),
+            spread: self.spread_px,
             reason: self.reason.clone(),
             warnings,
             local,
@@ -530,9 +531,9 @@ fn aggregate(mut tiles: Vec<TileResult>, n: usize, params: &FftParams) -> FftOut
         (None, None)
     };
     FftOutcome {
-        value_px: value,
-        ci95_px: ci,
-        spread_px: spread,
+        value_px: value.map(Pixels),
+        ci95_px: ci.map(|c| c.map(Pixels)),
+        spread_px: spread.map(Pixels),
         n_tiles_used: kept.len(),
         n_tiles_analysed: analysed,
         window_px: n,

@@ -110,7 +110,11 @@ fn featureless_images_give_no_value() {
         &prepare(&img, None, &PreprocessParams::default()),
         &FftParams::default(),
     );
-    assert!(out.value_px.is_none(), "noise gave {:?}", out.value_px);
+    assert!(
+        out.value_px.is_none(),
+        "noise gave {:?}",
+        out.value_px.map(|p| p.0)
+    );
 }
 
 fn stat(n: usize, period_px: f64, support: f64) -> ScaleStat {
@@ -254,7 +258,7 @@ fn finer_of_two_crossed_periods_is_measured() {
         &prepare(&img, None, &PreprocessParams::default()),
         &FftParams::default(),
     );
-    let v = out.value_px.unwrap();
+    let v = out.value_px.map(|p| p.0).unwrap();
     assert!((v - 8.0).abs() < 0.2, "{v}");
 }
 
@@ -396,6 +400,7 @@ fn a_clean_grating_is_measured() {
         );
         let v = out
             .value_px
+            .map(|p| p.0)
             .unwrap_or_else(|| panic!("{period}: {:?}", out.reason));
         assert!((v / period - 1.0).abs() < 0.01, "{period}: {v}");
     }

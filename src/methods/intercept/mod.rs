@@ -91,6 +91,7 @@ use crate::blocks::select::median_by_selection;
 use crate::preprocess::Prepared;
 use crate::segment::{segment, SegmentParams, Segmentation};
 use crate::stats::{self, Summary};
+use crate::units::Pixels;
 use lines::*;
 pub use runs::*;
 
@@ -226,10 +227,10 @@ pub struct Line {
 /// The method's result for one image, in pixels.
 #[derive(Clone, Debug, PartialEq)]
 pub struct InterceptOutcome {
-    pub value_px: Option<f64>,
-    pub ci95_px: Option<[f64; 2]>,
+    pub value_px: Option<Pixels>,
+    pub ci95_px: Option<[Pixels; 2]>,
     /// Standard deviation of the line spacings.
-    pub sd_px: Option<f64>,
+    pub sd_px: Option<Pixels>,
     /// Number of lines in the value.
     pub n_lines: usize,
     /// Percent relative accuracy of the value (95 % half-width / mean).
@@ -275,10 +276,10 @@ impl InterceptOutcome {
             .collect();
         Outcome {
             method: Method::Intercept,
-            value: self.value_px.map(Pixels),
-            ci95: self.ci95_px.map(|[a, b]| [Pixels(a), Pixels(b)]),
+            value: self.value_px,
+            ci95: self.ci95_px,
             n: self.n_lines,
-            spread: self.sd_px.map(Pixels),
+            spread: self.sd_px,
             reason: self.reason.clone(),
             warnings: Vec::new(),
             local,
@@ -539,9 +540,9 @@ fn aggregate(lines: Vec<Line>) -> InterceptOutcome {
     let values: Vec<f64> = kept.iter().map(|l| l.spacing_px).collect();
     match Summary::of(&values) {
         Some(s) => InterceptOutcome {
-            value_px: Some(s.mean),
-            ci95_px: Some(s.ci95()),
-            sd_px: Some(s.sd),
+            value_px: Some(Pixels(s.mean)),
+            ci95_px: Some(s.ci95().map(Pixels)),
+            sd_px: Some(Pixels(s.sd)),
             n_lines: s.n,
             rel_accuracy_pct: Some(s.rel_accuracy_pct),
             lines: kept,
