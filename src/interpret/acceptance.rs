@@ -109,7 +109,8 @@ fn valid_limit(v: f64) -> bool {
 impl Spec {
     /// Parses and checks a spec; `origin` names the file in messages.
     pub fn parse(text: &str, origin: &str) -> Result<Self, String> {
-        let mut spec: Spec = serde_json::from_str(text).map_err(|e| format!("{origin}: {e}"))?;
+        let mut spec: Spec = serde_json::from_str(text)
+            .map_err(|e| format!("{origin}: {}", crate::error::excerpt(&e.to_string(), 300)))?;
         if spec.format != FORMAT {
             return Err(format!(
                 "{origin}: format '{}' is not '{FORMAT}'",
@@ -124,7 +125,8 @@ impl Spec {
         if let Some(l) = spec.limit_um {
             if !valid_limit(l) {
                 return Err(format!(
-                    "{origin}: \"limit_um\" must be a positive number of um, got {l}"
+                    "{origin}: \"limit_um\" must be a positive number of um, got {}",
+                    crate::units::fmt_num(l)
                 ));
             }
         }
@@ -139,7 +141,8 @@ impl Spec {
             if !valid_limit(z.limit_um) {
                 return Err(format!(
                     "{origin}: zone '{}': \"limit_um\" must be a positive number of um, got {}",
-                    z.name, z.limit_um
+                    z.name,
+                    crate::units::fmt_num(z.limit_um)
                 ));
             }
             let glob = globset::GlobBuilder::new(&z.pattern)

@@ -375,7 +375,7 @@ impl Correlation {
                 coefficient,
                 exponent,
             } => {
-                let mut a = format!("{}", coefficient.value);
+                let mut a = crate::units::fmt_num(coefficient.value);
                 for (el, s) in &coefficient.linear {
                     a = format!(
                         "({a} {} {} {el})",
@@ -506,7 +506,8 @@ struct EntryRaw {
 /// Parses and validates a correlation file; `origin` names it in messages.
 /// Every problem is reported with the entry's position and id.
 pub fn parse(text: &str, origin: &str, builtin: bool) -> Result<Vec<Correlation>, String> {
-    let raw: FileRaw = serde_json::from_str(text).map_err(|e| format!("{origin}: {e}"))?;
+    let raw: FileRaw = serde_json::from_str(text)
+        .map_err(|e| format!("{origin}: {}", crate::error::excerpt(&e.to_string(), 300)))?;
     match raw.format.as_deref() {
         Some(FORMAT) => {}
         Some(other) => return Err(format!("{origin}: format '{other}' is not '{FORMAT}'")),
@@ -518,11 +519,16 @@ pub fn parse(text: &str, origin: &str, builtin: bool) -> Result<Vec<Correlation>
             .get("id")
             .and_then(|v| v.as_str())
             .map_or(format!("entry {}", i + 1), |id| {
-                format!("entry {} ('{id}')", i + 1)
+                format!("entry {} ('{}')", i + 1, crate::error::excerpt(id, 60))
             });
-        let entry: EntryRaw =
-            serde_json::from_value(value).map_err(|e| format!("{origin}: {label}: {e}"))?;
-        let c = validate(entry, origin, builtin).map_err(|e| format!("{origin}: {label}: {e}"))?;
+        let entry: EntryRaw = serde_json::from_value(value).map_err(|e| {
+            format!(
+                "{origin}: {label}: {}",
+                crate::error::excerpt(&e.to_string(), 300)
+            )
+        })?;
+        let c = validate(entry, origin, builtin)
+            .map_err(|e| format!("{origin}: {label}: {}", crate::error::excerpt(&e, 300)))?;
         if out.iter().any(|o| o.id == c.id) {
             return Err(format!("{origin}: {label}: duplicate id '{}'", c.id));
         }
@@ -535,7 +541,10 @@ fn positive(name: &str, v: Option<f64>) -> Result<f64, String> {
     match v {
         None => Err(format!("missing \"{name}\"")),
         Some(v) if v.is_finite() && v > 0.0 => Ok(v),
-        Some(v) => Err(format!("\"{name}\" must be a positive number, got {v}")),
+        Some(v) => Err(format!(
+            "\"{name}\" must be a positive number, got {}",
+            crate::units::fmt_num(v)
+        )),
     }
 }
 
@@ -593,7 +602,7 @@ fn validate(e: EntryRaw, origin: &str, builtin: bool) -> Result<Correlation, Str
             if !(coefficient.value.is_finite() && coefficient.value != 0.0) {
                 return Err(format!(
                     "\"coefficient\" value must be a non-zero number, got {}",
-                    coefficient.value
+                    crate::units::fmt_num(coefficient.value)
                 ));
             }
             if coefficient.linear.is_empty() && coefficient.value < 0.0 {
