@@ -76,6 +76,23 @@ pub enum Error {
 
 pub type Result<T> = std::result::Result<T, Error>;
 
+/// At most `max` characters of `text` (its start and end, with the count
+/// left out between), for a message that quotes an input: a wrong file of
+/// megabytes then gives a message of a line, not of megabytes.
+pub fn excerpt(text: &str, max: usize) -> String {
+    let n = text.chars().count();
+    if n <= max {
+        return text.to_string();
+    }
+    let half = max / 2;
+    let head: String = text.chars().take(half).collect();
+    let tail: String = text.chars().skip(n - half).collect();
+    format!(
+        "{head} [... {} characters left out ...] {tail}",
+        n - 2 * half
+    )
+}
+
 /// Something a reviewer should know about a result: a stable code that
 /// programs and tests match, and a message in words. Codes are
 /// `stage.what` (for example `fft.few-tiles`); they never change once

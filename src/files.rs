@@ -48,6 +48,38 @@ pub fn kind(path: &Path) -> Kind {
     }
 }
 
+/// Why a path that leads to no file cannot be followed, when it is a
+/// symbolic link: "a link to nothing" (its target does not exist), or the
+/// system's reason, for a loop of links "Too many levels of symbolic links"
+/// (ELOOP in POSIX.1-2017 `<errno.h>`, given when resolving a path meets
+/// more links than the system follows, as a loop always does). `None` when
+/// `path` is not a link.
+pub fn broken_link_reason(path: &Path) -> Option<String> {
+    let m = std::fs::symlink_metadata(path).ok()?;
+    if !m.file_type().is_symlink() {
+        return None;
+    }
+    match std::fs::metadata(path) {
+        Ok(_) => None,
+        Err(e) if e.kind() == std::io::ErrorKind::NotFound => Some("a link to nothing".into()),
+        Err(e) => Some(format!("a link that cannot be followed: {e}")),
+    }
+}
+
+/// The error for a path that leads to no file: a broken link named as
+/// such, else a path that does not exist.
+fn missing(path: &Path) -> Error {
+    match broken_link_reason(path) {
+        Some(reason) => Error::Input {
+            path: path.to_path_buf(),
+            reason,
+        },
+        None => Error::Missing {
+            path: path.to_path_buf(),
+        },
+    }
+}
+
 /// Reads a text input (UTF-8) of at most [`MAX_TEXT_BYTES`], refusing special
 /// files and folders with a message naming the file; `what` says what the
 /// file was meant to be ("specification", "profile file" ...).
@@ -64,11 +96,7 @@ pub fn read_text(path: &Path, what: &str) -> Result<String> {
                 "is not a regular file (a FIFO, device or socket); a {what} must be a file"
             )))
         }
-        Kind::Missing => {
-            return Err(Error::Missing {
-                path: path.to_path_buf(),
-            })
-        }
+        Kind::Missing => return Err(missing(path)),
     }
     let read_err = |source: std::io::Error| Error::Read {
         path: path.to_path_buf(),
@@ -101,9 +129,7 @@ pub fn read_image_bytes(path: &Path) -> Result<Vec<u8>> {
             path: path.to_path_buf(),
             reason: "is not a regular file (a FIFO, device or socket); not read".into(),
         }),
-        Kind::Missing => Err(Error::Missing {
-            path: path.to_path_buf(),
-        }),
+        Kind::Missing => Err(missing(path)),
     }
 }
 

@@ -93,7 +93,8 @@ pub enum Input {
     /// A path given on the command line that does not exist.
     Missing(PathBuf),
     /// A path given on the command line that cannot be measured (a FIFO or
-    /// device), with the reason: a failed entry of the batch.
+    /// device, a link to nothing or a loop of links), with the reason: a
+    /// failed entry of the batch.
     Unusable { path: PathBuf, reason: String },
 }
 
@@ -148,7 +149,13 @@ pub fn collect_inputs(paths: &[PathBuf]) -> Vec<Input> {
                 path: p.clone(),
                 reason: "is not a regular file (a FIFO, device or socket); not read".into(),
             }),
-            crate::files::Kind::Missing => out.push(Input::Missing(p.clone())),
+            crate::files::Kind::Missing => match crate::files::broken_link_reason(p) {
+                Some(reason) => out.push(Input::Unusable {
+                    path: p.clone(),
+                    reason,
+                }),
+                None => out.push(Input::Missing(p.clone())),
+            },
         }
     }
     out
@@ -204,7 +211,8 @@ fn walk(dir: &Path, out: &mut Vec<Input>, seen: &mut Seen) {
                     )
                 } else if e.depth() > 0 && crate::files::kind(&path) == crate::files::Kind::Missing
                 {
-                    "a link to nothing".into()
+                    crate::files::broken_link_reason(&path)
+                        .unwrap_or_else(|| "a link to nothing".into())
                 } else {
                     match e.io_error() {
                         Some(io) => format!("folder cannot be read: {io}"),
@@ -234,8 +242,9 @@ fn walk(dir: &Path, out: &mut Vec<Input>, seen: &mut Seen) {
                 reason: "not a regular file (a FIFO, device or socket); not read".into(),
             }),
             crate::files::Kind::Missing => out.push(Input::Skipped {
+                reason: crate::files::broken_link_reason(&p)
+                    .unwrap_or_else(|| "a link to nothing".into()),
                 path: p,
-                reason: "a link to nothing".into(),
             }),
             crate::files::Kind::Regular if !has_image_extension(&p) => out.push(Input::Skipped {
                 path: p,
@@ -269,13 +278,20 @@ pub fn load(path: &Path, opts: &LoadOptions) -> Result<Loaded> {
 
 /// Decodes an image already in memory; `path` only names it in messages.
 pub fn load_bytes(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loaded> {
+    // Decoders' messages may end in a newline: trimmed, so that a message
+    // stays one line on the terminal and in the report.
     let format_err = |reason: String| Error::Format {
         path: path.to_path_buf(),
-        reason,
+        reason: reason.trim_end().to_string(),
     };
     let decode_err = |reason: String| Error::Decode {
         path: path.to_path_buf(),
-        reason,
+        reason: reason.trim_end().to_string(),
+    };
+    // A valid file in a layout the decoder does not take is not damaged.
+    let image_err = |e: image::ImageError| match e {
+        image::ImageError::Unsupported(u) => format_err(u.to_string()),
+        e => decode_err(e.to_string()),
     };
     if bytes.is_empty() {
         return Err(format_err("the file is empty".into()));
@@ -305,6 +321,7 @@ pub fn load_bytes(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loade
     let (width, height) = match reader.into_dimensions() {
         Ok(d) => d,
         Err(_) if format == ImageFormat::Tiff => return load_tiff_direct(path, bytes, opts),
+        Err(e @ image::ImageError::Unsupported(_)) => return Err(image_err(e)),
         Err(e) => return Err(decode_err(format!("header unreadable: {e}"))),
     };
     check_size(path, width, height, opts)?;
@@ -326,7 +343,22 @@ pub fn load_bytes(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loade
     let px = width as u64 * height as u64;
     limits.max_alloc = Some(px.saturating_mul(16).saturating_add(64 << 20));
     reader.limits(limits);
-    let decoded = reader.decode().map_err(|e| decode_err(e.to_string()))?;
+    let decoded = reader.decode().map_err(image_err)?;
+    if format == ImageFormat::Png {
+        png_check_value(bytes).map_err(|e| {
+            let e = e.to_string();
+            if e.contains("Checksum") {
+                decode_err(format!(
+                    "the compressed image data fails its check value (zlib Adler-32), so its bytes are not the ones written: {e}"
+                ))
+            } else {
+                decode_err(e)
+            }
+        })?;
+    }
+    if alpha_only(&decoded) {
+        return Err(alpha_only_err(path));
+    }
     let (mut image, bit_depth) = to_gray(decoded);
     replace_non_finite(path, &mut image, &mut warnings)?;
     if format == ImageFormat::Jpeg {
@@ -483,7 +515,17 @@ fn load_tiff_direct(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loa
     use tiff::ColorType;
     let decode_err = |reason: String| Error::Decode {
         path: path.to_path_buf(),
-        reason,
+        reason: reason.trim_end().to_string(),
+    };
+    // A layout the tiff crate does not take (a palette, a photometric
+    // interpretation it cannot convert) is unsupported, not damaged.
+    let unsupported = |reason: String| Error::Format {
+        path: path.to_path_buf(),
+        reason: reason.trim_end().to_string(),
+    };
+    let tiff_err = |e: tiff::TiffError| match e {
+        tiff::TiffError::UnsupportedError(u) => unsupported(format!("{u}")),
+        e => decode_err(e.to_string()),
     };
     let mut d = Decoder::new(Cursor::new(bytes))
         .map_err(|e| decode_err(format!("TIFF header unreadable: {e}")))?;
@@ -496,13 +538,16 @@ fn load_tiff_direct(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loa
     limits.decoding_buffer_size = px.saturating_mul(32).saturating_add(64 << 20);
     limits.intermediate_buffer_size = limits.decoding_buffer_size;
     d = d.with_limits(limits);
-    let channels = match d.colortype().map_err(|e| decode_err(e.to_string()))? {
+    let channels = match d.colortype().map_err(tiff_err)? {
         ColorType::Gray(_) => 1,
         ColorType::GrayA(_) => 2,
+        // Grey with one extra sample (alpha, TIFF 6.0 ExtraSamples): the
+        // tiff crate names it Multiband; the grey is the first sample.
+        ColorType::Multiband { num_samples: 2, .. } => 2,
         ColorType::RGB(_) => 3,
         ColorType::RGBA(_) => 4,
         other => {
-            return Err(decode_err(format!(
+            return Err(unsupported(format!(
                 "TIFF colour type {other:?} is not supported; save the image as grey or RGB"
             )))
         }
@@ -511,7 +556,17 @@ fn load_tiff_direct(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loa
     if d.more_images() {
         warnings.push("multi-page TIFF: only the first page is measured".to_string());
     }
-    let result = d.read_image().map_err(|e| decode_err(e.to_string()))?;
+    let result = d.read_image().map_err(tiff_err)?;
+    let only_alpha = match &result {
+        DecodingResult::U8(v) => picture_only_in_alpha(v, channels),
+        DecodingResult::U16(v) => picture_only_in_alpha(v, channels),
+        DecodingResult::F32(v) => picture_only_in_alpha(v, channels),
+        DecodingResult::F64(v) => picture_only_in_alpha(v, channels),
+        _ => false,
+    };
+    if only_alpha {
+        return Err(alpha_only_err(path));
+    }
     let (mut data, depth, float) = match result {
         DecodingResult::U8(v) => (samples_to_gray(&v, channels, 1.0 / 255.0), 8, false),
         DecodingResult::U16(v) => (samples_to_gray(&v, channels, 1.0 / 65535.0), 16, false),
@@ -521,7 +576,7 @@ fn load_tiff_direct(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loa
             (samples_to_gray(&v, channels, 1.0), 32, true)
         }
         _ => {
-            return Err(decode_err(
+            return Err(unsupported(
                 "TIFF sample format not supported (signed or wide integers); save as 8- or 16-bit unsigned or as float".into(),
             ))
         }
@@ -560,6 +615,60 @@ fn load_tiff_direct(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loa
         resolution: info.resolution,
         warnings,
     })
+}
+
+/// Reads a PNG's image data again with the zlib check value verified
+/// (Adler-32, RFC 1950 section 2.2; the PNG specification, ISO/IEC 15948
+/// section 10.1, requires the zlib format), which the image crate's decoder
+/// skips for speed. A file whose compressed bytes were altered after it was
+/// written can still inflate to a picture, a different one; the check value
+/// tells it from the one written. Rows are read one at a time (no second
+/// image in memory); the file's size was checked from its header before.
+fn png_check_value(bytes: &[u8]) -> std::result::Result<(), png::DecodingError> {
+    let limits = png::Limits { bytes: usize::MAX };
+    let mut d = png::Decoder::new_with_limits(Cursor::new(bytes), limits);
+    d.ignore_checksums(false);
+    let mut r = d.read_info()?;
+    while r.next_row()?.is_some() {}
+    r.finish()
+}
+
+/// Whether interleaved samples with an alpha channel (`channels` 2 or 4,
+/// alpha last) hold their picture only in the alpha channel: every pixel
+/// of one colour, the alpha varying. Grey levels are what is measured, so
+/// such a file would be measured as a flat field.
+fn picture_only_in_alpha<T: Copy + PartialEq>(samples: &[T], channels: usize) -> bool {
+    if !(channels == 2 || channels == 4) || samples.len() < channels {
+        return false;
+    }
+    let (first_colour, first_alpha) = samples[..channels].split_at(channels - 1);
+    let mut alpha_varies = false;
+    for px in samples.chunks_exact(channels) {
+        let (colour, alpha) = px.split_at(channels - 1);
+        if colour != first_colour {
+            return false;
+        }
+        alpha_varies |= alpha != first_alpha;
+    }
+    alpha_varies
+}
+
+fn alpha_only(img: &DynamicImage) -> bool {
+    match img {
+        DynamicImage::ImageLumaA8(b) => picture_only_in_alpha(b.as_raw(), 2),
+        DynamicImage::ImageRgba8(b) => picture_only_in_alpha(b.as_raw(), 4),
+        DynamicImage::ImageLumaA16(b) => picture_only_in_alpha(b.as_raw(), 2),
+        DynamicImage::ImageRgba16(b) => picture_only_in_alpha(b.as_raw(), 4),
+        DynamicImage::ImageRgba32F(b) => picture_only_in_alpha(b.as_raw(), 4),
+        _ => false,
+    }
+}
+
+fn alpha_only_err(path: &Path) -> Error {
+    Error::Input {
+        path: path.to_path_buf(),
+        reason: "every pixel has the same grey level: the picture is only in the alpha (transparency) channel, which is not measured; save the image as grey".into(),
+    }
 }
 
 /// SHA-256 of a file's bytes, as lowercase hexadecimal.

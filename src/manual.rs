@@ -13,7 +13,10 @@
 //! the distance between the centres of the first and last arms counted; or
 //! length over count, length / arms (the line method as usually taught: the
 //! line spans as many arm periods as it crosses arms). Other columns are
-//! ignored; a header row naming `length_um` and `arms` is required.
+//! ignored; a header row naming `length_um` and `arms` is required. A
+//! length must be a finite positive number of at most 100 mm, the widest
+//! field of a micrograph ([`crate::interpret::plausibility::FIELD_WIDTH_RANGE_UM`]):
+//! a longer one is a unit slip, and would overflow the statistics.
 
 use crate::methods::intercept::Convention;
 
@@ -68,7 +71,7 @@ pub fn parse(text: &str, origin: &str, convention: Convention) -> Result<Vec<Man
             .ok_or_else(|| {
                 bad(format!(
                     "no '{name}' column (the header row must name length_um and arms; it has: {})",
-                    headers.iter().collect::<Vec<_>>().join(", ")
+                    crate::error::excerpt(&headers.iter().collect::<Vec<_>>().join(", "), 200)
                 ))
             })
     };
@@ -82,20 +85,46 @@ pub fn parse(text: &str, origin: &str, convention: Convention) -> Result<Vec<Man
                 .filter(|s| !s.is_empty())
                 .ok_or_else(|| bad(format!("row {row}: no {name} value")))
         };
+        // Values are quoted in messages at most 40 characters long.
+        let quoted = |i: usize| crate::error::excerpt(&rec[i], 40);
         let length: f64 = field(li, "length_um")?.parse().map_err(|_| {
             bad(format!(
                 "row {row}: length_um '{}' is not a number",
-                &rec[li]
+                quoted(li)
             ))
         })?;
-        let arms: u32 = field(ai, "arms")?.parse().map_err(|_| {
-            bad(format!(
-                "row {row}: arms '{}' is not a whole number",
-                &rec[ai]
-            ))
+        let arms_text = field(ai, "arms")?;
+        let arms: u32 = arms_text.parse().map_err(|_| {
+            if arms_text.bytes().all(|b| b.is_ascii_digit()) {
+                bad(format!(
+                    "row {row}: arms '{}' is beyond the largest count read ({})",
+                    quoted(ai),
+                    u32::MAX
+                ))
+            } else {
+                bad(format!(
+                    "row {row}: arms '{}' is not a whole number",
+                    quoted(ai)
+                ))
+            }
         })?;
-        if !(length.is_finite() && length > 0.0) {
+        // Rust reads "1e400" as infinity: a number, but no length.
+        if !length.is_finite() {
+            return Err(bad(format!(
+                "row {row}: length_um '{}' is not a finite number",
+                quoted(li)
+            )));
+        }
+        if length <= 0.0 {
             return Err(bad(format!("row {row}: length_um must be positive")));
+        }
+        let widest = crate::interpret::plausibility::FIELD_WIDTH_RANGE_UM[1];
+        if length > widest {
+            return Err(bad(format!(
+                "row {row}: length_um {} is longer than any micrograph's field (at most {} um, 100 mm); most likely a unit slip",
+                crate::units::fmt_num(length),
+                widest
+            )));
         }
         let spacings = match convention {
             Convention::LengthOverCount => arms as f64,
@@ -185,6 +214,15 @@ mod tests {
             ("length_um,arms\n10,0\n", "at least 1"),
             ("length_um,arms\n10,1\n", "at least 2"),
             ("length_um,arms\n10,\n", "no arms value"),
+            (
+                "length_um,arms\n1e400,3\n",
+                "'1e400' is not a finite number",
+            ),
+            ("length_um,arms\n1e300,3\n", "1e300 is longer than any"),
+            (
+                "length_um,arms\n10,99999999999\n",
+                "beyond the largest count read",
+            ),
         ] {
             // "at least 1" is the length-over-count floor, "at least 2" the
             // centre-to-centre one (a single arm has no centre-to-centre span).

@@ -7,6 +7,16 @@
 use serde::{Deserialize, Serialize};
 use std::fmt;
 
+/// A number for a message: as written when of ordinary size, in exponent
+/// form when very large or very small (`1e300`, not three hundred digits).
+pub fn fmt_num(v: f64) -> String {
+    if v != 0.0 && v.is_finite() && !(1e-6..1e9).contains(&v.abs()) {
+        format!("{v:e}")
+    } else {
+        format!("{v}")
+    }
+}
+
 /// A length in micrometres.
 #[derive(Clone, Copy, Debug, PartialEq, PartialOrd, Serialize, Deserialize)]
 #[serde(transparent)]
@@ -27,14 +37,15 @@ impl UmPerPx {
     pub fn new(value: f64) -> crate::Result<Self> {
         let unusable = |reason: String| Err(crate::Error::Value { reason });
         if !value.is_finite() {
-            return unusable(format!("{value} is not a finite number"));
+            return unusable(format!("{} is not a finite number", fmt_num(value)));
         }
         if value <= 0.0 {
-            return unusable(format!("{value} is not positive"));
+            return unusable(format!("{} is not positive", fmt_num(value)));
         }
         if !(1e-6..=1e6).contains(&value) {
             return unusable(format!(
-                "{value} um/px is outside the plausible range 1e-6 to 1e6"
+                "{} um/px is outside the plausible range 1e-6 to 1e6",
+                fmt_num(value)
             ));
         }
         Ok(Self(value))

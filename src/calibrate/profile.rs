@@ -30,57 +30,87 @@ pub struct Profile {
 #[derive(Deserialize)]
 #[serde(deny_unknown_fields)]
 struct File {
-    profiles: BTreeMap<String, Entry>,
+    /// Each profile as written, checked one by one so that a message names
+    /// the profile and says what it should be.
+    profiles: BTreeMap<String, serde_json::Value>,
 }
 
+/// The object form (other keys are ignored, as they always were).
 #[derive(Deserialize)]
-#[serde(untagged)]
-enum Entry {
-    Value(f64),
-    Full {
-        um_per_px: f64,
-        #[serde(default)]
-        rel_uncertainty: Option<f64>,
-        #[serde(default)]
-        #[allow(dead_code)]
-        note: Option<String>,
-    },
+struct Full {
+    um_per_px: f64,
+    #[serde(default)]
+    rel_uncertainty: Option<f64>,
+    #[serde(default)]
+    #[allow(dead_code)]
+    note: Option<String>,
+}
+
+/// A profile's value and relative uncertainty, or what is wrong with its
+/// form, naming the file (`origin`) and the profile (`key`).
+fn entry(value: &serde_json::Value, origin: &str, key: &str) -> Result<(f64, Option<f64>)> {
+    use serde_json::Value;
+    let bad = |why: String| Error::Input {
+        path: origin.into(),
+        reason: format!("profile '{}': {why}", crate::error::excerpt(key, 60)),
+    };
+    let expected = "give a number (um per pixel) or an object with \"um_per_px\"";
+    match value {
+        Value::Number(n) => n
+            .as_f64()
+            .map(|v| (v, None))
+            .ok_or_else(|| bad(format!("{n} is not a number armspace can hold"))),
+        Value::Object(_) => Full::deserialize(value)
+            .map(|f| (f.um_per_px, f.rel_uncertainty))
+            .map_err(|e| bad(crate::error::excerpt(&e.to_string(), 200))),
+        Value::String(t) => Err(bad(format!(
+            "is the text \"{}\", not a number; {expected}",
+            crate::error::excerpt(t, 40)
+        ))),
+        Value::Array(_) => Err(bad(format!("is a list; {expected}"))),
+        Value::Bool(_) => Err(bad(format!("is true or false; {expected}"))),
+        Value::Null => Err(bad(format!("is null; {expected}"))),
+    }
 }
 
 /// Reads the profile `name` from a profile file's text; `origin` names the
-/// file in messages.
+/// file in messages. Every profile of the file must have a valid form.
 pub fn parse(text: &str, name: &str, origin: &str) -> Result<Profile> {
     let bad = |reason: String| Error::Input {
         path: origin.into(),
         reason,
     };
-    let file: File = serde_json::from_str(text)
-        .map_err(|e| bad(format!("not a valid calibration profile file: {e}")))?;
-    let Some(entry) = file.profiles.get(name) else {
+    let file: File = serde_json::from_str(text).map_err(|e| {
+        bad(format!(
+            "not a valid calibration profile file: {}",
+            crate::error::excerpt(&e.to_string(), 300)
+        ))
+    })?;
+    let mut selected = None;
+    for (key, value) in &file.profiles {
+        let e = entry(value, origin, key)?;
+        if key == name {
+            selected = Some(e);
+        }
+    }
+    let Some((value, rel)) = selected else {
         let names: Vec<&str> = file.profiles.keys().map(|k| k.as_str()).collect();
         return Err(bad(format!(
             "no profile named '{name}' (the file has: {})",
             if names.is_empty() {
                 "none".to_string()
             } else {
-                names.join(", ")
+                crate::error::excerpt(&names.join(", "), 300)
             }
         )));
-    };
-    let (value, rel) = match entry {
-        Entry::Value(v) => (*v, None),
-        Entry::Full {
-            um_per_px,
-            rel_uncertainty,
-            ..
-        } => (*um_per_px, *rel_uncertainty),
     };
     let um_per_px =
         UmPerPx::new(value).map_err(|e| bad(format!("profile '{name}': um_per_px {e}")))?;
     if let Some(r) = rel {
         if !(r.is_finite() && (0.0..1.0).contains(&r)) {
             return Err(bad(format!(
-                "profile '{name}': rel_uncertainty {r} must be a fraction from 0 to 1"
+                "profile '{name}': rel_uncertainty {} must be a fraction from 0 to 1",
+                crate::units::fmt_num(r)
             )));
         }
     }
@@ -129,5 +159,17 @@ mod tests {
             .unwrap_err()
             .to_string()
             .contains("not a valid"));
+        // A profile of the wrong form is named, with what it should be.
+        let e = parse(r#"{"profiles": {"a": 1, "b": "1.25"}}"#, "a", "p.json")
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("p.json: profile 'b'") && e.contains("not a number"),
+            "{e}"
+        );
+        let e = parse(r#"{"profiles": {"a": {"note": "x"}}}"#, "a", "p.json")
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("profile 'a'") && e.contains("um_per_px"), "{e}");
     }
 }

@@ -119,7 +119,8 @@ impl Spec {
             path: origin.into(),
             reason,
         };
-        let mut spec: Spec = serde_json::from_str(text).map_err(|e| bad(e.to_string()))?;
+        let mut spec: Spec = serde_json::from_str(text)
+            .map_err(|e| bad(crate::error::excerpt(&e.to_string(), 300)))?;
         if spec.format != FORMAT {
             return Err(bad(format!("format '{}' is not '{FORMAT}'", spec.format)));
         }
@@ -131,7 +132,8 @@ impl Spec {
         if let Some(l) = spec.limit_um {
             if !valid_limit(l) {
                 return Err(bad(format!(
-                    "\"limit_um\" must be a positive number of um, got {l}"
+                    "\"limit_um\" must be a positive number of um, got {}",
+                    crate::units::fmt_num(l)
                 )));
             }
         }
@@ -146,7 +148,8 @@ impl Spec {
             if !valid_limit(z.limit_um) {
                 return Err(bad(format!(
                     "zone '{}': \"limit_um\" must be a positive number of um, got {}",
-                    z.name, z.limit_um
+                    z.name,
+                    crate::units::fmt_num(z.limit_um)
                 )));
             }
             let glob = globset::GlobBuilder::new(&z.pattern)

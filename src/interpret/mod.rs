@@ -67,10 +67,14 @@ impl PowerLaw {
         (x.is_finite() && x > 0.0).then(|| Micrometres(self.coefficient * x.powf(self.exponent)))
     }
 
-    /// x at which the law gives `lambda2`.
+    /// x at which the law gives `lambda2`; None when there is no finite
+    /// positive one (a coefficient so far from lambda2 that the power
+    /// overflows to infinity or underflows to 0: no cooling rate or time).
     pub fn invert(&self, lambda2: Micrometres) -> Option<f64> {
         let l = lambda2.0;
-        (l.is_finite() && l > 0.0).then(|| (l / self.coefficient).powf(1.0 / self.exponent))
+        (l.is_finite() && l > 0.0)
+            .then(|| (l / self.coefficient).powf(1.0 / self.exponent))
+            .filter(|x| x.is_finite() && *x > 0.0)
     }
 
     /// Interval of x for an interval of lambda2, lower bound first.
@@ -380,7 +384,16 @@ pub fn interpret(corr: &Correlation, req: &Request) -> Result<Interpretation> {
 
     // The primary quantity, in the correlation's own unit, then in K/s or s.
     let x = law.invert(sdas).ok_or_else(|| Error::Correlation {
-        reason: "the SDAS cannot be inverted".into(),
+        reason: format!(
+            "correlation '{}' ({}) gives no finite positive {} at {} um: its coefficient or exponent is beyond any physical range",
+            corr.id,
+            corr.law_text(),
+            match corr.form {
+                Form::CoolingRate => "cooling rate",
+                _ => "solidification time",
+            },
+            round_significant(sdas.0, 4)
+        ),
     })?;
     let to_base = corr.variable_unit.to_base;
     let gain = 1.0 / law.exponent.abs();
@@ -690,5 +703,10 @@ mod tests {
         let law = PowerLaw::new(5.0, 0.3).expect("valid in this test");
         assert!(law.invert(Micrometres(-1.0)).is_none());
         assert!(law.predict(0.0).is_none());
+        // (20 / 1e300)^(1 / 0.33) is about 1e-905, below the smallest f64
+        // (IEEE 754 binary64, about 4.9e-324): it underflows to 0, which is
+        // no solidification time.
+        let absurd = PowerLaw::new(1e300, 0.33).expect("finite and positive");
+        assert!(absurd.invert(Micrometres(20.0)).is_none());
     }
 }

@@ -48,7 +48,8 @@ pub fn parse(text: &str, origin: &str, builtin: bool) -> Result<Vec<Correlation>
         path: origin.into(),
         reason,
     };
-    let raw: FileRaw = serde_json::from_str(text).map_err(|e| bad(e.to_string()))?;
+    let raw: FileRaw =
+        serde_json::from_str(text).map_err(|e| bad(crate::error::excerpt(&e.to_string(), 300)))?;
     match raw.format.as_deref() {
         Some(FORMAT) => {}
         Some(other) => return Err(bad(format!("format '{other}' is not '{FORMAT}'"))),
@@ -60,11 +61,20 @@ pub fn parse(text: &str, origin: &str, builtin: bool) -> Result<Vec<Correlation>
             .get("id")
             .and_then(|v| v.as_str())
             .map_or(format!("entry {}", i + 1), |id| {
-                format!("entry {} ('{id}')", i + 1)
+                format!("entry {} ('{}')", i + 1, crate::error::excerpt(id, 60))
             });
-        let entry: EntryRaw =
-            serde_json::from_value(value).map_err(|e| bad(format!("{label}: {e}")))?;
-        let c = validate(entry, origin, builtin).map_err(|e| bad(format!("{label}: {e}")))?;
+        let entry: EntryRaw = serde_json::from_value(value).map_err(|e| {
+            bad(format!(
+                "{label}: {}",
+                crate::error::excerpt(&e.to_string(), 300)
+            ))
+        })?;
+        let c = validate(entry, origin, builtin).map_err(|e| {
+            bad(format!(
+                "{label}: {}",
+                crate::error::excerpt(&e.to_string(), 300)
+            ))
+        })?;
         if out.iter().any(|o| o.id == c.id) {
             return Err(bad(format!("{label}: duplicate id '{}'", c.id)));
         }
@@ -86,7 +96,8 @@ fn positive(name: &str, v: Option<f64>) -> Result<f64> {
         None => Err(invalid(format!("missing \"{name}\""))),
         Some(v) if v.is_finite() && v > 0.0 => Ok(v),
         Some(v) => Err(invalid(format!(
-            "\"{name}\" must be a positive number, got {v}"
+            "\"{name}\" must be a positive number, got {}",
+            crate::units::fmt_num(v)
         ))),
     }
 }
@@ -156,7 +167,7 @@ fn validate(e: EntryRaw, origin: &str, builtin: bool) -> Result<Correlation> {
             if !(coefficient.value.is_finite() && coefficient.value != 0.0) {
                 return Err(invalid(format!(
                     "\"coefficient\" value must be a non-zero number, got {}",
-                    coefficient.value
+                    crate::units::fmt_num(coefficient.value)
                 )));
             }
             if coefficient.linear.is_empty() && coefficient.value < 0.0 {

@@ -385,7 +385,7 @@ impl Correlation {
                 coefficient,
                 exponent,
             } => {
-                let mut a = format!("{}", coefficient.value);
+                let mut a = crate::units::fmt_num(coefficient.value);
                 for (el, s) in &coefficient.linear {
                     a = format!(
                         "({a} {} {} {el})",
