@@ -371,7 +371,7 @@ pub fn load_bytes(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loade
         }
     }
 
-    let sha256 = hex(&Sha256::digest(bytes));
+    let sha256 = sha256_hex(bytes);
     Ok(Loaded {
         image,
         bit_depth,
@@ -610,7 +610,7 @@ fn load_tiff_direct(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loa
     Ok(Loaded {
         image,
         bit_depth: depth,
-        sha256: hex(&Sha256::digest(bytes)),
+        sha256: sha256_hex(bytes),
         format: ImageFormat::Tiff,
         resolution: info.resolution,
         warnings,

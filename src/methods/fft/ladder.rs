@@ -84,7 +84,7 @@ pub(crate) const LAST_RUNG_RATIO: f64 = 1.25;
 /// Most tiles analysed at one scale of the ladder.
 pub(crate) const LADDER_MAX_TILES: usize = 64;
 
-/// The tiles of every size of the ladder (see `scale_ladder`).
+/// The tiles of every size of the ladder (the sizes from [`ladder_sizes`]).
 pub(crate) fn ladder_tiles(
     img: &Prepared,
     sizes: &[usize],
