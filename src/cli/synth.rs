@@ -2,7 +2,6 @@
 //! of known SDAS and their truth.json.
 
 use super::{EXIT_FATAL, EXIT_OK, EXIT_USAGE};
-use clap::ValueEnum;
 use std::path::PathBuf;
 use std::process::ExitCode;
 
@@ -28,22 +27,11 @@ pub(super) struct SynthArgs {
     /// phases; featureless: no dendrites at all); by default clean and
     /// etched alternate. The same seed gives the same fields in any style.
     #[arg(long, value_enum)]
-    style: Option<SynthStyle>,
+    style: Option<armspace::synth::Style>,
     /// Write into a folder that already holds files (images of the same
     /// names and truth.json are replaced; others stay and are not in the truth).
     #[arg(long)]
     replace: bool,
-}
-
-#[derive(Clone, Copy, ValueEnum)]
-enum SynthStyle {
-    Clean,
-    Etched,
-    Cut,
-    Dense,
-    Lace,
-    Binary,
-    Featureless,
 }
 
 pub(super) fn run(args: SynthArgs) -> ExitCode {
@@ -60,19 +48,13 @@ pub(super) fn run(args: SynthArgs) -> ExitCode {
         return ExitCode::from(EXIT_USAGE);
     }
     let result = match &args.fields {
-        None => {
-            let style = args.style.map(|s| match s {
-                SynthStyle::Clean => armspace::synth::Style::Clean,
-                SynthStyle::Etched => armspace::synth::Style::Etched,
-                SynthStyle::Cut => armspace::synth::Style::Cut,
-                SynthStyle::Dense => armspace::synth::Style::Dense,
-                SynthStyle::Lace => armspace::synth::Style::Lace,
-                SynthStyle::Binary => armspace::synth::Style::Binary,
-                SynthStyle::Featureless => armspace::synth::Style::Featureless,
-            });
-            armspace::synth::write_set_styled(&args.outdir, args.seed, args.count as usize, style)
-                .map_err(|e| e.to_string())
-        }
+        None => armspace::synth::write_set_styled(
+            &args.outdir,
+            args.seed,
+            args.count as usize,
+            args.style,
+        )
+        .map_err(|e| e.to_string()),
         Some(path) => armspace::files::read_text(path, "field-description file")
             .map_err(|e| e.to_string())
             .and_then(|text| {

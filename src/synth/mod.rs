@@ -51,7 +51,7 @@ pub enum Morphology {
 }
 
 /// Drawing style.
-#[derive(Serialize, Deserialize, Clone, Copy, Debug, PartialEq, Eq)]
+#[derive(Serialize, Deserialize, Clone, Copy, Debug, PartialEq, Eq, clap::ValueEnum)]
 #[serde(rename_all = "lowercase")]
 pub enum Style {
     /// Idealised comb of smooth bars on a flat background.
