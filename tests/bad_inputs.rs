@@ -254,7 +254,12 @@ const IMAGES: &[(&str, Want)] = &[
     ("palette.png", SAME),
     ("palette.tif", Error(&["not a supported image", "RGBPalette"])),
     ("cmyk.jpg", LOSSY),
-    ("cmyk.tif", SAME),
+    // Converted from CMYK, the grey levels differ from the good image's by
+    // rounding; on this small crop that flips the centres method's chance
+    // test (its chains are parallel at 61 %, at the edge of what random
+    // points reach), and the combined value moves by 2.4 %, inside both
+    // intervals.
+    ("cmyk.tif", LOSSY),
     ("grey-alpha.png", SAME),
     ("grey-alpha.tif", SAME),
     ("alpha-only.png", Error(ALPHA)),
@@ -273,8 +278,8 @@ const IMAGES: &[(&str, Want)] = &[
 
 /// The good micrograph's value: fixtures/bad/README.md says about 18 um
 /// (a 256 x 256 crop of the demo's 6 mm step, whose truth is 18 um,
-/// fixtures/demo/truth.json); 17.58 um is what armspace gives today.
-const GOOD_UM: f64 = 17.58;
+/// fixtures/demo/truth.json); 17.55 um is what armspace gives today.
+const GOOD_UM: f64 = 17.55;
 
 fn corpus_images() -> PathBuf {
     repo_file("fixtures/bad/images")
@@ -912,7 +917,7 @@ fn an_absurd_coefficient_gives_no_number() {
     assert!(img["interpretation"].is_null(), "{}", img["interpretation"]);
     let warnings = img["warnings"].to_string();
     assert!(
-        warnings.contains("no interpretation: correlation 'lab-fit' (lambda2 = 1e300 t_f^0.33 (um, s)) gives no finite positive solidification time at 17.58 um"),
+        warnings.contains("no interpretation: correlation 'lab-fit' (lambda2 = 1e300 t_f^0.33 (um, s)) gives no finite positive solidification time at 17.55 um"),
         "{warnings}"
     );
     let r = run(

@@ -34,9 +34,11 @@
 //!   by at most [`CentresParams::max_turn_deg`], from the previous link and
 //!   from the chain's overall direction (rows are straight; small turns must
 //!   not add up to a curve), and whose length is within a
-//!   factor [`CentresParams::max_step_ratio`] of the previous one: arms of one
-//!   trunk side stand on a line with a nearly constant spacing; a missing
-//!   arm (a doubled step) ends the chain rather than entering it.
+//!   factor [`CentresParams::max_step_ratio`] of the previous one and of the
+//!   chain's shortest and longest steps so far: arms of one trunk side stand
+//!   on a line with a nearly constant spacing; a missing arm (a doubled
+//!   step) ends the chain rather than entering it, also when the steps
+//!   lengthen a little at a time.
 //! - *Not chance.* Random points also line up now and then, but their
 //!   chains do not run side by side. The fraction of chains whose nearest
 //!   chain is parallel to them is compared with the same fraction for
@@ -541,6 +543,11 @@ fn build_chains(points: &[[f64; 2]], links: &[Vec<usize>], p: &CentresParams) ->
         }
         let mut seq = std::collections::VecDeque::from([a, b]);
         let mut taken = vec![a, b];
+        // The shortest and longest steps of the chain so far: every step
+        // must lie within `max_step_ratio` of both, not only of the step
+        // before it, or a chain can drift through steps of 1.0, 1.4, 1.9
+        // spacings into skipping every other arm.
+        let (mut short, mut long) = (dist(a, b), dist(a, b));
         // Grow forward (from b away from a), then backward.
         for forward in [true, false] {
             loop {
@@ -575,12 +582,17 @@ fn build_chains(points: &[[f64; 2]], links: &[Vec<usize>], p: &CentresParams) ->
                         (cos >= cos_max
                             && cos_all >= cos_max
                             && ratio <= p.max_step_ratio
-                            && ratio >= 1.0 / p.max_step_ratio)
+                            && ratio >= 1.0 / p.max_step_ratio
+                            && l <= p.max_step_ratio * short
+                            && l * p.max_step_ratio >= long)
                             .then_some((cos, c))
                     })
                     .max_by(|x, y| x.0.total_cmp(&y.0).then(y.1.cmp(&x.1)));
                 match next {
                     Some((_, c)) => {
+                        let l = dist(last, c);
+                        short = short.min(l);
+                        long = long.max(l);
                         taken.push(c);
                         if forward {
                             seq.push_back(c);
@@ -710,6 +722,27 @@ mod tests {
             let rows = o.row_spacing_px.unwrap();
             assert!((rows / 34.0 - 1.0).abs() < 0.1, "{angle}: rows {rows}");
         }
+    }
+
+    #[test]
+    fn a_chain_stops_where_its_steps_have_grown_by_the_step_ratio() {
+        // Steps 10, 10, 10, 13, 17 along a line: each step is within 1.5 of
+        // the one before it, but 17 is 1.7 times the chain's shortest step
+        // (an arm skipped, the steps having lengthened a little at a time).
+        let xs = [0.0, 10.0, 20.0, 30.0, 43.0, 60.0];
+        let points: Vec<[f64; 2]> = xs.iter().map(|&x| [x, 0.0]).collect();
+        let links: Vec<Vec<usize>> = (0..xs.len())
+            .map(|i| {
+                [i.checked_sub(1), Some(i + 1).filter(|&j| j < xs.len())]
+                    .into_iter()
+                    .flatten()
+                    .collect()
+            })
+            .collect();
+        let chains = build_chains(&points, &links, &CentresParams::default());
+        assert_eq!(chains.len(), 1);
+        assert_eq!(chains[0].points.len(), 5);
+        assert!((chains[0].spacing_px - 43.0 / 4.0).abs() < 1e-12);
     }
 
     #[test]
