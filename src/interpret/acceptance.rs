@@ -15,12 +15,21 @@
 //!
 //! An image without a value (or, under `guarded`, without an interval)
 //! cannot be decided: indeterminate. When a result is indeterminate the
-//! decision says how many more measurements would most likely decide it: the
-//! statistical part h of the half-width shrinks as 1/sqrt(n) while the
-//! calibration's part c does not, so the interval clears the limit when
-//! h' <= sqrt(d^2 - c^2), d = |value - limit|, i.e. with
-//! n' = n h^2 / (d^2 - c^2) measurements (assuming the value stays where it
-//! is); d <= c means only a better calibration can decide it.
+//! decision says how many measurements in all would decide it with a
+//! probability of [`DECIDE_PROBABILITY`]: the statistical part h of the
+//! half-width shrinks as 1/sqrt(n) while the calibration's part c does not.
+//! Taking the present value x as the truth and the present spread as that
+//! of every measurement (sd sigma = h sqrt(n) / 1.96), a new estimate from
+//! n' measurements scatters about x with s = sigma / sqrt(n'), and its
+//! interval clears the limit when |x' - limit| >= sqrt(c^2 + (1.96 s)^2).
+//! That happens with probability P when d - sqrt(c^2 + (1.96 s)^2) >= z_P s,
+//! d = |x - limit|, z_P the standard normal quantile of P: the usual sample
+//! size of a one-sided test at power P (for example D. C. Montgomery,
+//! "Design and Analysis of Experiments", the sample size for a test on a
+//! mean; from memory). The smallest such n' is found by bisection on s.
+//! At P = 0.5 it reduces to n' = n h^2 / (d^2 - c^2), the count that only
+//! puts the expected bound on the limit (and decides half the time);
+//! d <= c means only a better calibration can decide it.
 
 use crate::units::Micrometres;
 use schemars::JsonSchema;
@@ -209,7 +218,7 @@ pub struct Acceptance {
     pub decision: Option<Decision>,
     pub reason: String,
     /// For an indeterminate result: about how many measurements (tiles or
-    /// lines) in all would most likely decide it, when more would.
+    /// lines) in all would decide it with 90 % probability, when more would.
     #[schemars(range(min = 1))]
     pub measurements_to_decide: Option<usize>,
     /// The same as a number of fields like this one, in all.
@@ -288,7 +297,7 @@ pub fn decide(
     }
 }
 
-/// Measurements in all that would most likely decide a straddling interval,
+/// Measurements in all that would decide (with `DECIDE_PROBABILITY`) a straddling interval,
 /// and the advice in words (module docs).
 fn more_to_decide(e: &Evidence, x: f64, [lo, hi]: [f64; 2], limit: f64) -> (Option<usize>, String) {
     let half = 0.5 * (hi - lo);
@@ -310,7 +319,7 @@ fn more_to_decide(e: &Evidence, x: f64, [lo, hi]: [f64; 2], limit: f64) -> (Opti
     if h2 <= 0.0 {
         return (None, "more fields would narrow the interval".into());
     }
-    let needed = (e.n as f64 * h2 / (d * d - c * c)).ceil();
+    let needed = measurements_for_probability(e.n, h2.sqrt(), c, d, DECIDE_PROBABILITY);
     if !needed.is_finite() || needed > 1e9 {
         return (
             None,
@@ -322,10 +331,54 @@ fn more_to_decide(e: &Evidence, x: f64, [lo, hi]: [f64; 2], limit: f64) -> (Opti
     (
         Some(needed),
         format!(
-            "about {needed} measurements in all ({} now), i.e. about {fields} fields like this one, would most likely decide it",
-            e.n
+            "about {needed} measurements in all ({} now), i.e. about {fields} fields like this one, would decide it with {:.0} % probability",
+            e.n,
+            100.0 * DECIDE_PROBABILITY
         ),
     )
+}
+
+/// The probability of deciding for which the number of measurements that
+/// would decide an indeterminate image is given: 90 %, a common design power
+/// for a sample size (common practice, no single source). Planning for the
+/// expected bound alone would decide only half the time.
+pub const DECIDE_PROBABILITY: f64 = 0.90;
+
+/// Measurements in all (from `n` now, with statistical half-width `h` and
+/// calibration half-width `c`, value `d` from the limit) after which the
+/// guarded interval clears the limit with probability `p` (module docs);
+/// infinite when no number can (d <= c).
+pub fn measurements_for_probability(n: usize, h: f64, c: f64, d: f64, p: f64) -> f64 {
+    use statrs::distribution::{ContinuousCDF, Normal};
+    let z95 = crate::stats::Z95;
+    // NaN in any input also ends here: no count without numbers.
+    if d.is_nan() || c.is_nan() || h.is_nan() || d <= c || n == 0 || h <= 0.0 {
+        return f64::INFINITY;
+    }
+    let z_p = Normal::new(0.0, 1.0).map_or(f64::NAN, |nd| nd.inverse_cdf(p));
+    if !z_p.is_finite() {
+        return f64::INFINITY;
+    }
+    let sigma = h * (n as f64).sqrt() / z95;
+    // f(s) = d - sqrt(c^2 + (z95 s)^2) - z_p s falls with s (for z_p >= 0)
+    // from f(0) = d - c > 0; below s = (d - c) / (z95 + z_p) it cannot
+    // reach zero and above d / z95 it is negative.
+    let f = |s: f64| d - c.hypot(z95 * s) - z_p * s;
+    let (mut lo, mut hi) = (0.0, d / z95);
+    for _ in 0..200 {
+        let mid = 0.5 * (lo + hi);
+        if f(mid) >= 0.0 {
+            lo = mid;
+        } else {
+            hi = mid;
+        }
+    }
+    if lo <= 0.0 {
+        return f64::INFINITY;
+    }
+    // The bisection ends just below the root, so the count just above an
+    // exact integer; a relative 1e-9 is far below any count's meaning.
+    ((sigma / lo).powi(2) * (1.0 - 1e-9)).ceil()
 }
 
 /// The acceptance of one image under a spec.
