@@ -166,6 +166,33 @@ fn spec(text: &str) -> Spec {
 }
 
 #[test]
+fn a_pattern_with_a_folder_matches_however_the_path_was_written() {
+    // A lab user writes `demo/*.png` and expects it to apply to the images of
+    // that folder whether the command named `demo/x.png`, `./demo/x.png` or
+    // an absolute path (what a user expects, no single source).
+    let s = spec(
+        r#"{"format": "armspace.spec/1",
+            "zones": [{"name": "rim", "pattern": "demo/rim-*.png", "limit_um": 30},
+                      {"name": "abs", "pattern": "/lab/hub/*.png", "limit_um": 45}]}"#,
+    );
+    let zone = |p: &str| s.zone_of(std::path::Path::new(p)).map(|z| z.name.clone());
+    for p in [
+        "demo/rim-1.png",
+        "./demo/rim-1.png",
+        "/home/lab/demo/rim-1.png",
+        "demo/./rim-1.png",
+        "other/../demo/rim-1.png",
+    ] {
+        assert_eq!(zone(p).as_deref(), Some("rim"), "{p}");
+    }
+    assert_eq!(zone("demo/sub/rim-1.png"), None);
+    assert_eq!(zone("notdemo/rim-1.png"), None);
+    assert_eq!(zone("demo/../rim-1.png"), None);
+    assert_eq!(zone("/lab/hub/a.png").as_deref(), Some("abs"));
+    assert_eq!(zone("/other/lab/hub/a.png"), None);
+}
+
+#[test]
 fn zones_are_matched_by_file_name_pattern() {
     let s = spec(
         r#"{"format": "armspace.spec/1",

@@ -175,18 +175,45 @@ impl Spec {
         Self::parse(&text, &path.display().to_string())
     }
 
-    /// The zone of a file (the first whose pattern matches), if any.
+    /// The zone of a file (the first whose pattern matches), if any. A
+    /// pattern without `/` is matched against the file name; one with `/`
+    /// against the end of the path, after `.` and `name/..` are taken out,
+    /// so that `demo/*.png` matches `demo/x.png`, `./demo/x.png` and
+    /// `/lab/demo/x.png` alike (an absolute pattern, against the whole path).
     pub fn zone_of(&self, file: &std::path::Path) -> Option<&Zone> {
         let name = file.file_name().map(std::path::Path::new);
+        let tails = path_tails(file);
         self.zones.iter().find(|z| {
             let Some(m) = &z.matcher else { return false };
-            if z.pattern.contains('/') {
-                m.is_match(file)
+            if z.pattern.starts_with('/') {
+                tails.first().is_some_and(|t| m.is_match(t))
+            } else if z.pattern.contains('/') {
+                tails.iter().any(|t| m.is_match(t))
             } else {
                 name.is_some_and(|n| m.is_match(n))
             }
         })
     }
+}
+
+/// A path without its `.` components and with `name/..` pairs taken out
+/// (lexically: the spec speaks of the path as the user wrote it, links are
+/// not followed), then every tail of it, the whole path first.
+fn path_tails(file: &std::path::Path) -> Vec<std::path::PathBuf> {
+    use std::path::Component;
+    let mut parts: Vec<Component> = Vec::new();
+    for c in file.components() {
+        match c {
+            Component::CurDir => {}
+            Component::ParentDir if matches!(parts.last(), Some(Component::Normal(_))) => {
+                parts.pop();
+            }
+            other => parts.push(other),
+        }
+    }
+    (0..parts.len())
+        .map(|i| parts[i..].iter().collect::<std::path::PathBuf>())
+        .collect()
 }
 
 /// What is compared with the limit, for one image.
