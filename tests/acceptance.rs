@@ -95,8 +95,16 @@ fn indeterminate_results_say_how_many_more_measurements_would_decide() {
     let (_, reason, n, _) = decide(&ev(30.0, Some([28.0, 32.0]), 10, 1.5), 29.0, Rule::Guarded);
     assert!(n.is_none() && reason.contains("calibration"), "{reason}");
     // Exactly at the limit: no number of fields decides it.
-    let (_, _, n, _) = decide(&ev(29.0, Some([27.0, 31.0]), 10, 0.0), 29.0, Rule::Guarded);
-    assert!(n.is_none());
+    // Exactly at the limit, with or without a calibration part, the reason
+    // is the value's place, not the calibration.
+    for c in [0.0, 0.5] {
+        let (_, reason, n, _) = decide(&ev(29.0, Some([27.0, 31.0]), 10, c), 29.0, Rule::Guarded);
+        assert!(n.is_none());
+        assert!(
+            reason.contains("lies on the limit") && !reason.contains("calibration"),
+            "{reason}"
+        );
+    }
 }
 
 #[test]

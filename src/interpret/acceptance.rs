@@ -331,7 +331,15 @@ fn more_to_decide(e: &Evidence, x: f64, [lo, hi]: [f64; 2], limit: f64) -> (Opti
     let c = e.calibration_half_um.min(half);
     let h2 = half * half - c * c;
     let d = (x - limit).abs();
-    if d <= c || d == 0.0 {
+    if d == 0.0 {
+        // Estimates of a value on the limit fall on either side of it half
+        // the time, whatever their number or the calibration.
+        return (
+            None,
+            "the value lies on the limit: no number of fields decides it (a value on the limit passes or fails by chance)".into(),
+        );
+    }
+    if d <= c {
         return (
             None,
             "the value is within the calibration's uncertainty of the limit: more fields cannot decide it, a better calibration (or a different statistic) might".into(),
