@@ -16,18 +16,29 @@ use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
-/// `(method name, value in um)` for every method of one image report, plus
-/// `combined` for the value the user gets.
-fn method_values(image: &Value) -> Vec<(String, Option<f64>)> {
-    let mut out: Vec<(String, Option<f64>)> = image["methods"]
+/// A value in um and its 95 % interval, when the report gives them.
+type Valued = (Option<f64>, Option<[f64; 2]>);
+
+fn interval(v: &Value) -> Option<[f64; 2]> {
+    Some([v.get(0)?.as_f64()?, v.get(1)?.as_f64()?])
+}
+
+/// `(method name, value and interval in um)` for every method of one image
+/// report, plus `combined` for the value the user gets.
+fn method_values(image: &Value) -> Vec<(String, Valued)> {
+    let mut out: Vec<(String, Valued)> = image["methods"]
         .as_object()
         .map(|m| {
             m.iter()
-                .map(|(k, v)| (k.clone(), v["value"].as_f64()))
+                .map(|(k, v)| (k.clone(), (v["value"].as_f64(), interval(&v["ci95"]))))
                 .collect()
         })
         .unwrap_or_default();
-    out.push(("combined".into(), image["sdas_um"]["value"].as_f64()));
+    let sdas = &image["sdas_um"];
+    out.push((
+        "combined".into(),
+        (sdas["value"].as_f64(), interval(&sdas["ci95"])),
+    ));
     out
 }
 
@@ -45,6 +56,10 @@ struct Tally {
     errors: Vec<f64>,
     /// Values nearer the row spacing than the arm spacing (style cut).
     at_row: usize,
+    /// Values with a 95 % interval (fields with a truth), and how many of
+    /// those intervals hold the truth.
+    with_interval: usize,
+    covered: usize,
 }
 
 fn quantile(sorted: &[f64], p: f64) -> Option<f64> {
@@ -65,14 +80,20 @@ fn print_tally(label: &str, method: &str, t: &Tally) {
     abs.sort_by(f64::total_cmp);
     let mut signed = t.errors.clone();
     signed.sort_by(f64::total_cmp);
+    let coverage = if t.with_interval == 0 {
+        "-".to_string()
+    } else {
+        format!("{}/{}", t.covered, t.with_interval)
+    };
     println!(
-        "{label:<22} {method:<10} {:>3}/{:<3} {:>8} {:>8} {:>8} {:>6}",
+        "{label:<22} {method:<10} {:>3}/{:<3} {:>8} {:>8} {:>8} {:>6} {:>8}",
         t.with_value,
         t.fields,
         pct(quantile(&abs, 0.5)),
         pct(quantile(&abs, 0.9)),
         pct(quantile(&signed, 0.5)),
-        t.at_row
+        t.at_row,
+        coverage
     );
 }
 
@@ -95,7 +116,7 @@ fn summarise(dirs: &[PathBuf]) -> Result<(), String> {
             };
             let truth_um = t["sdas_um"].as_f64();
             let row_um = t["row_spacing_um"].as_f64();
-            for (method, value) in method_values(image) {
+            for (method, (value, ci)) in method_values(image) {
                 for tally in [
                     by_set
                         .entry((style.clone(), seed.clone()))
@@ -113,6 +134,12 @@ fn summarise(dirs: &[PathBuf]) -> Result<(), String> {
                         tally.with_value += 1;
                         if let Some(tr) = truth_um {
                             tally.errors.push(v / tr - 1.0);
+                            if let Some([lo, hi]) = ci {
+                                tally.with_interval += 1;
+                                if lo <= tr && tr <= hi {
+                                    tally.covered += 1;
+                                }
+                            }
                             if let Some(r) = row_um {
                                 if (v - r).abs() < (v - tr).abs() {
                                     tally.at_row += 1;
@@ -125,8 +152,8 @@ fn summarise(dirs: &[PathBuf]) -> Result<(), String> {
         }
     }
     println!(
-        "{:<22} {:<10} {:>7} {:>8} {:>8} {:>8} {:>6}",
-        "style (seed)", "method", "valued", "med|e|", "p90|e|", "med e", "at_row"
+        "{:<22} {:<10} {:>7} {:>8} {:>8} {:>8} {:>6} {:>8}",
+        "style (seed)", "method", "valued", "med|e|", "p90|e|", "med e", "at_row", "covered"
     );
     for ((style, seed), methods) in &by_set {
         for (m, t) in methods {

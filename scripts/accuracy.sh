@@ -9,8 +9,9 @@
 # per style over all seeds, for every method in the report and for the
 # combined value: the fields with a value, the median and 90th-percentile
 # |relative error|, the signed median error, and (style cut) how many values
-# lie nearer the row spacing than the arm spacing. Featureless fields have
-# no truth: their line counts the fields that got any value.
+# lie nearer the row spacing than the arm spacing, and the coverage: of the
+# values with a 95 % interval, how many intervals hold the truth. Featureless
+# fields have no truth: their line counts the fields that got any value.
 #
 # Defaults: COUNT=8, STYLES="cut dense lace binary featureless".
 # Set KEEP=1 to keep the temporary folder (its path is printed).
