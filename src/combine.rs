@@ -133,18 +133,22 @@ struct Part {
 /// **Outliers.** The largest set of methods whose values agree pairwise is
 /// used; a method outside it is left out with the reason. When two equally
 /// large sets exist (A agrees with B, B with C, but A not with C), all their
-/// members are used and the interval widened by the Birge ratio, so that it
-/// covers the disagreement.
+/// members are used and the interval widened by their scatter (tau^2
+/// below), so that it covers the disagreement.
 ///
 /// **Interval.** The value is the inverse-variance weighted mean (weights
-/// 1 / h^2, h the half-width). The methods measure the same arms, so their
-/// errors are correlated to an unknown degree; the half-width is the larger
-/// of the fully correlated bound, sum of w_i h_i with normalised weights
-/// (JCGM 100:2008, 5.2.2 with r = 1), and the independent one,
-/// 1 / sqrt(sum of weights) (5.1.2), scaled up by the Birge ratio
-/// R = sqrt(chi^2 / (k - 1)) when the values scatter more than their
-/// intervals allow (Birge 1932; the scale factor of the Particle Data
-/// Group's averages).
+/// 1 / (u^2 + tau^2), u = h / 1.96 the standard uncertainty from the
+/// half-width h, tau^2 the between-method variance that the scatter of the
+/// values shows beyond their intervals; DerSimonian and Laird, see
+/// `weighted`). The methods measure the same arms, so their errors are
+/// correlated to an unknown degree; the half-width is the larger of the
+/// fully correlated bound, 1.96 sqrt((sum of w_i u_i)^2 + tau^2 sum of
+/// w_i^2) with normalised weights (JCGM 100:2008, 5.2.2 with r = 1 for the
+/// methods' own errors; their biases independent), and the
+/// independent one, 1.96 / sqrt(sum of weights) (5.1.2). For methods of
+/// equal uncertainty this is the independent half-width scaled by the
+/// Birge ratio R = sqrt(chi^2 / (k - 1)) (Birge 1932), which the report
+/// gives.
 ///
 /// The calibration's relative standard uncertainty u is a systematic factor
 /// common to every tile and line, so it widens the interval rather than
@@ -401,30 +405,48 @@ fn largest_agreeing(parts: &[Part]) -> Option<Vec<usize>> {
 
 /// Weighted mean, 95 % half-width and Birge ratio of the parts (see
 /// [`combine`]).
+///
+/// The methods' values differ by more than their own intervals allow when a
+/// method carries a bias of its own (rows read for arms, chains that cross
+/// the arms obliquely): a between-method variance tau^2 that no single
+/// method's interval shows. It is estimated from Cochran's Q by the method
+/// of moments, tau^2 = max(0, (Q - (k - 1)) / (W - sum w^2 / W)), and added
+/// to every method's variance before weighting (R. DerSimonian and N. Laird,
+/// "Meta-analysis in clinical trials", Controlled Clinical Trials 7 (1986)
+/// 177-188). Without excess scatter tau^2 is 0 and the weights are the
+/// inverse variances; for methods of equal uncertainty the half-width is
+/// the Birge-scaled one; for unequal ones the narrowest method no longer
+/// outweighs a disagreement it is part of.
 fn weighted(parts: &[&Part]) -> (f64, f64, Option<f64>) {
-    let w: Vec<f64> = parts.iter().map(|p| 1.0 / (p.half * p.half)).collect();
+    // Standard uncertainties u_i = h_i / Z95 and weights 1 / u_i^2.
+    let u: Vec<f64> = parts.iter().map(|p| p.half / Z95).collect();
+    let w: Vec<f64> = u.iter().map(|u| 1.0 / (u * u)).collect();
     let wsum: f64 = w.iter().sum();
-    let mean = parts.iter().zip(&w).map(|(p, w)| w * p.value).sum::<f64>() / wsum;
-    let independent = 1.0 / wsum.sqrt();
-    let correlated = parts
+    let mean0 = parts.iter().zip(&w).map(|(p, w)| w * p.value).sum::<f64>() / wsum;
+    if parts.len() < 2 {
+        return (mean0, Z95 / wsum.sqrt(), None);
+    }
+    let q = parts
         .iter()
         .zip(&w)
-        .map(|(p, w)| w / wsum * p.half)
+        .map(|(p, w)| w * (p.value - mean0).powi(2))
         .sum::<f64>();
-    if parts.len() < 2 {
-        return (mean, independent, None);
-    }
-    // chi^2 with standard uncertainties u_i = h_i / Z95.
-    let chi2 = Z95
-        * Z95
-        * parts
-            .iter()
-            .zip(&w)
-            .map(|(p, w)| w * (p.value - mean).powi(2))
-            .sum::<f64>();
-    let birge = (chi2 / (parts.len() - 1) as f64).sqrt();
-    let half = correlated.max(independent * birge.max(1.0));
-    (mean, half, Some(birge))
+    let k1 = (parts.len() - 1) as f64;
+    let birge = (q / k1).sqrt();
+    let w2sum: f64 = w.iter().map(|w| w * w).sum();
+    let tau2 = ((q - k1) / (wsum - w2sum / wsum)).max(0.0);
+    let ws: Vec<f64> = u.iter().map(|u| 1.0 / (u * u + tau2)).collect();
+    let wssum: f64 = ws.iter().sum();
+    let mean = parts.iter().zip(&ws).map(|(p, w)| w * p.value).sum::<f64>() / wssum;
+    let independent = Z95 / wssum.sqrt();
+    // The methods measure the same arms, so their own errors may be fully
+    // correlated: the weighted sum of their standard uncertainties bounds
+    // that case; each method's bias (variance tau^2) is its own, independent
+    // of the others', and adds in quadrature.
+    let shared = u.iter().zip(&ws).map(|(u, w)| w / wssum * u).sum::<f64>();
+    let own = tau2 * ws.iter().map(|w| (w / wssum).powi(2)).sum::<f64>();
+    let correlated = Z95 * (shared * shared + own).sqrt();
+    (mean, correlated.max(independent), Some(birge))
 }
 
 /// The combined value as the evidence compared with a limit.
@@ -548,12 +570,15 @@ mod tests {
     }
 
     #[test]
-    fn scatter_beyond_the_intervals_widens_by_the_birge_ratio() {
-        // Birge (1932): values 10 and 10.8, each with half-width 0.2 (8 %
-        // apart, so they agree, but 0.8 apart against a standard
-        // uncertainty of 0.2 / 1.96 each). Weights 25 each, mean 10.4,
-        // independent half-width 1 / sqrt(50); chi^2 = 1.96^2 x 25 x
-        // (0.16 + 0.16), R = sqrt(chi^2 / 1), and R / sqrt(50) = 1.96 x 0.4.
+    fn scatter_beyond_the_intervals_widens_by_the_between_method_variance() {
+        // Values 10 and 10.8, each with half-width 0.2 (8 % apart, so they
+        // agree, but 0.8 apart against a standard uncertainty u = 0.2 / 1.96
+        // each). DerSimonian and Laird (1986): w = 1 / u^2 each, Q = w x
+        // (0.4^2 + 0.4^2), tau^2 = (Q - 1) / (2w - w) = 0.32 - u^2; equal
+        // weights, mean 10.4. Independent half-width 1.96 sqrt((u^2 +
+        // tau^2) / 2) = 1.96 x 0.4 (the Birge-scaled one); the bound with
+        // the methods' own errors fully correlated, 1.96 sqrt(u^2 + tau^2 /
+        // 2), is the larger.
         let cal = UmPerPx::new(1.0).unwrap();
         let o = [
             outcome(Method::Fft, Some(10.0), Some([9.8, 10.2]), 5),
@@ -561,10 +586,33 @@ mod tests {
         ];
         let e = combine(&o, cal, None);
         assert!((e.value.unwrap().0 - 10.4).abs() < 1e-12);
-        assert!((half(&e) - Z95 * 0.4).abs() < 1e-9);
+        let u = 0.2 / Z95;
+        let tau2 = 0.32 - u * u;
+        assert!((half(&e) - Z95 * (u * u + tau2 / 2.0).sqrt()).abs() < 1e-9);
+        assert!(half(&e) >= Z95 * 0.4);
+        // The Birge ratio is reported: sqrt(Q / 1).
+        assert!((e.birge_ratio.unwrap() - (0.32f64 / (u * u)).sqrt()).abs() < 1e-9);
         // The widened interval covers both values.
         let [lo, hi] = e.ci95.unwrap();
         assert!(lo.0 < 10.0 && hi.0 > 10.8);
+    }
+
+    #[test]
+    fn a_narrow_method_does_not_outweigh_a_disagreement_it_is_part_of() {
+        // 20 +- 1 and 21 +- 0.3 (agreeing within 10 %, disagreeing beyond
+        // their intervals). Inverse-variance weights alone would give 20.92
+        // +- 0.36, which excludes 20; with the between-method variance the
+        // weights nearly equalise and the interval covers both values.
+        let cal = UmPerPx::new(1.0).unwrap();
+        let o = [
+            outcome(Method::Fft, Some(20.0), Some([19.0, 21.0]), 40),
+            outcome(Method::Centres, Some(21.0), Some([20.7, 21.3]), 12),
+        ];
+        let e = combine(&o, cal, None);
+        let v = e.value.unwrap().0;
+        assert!(v > 20.3 && v < 20.7, "{v}");
+        let [lo, hi] = e.ci95.unwrap();
+        assert!(lo.0 <= 20.0 && hi.0 >= 21.0, "{lo:?} {hi:?}");
     }
 
     #[test]
