@@ -17,6 +17,7 @@ pub mod load;
 pub mod manual;
 pub mod methods;
 pub mod overlay;
+pub mod packbits;
 pub mod pipeline;
 pub mod preprocess;
 pub mod report;

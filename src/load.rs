@@ -329,6 +329,7 @@ pub fn load_bytes(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loade
     let mut warnings = Vec::new();
     let mut resolution = None;
     if format == ImageFormat::Tiff {
+        crate::packbits::check_tiff(bytes).map_err(damaged_packbits(path))?;
         let info = tiff_info(bytes);
         if info.more_pages {
             warnings.push("multi-page TIFF: only the first page is measured".to_string());
@@ -401,6 +402,15 @@ fn check_size(path: &Path, width: u32, height: u32, opts: &LoadOptions) -> Resul
         });
     }
     Ok(())
+}
+
+/// The error for PackBits data whose structure does not fit the image
+/// (see [`crate::packbits`]).
+fn damaged_packbits(path: &Path) -> impl Fn(String) -> Error + '_ {
+    move |reason| Error::Decode {
+        path: path.to_path_buf(),
+        reason: format!("{reason}, so rows would be shifted or invented"),
+    }
 }
 
 struct TiffInfo {
@@ -552,6 +562,7 @@ fn load_tiff_direct(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loa
             )))
         }
     };
+    crate::packbits::check_tiff(bytes).map_err(damaged_packbits(path))?;
     let mut warnings = Vec::new();
     if d.more_images() {
         warnings.push("multi-page TIFF: only the first page is measured".to_string());

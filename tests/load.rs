@@ -253,3 +253,84 @@ fn a_jpeg_cut_short_is_refused() {
     let e = armspace::load::load(&half, &opts).unwrap_err().to_string();
     assert!(e.contains("half.jpg") && e.contains("ends early"), "{e}");
 }
+
+/// A grey 8-bit TIFF with one PackBits strip, written here from the TIFF
+/// 6.0 description (section 9; each row packed on its own), with the
+/// offset of every row's first control byte.
+fn packbits_tiff(w: usize, h: usize, px: &[u8]) -> (Vec<u8>, Vec<usize>) {
+    let mut strip = Vec::new();
+    let mut controls = Vec::new();
+    for row in px.chunks(w) {
+        for chunk in row.chunks(128) {
+            controls.push(strip.len());
+            strip.push((chunk.len() - 1) as u8); // n + 1 literal bytes
+            strip.extend_from_slice(chunk);
+        }
+    }
+    let n_tags: u16 = 8;
+    let ifd = 8u32;
+    let data_at = ifd + 2 + 12 * n_tags as u32 + 4;
+    let mut t = b"II*\0".to_vec();
+    t.extend(ifd.to_le_bytes());
+    t.extend(n_tags.to_le_bytes());
+    let mut tag = |id: u16, typ: u16, v: u32| {
+        t.extend(id.to_le_bytes());
+        t.extend(typ.to_le_bytes());
+        t.extend(1u32.to_le_bytes());
+        t.extend(v.to_le_bytes());
+    };
+    tag(256, 4, w as u32); // ImageWidth
+    tag(257, 4, h as u32); // ImageLength
+    tag(258, 3, 8); // BitsPerSample
+    tag(259, 3, 32773); // Compression: PackBits
+    tag(262, 3, 1); // PhotometricInterpretation: black is zero
+    tag(273, 4, data_at); // StripOffsets
+    tag(278, 4, h as u32); // RowsPerStrip
+    tag(279, 4, strip.len() as u32); // StripByteCounts
+    t.extend(0u32.to_le_bytes());
+    assert_eq!(t.len(), data_at as usize);
+    let controls = controls.iter().map(|c| c + data_at as usize).collect();
+    t.extend(strip);
+    (t, controls)
+}
+
+#[test]
+fn packbits_whose_runs_do_not_fit_the_image_are_refused() {
+    let (w, h) = (200, 40);
+    let px: Vec<u8> = (0..w * h).map(|i| ((i * 7919) % 251) as u8).collect();
+    let (good, controls) = packbits_tiff(w, h, &px);
+    let path = Path::new("packbits.tif");
+    let opts = LoadOptions::default();
+    let l = load_bytes(path, &good, &opts).unwrap();
+    assert_eq!((l.image.width, l.image.height), (w, h));
+    assert_eq!((l.image.get(13, 7) * 255.0).round() as u8, px[7 * w + 13]);
+    // A literal byte changed: one grey level, which nothing can tell from
+    // the picture's own; it loads.
+    let mut one = good.clone();
+    one[controls[3] + 5] ^= 0x55;
+    assert!(load_bytes(path, &one, &opts).is_ok());
+    // A control byte changed (a literal run of 128 said to be of 100, a
+    // repeat, a no-op): the rows after it would shift; refused, naming the
+    // damage.
+    for (k, v) in [(3usize, 99u8), (5, 0xF0), (0, 0x80)] {
+        let mut bad = good.clone();
+        bad[controls[k]] = v;
+        match load_bytes(path, &bad, &opts) {
+            Err(e @ Error::Decode { .. }) => {
+                let m = e.to_string();
+                assert!(
+                    m.contains("PackBits block 1 of 1") && m.contains("shifted"),
+                    "{m}"
+                );
+            }
+            other => panic!(
+                "control byte {k} set to {v}: {:?}",
+                other.map(|l| l.image.width)
+            ),
+        }
+    }
+    // The file cut 50 bytes short of the strip's byte count.
+    let mut short = good.clone();
+    short.truncate(good.len() - 50);
+    assert!(load_bytes(path, &short, &opts).is_err());
+}
