@@ -94,9 +94,28 @@ pub struct ImageResult {
     pub interpretation: Option<crate::Result<crate::interpret::Interpretation>>,
     /// The decision against the spec's limit, when a spec was given.
     pub acceptance: Option<crate::interpret::acceptance::Acceptance>,
+    /// Not measured because the run was interrupted before this image.
+    pub interrupted: bool,
 }
 
+/// The error of an image the run did not reach (see [`measure_batch`]).
+pub const INTERRUPTED: &str = "not measured: the run was interrupted before this image";
+
 impl ImageResult {
+    /// An image the run was interrupted before: not measured, undecided.
+    fn interrupted(file: PathBuf, opts: &MeasureOptions) -> Self {
+        let mut r = Self::failed(file, INTERRUPTED.to_string(), opts);
+        if let Some(a) = r.acceptance.as_mut() {
+            if a.decision.is_some() {
+                a.reason =
+                    "the image was not measured (the run was interrupted): it cannot be compared with the limit"
+                        .into();
+            }
+        }
+        r.interrupted = true;
+        r
+    }
+
     /// A file that could not be measured. With a spec it is still in its
     /// zone, undecided: it cannot be compared with the limit.
     fn failed(file: PathBuf, error: String, opts: &MeasureOptions) -> Self {
@@ -121,6 +140,7 @@ impl ImageResult {
             overlay: None,
             interpretation: None,
             acceptance,
+            interrupted: false,
         }
     }
 
@@ -324,6 +344,7 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         overlay,
         interpretation,
         acceptance,
+        interrupted: false,
     }
 }
 
@@ -346,11 +367,21 @@ pub fn measure_batch(
     inputs: &[Input],
     opts: &MeasureOptions,
     on_done: &(dyn Fn(&ImageResult) + Sync),
+    stop: &std::sync::atomic::AtomicBool,
 ) -> (Vec<ImageResult>, Vec<Skipped>) {
     let results: Vec<Option<ImageResult>> = inputs
         .par_iter()
         .map(|input| {
+            // Once `stop` is set (an interrupt), images not yet begun are
+            // not measured; those in progress finish.
+            let stopped = stop.load(std::sync::atomic::Ordering::SeqCst);
             let r = match input {
+                Input::Image(p) | Input::Missing(p) if stopped => {
+                    return Some(ImageResult::interrupted(p.clone(), opts));
+                }
+                Input::Unusable { path, .. } if stopped => {
+                    return Some(ImageResult::interrupted(path.clone(), opts));
+                }
                 Input::Image(p) => Some(measure_file(p, opts)),
                 Input::Missing(p) => Some(ImageResult::failed(
                     p.clone(),

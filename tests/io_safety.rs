@@ -262,3 +262,92 @@ fn overlays_are_not_measured_on_a_later_run() {
         rep["skipped"]
     );
 }
+
+/// Ctrl-C in the middle of a batch: the images in progress finish, the rest
+/// are listed as not measured, and the report and the CSV are written whole
+/// and say they are partial (what a lab user expects of an interrupted
+/// batch; no single source). SIGINT is sent with kill(1) once the first
+/// image's line is on stderr; one job, so that most images are still ahead.
+#[cfg(unix)]
+#[test]
+fn an_interrupted_batch_leaves_a_whole_partial_report() {
+    use std::io::{BufRead, BufReader};
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    std::fs::create_dir(d.join("imgs")).unwrap();
+    // The demo's 12 mm step takes a good part of a second per copy, far
+    // longer than the signal takes to arrive.
+    for i in 0..20 {
+        std::fs::copy(
+            repo_file("fixtures/demo/plate-CVF-SP4-step12mm.png"),
+            d.join(format!("imgs/f{i:02}.png")),
+        )
+        .unwrap();
+    }
+    let mut child = Command::new(env!("CARGO_BIN_EXE_armspace"))
+        .current_dir(d)
+        .args([
+            "measure",
+            "imgs",
+            "--um-per-px",
+            "1.25",
+            "--jobs",
+            "1",
+            "--out",
+            "r.json",
+            "--csv",
+            "r.csv",
+        ])
+        .stdin(Stdio::null())
+        .stdout(Stdio::null())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    let mut lines = BufReader::new(child.stderr.take().unwrap()).lines();
+    let mut seen = Vec::new();
+    for line in lines.by_ref() {
+        let line = line.unwrap();
+        let first = line.starts_with("measured ");
+        seen.push(line);
+        if first {
+            break;
+        }
+    }
+    let killed = Command::new("kill")
+        .args(["-INT", &child.id().to_string()])
+        .status()
+        .unwrap();
+    assert!(killed.success());
+    seen.extend(lines.map(|l| l.unwrap()));
+    let status = child.wait().unwrap();
+    let stderr = seen.join("\n");
+    // Some images were not measured: exit 3, as for any image not measured.
+    assert_eq!(status.code(), Some(3), "{stderr}");
+    assert!(stderr.contains("the report is partial"), "{stderr}");
+    let rep: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(d.join("r.json")).unwrap()).unwrap();
+    let s = &rep["summary"];
+    assert_eq!(s["partial"], true);
+    assert_eq!(s["images"], 20);
+    let (measured, interrupted) = (
+        s["measured"].as_u64().unwrap(),
+        s["interrupted"].as_u64().unwrap(),
+    );
+    assert!(measured >= 1 && interrupted >= 1, "{s}");
+    assert_eq!(measured + interrupted, 20, "{s}");
+    assert_eq!(s["failed"], 0);
+    let images = rep["images"].as_array().unwrap();
+    let not = images
+        .iter()
+        .filter(|i| i["error"] == "not measured: the run was interrupted before this image")
+        .count() as u64;
+    assert_eq!(not, interrupted);
+    // The CSV has the header and one row per image, the rows not measured
+    // with their error.
+    let csv = std::fs::read_to_string(d.join("r.csv")).unwrap();
+    assert_eq!(csv.lines().count(), 21);
+    assert_eq!(
+        csv.matches("not measured: the run was interrupted").count() as u64,
+        interrupted
+    );
+}

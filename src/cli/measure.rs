@@ -16,6 +16,7 @@ use armspace::report;
 use clap::ValueEnum;
 use std::path::PathBuf;
 use std::process::ExitCode;
+use std::sync::atomic::{AtomicBool, Ordering};
 
 #[derive(clap::Args)]
 pub(super) struct MeasureArgs {
@@ -247,7 +248,8 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
         });
         progress.inc(1);
     };
-    let (results, skipped) = pool.install(|| measure_batch(&inputs, &opts, &on_done));
+    let stop = interrupt_flag();
+    let (results, skipped) = pool.install(|| measure_batch(&inputs, &opts, &on_done, stop));
     progress.finish_and_clear();
     let given: Vec<String> = args.paths.iter().map(|p| p.display().to_string()).collect();
     let rep = report::build(&given, &opts, &results, &skipped, report::now_utc());
@@ -298,6 +300,27 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
         report::Outcome::NotMeasured => EXIT_NOT_MEASURED,
         report::Outcome::Indeterminate => EXIT_INDETERMINATE,
     })
+}
+
+/// Set by the first Ctrl-C (SIGINT): the images in progress finish,
+/// the others are listed as not measured, and the report and CSV are
+/// written as a partial report. A second Ctrl-C stops at once (exit 130,
+/// 128 + SIGINT, the shell's convention), writing nothing.
+fn interrupt_flag() -> &'static AtomicBool {
+    static STOP: AtomicBool = AtomicBool::new(false);
+    let installed = ctrlc::set_handler(|| {
+        if STOP.swap(true, Ordering::SeqCst) {
+            std::process::exit(130);
+        }
+        eprintln!(
+            "armspace: interrupted: finishing the images in progress, then writing a partial report (Ctrl-C again stops at once and writes nothing)"
+        );
+    });
+    if let Err(e) = installed {
+        // Without the handler an interrupt ends the run as it always did.
+        eprintln!("armspace: note: Ctrl-C will not leave a partial report: {e}");
+    }
+    &STOP
 }
 
 /// A progress bar on stderr when stderr is a terminal; hidden otherwise, so

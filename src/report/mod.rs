@@ -331,6 +331,12 @@ pub struct Summary {
     /// Images that could not be read or decoded.
     pub failed: usize,
     pub skipped: usize,
+    /// Images not measured because the run was interrupted before them
+    /// (listed with that error); not counted in `failed`.
+    pub interrupted: usize,
+    /// True when the run was interrupted: the report holds only part of
+    /// what was asked, and a rerun is needed for the rest.
+    pub partial: bool,
     /// Range of the images' SDAS values, um (null when none was measured).
     pub sdas_um_min: Option<f64>,
     pub sdas_um_median: Option<f64>,
@@ -517,14 +523,17 @@ pub fn build(
 ) -> Report {
     let images: Vec<ImageReport> = results.iter().map(|r| image_report(r, opts)).collect();
     let values: Vec<f64> = images.iter().filter_map(|i| i.sdas_um.value).collect();
-    let failed = results.iter().filter(|r| r.error.is_some()).count();
+    let interrupted = results.iter().filter(|r| r.interrupted).count();
+    let failed = results.iter().filter(|r| r.error.is_some()).count() - interrupted;
     let measured = results.iter().filter(|r| r.measured()).count();
     let summary = Summary {
         images: results.len(),
         measured,
-        without_value: results.len() - measured - failed,
+        without_value: results.len() - measured - failed - interrupted,
         failed,
         skipped: skipped.len(),
+        interrupted,
+        partial: interrupted > 0,
         sdas_um_min: values.iter().copied().reduce(f64::min),
         sdas_um_median: crate::stats::median(&values).map(|v| round(v, 4)),
         sdas_um_max: values.iter().copied().reduce(f64::max),
