@@ -137,10 +137,21 @@ pub fn parse(text: &str, origin: &str, convention: Convention) -> Result<Vec<Man
                 if convention == Convention::CentreToCentre { 2 } else { 1 }
             )));
         }
+        // A length near the smallest f64 (5e-324) over many spacings
+        // underflows to a spacing of 0, which no statistic can use (its
+        // relative accuracy is 0 / 0): refused, with what was given.
+        let sdas_um = length / spacings;
+        if sdas_um <= 0.0 {
+            return Err(bad(format!(
+                "row {row}: length_um {} over {} spacing(s) is smaller than any number armspace holds",
+                crate::units::fmt_num(length),
+                spacings
+            )));
+        }
         lines.push(ManualLine {
             length_um: length,
             arms,
-            sdas_um: length / spacings,
+            sdas_um,
         });
     }
     Ok(lines)

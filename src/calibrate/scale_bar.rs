@@ -369,6 +369,14 @@ fn examine(
             .collect()
     };
     let (lengths, lefts, rights) = (pick(&lengths), pick(&lefts), pick(&rights));
+    // With an even count the median is the mean of the two middle lengths,
+    // and when those differ by more than 2 px no row is within 1 px of it:
+    // no row is kept. Such a candidate has no measurable length; it is no
+    // bar (a mean over no rows is NaN, which no later comparison can rank,
+    // so it would also have hidden a real bar found after it).
+    if lengths.is_empty() {
+        return None;
+    }
     let mean_of = |v: &[f64]| v.iter().sum::<f64>() / v.len() as f64;
     // The bar's box from its measured ends.
     let x0 = (mean_of(&lefts) + 0.5).round().max(0.0) as usize;

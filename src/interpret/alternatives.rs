@@ -118,7 +118,13 @@ fn compare(chosen: &Interpretation, alt: &Interpretation) -> Comparison {
         chosen_ci95: ia,
         value: b.value,
         ci95: ib,
-        ratio: a.value.zip(b.value).map(|(x, y)| y / x),
+        // Two finite values can have a quotient beyond f64 (1e300 over
+        // 1e-10): then there is no ratio to report.
+        ratio: a
+            .value
+            .zip(b.value)
+            .map(|(x, y)| y / x)
+            .filter(|r| r.is_finite() && *r > 0.0),
         intervals_overlap: overlap,
         note,
     }

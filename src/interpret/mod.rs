@@ -56,6 +56,17 @@ impl PowerLaw {
                 reason: format!("exponent {exponent} must be a non-zero number"),
             });
         }
+        // The inverse raises to 1 / exponent: an exponent whose reciprocal
+        // overflows f64 (below about 5.6e-309 in magnitude) cannot be
+        // inverted, and would report an infinite uncertainty gain.
+        if !(1.0 / exponent).is_finite() {
+            return Err(Error::Correlation {
+                reason: format!(
+                    "exponent {} is too close to zero to invert the law",
+                    crate::units::fmt_num(exponent)
+                ),
+            });
+        }
         Ok(Self {
             coefficient,
             exponent,
@@ -257,8 +268,21 @@ pub fn round_significant(x: f64, digits: i32) -> f64 {
     if x == 0.0 || !x.is_finite() {
         return x;
     }
+    // Below about 1e-290 the scale 10^(digits - 1 - exponent) overflows f64
+    // (10^309 for x = 1e-306 and 4 digits, and x * inf / inf is NaN): such a
+    // value is rounded at a scale 10^300 larger, then brought back.
+    if x.abs() < 1e-290 {
+        return round_significant(x * 1e300, digits) / 1e300;
+    }
     let scale = 10f64.powi(digits - 1 - x.abs().log10().floor() as i32);
-    (x * scale).round() / scale
+    let r = (x * scale).round() / scale;
+    // Rounding up a value within one unit of the last digit of f64::MAX
+    // would overflow: such a value is kept as it is.
+    if r.is_finite() {
+        r
+    } else {
+        x
+    }
 }
 
 /// The correlation used, as the report names it.
@@ -380,10 +404,11 @@ pub fn interpret(corr: &Correlation, req: &Request) -> Result<Interpretation> {
         out.solidification_time_s = Quantity::none(reason);
         return Ok(out);
     };
-    out.sdas_ci95_rel_pct = req.ci95.map(|[a, b]| rel_pct(sdas.0, [a.0, b.0]));
+    out.sdas_ci95_rel_pct = req.ci95.and_then(|[a, b]| rel_pct(sdas.0, [a.0, b.0]));
 
     // The primary quantity, in the correlation's own unit, then in K/s or s.
-    let x = law.invert(sdas).ok_or_else(|| Error::Correlation {
+    let beyond = || {
+        Error::Correlation {
         reason: format!(
             "correlation '{}' ({}) gives no finite positive {} at {} um: its coefficient or exponent is beyond any physical range",
             corr.id,
@@ -394,8 +419,18 @@ pub fn interpret(corr: &Correlation, req: &Request) -> Result<Interpretation> {
             },
             round_significant(sdas.0, 4)
         ),
-    })?;
+    }
+    };
+    let x = law.invert(sdas).ok_or_else(beyond)?;
     let to_base = corr.variable_unit.to_base;
+    // In the tool's unit the value may leave the range of f64 although it
+    // is finite in the law's own (1e307 min is beyond it in seconds; a
+    // rate near the smallest f64 in K/h underflows to 0 in K/s): then there
+    // is no value either.
+    let value = x * to_base;
+    if !(value.is_finite() && value > 0.0) {
+        return Err(beyond());
+    }
     let gain = 1.0 / law.exponent.abs();
     // The measurement's part alone (ci95), and with the correlation's own
     // scatter when it is published (ci95_with_scatter); reported apart so a
@@ -404,10 +439,13 @@ pub fn interpret(corr: &Correlation, req: &Request) -> Result<Interpretation> {
     let with_scatter = corr
         .scatter_pct
         .and_then(|s| sdas_interval(sdas.0, req.ci95, Some(s)));
+    // An interval whose bound leaves the range of f64 (overflows to
+    // infinity or underflows to 0) in the tool's unit is no interval.
     let invert = |i: Option<[f64; 2]>| {
         i.and_then(|[lo, hi]| {
             law.invert_interval(Micrometres(lo), Micrometres(hi))
                 .map(|[a, b]| [a * to_base, b * to_base])
+                .filter(|&b| positive_finite(b))
         })
     };
     match (req.ci95.is_some(), corr.scatter_pct.is_some()) {
@@ -421,7 +459,7 @@ pub fn interpret(corr: &Correlation, req: &Request) -> Result<Interpretation> {
         _ => {}
     }
     let mut primary = Quantity {
-        value: Some(x * to_base),
+        value: Some(value),
         ci95: invert(measured),
         ci95_rel_pct: None,
         uncertainty_gain: Some(gain),
@@ -430,7 +468,7 @@ pub fn interpret(corr: &Correlation, req: &Request) -> Result<Interpretation> {
         ci95_with_scatter: invert(with_scatter),
     };
     if let Some(ci) = primary.ci95 {
-        primary.ci95_rel_pct = Some(rel_pct(x * to_base, ci));
+        primary.ci95_rel_pct = rel_pct(value, ci);
     }
     if primary.ci95.is_none() && primary.ci95_with_scatter.is_none() {
         primary.reason = Some("no interval: give the SDAS interval (--ci) or use a correlation with a published scatter".into());
@@ -500,17 +538,28 @@ pub fn interpret(corr: &Correlation, req: &Request) -> Result<Interpretation> {
                 _ => (Kelvin(dt) / Seconds(x)).0,
             };
             let value = across(v);
-            let ci95 = primary.ci95.map(|[a, b]| [across(b), across(a)]);
-            Quantity {
-                value: Some(value),
-                ci95,
-                ci95_rel_pct: ci95.map(|c| rel_pct(value, c)),
-                uncertainty_gain: Some(gain),
-                derived: Some(derived),
-                reason: None,
-                ci95_with_scatter: primary
-                    .ci95_with_scatter
-                    .map(|[a, b]| [across(b), across(a)]),
+            // The quotient of two finite numbers can still leave the range
+            // of f64 (a freezing range over a rate near the smallest f64):
+            // then there is no value, or no interval, and the reason says so.
+            let bounds = |i: Option<[f64; 2]>| {
+                i.map(|[a, b]| [across(b), across(a)])
+                    .filter(|&b| positive_finite(b))
+            };
+            if !(value.is_finite() && value > 0.0) {
+                Quantity::none(format!(
+                    "freezing range / {var_name} is beyond the range of numbers armspace holds"
+                ))
+            } else {
+                let ci95 = bounds(primary.ci95);
+                Quantity {
+                    value: Some(value),
+                    ci95,
+                    ci95_rel_pct: ci95.and_then(|c| rel_pct(value, c)),
+                    uncertainty_gain: Some(gain),
+                    derived: Some(derived),
+                    reason: None,
+                    ci95_with_scatter: bounds(primary.ci95_with_scatter),
+                }
             }
         }
         (Some(_), None) => Quantity::none(format!("no {var_name} to derive it from")),
@@ -551,9 +600,16 @@ fn sdas_interval(
     Some([lo, hi])
 }
 
-/// Relative deviations of the bounds from the value, percent.
-fn rel_pct(value: f64, [lo, hi]: [f64; 2]) -> [f64; 2] {
-    [100.0 * (lo / value - 1.0), 100.0 * (hi / value - 1.0)]
+/// Relative deviations of the bounds from the value, percent; None when
+/// they overflow f64 (an interval spanning hundreds of decades).
+fn rel_pct(value: f64, [lo, hi]: [f64; 2]) -> Option<[f64; 2]> {
+    let r = [100.0 * (lo / value - 1.0), 100.0 * (hi / value - 1.0)];
+    r.iter().all(|v| v.is_finite()).then_some(r)
+}
+
+/// Both bounds finite and above zero.
+fn positive_finite([a, b]: [f64; 2]) -> bool {
+    a.is_finite() && b.is_finite() && a > 0.0 && b > 0.0
 }
 
 /// The interpretation asked for a batch: a correlation and the alloy.

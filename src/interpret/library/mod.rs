@@ -330,6 +330,14 @@ impl Correlation {
                 (b * self.variable_unit.to_base.powf(1.0 / 3.0), 1.0 / 3.0)
             }
         };
+        // A coefficient finite in the entry's own units can overflow f64 in
+        // um (7e305 mm is 7e308 um): said as such, not as an infinite one.
+        if c.is_infinite() {
+            return Err(what(invalid(format!(
+                "has a coefficient beyond the range of numbers armspace holds (about 1.8e308) once lambda2 is in um (its sdas_unit is {})",
+                self.sdas_unit
+            ))));
+        }
         PowerLaw::new(c, e).map_err(what)
     }
 
