@@ -535,3 +535,40 @@ fn the_readme_demo_command_gives_what_the_readme_says() {
     assert!(images[3]["sdas_um"]["value"].is_null());
     assert!(out.path().join("demo-report.csv").exists());
 }
+
+#[test]
+fn a_stated_uncertainty_of_the_given_calibration_widens_the_interval() {
+    // JCGM 100:2008, 5.1.2: the calibration's relative standard uncertainty
+    // u, common to every measurement of the image, adds 1.96 u x in
+    // quadrature to the statistical half-width h of the value x.
+    let img = path_str(&repo_file("fixtures/demo/plate-CVF-SP4-step06mm.png"));
+    let exact = report(&armspace(&["measure", &img, "--um-per-px", "1.25"]));
+    let stated = report(&armspace(&[
+        "measure",
+        &img,
+        "--um-per-px",
+        "1.25",
+        "--um-per-px-uncertainty-pct",
+        "1",
+    ]));
+    let (a, b) = (&exact["images"][0], &stated["images"][0]);
+    assert!(a["calibration"]["rel_uncertainty"].is_null());
+    assert_eq!(b["calibration"]["rel_uncertainty"], 0.01);
+    let x = a["sdas_um"]["value_unrounded"].as_f64().unwrap();
+    assert_eq!(b["sdas_um"]["value_unrounded"].as_f64().unwrap(), x);
+    let half = |i: &Value| {
+        let ci = &i["sdas_um"]["ci95"];
+        0.5 * (ci[1].as_f64().unwrap() - ci[0].as_f64().unwrap())
+    };
+    let expect = half(a).hypot(1.959964 * 0.01 * x);
+    // The reported bounds are rounded to two significant digits of the
+    // half-width (0.01 um here), so each half-width is good to 0.01.
+    assert!(
+        (half(b) - expect).abs() <= 0.011,
+        "{} against {expect}",
+        half(b)
+    );
+    // Without --um-per-px the option is refused as a usage error.
+    let r = armspace(&["measure", &img, "--um-per-px-uncertainty-pct", "1"]);
+    assert_eq!(r.code, 2, "{}", r.stderr);
+}

@@ -37,6 +37,7 @@ fuzz_target!(|data: &[u8]| {
         for trust in [None, Some(CalibrationSource::Profile)] {
             let req = CalibrationRequest {
                 manual: Some(UmPerPx::new(0.5).unwrap()),
+                manual_rel_uncertainty: None,
                 profile: Some(p.clone()),
                 scale_bar: None,
                 trust,

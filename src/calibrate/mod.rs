@@ -99,6 +99,10 @@ pub struct BarLength {
 #[derive(Clone, Debug, PartialEq, Default)]
 pub struct CalibrationRequest {
     pub manual: Option<UmPerPx>,
+    /// Relative standard uncertainty of the manual value, when the user
+    /// states it; without it the value is taken as exact (the report's
+    /// calibration then has no uncertainty, and says so by a null).
+    pub manual_rel_uncertainty: Option<f64>,
     pub profile: Option<profile::Profile>,
     pub scale_bar: Option<BarLength>,
     /// The source the user trusts when sources conflict; without it a
@@ -153,7 +157,7 @@ pub fn resolve(
         offers.push(Offer {
             source: CalibrationSource::Manual,
             um_per_px: v,
-            rel_uncertainty: None,
+            rel_uncertainty: req.manual_rel_uncertainty,
         });
     }
     if let Some(p) = &req.profile {

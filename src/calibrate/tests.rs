@@ -92,6 +92,7 @@ fn precedence_manual_profile_bar_metadata() {
     };
     let found: crate::Result<ScaleBar> = Ok(bar(200.0)); // 100 um over 200 px: 0.5 um/px
     let full = CalibrationRequest {
+        manual_rel_uncertainty: None,
         manual: Some(um(0.5)),
         profile: Some(profile.clone()),
         scale_bar: Some(BarLength {
@@ -105,6 +106,7 @@ fn precedence_manual_profile_bar_metadata() {
     assert_eq!(c.offers.len(), 4);
     assert!(w.is_empty(), "{w:?}");
     let no_manual = CalibrationRequest {
+        manual_rel_uncertainty: None,
         manual: None,
         ..full.clone()
     };
@@ -114,6 +116,7 @@ fn precedence_manual_profile_bar_metadata() {
         (CalibrationSource::Profile, Some(0.003))
     );
     let bar_only = CalibrationRequest {
+        manual_rel_uncertainty: None,
         manual: None,
         profile: None,
         ..full.clone()
@@ -130,6 +133,7 @@ fn precedence_manual_profile_bar_metadata() {
 fn disagreement_over_two_percent_is_a_warning() {
     let found: crate::Result<ScaleBar> = Ok(bar(200.0)); // 0.5 um/px
     let req = CalibrationRequest {
+        manual_rel_uncertainty: None,
         manual: Some(um(0.515)), // +3 % against the bar
         profile: None,
         scale_bar: Some(BarLength {
@@ -151,6 +155,7 @@ fn disagreement_over_two_percent_is_a_warning() {
     assert!(c.conflict.is_some());
     // Named as trusted, the bar is used and the other is only warned about.
     let trusting = CalibrationRequest {
+        manual_rel_uncertainty: None,
         trust: Some(CalibrationSource::ScaleBar),
         ..req.clone()
     };
@@ -160,6 +165,7 @@ fn disagreement_over_two_percent_is_a_warning() {
     assert_eq!(w[0].code, "calibration.sources-disagree");
     // A bar stated to 2 % (standard) allows 1.96 x 2 % = 3.9 %: no conflict.
     let uncertain = CalibrationRequest {
+        manual_rel_uncertainty: None,
         scale_bar: Some(BarLength {
             length: Micrometres(100.0),
             rel_uncertainty: 0.02,
@@ -170,6 +176,7 @@ fn disagreement_over_two_percent_is_a_warning() {
     assert!(c.conflict.is_none());
     // Trusting a source that is not offered is an error naming it.
     let absent = CalibrationRequest {
+        manual_rel_uncertainty: None,
         trust: Some(CalibrationSource::Profile),
         ..req.clone()
     };
@@ -179,6 +186,7 @@ fn disagreement_over_two_percent_is_a_warning() {
     assert!(e.contains("profile calibration is named as trusted"), "{e}");
     // 1.5 % apart: no warning.
     let req = CalibrationRequest {
+        manual_rel_uncertainty: None,
         manual: Some(um(0.5075)),
         ..req
     };
@@ -192,6 +200,7 @@ fn a_missing_bar_fails_with_advice_or_falls_back() {
         reason: "no solid horizontal bar stands out".into(),
     });
     let req = CalibrationRequest {
+        manual_rel_uncertainty: None,
         scale_bar: Some(BarLength {
             length: Micrometres(100.0),
             rel_uncertainty: 0.0,
@@ -202,6 +211,7 @@ fn a_missing_bar_fails_with_advice_or_falls_back() {
     assert!(e.contains("--um-per-px") && e.contains("--profile"), "{e}");
     let (c, w) = resolve(
         &CalibrationRequest {
+            manual_rel_uncertainty: None,
             manual: Some(um(0.4)),
             ..req
         },

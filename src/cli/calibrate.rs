@@ -34,6 +34,7 @@ pub(super) fn run(args: CalibrateArgs) -> ExitCode {
     use armspace::load::{load, LoadOptions};
     let req = CalibrationRequest {
         manual: None,
+        manual_rel_uncertainty: None,
         profile: None,
         scale_bar: Some(BarLength {
             length: args.scale_bar,

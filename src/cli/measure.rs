@@ -67,6 +67,12 @@ struct CalibrationArgs {
     /// Calibration: micrometres per pixel (takes precedence over every other source).
     #[arg(long, value_parser = parse_um_per_px, allow_negative_numbers = true)]
     um_per_px: Option<armspace::units::UmPerPx>,
+    /// Stated relative standard uncertainty of --um-per-px, in percent (for
+    /// example from a stage micrometer's calibration); it widens every
+    /// interval and enters the acceptance. Without it the value is taken as
+    /// exact.
+    #[arg(long, value_parser = parse_percent, requires = "um_per_px")]
+    um_per_px_uncertainty_pct: Option<f64>,
     /// Physical length of the scale bar burned into the images, with its unit (100um, 0.1mm, 500nm).
     #[arg(long, value_parser = parse_length, allow_hyphen_values = true)]
     scale_bar: Option<armspace::units::Micrometres>,
@@ -103,6 +109,7 @@ impl CalibrationArgs {
         };
         Ok(CalibrationRequest {
             manual: self.um_per_px,
+            manual_rel_uncertainty: self.um_per_px_uncertainty_pct.map(|p| p / 100.0),
             profile,
             scale_bar: self.scale_bar.map(|length| BarLength {
                 length,
