@@ -578,14 +578,11 @@ fn load_tiff_direct(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loa
     if only_alpha {
         return Err(alpha_only_err(path));
     }
-    let (mut data, depth, float) = match result {
-        DecodingResult::U8(v) => (samples_to_gray(&v, channels, 1.0 / 255.0), 8, false),
-        DecodingResult::U16(v) => (samples_to_gray(&v, channels, 1.0 / 65535.0), 16, false),
-        DecodingResult::F32(v) => (samples_to_gray(&v, channels, 1.0), 32, true),
-        DecodingResult::F64(v) => {
-            let v: Vec<f32> = v.into_iter().map(|x| x as f32).collect();
-            (samples_to_gray(&v, channels, 1.0), 32, true)
-        }
+    let (data, depth) = match result {
+        DecodingResult::U8(v) => (samples_to_gray(&v, channels, 1.0 / 255.0), 8),
+        DecodingResult::U16(v) => (samples_to_gray(&v, channels, 1.0 / 65535.0), 16),
+        DecodingResult::F32(v) => (float_to_unit(&v, channels), 32),
+        DecodingResult::F64(v) => (float_to_unit(&v, channels), 32),
         _ => {
             return Err(unsupported(
                 "TIFF sample format not supported (signed or wide integers); save as 8- or 16-bit unsigned or as float".into(),
@@ -597,19 +594,6 @@ fn load_tiff_direct(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loa
             "the TIFF holds {} samples for {width} x {height} pixels",
             data.len()
         )));
-    }
-    if float {
-        let (lo, hi) = data
-            .iter()
-            .filter(|v| v.is_finite())
-            .fold((f32::INFINITY, f32::NEG_INFINITY), |(a, b), &v| {
-                (a.min(v), b.max(v))
-            });
-        if lo.is_finite() && (lo < 0.0 || hi > 1.0) && hi > lo {
-            for v in data.iter_mut() {
-                *v = (*v - lo) / (hi - lo);
-            }
-        }
     }
     let mut image = GrayImage {
         width: width as usize,
@@ -699,6 +683,46 @@ const BT709: [f32; 3] = [0.2126, 0.7152, 0.0722];
 
 /// Grey values in [0, 1] from interleaved samples with `channels` channels,
 /// luminance taken from the first three when there are three or more.
+/// Grey float samples (first sample, or BT.709 luma of the first three) as
+/// f32 in [0, 1]: samples already in [0, 1] are kept, any other finite range
+/// is mapped linearly onto [0, 1] by its finite minimum and maximum.
+/// Everything is computed in f64 on a quarter of each sample, so that no
+/// range a float TIFF can hold overflows (a span of f32::MIN to f32::MAX,
+/// or of nearly the whole f64 range); non-finite samples stay non-finite
+/// for `replace_non_finite`.
+fn float_to_unit<T: Copy + Into<f64>>(samples: &[T], channels: usize) -> Vec<f32> {
+    let quarter: Vec<f64> = match channels {
+        1 | 2 => samples
+            .chunks_exact(channels)
+            .map(|c| c[0].into() / 4.0)
+            .collect(),
+        _ => samples
+            .chunks_exact(channels)
+            .map(|c| {
+                let l = |k: usize| BT709[k] as f64 * (c[k].into() / 4.0);
+                l(0) + l(1) + l(2)
+            })
+            .collect(),
+    };
+    let (lo, hi) = quarter
+        .iter()
+        .filter(|v| v.is_finite())
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
+            (a.min(v), b.max(v))
+        });
+    let rescale = lo.is_finite() && (lo < 0.0 || hi > 0.25) && hi > lo;
+    quarter
+        .into_iter()
+        .map(|v| {
+            if rescale {
+                ((v - lo) / (hi - lo)) as f32
+            } else {
+                (4.0 * v) as f32
+            }
+        })
+        .collect()
+}
+
 fn samples_to_gray<T: Copy + Into<f32>>(samples: &[T], channels: usize, scale: f32) -> Vec<f32> {
     match channels {
         1 | 2 => samples

@@ -334,3 +334,42 @@ fn packbits_whose_runs_do_not_fit_the_image_are_refused() {
     short.truncate(good.len() - 50);
     assert!(load_bytes(path, &short, &opts).is_err());
 }
+
+#[test]
+fn float_tiffs_spanning_the_whole_float_range_keep_their_picture() {
+    // A comb whose levels span f32::MIN to f32::MAX (32-bit) and -1e307 to
+    // 1e307 (64-bit): the span overflows if taken in the samples' own type;
+    // the picture must come back as the two levels 0 and 1, not flat.
+    use tiff::encoder::{colortype::Gray32Float, colortype::Gray64Float, TiffEncoder};
+    let dir = tempfile::tempdir().unwrap();
+    let (w, h) = (64u32, 48u32);
+    let on = |i: u32| (i % w) / 4 % 2 == 0;
+    let f32s: Vec<f32> = (0..w * h)
+        .map(|i| if on(i) { f32::MAX } else { f32::MIN })
+        .collect();
+    let f64s: Vec<f64> = (0..w * h)
+        .map(|i| if on(i) { 1e307 } else { -1e307 })
+        .collect();
+    let p32 = dir.path().join("f32.tif");
+    TiffEncoder::new(std::fs::File::create(&p32).unwrap())
+        .unwrap()
+        .write_image::<Gray32Float>(w, h, &f32s)
+        .unwrap();
+    let p64 = dir.path().join("f64.tif");
+    TiffEncoder::new(std::fs::File::create(&p64).unwrap())
+        .unwrap()
+        .write_image::<Gray64Float>(w, h, &f64s)
+        .unwrap();
+    for p in [p32, p64] {
+        let l = armspace::load::load(&p, &Default::default()).unwrap();
+        for (i, v) in l.image.data.iter().enumerate() {
+            let want = if on(i as u32) { 1.0 } else { 0.0 };
+            assert!(
+                (v - want).abs() < 1e-6,
+                "{}: sample {i} is {v}",
+                p.display()
+            );
+        }
+        assert!(l.warnings.is_empty(), "{:?}", l.warnings);
+    }
+}
