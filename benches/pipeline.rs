@@ -76,6 +76,18 @@ fn bench(c: &mut Criterion) {
         });
     }
     group.finish();
+
+    // The text finder alone (ten labellings of the image), on the 2048 px
+    // field: its share of the end-to-end time above.
+    let mut group = c.benchmark_group("annotations_one_core");
+    group.sample_size(10);
+    let path = dir.join("Columnar-2048.png");
+    let loaded = armspace::load::load(&path, &Default::default()).expect("bench image loads");
+    group.throughput(Throughput::Elements((2048 * 2048) as u64));
+    group.bench_function("find_text/2048px", |b| {
+        b.iter(|| pool.install(|| armspace::annotations::find_text(&loaded.image, None)))
+    });
+    group.finish();
     let _ = std::fs::remove_dir_all(&dir);
 }
 

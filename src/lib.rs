@@ -6,6 +6,7 @@
 //! [`interpret`] -> [`report`]; [`pipeline`] runs them over a batch and
 //! [`synth`] makes micrographs of known truth.
 
+pub mod annotations;
 pub mod blocks;
 pub mod calibrate;
 pub mod combine;

@@ -4,6 +4,7 @@
 //! Each image is measured independently, so a batch can run in parallel and
 //! still give results identical to a serial run, in input order.
 
+use crate::annotations::{self, Annotation};
 use crate::calibrate::scale_bar::{self, ScaleBar};
 use crate::calibrate::{self as cal, Calibration, CalibrationRequest};
 use crate::combine::{self, Estimate};
@@ -83,6 +84,8 @@ pub struct ImageResult {
     pub bar: Option<ScaleBar>,
     /// Rectangles excluded from measurement, [x0, y0, x1, y1] inclusive px.
     pub excluded: Vec<[u32; 4]>,
+    /// Annotations found and left out (their rectangles are in `excluded`).
+    pub annotations: Vec<Annotation>,
     /// Each method's outcome, in registry order.
     pub methods: Vec<Outcome>,
     pub sdas: Estimate,
@@ -133,6 +136,7 @@ impl ImageResult {
             calibration: None,
             bar: None,
             excluded: vec![],
+            annotations: vec![],
             methods: vec![],
             sdas: Estimate::none("the image could not be measured"),
             warnings: vec![],
@@ -215,7 +219,7 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         }
     };
     let bar = detected.ok();
-    let (mask, excluded) = match &bar {
+    let (mut mask, mut excluded) = match &bar {
         Some(b) => (
             Some(scale_bar::mask_of(
                 b,
@@ -226,6 +230,15 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         ),
         None => (None, vec![]),
     };
+    // Annotation text is left out like the bar (its letter pitch is no arm
+    // spacing).
+    let text = annotations::find_text(&loaded.image, mask.as_deref());
+    if !text.is_empty() {
+        let (w, h) = (loaded.image.width, loaded.image.height);
+        let m = mask.get_or_insert_with(|| vec![false; w * h]);
+        annotations::add_to_mask(&text, m, w);
+        excluded.extend(text.iter().map(|a| a.rect));
+    }
     let prepared = preprocess::prepare(&loaded.image, mask, &opts.preprocess);
     let um_per_px = calibration.um_per_px;
 
@@ -337,6 +350,7 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         calibration: Some(calibration),
         bar,
         excluded,
+        annotations: text,
         methods: outcomes,
         sdas,
         warnings,

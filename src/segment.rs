@@ -22,6 +22,7 @@
 //! * Phase choice: see [`PhaseChoice`].
 
 use crate::blocks::blur::gaussian_blur_without_unit_boxes;
+use crate::blocks::components::{label_runs, Runs};
 use crate::blocks::select::select_ranks;
 use crate::preprocess::Prepared;
 
@@ -311,88 +312,28 @@ pub fn separability(values: &[f32], mask: Option<&[bool]>, t: f32) -> Option<f64
 /// pin-holes are filled (on the image with the specks removed). Masked
 /// pixels belong to neither phase and are left unchanged.
 ///
-/// Components are found on horizontal runs rather than pixel by pixel
-/// (run-based labelling with union-find; e.g. L. He et al., "Fast
-/// connected-component labeling", Pattern Recognition 42 (2009) 1977-1987,
-/// from memory): two runs of the phase in neighbouring rows are
-/// 4-connected exactly when their column ranges overlap.
+/// Components are found on horizontal runs ([`label_runs`]).
 pub fn remove_small(bright: &mut [bool], mask: Option<&[bool]>, w: usize, h: usize, min_px: usize) {
     if w == 0 || h == 0 || min_px == 0 {
         return;
     }
-    let mut runs: Vec<(usize, usize, usize)> = Vec::new(); // (y, x0, x1 exclusive)
-    let mut parent: Vec<usize> = Vec::new();
     let mut size: Vec<usize> = Vec::new();
     for phase in [true, false] {
-        runs.clear();
-        parent.clear();
-        // Index of the first run of the previous row and of this row.
-        let mut prev_start = 0usize;
-        for y in 0..h {
-            let row_start = runs.len();
-            let row = &bright[y * w..(y + 1) * w];
-            let mrow = mask.map(|m| &m[y * w..(y + 1) * w]);
-            let is = |x: usize| row[x] == phase && !mrow.is_some_and(|m| m[x]);
-            let mut x = 0;
-            while x < w {
-                if !is(x) {
-                    x += 1;
-                    continue;
-                }
-                let x0 = x;
-                while x < w && is(x) {
-                    x += 1;
-                }
-                runs.push((y, x0, x));
-                parent.push(runs.len() - 1);
-            }
-            // Join with the overlapping runs of the previous row (both lists
-            // are ordered by x).
-            if y > 0 {
-                let mut j = prev_start;
-                for i in row_start..runs.len() {
-                    let (_, a0, a1) = runs[i];
-                    while j < row_start && runs[j].2 <= a0 {
-                        j += 1;
-                    }
-                    let mut k = j;
-                    while k < row_start && runs[k].1 < a1 {
-                        union(&mut parent, i, k);
-                        k += 1;
-                    }
-                }
-            }
-            prev_start = row_start;
-        }
+        let is = |x: usize, y: usize| {
+            let i = y * w + x;
+            bright[i] == phase && !mask.is_some_and(|m| m[i])
+        };
+        let Runs { runs, root } = label_runs(w, h, is);
         size.clear();
         size.resize(runs.len(), 0);
-        for (i, &(_, x0, x1)) in runs.iter().enumerate() {
-            let r = find(&mut parent, i);
+        for (&(_, x0, x1), &r) in runs.iter().zip(&root) {
             size[r] += x1 - x0;
         }
-        for (i, &(y, x0, x1)) in runs.iter().enumerate() {
-            let r = find(&mut parent, i);
+        for (&(y, x0, x1), &r) in runs.iter().zip(&root) {
             if size[r] < min_px {
                 bright[y * w + x0..y * w + x1].fill(!phase);
             }
         }
-    }
-}
-
-fn find(parent: &mut [usize], mut i: usize) -> usize {
-    while parent[i] != i {
-        parent[i] = parent[parent[i]];
-        i = parent[i];
-    }
-    i
-}
-
-fn union(parent: &mut [usize], a: usize, b: usize) {
-    let (ra, rb) = (find(parent, a), find(parent, b));
-    if ra != rb {
-        // The smaller index becomes the root: deterministic.
-        let (lo, hi) = (ra.min(rb), ra.max(rb));
-        parent[hi] = lo;
     }
 }
 

@@ -3,6 +3,7 @@
 
 pub mod blur;
 pub mod centres;
+pub mod components;
 pub mod orientation;
 pub mod point_pattern;
 pub mod select;

@@ -179,8 +179,10 @@ pub struct ImageReport {
     pub bit_depth: Option<u8>,
     pub calibration: Option<CalibrationReport>,
     /// Rectangles excluded from measurement (scale bar, its box and label
-    /// room), [x0, y0, x1, y1] in inclusive pixel indices.
+    /// room, annotations), [x0, y0, x1, y1] in inclusive pixel indices.
     pub excluded_px: Vec<[u32; 4]>,
+    /// Annotations found and left out of the measurement, with why.
+    pub annotations: Vec<AnnotationReport>,
     pub sdas_um: SdasReport,
     pub methods: MethodsReport,
     /// What a reviewer should know about the result, in words.
@@ -455,6 +457,22 @@ fn finite(x: f64) -> Option<f64> {
     x.is_finite().then_some(x)
 }
 
+/// An annotation left out of the measurement.
+#[derive(Serialize, JsonSchema, Debug)]
+pub struct AnnotationReport {
+    /// What it is.
+    #[schemars(extend("enum" = ["text"]))]
+    pub kind: &'static str,
+    /// Its rectangle, [x0, y0, x1, y1] in inclusive pixel indices.
+    pub box_px: [u32; 4],
+    /// Letters found in it.
+    pub glyphs: usize,
+    /// Median letter height (px).
+    pub letter_height_px: f64,
+    /// Why it was left out.
+    pub reason: String,
+}
+
 pub fn image_report(r: &ImageResult, opts: &MeasureOptions) -> ImageReport {
     let cal = r.calibration.as_ref().map(|c| c.um_per_px);
     ImageReport {
@@ -465,6 +483,17 @@ pub fn image_report(r: &ImageResult, opts: &MeasureOptions) -> ImageReport {
         bit_depth: r.info.as_ref().map(|i| i.bit_depth),
         calibration: r.calibration.as_ref().map(calibration_report),
         excluded_px: r.excluded.clone(),
+        annotations: r
+            .annotations
+            .iter()
+            .map(|a| AnnotationReport {
+                kind: a.kind.as_str(),
+                box_px: a.rect,
+                glyphs: a.glyphs,
+                letter_height_px: round(a.letter_height_px, 1),
+                reason: a.reason(),
+            })
+            .collect(),
         sdas_um: {
             let digits = r
                 .sdas

@@ -212,44 +212,75 @@ fn gradient<R: Rng + ?Sized>(grey: &mut [f32], w: usize, h: usize, rng: &mut R) 
 /// Lines of annotation text in a block, dark or light.
 fn text<R: Rng + ?Sized>(grey: &mut [f32], w: usize, h: usize, rng: &mut R) {
     let height = rng.random_range(8.0..(0.08 * h as f64).max(9.0));
-    let unit = height / 6.0;
     let lines = rng.random_range(1..=6);
     let pitch = height * rng.random_range(1.4..2.0);
     let x0 = rng.random_range(0.0..0.5) * w as f64;
     let y0 = rng.random_range(0.0..0.6) * h as f64;
-    let r = unit * rng.random_range(0.3..0.55);
+    let weight = rng.random_range(0.3..0.55);
+    let texts: Vec<String> = (0..lines)
+        .map(|_| {
+            let words = rng.random_range(2..=6);
+            (0..words)
+                .map(|_| glyphs::WORDS[rng.random_range(0..glyphs::WORDS.len())])
+                .collect::<Vec<_>>()
+                .join(" ")
+        })
+        .collect();
+    let level = if rng.random_bool(0.5) { 0.05 } else { 0.95 };
+    for (l, line) in texts.iter().enumerate() {
+        draw_text(
+            grey,
+            w,
+            h,
+            line,
+            x0,
+            y0 + l as f64 * pitch,
+            height,
+            weight,
+            level,
+        );
+    }
+}
+
+/// Draws `line` in the generator's stroke font into `grey` (`w` x `h`,
+/// values 0-1): its top left corner at (`x`, `y`) px, capitals `height` px
+/// high (the stroke's radius is `weight` of a sixth of that), in the grey
+/// `level`, anti-aliased over about a pixel. Characters the font lacks are
+/// drawn as boxes. For annotating test fields: captions, data bars, labels.
+#[allow(clippy::too_many_arguments)]
+pub fn draw_text(
+    grey: &mut [f32],
+    w: usize,
+    h: usize,
+    line: &str,
+    x: f64,
+    y: f64,
+    height: f64,
+    weight: f64,
+    level: f32,
+) {
+    let unit = height / 6.0;
+    let r = unit * weight;
     let mut items = Vec::new();
-    for l in 0..lines {
-        let words = rng.random_range(2..=6);
-        let mut line = String::new();
-        for i in 0..words {
-            if i > 0 {
-                line.push(' ');
-            }
-            line.push_str(glyphs::WORDS[rng.random_range(0..glyphs::WORDS.len())]);
+    let mut x = x;
+    for c in line.chars() {
+        for (a, b, c2, d) in glyphs::strokes(c) {
+            let (ax, ay) = (x + a as f64 * unit, y + b as f64 * unit);
+            let (bx, by) = (x + c2 as f64 * unit, y + d as f64 * unit);
+            let len = (bx - ax).hypot(by - ay);
+            let (ux, uy) = if len > 1e-9 {
+                ((bx - ax) / len, (by - ay) / len)
+            } else {
+                (1.0, 0.0)
+            };
+            items.push(Item::arm(
+                capsule(ax, ay, ux, uy, len, r, r, 0.0, Wobble::NONE),
+                0,
+            ));
         }
-        let mut x = x0;
-        let y = y0 + l as f64 * pitch;
-        for c in line.chars() {
-            for (a, b, c2, d) in glyphs::strokes(c) {
-                let (ax, ay) = (x + a as f64 * unit, y + b as f64 * unit);
-                let (bx, by) = (x + c2 as f64 * unit, y + d as f64 * unit);
-                let len = (bx - ax).hypot(by - ay);
-                let (ux, uy) = if len > 1e-9 {
-                    ((bx - ax) / len, (by - ay) / len)
-                } else {
-                    (1.0, 0.0)
-                };
-                items.push(Item::arm(
-                    capsule(ax, ay, ux, uy, len, r, r, 0.0, Wobble::NONE),
-                    0,
-                ));
-            }
-            x += glyphs::advance(c) as f64 * unit;
-        }
+        x += glyphs::advance(c) as f64 * unit;
     }
     let (cov, _) = geom::rasterize(&items, 1.0, w, h, None);
-    let level = if rng.random_bool(0.5) { 0.05 } else { 0.95 };
     grey.par_iter_mut().zip(cov.par_iter()).for_each(|(g, c)| {
         *g += (level - *g) * c;
     });
