@@ -4,7 +4,8 @@
 
 mod common;
 use armspace::interpret::acceptance::{
-    assess, decide, measurements_for_probability, verdict, Decision, Evidence, Rule, Spec,
+    assess, decide, decide_with_guard, measurements_for_probability,
+    measurements_for_probability_guarded, verdict, Decision, Evidence, Rule, Spec,
     DECIDE_PROBABILITY,
 };
 use armspace::units::Micrometres;
@@ -171,6 +172,95 @@ fn the_stated_count_decides_with_the_stated_probability_by_simulation() {
 
 fn spec(text: &str) -> Spec {
     Spec::parse(text, "spec.json").unwrap()
+}
+
+#[test]
+fn a_guard_band_set_by_the_spec_moves_both_zones() {
+    // ISO 14253-1:2017: the acceptance zone is the specification zone
+    // reduced by the guard band g, the rejection zone the outside enlarged
+    // by g; here g is a percentage of the expanded uncertainty U (the form
+    // of ASME B89.7.3.1-2001, from memory). Value 28, U = 2 (interval 26 to
+    // 30), upper limit 29.5: with g = U the upper bound 30 is above the
+    // limit (indeterminate); with g = 50 % of U, 28 + 1 = 29 <= 29.5 passes;
+    // with g = 0 the value alone decides; with g = 200 % the zone 24 to 32
+    // straddles a limit of 31.5, which g = 100 % passes.
+    let e = ev(28.0, Some([26.0, 30.0]), 20, 0.0);
+    let d = |limit: f64, pct: f64| decide_with_guard(&e, limit, Rule::Guarded, pct);
+    assert_eq!(d(29.5, 100.0).0, Decision::Indeterminate);
+    assert_eq!(d(29.5, 50.0).0, Decision::Pass);
+    assert!(
+        d(29.5, 50.0).1.contains("guard band 50 % of U"),
+        "{}",
+        d(29.5, 50.0).1
+    );
+    assert_eq!(d(28.0, 0.0).0, Decision::Pass);
+    assert_eq!(d(27.9, 0.0).0, Decision::Fail);
+    assert_eq!(d(31.5, 100.0).0, Decision::Pass);
+    assert_eq!(d(31.5, 200.0).0, Decision::Indeterminate);
+    // Rejection: value 33 (31 to 35), limit 31.5: g = U keeps it open, 50 %
+    // rejects (33 - 1 = 32 > 31.5).
+    let f = ev(33.0, Some([31.0, 35.0]), 20, 0.0);
+    assert_eq!(
+        decide_with_guard(&f, 31.5, Rule::Guarded, 100.0).0,
+        Decision::Indeterminate
+    );
+    assert_eq!(
+        decide_with_guard(&f, 31.5, Rule::Guarded, 50.0).0,
+        Decision::Fail
+    );
+    // The default is the guarded rule as before, word for word.
+    assert_eq!(d(29.5, 100.0), decide(&e, 29.5, Rule::Guarded));
+    // The count to decide: a smaller guard band needs fewer measurements; at
+    // 100 % it is the plain count.
+    let (h, c, dd) = (2.0, 0.3, 1.0);
+    let full = measurements_for_probability_guarded(10, h, c, dd, DECIDE_PROBABILITY, 1.0);
+    assert_eq!(
+        full,
+        measurements_for_probability(10, h, c, dd, DECIDE_PROBABILITY)
+    );
+    let half = measurements_for_probability_guarded(10, h, c, dd, DECIDE_PROBABILITY, 0.5);
+    assert!(half < full, "{half} vs {full}");
+    // Without a guard band the decision needs d >= z_0.90 s: the one-sided
+    // test's count n' = (z_0.90 sigma / d)^2 (textbook sample size, from
+    // memory), z_0.90 = 1.2816 (standard normal table).
+    let sigma = h * 10f64.sqrt() / armspace::stats::Z95;
+    let zero = measurements_for_probability_guarded(10, h, c, dd, DECIDE_PROBABILITY, 0.0);
+    let expected = (1.281_551_6 * sigma / dd).powi(2).ceil();
+    assert!((zero - expected).abs() <= 1.0, "{zero} vs {expected}");
+}
+
+#[test]
+fn a_guard_band_is_checked_and_inherited_by_zones() {
+    let s = spec(
+        r#"{"format": "armspace.spec/1", "limit_um": 30, "guard_band_pct": 50,
+            "zones": [{"name": "rim", "pattern": "rim-*.png", "limit_um": 25},
+                      {"name": "hub", "pattern": "hub-*.png", "limit_um": 40, "guard_band_pct": 0}]}"#,
+    );
+    let a = |f: &str| {
+        assess(
+            &s,
+            std::path::Path::new(f),
+            ev(24.0, Some([22.0, 26.0]), 20, 0.0),
+            Evidence::default(),
+        )
+    };
+    // rim inherits 50 %: 24 + 1 = 25 <= 25, pass; hub has none.
+    assert_eq!(a("rim-1.png").decision, Some(Decision::Pass));
+    assert_eq!(a("rim-1.png").guard_band_pct, Some(50.0));
+    assert_eq!(a("hub-1.png").guard_band_pct, Some(0.0));
+    for bad in [
+        r#"{"format": "armspace.spec/1", "limit_um": 30, "guard_band_pct": -5}"#,
+        r#"{"format": "armspace.spec/1", "limit_um": 30, "guard_band_pct": 401}"#,
+        r#"{"format": "armspace.spec/1", "limit_um": 30, "rule": "simple", "guard_band_pct": 50}"#,
+        r#"{"format": "armspace.spec/1", "limit_um": 30,
+            "zones": [{"name": "z", "pattern": "*", "limit_um": 3, "rule": "simple", "guard_band_pct": 10}]}"#,
+    ] {
+        let e = Spec::parse(bad, "spec.json").unwrap_err().to_string();
+        assert!(
+            e.contains("guard_band_pct") && e.contains("spec.json"),
+            "{e}"
+        );
+    }
 }
 
 #[test]

@@ -10,6 +10,15 @@
 //!   and rejection of ISO 14253-1 and JCGM 106:2012 with a guard band equal
 //!   to the expanded uncertainty (coverage 95 %), so that neither a pass nor
 //!   a fail is declared while the interval straddles the limit.
+//!   A spec (or zone) may set the guard band as a percentage of the
+//!   expanded uncertainty U instead (`guard_band_pct`, default 100): with
+//!   g = pct/100 x U, on each side the half-width of the interval on that
+//!   side, conformance when value + g is at or below the limit and
+//!   non-conformance when value - g is above it. Guard bands stated as a
+//!   percentage of U are the form of ASME B89.7.3.1-2001 (from memory);
+//!   ISO 14253-1:2017 leaves g to the agreement between the parties. 0 %
+//!   decides on the value alone (as `simple`, but an image without an
+//!   interval stays undecided); above 100 % widens the indeterminate zone.
 //! - `simple`: value at or below the limit passes, above it fails (zero
 //!   guard band; up to 50 % risk of a wrong decision for a value at the limit).
 //!
@@ -91,6 +100,11 @@ pub struct Zone {
     pub statistic: Option<Statistic>,
     #[serde(default)]
     pub rule: Option<Rule>,
+    /// Guard band of the guarded rule, percent of the expanded uncertainty
+    /// (0 to 400); the spec's when absent.
+    #[serde(default)]
+    #[schemars(range(min = 0, max = 400))]
+    pub guard_band_pct: Option<f64>,
     #[serde(skip)]
     matcher: Option<globset::GlobMatcher>,
 }
@@ -113,8 +127,33 @@ pub struct Spec {
     pub statistic: Statistic,
     #[serde(default)]
     pub rule: Rule,
+    /// Guard band of the guarded rule, percent of the expanded uncertainty
+    /// (0 to 400); 100 when absent.
+    #[serde(default)]
+    #[schemars(range(min = 0, max = 400))]
+    pub guard_band_pct: Option<f64>,
     #[serde(default)]
     pub zones: Vec<Zone>,
+}
+
+/// The guard band when a spec sets none: the expanded uncertainty itself.
+pub const DEFAULT_GUARD_BAND_PCT: f64 = 100.0;
+
+/// Checks a guard band: a percentage from 0 to 400, on the guarded rule.
+fn check_guard(pct: Option<f64>, rule: Rule, whose: &str) -> Result<(), String> {
+    let Some(p) = pct else { return Ok(()) };
+    if !(p.is_finite() && (0.0..=400.0).contains(&p)) {
+        return Err(format!(
+            "{whose}\"guard_band_pct\" must be a percentage of the expanded uncertainty from 0 to 400, got {}",
+            crate::units::fmt_num(p)
+        ));
+    }
+    if rule == Rule::Simple {
+        return Err(format!(
+            "{whose}\"guard_band_pct\" applies to the guarded rule, not to \"simple\" (which has none)"
+        ));
+    }
+    Ok(())
 }
 
 fn valid_limit(v: f64) -> bool {
@@ -146,8 +185,15 @@ impl Spec {
                 )));
             }
         }
+        check_guard(spec.guard_band_pct, spec.rule, "").map_err(&bad)?;
         let mut names = std::collections::BTreeSet::new();
         for z in &mut spec.zones {
+            check_guard(
+                z.guard_band_pct.or(spec.guard_band_pct),
+                z.rule.unwrap_or(spec.rule),
+                &format!("zone '{}': ", z.name),
+            )
+            .map_err(&bad)?;
             if z.name.trim().is_empty() {
                 return Err(bad("a zone has no name".into()));
             }
@@ -237,6 +283,9 @@ pub struct Acceptance {
     pub limit_um: Option<f64>,
     pub statistic: Statistic,
     pub rule: Rule,
+    /// The guard band of the guarded rule, percent of the expanded
+    /// uncertainty; null under the simple rule.
+    pub guard_band_pct: Option<f64>,
     /// What was compared: the value and its 95 % interval, um.
     pub compared_um: Option<f64>,
     pub compared_ci95_um: Option<[f64; 2]>,
@@ -253,11 +302,23 @@ pub struct Acceptance {
     pub fields_to_decide: Option<usize>,
 }
 
-/// Decides one image against a limit under a rule (module docs).
+/// Decides one image against a limit under a rule (module docs), with the
+/// guarded rule's default guard band.
 pub fn decide(
     evidence: &Evidence,
     limit: f64,
     rule: Rule,
+) -> (Decision, String, Option<usize>, Option<usize>) {
+    decide_with_guard(evidence, limit, rule, DEFAULT_GUARD_BAND_PCT)
+}
+
+/// Decides one image against a limit under a rule, the guarded rule with a
+/// guard band of `guard_pct` percent of the expanded uncertainty.
+pub fn decide_with_guard(
+    evidence: &Evidence,
+    limit: f64,
+    rule: Rule,
+    guard_pct: f64,
 ) -> (Decision, String, Option<usize>, Option<usize>) {
     let Some(x) = evidence.value.map(|v| v.0) else {
         return (
@@ -294,28 +355,46 @@ pub fn decide(
                     None,
                 );
             };
-            if hi <= limit {
+            let k = guard_pct / 100.0;
+            let (up, down) = (x + k * (hi - x), x - k * (x - lo));
+            // The bounds compared, in words: the interval's own at 100 %.
+            let (up_name, down_name) = if guard_pct == DEFAULT_GUARD_BAND_PCT {
+                (
+                    "upper 95 % bound".to_string(),
+                    "lower 95 % bound".to_string(),
+                )
+            } else {
+                let g = format!("guard band {} % of U", crate::units::fmt_num(guard_pct));
+                (format!("value + {g}"), format!("value - {g}"))
+            };
+            if up <= limit {
                 (
                     Decision::Pass,
-                    format!("upper 95 % bound {hi:.2} um <= limit {limit} um"),
+                    format!("{up_name} {up:.2} um <= limit {limit} um"),
                     None,
                     None,
                 )
-            } else if lo > limit {
+            } else if down > limit {
                 (
                     Decision::Fail,
-                    format!("lower 95 % bound {lo:.2} um > limit {limit} um"),
+                    format!("{down_name} {down:.2} um > limit {limit} um"),
                     None,
                     None,
                 )
             } else {
-                let (n_all, advice) = more_to_decide(evidence, x, [lo, hi], limit);
+                let (n_all, advice) = more_to_decide(evidence, x, [lo, hi], limit, k);
                 let fields = n_all.map(|n| n.div_ceil(evidence.n.max(1)));
+                let zone = if guard_pct == DEFAULT_GUARD_BAND_PCT {
+                    format!("the 95 % interval {lo:.2} to {hi:.2} um contains the limit {limit} um")
+                } else {
+                    format!(
+                        "the guarded zone {down:.2} to {up:.2} um ({} % of the 95 % interval {lo:.2} to {hi:.2} um) contains the limit {limit} um",
+                        crate::units::fmt_num(guard_pct)
+                    )
+                };
                 (
                     Decision::Indeterminate,
-                    format!(
-                        "the 95 % interval {lo:.2} to {hi:.2} um contains the limit {limit} um; {advice}"
-                    ),
+                    format!("{zone}; {advice}"),
                     n_all,
                     fields,
                 )
@@ -326,7 +405,14 @@ pub fn decide(
 
 /// Measurements in all that would decide (with `DECIDE_PROBABILITY`) a straddling interval,
 /// and the advice in words (module docs).
-fn more_to_decide(e: &Evidence, x: f64, [lo, hi]: [f64; 2], limit: f64) -> (Option<usize>, String) {
+/// `k` is the guard band as a fraction of the expanded uncertainty.
+fn more_to_decide(
+    e: &Evidence,
+    x: f64,
+    [lo, hi]: [f64; 2],
+    limit: f64,
+    k: f64,
+) -> (Option<usize>, String) {
     let half = 0.5 * (hi - lo);
     let c = e.calibration_half_um.min(half);
     let h2 = half * half - c * c;
@@ -339,7 +425,7 @@ fn more_to_decide(e: &Evidence, x: f64, [lo, hi]: [f64; 2], limit: f64) -> (Opti
             "the value lies on the limit: no number of fields decides it (a value on the limit passes or fails by chance)".into(),
         );
     }
-    if d <= c {
+    if d <= k * c {
         return (
             None,
             "the value is within the calibration's uncertainty of the limit: more fields cannot decide it, a better calibration (or a different statistic) might".into(),
@@ -354,7 +440,7 @@ fn more_to_decide(e: &Evidence, x: f64, [lo, hi]: [f64; 2], limit: f64) -> (Opti
     if h2 <= 0.0 {
         return (None, "more fields would narrow the interval".into());
     }
-    let needed = measurements_for_probability(e.n, h2.sqrt(), c, d, DECIDE_PROBABILITY);
+    let needed = measurements_for_probability_guarded(e.n, h2.sqrt(), c, d, DECIDE_PROBABILITY, k);
     if !needed.is_finite() || needed > 1e9 {
         return (
             None,
@@ -384,22 +470,47 @@ pub const DECIDE_PROBABILITY: f64 = 0.90;
 /// guarded interval clears the limit with probability `p` (module docs);
 /// infinite when no number can (d <= c).
 pub fn measurements_for_probability(n: usize, h: f64, c: f64, d: f64, p: f64) -> f64 {
+    measurements_for_probability_guarded(n, h, c, d, p, 1.0)
+}
+
+/// The same with a guard band of `k` times the expanded uncertainty: the
+/// zone clears the limit when d - k sqrt(c^2 + (1.96 s)^2) >= z_P s; a
+/// guard band of 0 needs only d >= z_P s.
+pub fn measurements_for_probability_guarded(
+    n: usize,
+    h: f64,
+    c: f64,
+    d: f64,
+    p: f64,
+    k: f64,
+) -> f64 {
     use statrs::distribution::{ContinuousCDF, Normal};
     let z95 = crate::stats::Z95;
     // NaN in any input also ends here: no count without numbers.
-    if d.is_nan() || c.is_nan() || h.is_nan() || d <= c || n == 0 || h <= 0.0 {
+    if d.is_nan() || c.is_nan() || h.is_nan() || k.is_nan() || k < 0.0 {
+        return f64::INFINITY;
+    }
+    let (c, z95) = (k * c, k * z95);
+    if d <= c || n == 0 || h <= 0.0 {
         return f64::INFINITY;
     }
     let z_p = Normal::new(0.0, 1.0).map_or(f64::NAN, |nd| nd.inverse_cdf(p));
     if !z_p.is_finite() {
         return f64::INFINITY;
     }
-    let sigma = h * (n as f64).sqrt() / z95;
+    let sigma = h * (n as f64).sqrt() / crate::stats::Z95;
     // f(s) = d - sqrt(c^2 + (z95 s)^2) - z_p s falls with s (for z_p >= 0)
     // from f(0) = d - c > 0; below s = (d - c) / (z95 + z_p) it cannot
     // reach zero and above d / z95 it is negative.
     let f = |s: f64| d - c.hypot(z95 * s) - z_p * s;
-    let (mut lo, mut hi) = (0.0, d / z95);
+    // The upper end of the search: f < 0 there (d / z95 when the guard band
+    // counts, d / z_p without one).
+    let top = if z95 > 0.0 {
+        d / z95
+    } else {
+        d / z_p.max(1e-12)
+    };
+    let (mut lo, mut hi) = (0.0, top);
     for _ in 0..200 {
         let mid = 0.5 * (lo + hi);
         if f(mid) >= 0.0 {
@@ -426,6 +537,11 @@ pub fn assess(
     let zone = spec.zone_of(file);
     let statistic = zone.and_then(|z| z.statistic).unwrap_or(spec.statistic);
     let rule = zone.and_then(|z| z.rule).unwrap_or(spec.rule);
+    let guard = (rule == Rule::Guarded).then(|| {
+        zone.and_then(|z| z.guard_band_pct)
+            .or(spec.guard_band_pct)
+            .unwrap_or(DEFAULT_GUARD_BAND_PCT)
+    });
     let limit = zone.map(|z| z.limit_um).or(spec.limit_um);
     let evidence = match statistic {
         Statistic::Value => value,
@@ -436,6 +552,7 @@ pub fn assess(
         limit_um: limit,
         statistic,
         rule,
+        guard_band_pct: guard,
         compared_um: evidence.value.map(|v| v.0),
         compared_ci95_um: evidence.ci95.map(|[a, b]| [a.0, b.0]),
         decision: None,
@@ -448,7 +565,12 @@ pub fn assess(
             out.reason = "the file name matches no zone of the spec and the spec has no general limit: not assessed".into();
         }
         Some(limit) => {
-            let (d, reason, n, f) = decide(&evidence, limit, rule);
+            let (d, reason, n, f) = decide_with_guard(
+                &evidence,
+                limit,
+                rule,
+                guard.unwrap_or(DEFAULT_GUARD_BAND_PCT),
+            );
             out.decision = Some(d);
             out.reason = reason;
             out.measurements_to_decide = n;
