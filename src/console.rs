@@ -92,6 +92,12 @@ pub fn batch_lines(rep: &Report) -> Vec<String> {
         "{} image(s): {} measured, {} without a value, {} failed, {} skipped",
         s.images, s.measured, s.without_value, s.failed, s.skipped
     )];
+    if s.from_journal > 0 {
+        lines.push(format!(
+            "{} of them taken over from the journal of an earlier run (--resume), not measured again",
+            s.from_journal
+        ));
+    }
     if s.partial {
         lines.push(format!(
             "interrupted: {} image(s) not measured; the report is partial (summary.partial), run again for the rest",

@@ -14,6 +14,7 @@ pub mod console;
 pub mod error;
 pub mod files;
 pub mod interpret;
+pub mod journal;
 pub mod load;
 pub mod manual;
 pub mod methods;

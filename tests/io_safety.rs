@@ -350,4 +350,33 @@ fn an_interrupted_batch_leaves_a_whole_partial_report() {
         csv.matches("not measured: the run was interrupted").count() as u64,
         interrupted
     );
+    // The journal keeps the images finished; --resume takes them over and
+    // measures the rest, leaving a whole report and no journal.
+    assert!(d.join("r.json.journal").exists(), "{stderr}");
+    assert!(stderr.contains("--resume"), "{stderr}");
+    let resumed = Command::new(env!("CARGO_BIN_EXE_armspace"))
+        .current_dir(d)
+        .args([
+            "measure",
+            "imgs",
+            "--um-per-px",
+            "1.25",
+            "--out",
+            "r.json",
+            "--csv",
+            "r.csv",
+            "--resume",
+        ])
+        .stdin(Stdio::null())
+        .output()
+        .unwrap();
+    let err = String::from_utf8_lossy(&resumed.stderr);
+    assert!(resumed.status.success(), "{err}");
+    let rep: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(d.join("r.json")).unwrap()).unwrap();
+    let s = &rep["summary"];
+    assert_eq!(s["partial"], false, "{s}");
+    assert_eq!(s["measured"], 20, "{s}");
+    assert_eq!(s["from_journal"], measured, "{s}");
+    assert!(!d.join("r.json.journal").exists(), "{err}");
 }

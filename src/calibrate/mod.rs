@@ -22,7 +22,9 @@ use schemars::JsonSchema;
 use serde::Serialize;
 
 /// Where a calibration came from.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord, Serialize, JsonSchema)]
+#[derive(
+    Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord, Serialize, serde::Deserialize, JsonSchema,
+)]
 #[serde(rename_all = "kebab-case")]
 pub enum CalibrationSource {
     Manual,

@@ -26,8 +26,14 @@ pub(super) struct MeasureArgs {
     #[command(flatten)]
     calibration: CalibrationArgs,
     /// Write the JSON report here (atomically); without it the report goes to stdout.
+    /// While the run goes, each finished image is kept in a journal beside
+    /// it (REPORT.journal), removed once the report is written whole.
     #[arg(long)]
     out: Option<PathBuf>,
+    /// Take over the images an interrupted run with the same arguments
+    /// finished (from the journal beside --out) and measure only the rest.
+    #[arg(long, requires = "out")]
+    resume: bool,
     /// Measurement method(s).
     #[arg(long, value_enum, default_value = "all")]
     method: MethodArg,
@@ -224,10 +230,42 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
             }
         }
     }
+    // The journal lies beside a report written to a file (not beside a
+    // device named as --out), and is checked as the other outputs are.
+    let journal_path = args
+        .out
+        .as_deref()
+        .filter(|out| armspace::files::kind(out) != armspace::files::Kind::Special)
+        .map(armspace::journal::path_for);
+    if let Some(journal) = &journal_path {
+        let checked = if armspace::files::kind(journal) == armspace::files::Kind::Special {
+            Err(armspace::Error::Input {
+                path: journal.clone(),
+                reason: "is not a regular file (a FIFO, device or socket); the journal of the report needs this name".into(),
+            })
+        } else if args.csv.as_deref() == Some(journal.as_path()) {
+            Err(armspace::Error::Input {
+                path: journal.clone(),
+                reason: "is the name of the report's journal; give --csv another name".into(),
+            })
+        } else {
+            protected.check_output(journal, "journal")
+        };
+        if let Err(e) = checked {
+            eprintln!("armspace: {e}");
+            return ExitCode::from(EXIT_USAGE);
+        }
+    } else if args.resume {
+        eprintln!(
+            "armspace: --resume needs --out to name a file: the journal lies beside the report"
+        );
+        return ExitCode::from(EXIT_USAGE);
+    }
     if let Err(code) = create_overlay_dir(args.overlay.as_deref()) {
         return code;
     }
     let opts = MeasureOptions { protected, ..opts };
+    let given: Vec<String> = args.paths.iter().map(|p| p.display().to_string()).collect();
     let pool = match rayon::ThreadPoolBuilder::new()
         .num_threads(args.jobs.map_or(0, usize::from))
         .build()
@@ -238,28 +276,114 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
             return ExitCode::from(EXIT_FATAL);
         }
     };
+    let fingerprint = armspace::journal::fingerprint(&given, &opts);
+    // With --resume, the images the journal holds and that are unchanged are
+    // taken over; the rest are measured.
+    let taken: Vec<Option<report::ImageReport>> = match (&journal_path, args.resume) {
+        (Some(journal), true) => match armspace::journal::read(journal, &fingerprint) {
+            Ok(None) => {
+                eprintln!(
+                    "armspace: note: no journal {} to resume from: measuring every image",
+                    journal.display()
+                );
+                none_taken(inputs.len())
+            }
+            Ok(Some(earlier)) => {
+                for note in &earlier.notes {
+                    eprintln!("armspace: warning: {note}");
+                }
+                let sorted = pool.install(|| earlier.sort(&inputs));
+                for note in &sorted.notes {
+                    eprintln!("armspace: note: {note}");
+                }
+                sorted.taken
+            }
+            Err(e) => {
+                eprintln!("armspace: {e}");
+                return ExitCode::from(EXIT_USAGE);
+            }
+        },
+        (Some(journal), false) => {
+            if armspace::files::kind(journal) == armspace::files::Kind::Regular {
+                eprintln!(
+                    "armspace: note: replacing the journal {} of an earlier run (--resume takes over the images it finished)",
+                    journal.display()
+                );
+            }
+            none_taken(inputs.len())
+        }
+        (None, _) => none_taken(inputs.len()),
+    };
+    let carried: Vec<&report::ImageReport> = taken.iter().flatten().collect();
+    let journal = match &journal_path {
+        Some(path) => match armspace::journal::Journal::start(path, &fingerprint, &carried) {
+            Ok(j) => Some(j),
+            Err(e) => {
+                eprintln!("armspace: cannot start the journal: {e}");
+                return ExitCode::from(EXIT_FATAL);
+            }
+        },
+        None => None,
+    };
+    if !carried.is_empty() {
+        eprintln!(
+            "armspace: resuming: {} images taken over from the journal {}, measuring the rest",
+            carried.len(),
+            journal
+                .as_ref()
+                .map(|j| j.path().display().to_string())
+                .unwrap_or_default()
+        );
+    }
+    let to_measure: Vec<armspace::load::Input> = inputs
+        .iter()
+        .zip(&taken)
+        .filter(|(_, t)| t.is_none())
+        .map(|(i, _)| i.clone())
+        .collect();
     // The progress counts images only: skipped entries are listed at the end.
-    let images = inputs
+    let images = to_measure
         .iter()
         .filter(|i| !matches!(i, armspace::load::Input::Skipped { .. }))
         .count();
     let progress = progress_bar(images);
     // Each image's lines as soon as it is measured (the report keeps input
     // order); printed above the progress bar.
+    // Each finished image goes into the journal and is on disk before the
+    // next is counted done.
     let on_done = |r: &armspace::pipeline::ImageResult| {
         let img = report::image_report(r, &opts);
+        let recorded = journal.as_ref().map(|j| j.record(&img));
         progress.suspend(|| {
             for line in armspace::console::image_lines(&img) {
                 eprintln!("{line}");
+            }
+            if let Some(Err(e)) = recorded {
+                eprintln!(
+                    "armspace: warning: the journal is given up, the run goes on without it: {e}"
+                );
             }
         });
         progress.inc(1);
     };
     let stop = interrupt_flag();
-    let (results, skipped) = pool.install(|| measure_batch(&inputs, &opts, &on_done, stop));
+    let (results, skipped) = pool.install(|| measure_batch(&to_measure, &opts, &on_done, stop));
     progress.finish_and_clear();
-    let given: Vec<String> = args.paths.iter().map(|p| p.display().to_string()).collect();
-    let rep = report::build(&given, &opts, &results, &skipped, report::now_utc());
+    // Input order: each image taken over, or the next one measured (the
+    // results keep the order of `to_measure`, skipped entries aside).
+    let mut measured = results.iter();
+    let batch: Vec<report::BatchImage> = inputs
+        .iter()
+        .zip(taken)
+        .filter(|(i, _)| !matches!(i, armspace::load::Input::Skipped { .. }))
+        .filter_map(|(_, t)| match t {
+            Some(earlier) => Some(report::BatchImage::from_journal(earlier)),
+            None => measured
+                .next()
+                .map(|r| report::BatchImage::measured(r, &opts)),
+        })
+        .collect();
+    let rep = report::assemble(&given, &opts, batch, &skipped, report::now_utc());
     let json = report::to_json(&rep);
     for s in &rep.skipped {
         eprintln!("skipped  {}: {}", s.file, s.reason);
@@ -298,6 +422,20 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
     for line in armspace::console::batch_lines(&rep) {
         eprintln!("{line}");
     }
+    // The journal goes once the report (and CSV) are written whole; a
+    // partial report or a failed write keeps it for --resume.
+    if let Some(journal) = journal {
+        if write_failed || rep.summary.partial {
+            eprintln!(
+                "armspace: the journal {} keeps the images finished; rerun with the same arguments and --resume to measure only the rest",
+                journal.path().display()
+            );
+        } else if let Err(e) = journal.remove() {
+            eprintln!(
+                "armspace: warning: the report is whole, but its journal could not be removed: {e}"
+            );
+        }
+    }
     if write_failed {
         return ExitCode::from(EXIT_FATAL);
     }
@@ -307,6 +445,11 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
         report::Outcome::NotMeasured => EXIT_NOT_MEASURED,
         report::Outcome::Indeterminate => EXIT_INDETERMINATE,
     })
+}
+
+/// No image taken over from a journal.
+fn none_taken(n: usize) -> Vec<Option<report::ImageReport>> {
+    (0..n).map(|_| None).collect()
 }
 
 /// Set by the first Ctrl-C (SIGINT): the images in progress finish,

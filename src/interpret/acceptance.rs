@@ -69,7 +69,9 @@ pub enum Rule {
     Simple,
 }
 
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, JsonSchema, PartialOrd, Ord)]
+#[derive(
+    Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize, JsonSchema, PartialOrd, Ord,
+)]
 #[serde(rename_all = "snake_case")]
 pub enum Decision {
     Pass,
@@ -274,7 +276,7 @@ pub struct Evidence {
 }
 
 /// The image's decision against the spec's SDAS limit (with --spec).
-#[derive(Clone, Debug, PartialEq, Serialize, JsonSchema)]
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, JsonSchema)]
 #[schemars(rename = "acceptance", deny_unknown_fields)]
 pub struct Acceptance {
     /// The zone the image falls in; null under the spec's general limit.

@@ -35,7 +35,7 @@ pub use library::{Composition, Correlation, Form};
 use crate::units::{Kelvin, KelvinPerSecond, Micrometres, Seconds};
 use crate::{Error, Result};
 use schemars::JsonSchema;
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 
 /// lambda2 (um) = coefficient x x^exponent, x in the law's own unit.
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -110,7 +110,7 @@ pub struct Request {
 }
 
 /// An inverted quantity in the tool's units (K/s or s).
-#[derive(Clone, Debug, Default, PartialEq, Serialize, JsonSchema)]
+#[derive(Clone, Debug, Default, PartialEq, Serialize, Deserialize, JsonSchema)]
 #[schemars(rename = "quantity", deny_unknown_fields)]
 pub struct Quantity {
     #[schemars(extend("exclusiveMinimum" = 0))]
@@ -127,7 +127,8 @@ pub struct Quantity {
         "freezing range / solidification time",
         null
     ]))]
-    pub derived: Option<&'static str>,
+    #[serde(deserialize_with = "crate::report::names::optional_name")]
+    pub derived: Option<crate::report::names::Name>,
     /// Why there is no value, when there is none.
     pub reason: Option<String>,
     /// The 95 % interval with the correlation's published scatter combined
@@ -166,7 +167,7 @@ impl Quantity {
 
 /// Cooling rate and local solidification time from the image's SDAS
 /// through a published correlation (with --correlation).
-#[derive(Clone, Debug, PartialEq, Serialize, JsonSchema)]
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, JsonSchema)]
 #[schemars(rename = "interpretation", deny_unknown_fields)]
 pub struct Interpretation {
     pub correlation: CorrelationRef,
@@ -193,13 +194,14 @@ pub struct Interpretation {
 }
 
 /// An alternative law set beside the chosen one.
-#[derive(Clone, Debug, PartialEq, Serialize, JsonSchema)]
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, JsonSchema)]
 #[schemars(deny_unknown_fields)]
 pub struct Comparison {
     /// The quantity compared (a report field name), null when the two laws
     /// give no common quantity.
     #[schemars(extend("enum" = ["cooling_rate_K_per_s", "solidification_time_s", null]))]
-    pub quantity: Option<&'static str>,
+    #[serde(deserialize_with = "crate::report::names::optional_name")]
+    pub quantity: Option<crate::report::names::Name>,
     /// The chosen law's value and interval of that quantity.
     pub chosen_value: Option<f64>,
     pub chosen_ci95: Option<[f64; 2]>,
@@ -215,7 +217,7 @@ pub struct Comparison {
 }
 
 /// A law of the family that does not apply to the composition given.
-#[derive(Clone, Debug, PartialEq, Serialize, JsonSchema)]
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, JsonSchema)]
 #[schemars(deny_unknown_fields)]
 pub struct NotApplicable {
     pub id: String,
@@ -286,21 +288,24 @@ pub fn round_significant(x: f64, digits: i32) -> f64 {
 }
 
 /// The correlation used, as the report names it.
-#[derive(Clone, Debug, PartialEq, Serialize, JsonSchema)]
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct CorrelationRef {
     pub id: String,
     #[schemars(with = "library::Form")]
-    pub form: &'static str,
+    #[serde(deserialize_with = "crate::report::names::name")]
+    pub form: crate::report::names::Name,
     pub law: String,
     #[schemars(with = "library::Status")]
-    pub status: &'static str,
+    #[serde(deserialize_with = "crate::report::names::name")]
+    pub status: crate::report::names::Name,
     pub source: String,
     /// The law's coefficient at the given composition: lambda2 (um) =
     /// coefficient x x^exponent, x in `variable_unit`.
     #[schemars(extend("exclusiveMinimum" = 0))]
     pub coefficient_um: f64,
     pub exponent: f64,
-    pub variable_unit: &'static str,
+    #[serde(deserialize_with = "crate::report::names::name")]
+    pub variable_unit: crate::report::names::Name,
     /// The family the law is for; the alternatives are the other laws of it.
     pub alloy_family: String,
     /// Composition limits and fitted range in words, with the status of

@@ -11,6 +11,7 @@
 //! schema/report.schema.json against it (`ARMSPACE_BLESS=1` rewrites it).
 
 mod csv_rows;
+pub mod names;
 mod per_method;
 mod schema;
 pub use csv_rows::{csv_summary, CSV_COLUMNS};
@@ -24,7 +25,7 @@ use crate::methods::Detail;
 use crate::pipeline::{ImageResult, MeasureOptions, Skipped};
 use crate::units::{Pixels, UmPerPx};
 use schemars::JsonSchema;
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 
 pub const SCHEMA: &str = "armspace.report/1";
 
@@ -162,7 +163,7 @@ pub struct FftParameters {
 
 /// One image: what was read, the calibration, the SDAS and each method's
 /// detail. An image that could not be read has an `error` and no value.
-#[derive(Serialize, JsonSchema, Debug)]
+#[derive(Serialize, Deserialize, JsonSchema, Debug)]
 #[schemars(rename = "image", transform = schema::error_means_no_value)]
 pub struct ImageReport {
     /// The path as given or as found in a folder.
@@ -190,6 +191,7 @@ pub struct ImageReport {
     /// The stable code of each warning (stage.what), in the order of
     /// `warnings`.
     #[schemars(inner(regex(pattern = r"^[a-z]+\.[a-z-]+$")))]
+    #[serde(deserialize_with = "names::names")]
     pub warning_codes: Vec<&'static str>,
     /// Why the image could not be read or decoded; null when it was.
     pub error: Option<String>,
@@ -206,7 +208,7 @@ pub struct ImageReport {
 }
 
 /// The calibration applied to the image.
-#[derive(Serialize, JsonSchema, Debug)]
+#[derive(Serialize, Deserialize, JsonSchema, Debug)]
 pub struct CalibrationReport {
     #[schemars(extend("exclusiveMinimum" = 0))]
     pub um_per_px: f64,
@@ -221,12 +223,13 @@ pub struct CalibrationReport {
     pub bar: Option<BarReport>,
     /// The value each available source gave, by source name.
     #[schemars(schema_with = "schema::calibration_sources")]
+    #[serde(deserialize_with = "names::name_map")]
     pub sources: std::collections::BTreeMap<&'static str, f64>,
 }
 
 /// A detected scale bar, pixel coordinates from the top-left corner
 /// (inclusive indices).
-#[derive(Serialize, JsonSchema, Debug)]
+#[derive(Serialize, Deserialize, JsonSchema, Debug)]
 #[schemars(rename = "bar")]
 pub struct BarReport {
     /// Edge-to-edge length, px.
@@ -278,7 +281,7 @@ pub fn calibration_report(c: &crate::calibrate::Calibration) -> CalibrationRepor
 }
 
 /// The image's SDAS from the methods that agree, um.
-#[derive(Serialize, JsonSchema, Debug)]
+#[derive(Serialize, Deserialize, JsonSchema, Debug)]
 pub struct SdasReport {
     /// Rounded to the uncertainty ([`digits_for_uncertainty`]).
     #[schemars(
@@ -296,6 +299,7 @@ pub struct SdasReport {
     pub n_eff: f64,
     /// The methods whose values were combined into this one.
     #[schemars(schema_with = "schema::method_names")]
+    #[serde(deserialize_with = "names::names")]
     pub methods: Vec<&'static str>,
     /// Why there is no value, when there is none.
     pub reason: Option<String>,
@@ -306,10 +310,11 @@ pub struct SdasReport {
     pub birge_ratio: Option<f64>,
 }
 
-#[derive(Serialize, JsonSchema, Debug)]
+#[derive(Serialize, Deserialize, JsonSchema, Debug)]
 pub struct LeftOutReport {
     #[schemars(schema_with = "schema::method_name")]
-    pub method: &'static str,
+    #[serde(deserialize_with = "names::name")]
+    pub method: names::Name,
     pub reason: String,
 }
 
@@ -339,6 +344,10 @@ pub struct Summary {
     /// True when the run was interrupted: the report holds only part of
     /// what was asked, and a rerun is needed for the rest.
     pub partial: bool,
+    /// Images taken from the journal of an earlier, interrupted run
+    /// (`--resume`) instead of being measured again; 0 in a run that
+    /// measured everything itself. Their entries are as that run wrote them.
+    pub from_journal: usize,
     /// Range of the images' SDAS values, um (null when none was measured).
     pub sdas_um_min: Option<f64>,
     pub sdas_um_median: Option<f64>,
@@ -542,7 +551,44 @@ pub fn image_report(r: &ImageResult, opts: &MeasureOptions) -> ImageReport {
     }
 }
 
-/// Assembles the report of a batch.
+/// One image of a batch as the report takes it: measured in this run, or
+/// taken from the journal of an earlier one.
+#[derive(Debug)]
+pub struct BatchImage {
+    pub report: ImageReport,
+    /// Not measured: the run was interrupted before this image.
+    pub interrupted: bool,
+    /// Taken from the journal of an earlier run (`--resume`).
+    pub from_journal: bool,
+}
+
+impl BatchImage {
+    /// An image measured (or attempted, or passed over by an interrupt) in
+    /// this run.
+    pub fn measured(r: &ImageResult, opts: &MeasureOptions) -> Self {
+        Self {
+            report: image_report(r, opts),
+            interrupted: r.interrupted,
+            from_journal: false,
+        }
+    }
+
+    /// An image's report read back from the journal of an earlier run.
+    pub fn from_journal(report: ImageReport) -> Self {
+        Self {
+            report,
+            interrupted: false,
+            from_journal: true,
+        }
+    }
+
+    /// Whether the image has a value (as [`ImageResult::measured`]).
+    pub fn has_value(&self) -> bool {
+        self.report.error.is_none() && self.report.sdas_um.value.is_some()
+    }
+}
+
+/// Assembles the report of a batch from the results of this run.
 pub fn build(
     inputs: &[String],
     opts: &MeasureOptions,
@@ -550,19 +596,38 @@ pub fn build(
     skipped: &[Skipped],
     created_utc: String,
 ) -> Report {
-    let images: Vec<ImageReport> = results.iter().map(|r| image_report(r, opts)).collect();
+    let images = results
+        .iter()
+        .map(|r| BatchImage::measured(r, opts))
+        .collect();
+    assemble(inputs, opts, images, skipped, created_utc)
+}
+
+/// Assembles the report of a batch whose images are measured in this run or
+/// taken from a journal, in input order.
+pub fn assemble(
+    inputs: &[String],
+    opts: &MeasureOptions,
+    batch: Vec<BatchImage>,
+    skipped: &[Skipped],
+    created_utc: String,
+) -> Report {
+    let interrupted = batch.iter().filter(|b| b.interrupted).count();
+    let failed = batch.iter().filter(|b| b.report.error.is_some()).count() - interrupted;
+    let measured = batch.iter().filter(|b| b.has_value()).count();
+    let from_journal = batch.iter().filter(|b| b.from_journal).count();
+    let n = batch.len();
+    let images: Vec<ImageReport> = batch.into_iter().map(|b| b.report).collect();
     let values: Vec<f64> = images.iter().filter_map(|i| i.sdas_um.value).collect();
-    let interrupted = results.iter().filter(|r| r.interrupted).count();
-    let failed = results.iter().filter(|r| r.error.is_some()).count() - interrupted;
-    let measured = results.iter().filter(|r| r.measured()).count();
     let summary = Summary {
-        images: results.len(),
+        images: n,
         measured,
-        without_value: results.len() - measured - failed - interrupted,
+        without_value: n - measured - failed - interrupted,
         failed,
         skipped: skipped.len(),
         interrupted,
         partial: interrupted > 0,
+        from_journal,
         sdas_um_min: values.iter().copied().reduce(f64::min),
         sdas_um_median: crate::stats::median(&values).map(|v| round(v, 4)),
         sdas_um_max: values.iter().copied().reduce(f64::max),
@@ -579,44 +644,7 @@ pub fn build(
         },
         created_utc,
         caution: CAUTION,
-        parameters: Parameters {
-            inputs: inputs.to_vec(),
-            um_per_px: opts.calibration.manual.map(|v| v.get()),
-            profile: opts
-                .calibration
-                .profile
-                .as_ref()
-                .map(|p| ProfileParameters {
-                    name: p.name.clone(),
-                    um_per_px: p.um_per_px.get(),
-                    rel_uncertainty: p.rel_uncertainty,
-                }),
-            scale_bar_um: opts.calibration.scale_bar.map(|b| b.length.0),
-            scale_bar_rel_uncertainty: opts.calibration.scale_bar.map(|b| b.rel_uncertainty),
-            methods: opts.methods.iter().map(|m| m.name()).collect(),
-            max_megapixels: opts.load.max_megapixels,
-            preprocess: PreprocessParameters {
-                background_sigma_px: opts.preprocess.background_sigma_px,
-            },
-            fft: FftParameters {
-                min_period_px: opts.fft.min_period_px,
-                periods_per_tile: opts.fft.periods_per_tile,
-                min_quality: opts.fft.min_quality,
-                max_masked_fraction: opts.fft.max_masked_fraction,
-                coarse_window_max_px: opts.fft.coarse_window_max_px,
-            },
-            intercept: InterceptParameters {
-                convention: convention_name(opts.intercept.convention),
-                target_rel_accuracy_pct: opts.target_rel_accuracy_pct,
-            },
-            spec: opts.spec.clone(),
-            interpretation: opts.interpret.as_ref().map(|s| InterpretationParameters {
-                correlation: s.correlation.id.clone(),
-                composition_wt_pct: s.composition.clone(),
-                freezing_range_k: s.freezing_range.map(|k| k.0),
-                extrapolate: s.extrapolate,
-            }),
-        },
+        parameters: parameters(inputs, opts),
         images,
         skipped: skipped
             .iter()
@@ -626,6 +654,48 @@ pub fn build(
             })
             .collect(),
         summary,
+    }
+}
+
+/// The report's record of what determines the measurement.
+pub fn parameters(inputs: &[String], opts: &MeasureOptions) -> Parameters {
+    Parameters {
+        inputs: inputs.to_vec(),
+        um_per_px: opts.calibration.manual.map(|v| v.get()),
+        profile: opts
+            .calibration
+            .profile
+            .as_ref()
+            .map(|p| ProfileParameters {
+                name: p.name.clone(),
+                um_per_px: p.um_per_px.get(),
+                rel_uncertainty: p.rel_uncertainty,
+            }),
+        scale_bar_um: opts.calibration.scale_bar.map(|b| b.length.0),
+        scale_bar_rel_uncertainty: opts.calibration.scale_bar.map(|b| b.rel_uncertainty),
+        methods: opts.methods.iter().map(|m| m.name()).collect(),
+        max_megapixels: opts.load.max_megapixels,
+        preprocess: PreprocessParameters {
+            background_sigma_px: opts.preprocess.background_sigma_px,
+        },
+        fft: FftParameters {
+            min_period_px: opts.fft.min_period_px,
+            periods_per_tile: opts.fft.periods_per_tile,
+            min_quality: opts.fft.min_quality,
+            max_masked_fraction: opts.fft.max_masked_fraction,
+            coarse_window_max_px: opts.fft.coarse_window_max_px,
+        },
+        intercept: InterceptParameters {
+            convention: convention_name(opts.intercept.convention),
+            target_rel_accuracy_pct: opts.target_rel_accuracy_pct,
+        },
+        spec: opts.spec.clone(),
+        interpretation: opts.interpret.as_ref().map(|s| InterpretationParameters {
+            correlation: s.correlation.id.clone(),
+            composition_wt_pct: s.composition.clone(),
+            freezing_range_k: s.freezing_range.map(|k| k.0),
+            extrapolate: s.extrapolate,
+        }),
     }
 }
 

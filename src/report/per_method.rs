@@ -7,7 +7,7 @@ use crate::methods;
 
 /// Each method's result and its local measurements, um (absent for a method
 /// not run, and all absent without a calibration).
-#[derive(Serialize, JsonSchema, Debug, Default)]
+#[derive(Serialize, Deserialize, JsonSchema, Debug, Default)]
 pub struct MethodsReport {
     #[serde(skip_serializing_if = "Option::is_none")]
     #[schemars(with = "FftReport")]
@@ -22,7 +22,7 @@ pub struct MethodsReport {
 
 /// The centres method: arm-body centres linked into chains along rows
 /// (spacing = end-to-end distance / gaps).
-#[derive(Serialize, JsonSchema, Debug)]
+#[derive(Serialize, Deserialize, JsonSchema, Debug)]
 #[schemars(rename = "centres")]
 pub struct CentresReport {
     pub value: Option<f64>,
@@ -43,14 +43,15 @@ pub struct CentresReport {
     pub chance_parallel_max: Option<f64>,
     /// The phase whose centres were taken as the arms ("darker", "brighter").
     #[schemars(extend("enum" = ["darker", "brighter", null]))]
-    pub arm_phase: Option<&'static str>,
+    #[serde(deserialize_with = "names::optional_name")]
+    pub arm_phase: Option<names::Name>,
     pub reason: Option<String>,
     /// A figure without the support a value needs; never used.
     pub indicative: Option<f64>,
     pub chains: Vec<ChainReport>,
 }
 
-#[derive(Serialize, JsonSchema, Debug)]
+#[derive(Serialize, Deserialize, JsonSchema, Debug)]
 pub struct ChainReport {
     /// The centres along the chain, [x, y] in um from the top-left corner.
     pub points_um: Vec<[f64; 2]>,
@@ -58,7 +59,7 @@ pub struct ChainReport {
 }
 
 /// The line-intercept method.
-#[derive(Serialize, JsonSchema, Debug)]
+#[derive(Serialize, Deserialize, JsonSchema, Debug)]
 #[schemars(rename = "intercept", transform = schema::no_value_has_a_reason)]
 pub struct InterceptReport {
     pub value: Option<f64>,
@@ -69,7 +70,8 @@ pub struct InterceptReport {
     /// Lines in all that would bring %RA to the target, at the same spread.
     pub lines_for_target: Option<usize>,
     #[schemars(schema_with = "schema::convention")]
-    pub convention: &'static str,
+    #[serde(deserialize_with = "names::name")]
+    pub convention: names::Name,
     pub reason: Option<String>,
     /// A figure without the support a value needs (too few independent
     /// measurements for an interval, or an interval reaching zero): never
@@ -80,7 +82,7 @@ pub struct InterceptReport {
 }
 
 /// A test line, its ends in um from the top-left corner.
-#[derive(Serialize, JsonSchema, Debug)]
+#[derive(Serialize, Deserialize, JsonSchema, Debug)]
 pub struct LineReport {
     pub x0_um: f64,
     pub y0_um: f64,
@@ -94,7 +96,7 @@ pub struct LineReport {
 }
 
 /// The FFT method: SDAS from the spectral periodicity of tiles.
-#[derive(Serialize, JsonSchema, Debug)]
+#[derive(Serialize, Deserialize, JsonSchema, Debug)]
 #[schemars(rename = "fft", transform = schema::no_value_has_a_reason)]
 pub struct FftReport {
     pub value: Option<f64>,
@@ -129,7 +131,7 @@ pub struct FftReport {
 }
 
 /// A tile, its centre in um from the top-left corner.
-#[derive(Serialize, JsonSchema, Debug)]
+#[derive(Serialize, Deserialize, JsonSchema, Debug)]
 pub struct TileReport {
     pub x_um: f64,
     pub y_um: f64,
