@@ -467,11 +467,12 @@ fn finite(x: f64) -> Option<f64> {
 }
 
 /// An annotation left out of the measurement.
-#[derive(Serialize, JsonSchema, Debug)]
+#[derive(Serialize, Deserialize, JsonSchema, Debug)]
 pub struct AnnotationReport {
     /// What it is.
     #[schemars(extend("enum" = ["text"]))]
-    pub kind: &'static str,
+    #[serde(deserialize_with = "names::name")]
+    pub kind: names::Name,
     /// Its rectangle, [x0, y0, x1, y1] in inclusive pixel indices.
     pub box_px: [u32; 4],
     /// Letters found in it.
