@@ -305,11 +305,31 @@ pub struct SdasReport {
     pub reason: Option<String>,
     /// Methods that gave a value which did not enter this one, and why.
     pub left_out: Vec<LeftOutReport>,
+    /// The standard uncertainties combined into `ci95` (null without a
+    /// value).
+    pub uncertainty: Option<BudgetReport>,
     /// Birge ratio of the combined values (null with fewer than two).
     #[schemars(range(min = 0))]
     pub birge_ratio: Option<f64>,
 }
 
+/// An image's uncertainty budget: standard uncertainties, um.
+#[derive(Serialize, Deserialize, JsonSchema, Debug)]
+pub struct BudgetReport {
+    /// The methods' statistics and the scatter between them, um.
+    pub statistical_um: f64,
+    /// The calibration, um (0 when a given um/px is taken as exact).
+    pub calibration_um: f64,
+    /// The bias the agreeing methods share on a field, um.
+    pub method_bias_um: f64,
+    /// The three in quadrature, um.
+    pub combined_standard_um: f64,
+    /// The factor from the combined standard uncertainty to the 95 %
+    /// half-width.
+    pub coverage_factor: f64,
+}
+
+/// A method that gave a value which did not enter the image's value.
 #[derive(Serialize, Deserialize, JsonSchema, Debug)]
 pub struct LeftOutReport {
     #[schemars(schema_with = "schema::method_name")]
@@ -530,6 +550,13 @@ pub fn image_report(r: &ImageResult, opts: &MeasureOptions) -> ImageReport {
                     })
                     .collect(),
                 birge_ratio: r.sdas.birge_ratio.map(|b| round(b, 4)),
+                uncertainty: r.sdas.budget.map(|b| BudgetReport {
+                    statistical_um: round(b.statistical_um, 4),
+                    calibration_um: round(b.calibration_um, 4),
+                    method_bias_um: round(b.method_bias_um, 4),
+                    combined_standard_um: round(b.combined_um, 4),
+                    coverage_factor: round(b.coverage_factor, 4),
+                }),
             }
         },
         methods: match cal {
