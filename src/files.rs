@@ -133,6 +133,39 @@ pub fn read_image_bytes(path: &Path) -> Result<Vec<u8>> {
     }
 }
 
+/// The size in bytes of an image file, without reading it (the same
+/// refusals as [`read_image_bytes`]).
+pub fn image_file_len(path: &Path) -> Result<u64> {
+    match kind(path) {
+        Kind::Regular => std::fs::metadata(path)
+            .map(|m| m.len())
+            .map_err(|source| Error::Read {
+                path: path.to_path_buf(),
+                source,
+            }),
+        _ => read_image_bytes(path).map(|b| b.len() as u64),
+    }
+}
+
+/// An image file opened for reading its header (buffered; the same
+/// refusals as [`read_image_bytes`]).
+pub fn open_image(path: &Path) -> Result<std::io::BufReader<std::fs::File>> {
+    match kind(path) {
+        Kind::Regular => std::fs::File::open(path)
+            .map(std::io::BufReader::new)
+            .map_err(|source| Error::Read {
+                path: path.to_path_buf(),
+                source,
+            }),
+        _ => read_image_bytes(path).and_then(|_| {
+            Err(Error::Input {
+                path: path.to_path_buf(),
+                reason: "is not a regular file".into(),
+            })
+        }),
+    }
+}
+
 /// The file an output path will land on, links resolved: the canonical path
 /// of an existing target, or the canonical folder joined with the name.
 /// `None` when the folder does not exist.

@@ -15,6 +15,7 @@ pub mod files;
 pub mod interpret;
 pub mod load;
 pub mod manual;
+pub mod memory;
 pub mod methods;
 pub mod overlay;
 pub mod packbits;

@@ -47,6 +47,7 @@ pub(super) fn run(args: CalibrateArgs) -> ExitCode {
     }
     let opts = LoadOptions {
         max_megapixels: args.max_megapixels,
+        ..LoadOptions::default()
     };
     let mut all_ok = true;
     let mut out = Vec::new();
