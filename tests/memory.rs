@@ -171,10 +171,10 @@ fn the_batch_measures_its_other_images() {
 #[test]
 fn the_reports_lists_of_local_measurements_are_bounded() {
     use armspace::synth::{render, FieldSpec, Morphology, Style};
-    // A fine field of 2048 x 2048 px: thousands of FFT tiles.
+    // A fine field of 4096 x 4096 px: tens of thousands of FFT tiles.
     let spec = FieldSpec {
-        width: 2048,
-        height: 2048,
+        width: 4096,
+        height: 4096,
         morphology: Morphology::Columnar,
         style: Style::Clean,
         sdas_px: 5.0,
@@ -216,8 +216,55 @@ fn the_reports_lists_of_local_measurements_are_bounded() {
     assert!(lo <= mid && mid <= hi, "{lo} {mid} {hi}");
     // The listed tiles are spread over the field, not its first rows.
     let last_y = fft.tiles.iter().map(|t| t.y_um).fold(0.0, f64::max);
-    assert!(last_y > 0.8 * 2048.0 * 0.5, "{last_y}");
+    assert!(last_y > 0.8 * 4096.0 * 0.5, "{last_y}");
     // And the whole report stays small: under 200 bytes a listed tile.
     let json = serde_json::to_string(&rep).unwrap();
     assert!(json.len() < 200 * MAX_LOCALS, "{} bytes", json.len());
+    // The summary is described by the committed schema, with every object
+    // closed (no key written that it leaves out).
+    let full = report::build(
+        &["fine.png".to_string()],
+        &o,
+        std::slice::from_ref(&r),
+        &[],
+        "2026-12-04T00:00:00Z".into(),
+    );
+    let value: serde_json::Value = serde_json::from_str(&report::to_json(&full)).unwrap();
+    assert!(value
+        .pointer("/images/0/methods/fft/omitted/count")
+        .is_some());
+    let text = std::fs::read_to_string(
+        Path::new(env!("CARGO_MANIFEST_DIR")).join("schema/report.schema.json"),
+    )
+    .unwrap();
+    let mut schema: serde_json::Value = serde_json::from_str(&text).unwrap();
+    close(&mut schema);
+    let validator = jsonschema::validator_for(&schema).unwrap();
+    let errors: Vec<String> = validator
+        .iter_errors(&value)
+        .map(|e| format!("{e} at {}", e.instance_path))
+        .collect();
+    assert!(errors.is_empty(), "{errors:#?}");
+}
+
+/// Every object schema closed (`additionalProperties: false`), as in
+/// tests/schema.rs.
+fn close(v: &mut serde_json::Value) {
+    use serde_json::Value;
+    match v {
+        Value::Object(map) => {
+            let is_object = match map.get("type") {
+                Some(Value::String(t)) => t == "object",
+                Some(Value::Array(ts)) => ts.iter().any(|t| t == "object"),
+                _ => false,
+            };
+            if is_object && map.contains_key("properties") {
+                map.entry("additionalProperties")
+                    .or_insert(Value::Bool(false));
+            }
+            map.values_mut().for_each(close);
+        }
+        Value::Array(items) => items.iter_mut().for_each(close),
+        _ => {}
+    }
 }

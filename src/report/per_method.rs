@@ -166,11 +166,13 @@ pub struct LocalsOmitted {
 /// Most entries a method's list of local measurements holds in the report
 /// (tiles, lines, chains). An image measures thousands to a hundred
 /// thousand of them at 64 megapixels (110 889 FFT tiles on a fine field),
-/// which would make a report of hundreds of megabytes per image; 2000
+/// which would make a report of hundreds of megabytes per image; 10 000
 /// entries, spread over the whole field, still show how the spacing varies
-/// across it (a 45 x 45 grid of tiles), keep a report within about a
-/// megabyte per method, and leave the typical micrograph's lists whole.
-pub const MAX_LOCALS: usize = 2000;
+/// across it (a 100 x 100 grid of tiles), keep a report within a few
+/// megabytes per method, and leave the lists of a micrograph of a few
+/// megapixels whole (a 0.7-megapixel synthetic field of fine arms gave
+/// 2128 tiles, the ladder's tile sizes overlapping).
+pub const MAX_LOCALS: usize = 10_000;
 
 /// At most [`MAX_LOCALS`] of `items`, evenly spread over the list (which
 /// each method keeps in scan order), and the left-out ones summarised by
