@@ -408,6 +408,12 @@ pub fn load_bytes(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loade
     })
 }
 
+/// The checks [`load`] makes from the header before decoding (see
+/// [`check_size`]), for a header read with [`read_header`].
+pub fn check_header(path: &Path, header: &crate::memory::Header, opts: &LoadOptions) -> Result<()> {
+    check_size(path, header, opts)
+}
+
 /// The checks made from the header before decoding: the pixel limit, the
 /// smallest side, the pixels claimed against the file's size, and the
 /// estimated peak memory against the budget.

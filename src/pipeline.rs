@@ -423,13 +423,21 @@ pub fn measure_batch(
         inputs.iter().map(|_| std::sync::Mutex::new(None)).collect();
     rayon::in_place_scope(|scope| {
         for (input, slot) in inputs.iter().zip(&slots) {
-            // An image's share of the budget: its estimate; a file whose
+            // An image's share of the budget: its estimate. A file whose
             // header cannot be read fails at once in `measure_file` and
-            // needs only the fixed part.
+            // needs only the fixed part; one its header's checks refuse
+            // (over the budget, the pixel limit, the file-size rule) is
+            // refused there before decoding, so it waits for nothing.
             let need = match input {
-                Input::Image(p) if opts.load.memory_budget.is_some() => load::read_header(p)
-                    .map(|h| crate::memory::estimate_peak(&h))
-                    .unwrap_or(crate::memory::FIXED_BYTES),
+                Input::Image(p) if opts.load.memory_budget.is_some() => {
+                    match load::read_header(p) {
+                        Ok(h) if load::check_header(p, &h, &opts.load).is_ok() => {
+                            crate::memory::estimate_peak(&h)
+                        }
+                        Ok(_) => 0,
+                        Err(_) => crate::memory::FIXED_BYTES,
+                    }
+                }
                 _ => 0,
             };
             let reserved = gate.acquire(need);
