@@ -166,6 +166,15 @@ pub fn open_image(path: &Path) -> Result<std::io::BufReader<std::fs::File>> {
     }
 }
 
+/// The memory available to new programs, bytes: `MemAvailable` of
+/// /proc/meminfo (Linux); `None` elsewhere or when it cannot be read.
+pub fn available_memory() -> Option<u64> {
+    let text = std::fs::read_to_string("/proc/meminfo").ok()?;
+    let line = text.lines().find(|l| l.starts_with("MemAvailable:"))?;
+    let kib: u64 = line.split_whitespace().nth(1)?.parse().ok()?;
+    kib.checked_mul(1024)
+}
+
 /// The file an output path will land on, links resolved: the canonical path
 /// of an existing target, or the canonical folder joined with the name.
 /// `None` when the folder does not exist.

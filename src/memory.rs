@@ -75,21 +75,14 @@ pub fn estimate_peak(h: &Header) -> u64 {
 }
 
 /// The default budget: three quarters of the memory available when the run
-/// starts (Linux `MemAvailable`), leaving the rest to the system and other
-/// programs, since the estimates are upper bounds but not guarantees;
-/// [`FALLBACK_BUDGET_BYTES`] when it cannot be read.
+/// starts (Linux `MemAvailable`, [`crate::files::available_memory`]),
+/// leaving the rest to the system and other programs, since the estimates
+/// are upper bounds but not guarantees; [`FALLBACK_BUDGET_BYTES`] when it
+/// cannot be read.
 pub fn default_budget() -> u64 {
-    available_memory()
+    crate::files::available_memory()
         .map(|a| a / 4 * 3)
         .unwrap_or(FALLBACK_BUDGET_BYTES)
-}
-
-/// `MemAvailable` of /proc/meminfo, bytes (Linux); `None` elsewhere.
-fn available_memory() -> Option<u64> {
-    let text = std::fs::read_to_string("/proc/meminfo").ok()?;
-    let line = text.lines().find(|l| l.starts_with("MemAvailable:"))?;
-    let kib: u64 = line.split_whitespace().nth(1)?.parse().ok()?;
-    kib.checked_mul(1024)
 }
 
 /// Parses a memory size: a number with an optional unit, `B`, `K`/`KiB`,
