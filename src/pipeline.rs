@@ -427,9 +427,11 @@ pub fn measure_batch(
             // header cannot be read fails at once in `measure_file` and
             // needs only the fixed part; one its header's checks refuse
             // (over the budget, the pixel limit, the file-size rule) is
-            // refused there before decoding, so it waits for nothing.
+            // refused there before decoding, so it waits for nothing; so
+            // does any image once the run is interrupted (it is not begun).
+            let stopped = stop.load(std::sync::atomic::Ordering::SeqCst);
             let need = match input {
-                Input::Image(p) if opts.load.memory_budget.is_some() => {
+                Input::Image(p) if opts.load.memory_budget.is_some() && !stopped => {
                     match load::read_header(p) {
                         Ok(h) if load::check_header(p, &h, &opts.load).is_ok() => {
                             crate::memory::estimate_peak(&h)
