@@ -290,7 +290,7 @@ def write_images():
         "bomb-deflate-8000x8000.png",
         png_from([(b"IHDR", ihdr(side, side)), (b"IDAT", zeros_stream(side * (side + 1))), (b"IEND", b"")]),
         "deflate bomb: about 62 kB inflating to a complete 8000 x 8000 image (64 MB of zeros)",
-        "with --max-megapixels 50: error, over the limit, before decoding; exit 3",
+        "error from the header, before decoding: about 1000 pixels a byte of the file, more than a micrograph compresses to (with --max-megapixels 50: over the limit); exit 3",
     )
     case(
         IMAGES,

@@ -29,6 +29,34 @@ pub enum Error {
         height: u32,
         limit_mpx: f64,
     },
+    /// The header claims more pixels than the file's size can hold for a
+    /// real micrograph (see `memory::MAX_PIXELS_PER_FILE_BYTE`).
+    #[error(
+        "{}: the header claims {width}x{height} pixels ({:.1} megapixels) for a file of {file_bytes} bytes, {per_byte:.0} pixels a byte, beyond the {} a real micrograph compresses to; the header is likely damaged or forged, so the file is refused before decoding (give --allow-high-compression if the image is genuine)",
+        path.display(), (*width as f64) * (*height as f64) / 1e6, crate::memory::MAX_PIXELS_PER_FILE_BYTE
+    )]
+    ImplausibleSize {
+        path: PathBuf,
+        width: u32,
+        height: u32,
+        file_bytes: u64,
+        per_byte: f64,
+    },
+    /// The image's estimated peak memory exceeds the run's budget.
+    #[error(
+        "{}: image is {width}x{height} pixels; measuring it needs about {} of memory (estimated from its header), over the memory budget of {}; refused before decoding (raise --memory-budget if the machine has the memory)",
+        path.display(), crate::memory::fmt_bytes(*estimate), crate::memory::fmt_bytes(*budget)
+    )]
+    OverBudget {
+        path: PathBuf,
+        width: u32,
+        height: u32,
+        estimate: u64,
+        budget: u64,
+    },
+    /// Memory for one of the image's large buffers could not be had.
+    #[error("{}: not enough memory to {what}", path.display())]
+    OutOfMemory { path: PathBuf, what: String },
     #[error("{}: image is {width}x{height} pixels, too small to measure (at least {min}x{min} needed)", path.display())]
     TooSmall {
         path: PathBuf,

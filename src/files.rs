@@ -133,6 +133,48 @@ pub fn read_image_bytes(path: &Path) -> Result<Vec<u8>> {
     }
 }
 
+/// The size in bytes of an image file, without reading it (the same
+/// refusals as [`read_image_bytes`]).
+pub fn image_file_len(path: &Path) -> Result<u64> {
+    match kind(path) {
+        Kind::Regular => std::fs::metadata(path)
+            .map(|m| m.len())
+            .map_err(|source| Error::Read {
+                path: path.to_path_buf(),
+                source,
+            }),
+        _ => read_image_bytes(path).map(|b| b.len() as u64),
+    }
+}
+
+/// An image file opened for reading its header (buffered; the same
+/// refusals as [`read_image_bytes`]).
+pub fn open_image(path: &Path) -> Result<std::io::BufReader<std::fs::File>> {
+    match kind(path) {
+        Kind::Regular => std::fs::File::open(path)
+            .map(std::io::BufReader::new)
+            .map_err(|source| Error::Read {
+                path: path.to_path_buf(),
+                source,
+            }),
+        _ => read_image_bytes(path).and_then(|_| {
+            Err(Error::Input {
+                path: path.to_path_buf(),
+                reason: "is not a regular file".into(),
+            })
+        }),
+    }
+}
+
+/// The memory available to new programs, bytes: `MemAvailable` of
+/// /proc/meminfo (Linux); `None` elsewhere or when it cannot be read.
+pub fn available_memory() -> Option<u64> {
+    let text = std::fs::read_to_string("/proc/meminfo").ok()?;
+    let line = text.lines().find(|l| l.starts_with("MemAvailable:"))?;
+    let kib: u64 = line.split_whitespace().nth(1)?.parse().ok()?;
+    kib.checked_mul(1024)
+}
+
 /// The file an output path will land on, links resolved: the canonical path
 /// of an existing target, or the canonical folder joined with the name.
 /// `None` when the folder does not exist.

@@ -17,6 +17,7 @@ pub mod interpret;
 pub mod journal;
 pub mod load;
 pub mod manual;
+pub mod memory;
 pub mod methods;
 pub mod overlay;
 pub mod packbits;

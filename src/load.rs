@@ -6,7 +6,7 @@
 //! reduced to luminance with the ITU-R BT.709 weights (0.2126, 0.7152, 0.0722).
 
 use crate::error::{Error, Result};
-use image::{DynamicImage, ImageFormat, ImageReader};
+use image::{DynamicImage, ImageDecoder, ImageFormat, ImageReader};
 use sha2::{Digest, Sha256};
 use std::io::Cursor;
 use std::path::{Path, PathBuf};
@@ -69,16 +69,26 @@ pub struct Loaded {
     pub warnings: Vec<String>,
 }
 
-/// Limits applied while loading.
+/// Limits applied while loading, all checked from the header before
+/// decoding.
 #[derive(Clone, Copy, Debug)]
 pub struct LoadOptions {
     pub max_megapixels: f64,
+    /// Bytes an image's estimated peak ([`crate::memory::estimate_peak`])
+    /// may reach; `None` checks no budget.
+    pub memory_budget: Option<u64>,
+    /// Accept a file that claims more pixels per byte than a real
+    /// micrograph can be compressed to
+    /// ([`crate::memory::MAX_PIXELS_PER_FILE_BYTE`]).
+    pub allow_high_compression: bool,
 }
 
 impl Default for LoadOptions {
     fn default() -> Self {
         Self {
             max_megapixels: DEFAULT_MAX_MEGAPIXELS,
+            memory_budget: None,
+            allow_high_compression: false,
         }
     }
 }
@@ -318,13 +328,25 @@ pub fn load_bytes(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loade
     ) {
         return Err(format_err(format!("{format:?} files are not supported")));
     }
-    let (width, height) = match reader.into_dimensions() {
-        Ok(d) => d,
+    let (width, height, decoded_bytes_per_px) = match reader.into_decoder() {
+        Ok(d) => {
+            let (w, h) = d.dimensions();
+            (w, h, d.color_type().bytes_per_pixel() as u64)
+        }
         Err(_) if format == ImageFormat::Tiff => return load_tiff_direct(path, bytes, opts),
         Err(e @ image::ImageError::Unsupported(_)) => return Err(image_err(e)),
         Err(e) => return Err(decode_err(format!("header unreadable: {e}"))),
     };
-    check_size(path, width, height, opts)?;
+    check_size(
+        path,
+        &crate::memory::Header {
+            width,
+            height,
+            decoded_bytes_per_px,
+            file_bytes: bytes.len() as u64,
+        },
+        opts,
+    )?;
 
     let mut warnings = Vec::new();
     let mut resolution = None;
@@ -360,7 +382,10 @@ pub fn load_bytes(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loade
     if alpha_only(&decoded) {
         return Err(alpha_only_err(path));
     }
-    let (mut image, bit_depth) = to_gray(decoded);
+    let (mut image, bit_depth) = to_gray(decoded).ok_or_else(|| Error::OutOfMemory {
+        path: path.to_path_buf(),
+        what: "hold its grey levels".into(),
+    })?;
     replace_non_finite(path, &mut image, &mut warnings)?;
     if format == ImageFormat::Jpeg {
         let missing = jpeg_fill_rows(&image);
@@ -383,7 +408,17 @@ pub fn load_bytes(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loade
     })
 }
 
-fn check_size(path: &Path, width: u32, height: u32, opts: &LoadOptions) -> Result<()> {
+/// The checks [`load`] makes from the header before decoding (see
+/// [`check_size`]), for a header read with [`read_header`].
+pub fn check_header(path: &Path, header: &crate::memory::Header, opts: &LoadOptions) -> Result<()> {
+    check_size(path, header, opts)
+}
+
+/// The checks made from the header before decoding: the pixel limit, the
+/// smallest side, the pixels claimed against the file's size, and the
+/// estimated peak memory against the budget.
+fn check_size(path: &Path, header: &crate::memory::Header, opts: &LoadOptions) -> Result<()> {
+    let (width, height) = (header.width, header.height);
     let mpx = width as f64 * height as f64 / 1e6;
     if mpx > opts.max_megapixels {
         return Err(Error::TooLarge {
@@ -401,7 +436,90 @@ fn check_size(path: &Path, width: u32, height: u32, opts: &LoadOptions) -> Resul
             min: MIN_SIDE_PX,
         });
     }
+    let px = width as u64 * height as u64;
+    let per_byte = px as f64 / header.file_bytes.max(1) as f64;
+    if px > crate::memory::COMPRESSION_CHECK_MIN_PX
+        && per_byte > crate::memory::MAX_PIXELS_PER_FILE_BYTE
+        && !opts.allow_high_compression
+    {
+        return Err(Error::ImplausibleSize {
+            path: path.to_path_buf(),
+            width,
+            height,
+            file_bytes: header.file_bytes,
+            per_byte,
+        });
+    }
+    if let Some(budget) = opts.memory_budget {
+        let estimate = crate::memory::estimate_peak(header);
+        if estimate > budget {
+            return Err(Error::OverBudget {
+                path: path.to_path_buf(),
+                width,
+                height,
+                estimate,
+                budget,
+            });
+        }
+    }
     Ok(())
+}
+
+/// The header of an image file, read without decoding its pixels (for the
+/// batch's admission, [`crate::pipeline::measure_batch`]); the same facts
+/// [`load`] checks before decoding.
+pub fn read_header(path: &Path) -> Result<crate::memory::Header> {
+    use image::ImageDecoder;
+    let file_bytes = crate::files::image_file_len(path)?;
+    let unreadable = |reason: String| Error::Decode {
+        path: path.to_path_buf(),
+        reason: format!("header unreadable: {reason}"),
+    };
+    let reader = ImageReader::new(crate::files::open_image(path)?)
+        .with_guessed_format()
+        .map_err(|e| unreadable(e.to_string()))?;
+    let from_image_crate = match reader.format() {
+        Some(_) => reader.into_decoder().ok().map(|d| {
+            let (w, h) = d.dimensions();
+            (w, h, d.color_type().bytes_per_pixel() as u64)
+        }),
+        None => None,
+    };
+    let (width, height, decoded_bytes_per_px) = match from_image_crate {
+        Some(v) => v,
+        None => {
+            // TIFF layouts the image crate does not take (see load_bytes).
+            let mut d = tiff::decoder::Decoder::new(crate::files::open_image(path)?)
+                .map_err(|e| unreadable(e.to_string()))?;
+            let (w, h) = d.dimensions().map_err(|e| unreadable(e.to_string()))?;
+            let ct = d.colortype().map_err(|e| unreadable(e.to_string()))?;
+            (w, h, tiff_bytes_per_px(ct))
+        }
+    };
+    Ok(crate::memory::Header {
+        width,
+        height,
+        decoded_bytes_per_px,
+        file_bytes,
+    })
+}
+
+/// Bytes a pixel of the tiff crate's decoded samples.
+fn tiff_bytes_per_px(ct: tiff::ColorType) -> u64 {
+    use tiff::ColorType::*;
+    let (bits, samples) = match ct {
+        Gray(b) => (b, 1),
+        GrayA(b) => (b, 2),
+        RGB(b) | YCbCr(b) | Lab(b) => (b, 3),
+        RGBA(b) | CMYK(b) => (b, 4),
+        Multiband {
+            bit_depth,
+            num_samples,
+        } => (bit_depth, num_samples),
+        // Any layout not listed: the widest the crate decodes to.
+        _ => (64, 4),
+    };
+    (bits as u64).div_ceil(8).max(1) * samples as u64
 }
 
 /// The error for PackBits data whose structure does not fit the image
@@ -542,7 +660,17 @@ fn load_tiff_direct(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loa
     let (width, height) = d
         .dimensions()
         .map_err(|e| decode_err(format!("TIFF header unreadable: {e}")))?;
-    check_size(path, width, height, opts)?;
+    let channels_hint = d.colortype().map(tiff_bytes_per_px).unwrap_or(8);
+    check_size(
+        path,
+        &crate::memory::Header {
+            width,
+            height,
+            decoded_bytes_per_px: channels_hint,
+            file_bytes: bytes.len() as u64,
+        },
+        opts,
+    )?;
     let px = width as usize * height as usize;
     let mut limits = Limits::default();
     limits.decoding_buffer_size = px.saturating_mul(32).saturating_add(64 << 20);
@@ -579,7 +707,7 @@ fn load_tiff_direct(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loa
         return Err(alpha_only_err(path));
     }
     let (data, depth) = match result {
-        DecodingResult::U8(v) => (samples_to_gray(&v, channels, 1.0 / 255.0), 8),
+        DecodingResult::U8(v) => (samples_to_gray(&v, channels, 1.0 / 255.0), 8u8),
         DecodingResult::U16(v) => (samples_to_gray(&v, channels, 1.0 / 65535.0), 16),
         DecodingResult::F32(v) => (float_to_unit(&v, channels), 32),
         DecodingResult::F64(v) => (float_to_unit(&v, channels), 32),
@@ -589,6 +717,10 @@ fn load_tiff_direct(path: &Path, bytes: &[u8], opts: &LoadOptions) -> Result<Loa
             ))
         }
     };
+    let data = data.ok_or_else(|| Error::OutOfMemory {
+        path: path.to_path_buf(),
+        what: "hold its grey levels".into(),
+    })?;
     if data.len() != px {
         return Err(decode_err(format!(
             "the TIFF holds {} samples for {width} x {height} pixels",
@@ -690,55 +822,64 @@ const BT709: [f32; 3] = [0.2126, 0.7152, 0.0722];
 /// range a float TIFF can hold overflows (a span of f32::MIN to f32::MAX,
 /// or of nearly the whole f64 range); non-finite samples stay non-finite
 /// for `replace_non_finite`.
-fn float_to_unit<T: Copy + Into<f64>>(samples: &[T], channels: usize) -> Vec<f32> {
-    let quarter: Vec<f64> = match channels {
-        1 | 2 => samples
-            .chunks_exact(channels)
-            .map(|c| c[0].into() / 4.0)
-            .collect(),
-        _ => samples
-            .chunks_exact(channels)
-            .map(|c| {
+fn float_to_unit<T: Copy + Into<f64>>(samples: &[T], channels: usize) -> Option<Vec<f32>> {
+    // The quarter of each pixel's value, computed where it is needed (once
+    // for the range, once for the result) rather than held: 8 bytes a
+    // pixel less at the peak of a float TIFF's loading.
+    let quarter = |c: &[T]| -> f64 {
+        match channels {
+            1 | 2 => c[0].into() / 4.0,
+            _ => {
                 let l = |k: usize| BT709[k] as f64 * (c[k].into() / 4.0);
                 l(0) + l(1) + l(2)
-            })
-            .collect(),
+            }
+        }
     };
-    let (lo, hi) = quarter
-        .iter()
+    let channels = channels.max(1);
+    let (lo, hi) = samples
+        .chunks_exact(channels)
+        .map(quarter)
         .filter(|v| v.is_finite())
-        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
             (a.min(v), b.max(v))
         });
     let rescale = lo.is_finite() && (lo < 0.0 || hi > 0.25) && hi > lo;
-    quarter
-        .into_iter()
-        .map(|v| {
+    crate::memory::try_collect(
+        samples.len() / channels,
+        samples.chunks_exact(channels).map(quarter).map(|v| {
             if rescale {
                 ((v - lo) / (hi - lo)) as f32
             } else {
                 (4.0 * v) as f32
             }
-        })
-        .collect()
+        }),
+    )
 }
 
-fn samples_to_gray<T: Copy + Into<f32>>(samples: &[T], channels: usize, scale: f32) -> Vec<f32> {
+/// `None` when the grey image's memory cannot be had (a fallible
+/// reservation: the image's error, not the end of the run).
+fn samples_to_gray<T: Copy + Into<f32>>(
+    samples: &[T],
+    channels: usize,
+    scale: f32,
+) -> Option<Vec<f32>> {
+    let n = samples.len() / channels.max(1);
     match channels {
-        1 | 2 => samples
-            .chunks_exact(channels)
-            .map(|c| c[0].into() * scale)
-            .collect(),
-        _ => samples
-            .chunks_exact(channels)
-            .map(|c| {
+        1 | 2 => crate::memory::try_collect(
+            n,
+            samples.chunks_exact(channels).map(|c| c[0].into() * scale),
+        ),
+        _ => crate::memory::try_collect(
+            n,
+            samples.chunks_exact(channels).map(|c| {
                 (BT709[0] * c[0].into() + BT709[1] * c[1].into() + BT709[2] * c[2].into()) * scale
-            })
-            .collect(),
+            }),
+        ),
     }
 }
 
-fn to_gray(img: DynamicImage) -> (GrayImage, u8) {
+/// `None` when the grey image's memory cannot be had.
+fn to_gray(img: DynamicImage) -> Option<(GrayImage, u8)> {
     let (w, h) = (img.width() as usize, img.height() as usize);
     let (data, depth) = match &img {
         DynamicImage::ImageLuma8(b) => (samples_to_gray(b.as_raw(), 1, 1.0 / 255.0), 8),
@@ -756,15 +897,16 @@ fn to_gray(img: DynamicImage) -> (GrayImage, u8) {
             (samples_to_gray(b.as_raw(), 1, 1.0), 32)
         }
     };
-    let data = data.into_iter().map(|v| v.clamp(0.0, 1.0)).collect();
-    (
+    // In place (same element type): no second allocation.
+    let data = data?.into_iter().map(|v| v.clamp(0.0, 1.0)).collect();
+    Some((
         GrayImage {
             width: w,
             height: h,
             data,
         },
         depth,
-    )
+    ))
 }
 
 #[cfg(test)]
@@ -784,7 +926,7 @@ mod tests {
     fn bt709_luma_of_primaries() {
         // ITU-R BT.709-6, item 3.2: Y = 0.2126 R + 0.7152 G + 0.0722 B.
         let px: [u8; 9] = [255, 0, 0, 0, 255, 0, 0, 0, 255];
-        let g = samples_to_gray(&px, 3, 1.0 / 255.0);
+        let g = samples_to_gray(&px, 3, 1.0 / 255.0).unwrap();
         assert!((g[0] - 0.2126).abs() < 1e-6);
         assert!((g[1] - 0.7152).abs() < 1e-6);
         assert!((g[2] - 0.0722).abs() < 1e-6);

@@ -29,8 +29,22 @@ pub const BLUE: Rgb<u8> = Rgb([40, 110, 255]);
 /// The grey image as RGB, for drawing on.
 pub fn to_rgb(img: &GrayImage) -> RgbImage {
     RgbImage::from_fn(img.width as u32, img.height as u32, |x, y| {
-        let v = (img.get(x as usize, y as usize).clamp(0.0, 1.0) * 255.0).round() as u8;
+        let v = level(img.get(x as usize, y as usize));
         Rgb([v, v, v])
+    })
+}
+
+/// The 8-bit level a grey value in [0, 1] is drawn with.
+fn level(v: f32) -> u8 {
+    (v.clamp(0.0, 1.0) * 255.0).round() as u8
+}
+
+/// The grey levels an overlay is drawn on, one byte a pixel: what
+/// [`measurement`] needs of the micrograph, kept instead of its floats
+/// (a quarter of the memory) while the methods run.
+pub fn grey_levels(img: &GrayImage) -> image::GrayImage {
+    image::GrayImage::from_fn(img.width as u32, img.height as u32, |x, y| {
+        image::Luma([level(img.get(x as usize, y as usize))])
     })
 }
 
@@ -70,12 +84,15 @@ fn segment(out: &mut RgbImage, cx: f64, cy: f64, dir_deg: f64, len: f64, colour:
 /// intercept lines with their arm centres, and the scale bar and excluded
 /// region.
 pub fn measurement(
-    img: &GrayImage,
+    img: &image::GrayImage,
     bar: Option<&ScaleBar>,
     outcomes: &[Outcome],
     fft_min_quality: f64,
 ) -> RgbImage {
-    let mut out = to_rgb(img);
+    let mut out = RgbImage::from_fn(img.width(), img.height(), |x, y| {
+        let v = img.get_pixel(x, y)[0];
+        Rgb([v, v, v])
+    });
     for o in outcomes {
         match &o.detail {
             Detail::Fft(f) => draw_fft(&mut out, f, fft_min_quality),

@@ -16,7 +16,6 @@ use crate::methods::intercept::InterceptParams;
 use crate::methods::{self, Inputs, Outcome};
 use crate::preprocess::{self, PreprocessParams};
 use crate::units::UmPerPx;
-use rayon::prelude::*;
 use std::path::PathBuf;
 
 pub use crate::methods::Method;
@@ -239,7 +238,15 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         annotations::add_to_mask(&text, m, w);
         excluded.extend(text.iter().map(|a| a.rect));
     }
-    let prepared = preprocess::prepare(&loaded.image, mask, &opts.preprocess);
+    // What the overlay needs of the micrograph (a byte a pixel); the
+    // micrograph's floats then become the prepared image's, so that no
+    // second float image is held while the methods run.
+    let overlay_base = opts
+        .overlay_dir
+        .as_ref()
+        .map(|_| crate::overlay::grey_levels(&loaded.image));
+    let image_width = loaded.image.width as u32;
+    let prepared = preprocess::prepare_owned(loaded.image, mask, &opts.preprocess);
     let um_per_px = calibration.um_per_px;
 
     let params = methods::Params {
@@ -262,46 +269,47 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
     for o in &outcomes {
         warnings.extend(o.warnings.iter().cloned());
     }
+    drop(prepared);
     warnings.extend(combine::disagreements(&outcomes, um_per_px));
     let sdas = combine::combine(&outcomes, um_per_px, calibration.rel_uncertainty);
     warnings.extend(sdas.warnings.iter().cloned());
     warnings.extend(crate::interpret::plausibility::field_warning(
-        loaded.image.width as u32,
+        image_width,
         um_per_px.get(),
     ));
     let implausible = sdas
         .value
         .and_then(crate::interpret::plausibility::sdas_warning);
     warnings.extend(implausible.iter().cloned());
-    let overlay = opts.overlay_dir.as_ref().and_then(|dir| {
-        let picture = crate::overlay::measurement(
-            &loaded.image,
-            bar.as_ref(),
-            &outcomes,
-            opts.fft.min_quality,
-        );
-        let target = dir.join(overlay_name(path, &info.sha256));
-        if opts.protected.is_protected(&target) {
-            warnings.push(Warning::new(
-                "overlay.not-written",
-                format!(
-                    "overlay not written: {} is an input of this run",
-                    target.display()
-                ),
-            ));
-            return None;
-        }
-        match crate::overlay::write_png(&target, &picture) {
-            Ok(()) => Some(target),
-            Err(e) => {
+    let overlay = opts
+        .overlay_dir
+        .as_ref()
+        .zip(overlay_base)
+        .and_then(|(dir, base)| {
+            let picture =
+                crate::overlay::measurement(&base, bar.as_ref(), &outcomes, opts.fft.min_quality);
+            let target = dir.join(overlay_name(path, &info.sha256));
+            if opts.protected.is_protected(&target) {
                 warnings.push(Warning::new(
                     "overlay.not-written",
-                    format!("overlay not written: {e}"),
+                    format!(
+                        "overlay not written: {} is an input of this run",
+                        target.display()
+                    ),
                 ));
-                None
+                return None;
             }
-        }
-    });
+            match crate::overlay::write_png(&target, &picture) {
+                Ok(()) => Some(target),
+                Err(e) => {
+                    warnings.push(Warning::new(
+                        "overlay.not-written",
+                        format!("overlay not written: {e}"),
+                    ));
+                    None
+                }
+            }
+        });
     let interpretation = opts
         .interpret
         .as_ref()
@@ -377,47 +385,89 @@ pub fn overlay_name(path: &std::path::Path, sha256: &str) -> String {
 /// `on_done` is called with each image's result as soon as it is finished
 /// (in the order they finish: for progress and results as they come);
 /// skipped entries are not images and are not passed to it.
+///
+/// With a memory budget (`opts.load.memory_budget`), images are admitted in
+/// input order, each when its estimated peak ([`crate::memory`], from the
+/// header, before decoding) fits beside those of the images in progress: a
+/// large image waits until the ones before it are done and runs alone, and
+/// one over the whole budget is refused by [`measure_file`] with its
+/// estimate. Without a budget every image is admitted at once, as the
+/// thread pool allows.
 pub fn measure_batch(
     inputs: &[Input],
     opts: &MeasureOptions,
     on_done: &(dyn Fn(&ImageResult) + Sync),
     stop: &std::sync::atomic::AtomicBool,
 ) -> (Vec<ImageResult>, Vec<Skipped>) {
-    let results: Vec<Option<ImageResult>> = inputs
-        .par_iter()
-        .map(|input| {
-            // Once `stop` is set (an interrupt), images not yet begun are
-            // not measured; those in progress finish.
-            let stopped = stop.load(std::sync::atomic::Ordering::SeqCst);
-            let r = match input {
-                Input::Image(p) | Input::Missing(p) if stopped => {
-                    return Some(ImageResult::interrupted(p.clone(), opts));
-                }
-                Input::Unusable { path, .. } if stopped => {
-                    return Some(ImageResult::interrupted(path.clone(), opts));
-                }
-                Input::Image(p) => Some(measure_file(p, opts)),
-                Input::Missing(p) => Some(ImageResult::failed(
-                    p.clone(),
-                    crate::Error::Missing { path: p.clone() }.to_string(),
-                    opts,
-                )),
-                Input::Unusable { path, reason } => Some(ImageResult::failed(
-                    path.clone(),
-                    crate::Error::Input {
-                        path: path.clone(),
-                        reason: reason.clone(),
-                    }
-                    .to_string(),
-                    opts,
-                )),
-                Input::Skipped { .. } => None,
-            };
-            if let Some(r) = &r {
-                on_done(r);
+    let work = |input: &Input| -> Option<ImageResult> {
+        // Once `stop` is set (an interrupt), images not yet begun are
+        // not measured; those in progress finish.
+        let stopped = stop.load(std::sync::atomic::Ordering::SeqCst);
+        let r = match input {
+            Input::Image(p) | Input::Missing(p) if stopped => {
+                return Some(ImageResult::interrupted(p.clone(), opts));
             }
-            r
-        })
+            Input::Unusable { path, .. } if stopped => {
+                return Some(ImageResult::interrupted(path.clone(), opts));
+            }
+            Input::Image(p) => Some(measure_file(p, opts)),
+            Input::Missing(p) => Some(ImageResult::failed(
+                p.clone(),
+                crate::Error::Missing { path: p.clone() }.to_string(),
+                opts,
+            )),
+            Input::Unusable { path, reason } => Some(ImageResult::failed(
+                path.clone(),
+                crate::Error::Input {
+                    path: path.clone(),
+                    reason: reason.clone(),
+                }
+                .to_string(),
+                opts,
+            )),
+            Input::Skipped { .. } => None,
+        };
+        if let Some(r) = &r {
+            on_done(r);
+        }
+        r
+    };
+    let gate = crate::memory::Gate::new(opts.load.memory_budget.unwrap_or(u64::MAX));
+    let slots: Vec<std::sync::Mutex<Option<ImageResult>>> =
+        inputs.iter().map(|_| std::sync::Mutex::new(None)).collect();
+    rayon::in_place_scope(|scope| {
+        for (input, slot) in inputs.iter().zip(&slots) {
+            // An image's share of the budget: its estimate. A file whose
+            // header cannot be read fails at once in `measure_file` and
+            // needs only the fixed part; one its header's checks refuse
+            // (over the budget, the pixel limit, the file-size rule) is
+            // refused there before decoding, so it waits for nothing; so
+            // does any image once the run is interrupted (it is not begun).
+            let stopped = stop.load(std::sync::atomic::Ordering::SeqCst);
+            let need = match input {
+                Input::Image(p) if opts.load.memory_budget.is_some() && !stopped => {
+                    match load::read_header(p) {
+                        Ok(h) if load::check_header(p, &h, &opts.load).is_ok() => {
+                            crate::memory::estimate_peak(&h)
+                        }
+                        Ok(_) => 0,
+                        Err(_) => crate::memory::FIXED_BYTES,
+                    }
+                }
+                _ => 0,
+            };
+            let reserved = gate.acquire(need);
+            let (gate, work) = (&gate, &work);
+            scope.spawn(move |_| {
+                let r = work(input);
+                *slot.lock().unwrap_or_else(|e| e.into_inner()) = r;
+                gate.release(reserved);
+            });
+        }
+    });
+    let results: Vec<Option<ImageResult>> = slots
+        .into_iter()
+        .map(|s| s.into_inner().unwrap_or_else(|e| e.into_inner()))
         .collect();
     let skipped = inputs
         .iter()

@@ -41,6 +41,16 @@ pub fn default_background_sigma(width: usize, height: usize) -> f64 {
 
 /// Flattens illumination and normalises contrast.
 pub fn prepare(img: &GrayImage, mask: Option<Vec<bool>>, params: &PreprocessParams) -> Prepared {
+    prepare_owned(img.clone(), mask, params)
+}
+
+/// [`prepare`] on an image that is no longer needed: its buffer becomes the
+/// prepared image's (one float per pixel less than a copy).
+pub fn prepare_owned(
+    img: GrayImage,
+    mask: Option<Vec<bool>>,
+    params: &PreprocessParams,
+) -> Prepared {
     let sigma = params
         .background_sigma_px
         .unwrap_or_else(|| default_background_sigma(img.width, img.height));
@@ -48,12 +58,11 @@ pub fn prepare(img: &GrayImage, mask: Option<Vec<bool>>, params: &PreprocessPara
         None => gaussian_blur(&img.data, img.width, img.height, sigma),
         Some(m) => masked_gaussian_blur(&img.data, m, img.width, img.height, sigma),
     };
-    let mut flat: Vec<f32> = img
-        .data
-        .iter()
-        .zip(&background)
-        .map(|(v, b)| v - b)
-        .collect();
+    let mut flat = img.data;
+    for (v, b) in flat.iter_mut().zip(&background) {
+        *v -= b;
+    }
+    drop(background);
     let (median, spread) = robust_location_scale(&flat, mask.as_deref());
     let scale = if spread > 1e-6 { 1.0 / spread } else { 0.0 };
     for (i, v) in flat.iter_mut().enumerate() {

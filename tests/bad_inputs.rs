@@ -394,12 +394,14 @@ fn each_corpus_image_alone_gives_its_exit_status_and_a_complete_report() {
 }
 
 #[test]
-fn a_deflate_bomb_is_refused_from_its_header_under_a_lowered_limit() {
+fn a_deflate_bomb_is_refused_from_its_header() {
     // 8000 x 8000 = 64 megapixels of zeros, deflated into about 62 kB (the
-    // PNG IHDR gives the size before any data, ISO/IEC 15948 11.2.2). Under
-    // the default limit of 400 megapixels it is a legitimate, if flat,
-    // image; a user who lowers the limit gets it refused before any byte
-    // is inflated.
+    // PNG IHDR gives the size before any data, ISO/IEC 15948 11.2.2). It
+    // is under the default limit of 400 megapixels, but claims about 1000
+    // pixels a byte of the file, more than a real micrograph compresses to
+    // (`memory::MAX_PIXELS_PER_FILE_BYTE`): refused from its header; a user
+    // who lowers the limit gets it refused by the limit first, also before
+    // any byte is inflated.
     let dir = tempfile::tempdir().unwrap();
     let d = dir.path();
     std::fs::copy(
@@ -423,6 +425,14 @@ fn a_deflate_bomb_is_refused_from_its_header_under_a_lowered_limit() {
     let e = rep["images"][0]["error"].as_str().unwrap();
     assert!(
         e.starts_with("bomb.png: image is 8000x8000 pixels (64.0 megapixels), over the limit of 50 megapixels"),
+        "{e}"
+    );
+    let r = run(d, &["measure", "bomb.png", "--um-per-px", "1.25"]);
+    assert_eq!(r.code, 3, "{}", r.stderr);
+    let rep = json(&r.stdout, "the report");
+    let e = rep["images"][0]["error"].as_str().unwrap();
+    assert!(
+        e.starts_with("bomb.png: the header claims 8000x8000 pixels (64.0 megapixels) for a file of 62290 bytes"),
         "{e}"
     );
 }

@@ -146,15 +146,20 @@ fn the_pixel_limit_is_checked_from_the_header_before_decoding() {
     let e = load_bytes(Path::new("huge.png"), &bytes, &LoadOptions::default()).unwrap_err();
     assert!(matches!(e, Error::TooLarge { .. }), "{e}");
     assert!(e.to_string().contains("huge.png") && e.to_string().contains("2500.0 megapixels"));
-    // Under a raised limit the same file is refused for what it is: truncated.
-    let e = load_bytes(
-        Path::new("huge.png"),
-        &bytes,
-        &LoadOptions {
-            max_megapixels: 5000.0,
-        },
-    )
-    .unwrap_err();
+    // Under a raised limit the same file claims far more pixels than its
+    // bytes can hold for a micrograph: refused from the header too.
+    let raised = LoadOptions {
+        max_megapixels: 5000.0,
+        ..LoadOptions::default()
+    };
+    let e = load_bytes(Path::new("huge.png"), &bytes, &raised).unwrap_err();
+    assert!(matches!(e, Error::ImplausibleSize { .. }), "{e}");
+    // Told to accept it, it is refused for what it is: truncated.
+    let accepted = LoadOptions {
+        allow_high_compression: true,
+        ..raised
+    };
+    let e = load_bytes(Path::new("huge.png"), &bytes, &accepted).unwrap_err();
     assert!(matches!(e, Error::Decode { .. }), "{e}");
 }
 

@@ -159,6 +159,9 @@ fn the_schema_keeps_the_contracts_constraints() {
         "/$defs/Range/properties/note",
         "/$defs/Range/properties/status",
         "/$defs/Summary/properties/acceptance",
+        "/$defs/centres/properties/omitted",
+        "/$defs/fft/properties/omitted",
+        "/$defs/intercept/properties/omitted",
         "/$defs/image/properties/acceptance",
         "/$defs/image/properties/interpretation",
     ];

@@ -20,6 +20,7 @@ fuzz_target!(|data: &[u8]| {
     // part of what is tested.
     let opts = LoadOptions {
         max_megapixels: 0.25,
+        ..LoadOptions::default()
     };
     let loaded = match load_bytes(Path::new("fuzz-input"), data, &opts) {
         Ok(l) => l,

@@ -5,7 +5,7 @@
 //! the intercept method to lay test lines along the trunks; the same field
 //! serves any method or analysis that needs the arms' direction.
 
-use crate::blocks::blur::{box_widths, gaussian_blur_in_place, gaussian_blur_into};
+use crate::blocks::blur::{box_widths, gaussian_blur_in_place};
 
 /// Smoothed structure tensor components (Jxx, Jxy, Jyy), on a grid of
 /// pitch `d` pixels: every pixel when `d` is 1, else the means of d x d
@@ -19,10 +19,6 @@ pub struct Tensor {
     pub jxx: Vec<f32>,
     pub jxy: Vec<f32>,
     pub jyy: Vec<f32>,
-    /// Scratch of the blurs.
-    pub tmp: Vec<f32>,
-    /// The gradient products of every pixel, once a scale needed them.
-    pub full: Option<[Vec<f32>; 3]>,
 }
 
 /// Products of the central-difference gradients (gx^2, gx gy, gy^2) of an
@@ -83,20 +79,22 @@ impl<'a> GradientProducts<'a> {
         }
     }
 
-    /// The products of every pixel, row-major.
-    pub fn full(&self) -> [Vec<f32>; 3] {
-        let n = self.w * self.h;
-        let (mut xx, mut xy, mut yy) = (vec![0.0f32; n], vec![0.0f32; n], vec![0.0f32; n]);
+    /// Product `k` (0: xx, 1: xy, 2: yy) of every pixel, row-major, into
+    /// `out` (resized as needed). One product at a time: the three whole
+    /// arrays are never held beside the three smoothed ones.
+    pub fn component_into(&self, k: usize, out: &mut Vec<f32>) {
+        out.clear();
+        out.resize(self.w * self.h, 0.0);
+        let mut rows = [
+            vec![0.0f32; self.w],
+            vec![0.0f32; self.w],
+            vec![0.0f32; self.w],
+        ];
         for y in 0..self.h {
-            let r = y * self.w..(y + 1) * self.w;
-            self.row(
-                y,
-                &mut xx[r.clone()],
-                &mut xy[r.clone()],
-                &mut yy[r.clone()],
-            );
+            let [xx, xy, yy] = &mut rows;
+            self.row(y, xx, xy, yy);
+            out[y * self.w..(y + 1) * self.w].copy_from_slice(&rows[k.min(2)]);
         }
-        [xx, xy, yy]
     }
 
     /// Means of the products over the `d` x `d` blocks of the image (blocks
@@ -156,8 +154,6 @@ impl Tensor {
             jxx: Vec::new(),
             jxy: Vec::new(),
             jyy: Vec::new(),
-            tmp: Vec::new(),
-            full: None,
         }
     }
 
@@ -180,20 +176,23 @@ impl Tensor {
     /// same granularity as at full resolution for sigma >= 8, see
     /// `preprocess::box_widths`); of the pitches up to sigma/4 the one whose
     /// window's variance is nearest the full-resolution cascade's is used
-    /// ([`grid_pitch`]). Below sigma = 8 the grid is every pixel and the
-    /// blurs read the products directly into the reused buffers (the same
-    /// result as blurring at full resolution always, bit for bit).
+    /// ([`grid_pitch`]). Below sigma = 8 the grid is every pixel: each
+    /// product is written into its reused buffer and blurred there (the
+    /// same result as blurring at full resolution always, bit for bit).
     pub fn rebuild(&mut self, g: &GradientProducts, sigma: f64) {
         let d = grid_pitch(sigma);
         self.d = d;
         if d == 1 {
             (self.gw, self.gh) = (g.w, g.h);
-            let full = self.full.get_or_insert_with(|| g.full());
-            for (src, dst) in full
-                .iter()
-                .zip([&mut self.jxx, &mut self.jxy, &mut self.jyy])
+            // Each product computed into its smoothed array and blurred
+            // there in place: the same arithmetic as blurring a copy (the
+            // first pass reads the same values), without the copy.
+            for (k, dst) in [&mut self.jxx, &mut self.jxy, &mut self.jyy]
+                .into_iter()
+                .enumerate()
             {
-                gaussian_blur_into(src, dst, &mut self.tmp, g.w, g.h, sigma);
+                g.component_into(k, dst);
+                gaussian_blur_in_place(dst, g.w, g.h, sigma);
             }
             return;
         }
@@ -202,7 +201,7 @@ impl Tensor {
         let rest = coarse_sigma(sigma, d);
         g.block_means(d, [&mut self.jxx, &mut self.jxy, &mut self.jyy]);
         for dst in [&mut self.jxx, &mut self.jxy, &mut self.jyy] {
-            gaussian_blur_in_place(dst, &mut self.tmp, gw, gh, rest);
+            gaussian_blur_in_place(dst, gw, gh, rest);
         }
     }
 

@@ -28,6 +28,11 @@ pub(super) struct CalibrateArgs {
     /// Refuse images with more megapixels than this (checked before decoding).
     #[arg(long, default_value_t = DEFAULT_MAX_MEGAPIXELS, value_parser = parse_positive, allow_negative_numbers = true)]
     max_megapixels: f64,
+    /// Read files whose header claims more pixels per byte than a real
+    /// micrograph compresses to (refused by default as a damaged or forged
+    /// header).
+    #[arg(long)]
+    allow_high_compression: bool,
 }
 
 pub(super) fn run(args: CalibrateArgs) -> ExitCode {
@@ -47,6 +52,8 @@ pub(super) fn run(args: CalibrateArgs) -> ExitCode {
     }
     let opts = LoadOptions {
         max_megapixels: args.max_megapixels,
+        allow_high_compression: args.allow_high_compression,
+        ..LoadOptions::default()
     };
     let mut all_ok = true;
     let mut out = Vec::new();

@@ -40,6 +40,18 @@ pub(super) struct MeasureArgs {
     /// Refuse images with more megapixels than this (checked before decoding).
     #[arg(long, default_value_t = DEFAULT_MAX_MEGAPIXELS, value_parser = parse_positive, allow_negative_numbers = true)]
     max_megapixels: f64,
+    /// Memory the run may use (4G, 1500MB, 2.5GiB). Each image's peak is
+    /// estimated from its header before decoding: an image whose estimate
+    /// is over the budget is refused, and images are measured side by side
+    /// only while their estimates fit in it together. Default: three
+    /// quarters of the memory available when the run starts.
+    #[arg(long, value_parser = armspace::memory::parse_size)]
+    memory_budget: Option<u64>,
+    /// Measure files whose header claims more pixels per byte than a real
+    /// micrograph compresses to (refused by default as a damaged or forged
+    /// header).
+    #[arg(long)]
+    allow_high_compression: bool,
     /// How an intercept line's spacing is computed from its arm count.
     #[arg(long, value_enum, default_value = "centre-to-centre")]
     convention: ConventionArg,
@@ -184,6 +196,11 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
         calibration,
         load: LoadOptions {
             max_megapixels: args.max_megapixels,
+            memory_budget: Some(
+                args.memory_budget
+                    .unwrap_or_else(armspace::memory::default_budget),
+            ),
+            allow_high_compression: args.allow_high_compression,
         },
         preprocess: PreprocessParams::default(),
         fft: FftParams::default(),

@@ -51,7 +51,7 @@
 use crate::blocks::centres::{distance, maxima, neck_between, Centre};
 use crate::blocks::point_pattern::{kd_tree, nearest_distances, random_hard_core, SplitMix};
 use crate::preprocess::Prepared;
-use crate::segment::{segment, SegmentParams};
+use crate::segment::{segment, SegmentParams, Segmentation};
 use crate::units::Pixels;
 use kiddo::SquaredEuclidean;
 
@@ -220,18 +220,25 @@ pub fn measure(img: &Prepared, params: &CentresParams) -> CentresOutcome {
     let Some(seg) = segment(img, &params.segment) else {
         return CentresOutcome::none("no arm centres: the image does not separate into two phases");
     };
-    let masked = |i: usize| img.mask.as_ref().is_some_and(|m| m[i]);
-    let other: Vec<bool> = (0..w * h)
-        .map(|i| !masked(i) && !seg.foreground[i])
-        .collect();
-    // The segmentation's foreground is the darker phase when inverted.
-    let phases = [
-        (seg.foreground.as_slice(), seg.inverted),
-        (other.as_slice(), !seg.inverted),
-    ];
+    // Only the phase indicator is used here: the smoothed values are let go
+    // at once (a float per pixel).
+    let Segmentation {
+        foreground: mut phase,
+        inverted,
+        ..
+    } = seg;
     let mut best: Option<CentresOutcome> = None;
-    for (phase, darker) in phases {
-        let mut o = analyse_phase(phase, w, h, params);
+    // The segmentation's foreground first (the darker phase when inverted),
+    // then the other phase, computed in place over it: unmasked pixels not
+    // of the foreground.
+    for darker in [inverted, !inverted] {
+        if darker != inverted {
+            let mask = img.mask.as_deref();
+            for (i, v) in phase.iter_mut().enumerate() {
+                *v = !mask.is_some_and(|m| m[i]) && !*v;
+            }
+        }
+        let mut o = analyse_phase(&phase, w, h, params);
         o.arm_phase = Some(if darker { "darker" } else { "brighter" });
         let excess = |o: &CentresOutcome| match (o.parallel_fraction, o.chance_parallel_max) {
             (Some(c), Some(m)) => c - m,
@@ -254,7 +261,11 @@ pub fn measure(img: &Prepared, params: &CentresParams) -> CentresOutcome {
 
 /// The centres, chains, chance test and statistics of one phase.
 fn analyse_phase(phase: &[bool], w: usize, h: usize, params: &CentresParams) -> CentresOutcome {
-    let d = distance(phase, w, h);
+    let Some(d) = distance(phase, w, h) else {
+        return CentresOutcome::none(
+            "no arm centres: not enough memory for the distance transform of the image",
+        );
+    };
     // A body must be at least 3 px across to be resolved (the segmentation
     // removes anything smaller than 3 x 3 px).
     let all = maxima(&d, w, h, 1.5);

@@ -48,7 +48,14 @@ pub struct CentresReport {
     pub reason: Option<String>,
     /// A figure without the support a value needs; never used.
     pub indicative: Option<f64>,
+    /// The chains, at most `MAX_LOCALS` of them (spread evenly over all
+    /// when there are more; see `omitted`).
     pub chains: Vec<ChainReport>,
+    /// The chains not listed, summarised (only when there are more than
+    /// `MAX_LOCALS`).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    #[schemars(with = "LocalsOmitted")]
+    pub omitted: Option<LocalsOmitted>,
 }
 
 #[derive(Serialize, Deserialize, JsonSchema, Debug)]
@@ -78,7 +85,14 @@ pub struct InterceptReport {
     /// used.
     #[schemars(extend("exclusiveMinimum" = 0))]
     pub indicative: Option<f64>,
+    /// The test lines, at most `MAX_LOCALS` of them (spread evenly over
+    /// all when there are more; see `omitted`).
     pub lines: Vec<LineReport>,
+    /// The lines not listed, summarised (only when there are more than
+    /// `MAX_LOCALS`).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    #[schemars(with = "LocalsOmitted")]
+    pub omitted: Option<LocalsOmitted>,
 }
 
 /// A test line, its ends in um from the top-left corner.
@@ -127,7 +141,77 @@ pub struct FftReport {
         extend("exclusiveMinimum" = 0)
     )]
     pub indicative: Option<f64>,
+    /// The analysed tiles, at most `MAX_LOCALS` of them (spread evenly over
+    /// all when there are more; see `omitted`).
     pub tiles: Vec<TileReport>,
+    /// The tiles not listed, summarised (only when there are more than
+    /// `MAX_LOCALS`).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    #[schemars(with = "LocalsOmitted")]
+    pub omitted: Option<LocalsOmitted>,
+}
+
+/// Local measurements a list leaves out: how many, and the spread of their
+/// spacings.
+#[derive(Serialize, Deserialize, JsonSchema, Debug, PartialEq)]
+pub struct LocalsOmitted {
+    /// Entries not listed.
+    #[schemars(range(min = 1))]
+    pub count: usize,
+    /// Smallest, median and largest spacing among them, um (null when
+    /// none of them has a spacing).
+    pub sdas_um_min: Option<f64>,
+    pub sdas_um_median: Option<f64>,
+    pub sdas_um_max: Option<f64>,
+}
+
+/// Most entries a method's list of local measurements holds in the report
+/// (tiles, lines, chains). An image measures thousands to a hundred
+/// thousand of them at 64 megapixels (110 889 FFT tiles on a fine field),
+/// which would make a report of hundreds of megabytes per image; 10 000
+/// entries, spread over the whole field, still show how the spacing varies
+/// across it (a 100 x 100 grid of tiles), keep a report within a few
+/// megabytes per method, and leave the lists of a micrograph of a few
+/// megapixels whole (a 0.7-megapixel synthetic field of fine arms gave
+/// 2128 tiles, the ladder's tile sizes overlapping).
+pub const MAX_LOCALS: usize = 10_000;
+
+/// At most [`MAX_LOCALS`] of `items`, evenly spread over the list (which
+/// each method keeps in scan order), and the left-out ones summarised by
+/// their spacings (`sdas` of an entry, um).
+fn capped<T>(items: Vec<T>, sdas: impl Fn(&T) -> Option<f64>) -> (Vec<T>, Option<LocalsOmitted>) {
+    let n = items.len();
+    if n <= MAX_LOCALS {
+        return (items, None);
+    }
+    // Entry i * n / MAX_LOCALS for i in 0..MAX_LOCALS: distinct, ascending.
+    let mut keep = vec![false; n];
+    for i in 0..MAX_LOCALS {
+        keep[i * n / MAX_LOCALS] = true;
+    }
+    let mut kept = Vec::with_capacity(MAX_LOCALS);
+    let mut left: Vec<f64> = Vec::new();
+    for (item, k) in items.into_iter().zip(keep) {
+        if k {
+            kept.push(item);
+        } else if let Some(v) = sdas(&item).filter(|v| v.is_finite()) {
+            left.push(v);
+        }
+    }
+    let median = crate::stats::median(&left);
+    let (min, max) = left
+        .iter()
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
+            (a.min(v), b.max(v))
+        });
+    let some = !left.is_empty();
+    let omitted = LocalsOmitted {
+        count: n - kept.len(),
+        sdas_um_min: some.then_some(min),
+        sdas_um_median: median,
+        sdas_um_max: some.then_some(max),
+    };
+    (kept, Some(omitted))
 }
 
 /// A tile, its centre in um from the top-left corner.
@@ -180,6 +264,20 @@ pub(super) fn methods_report(
                 })
             }
             Detail::Centres(c) => {
+                let (chains, omitted) = capped(
+                    c.chains
+                        .iter()
+                        .map(|ch| ChainReport {
+                            points_um: ch
+                                .points
+                                .iter()
+                                .map(|p| [um(cal, p[0]), um(cal, p[1])])
+                                .collect(),
+                            sdas_um: um(cal, ch.spacing_px),
+                        })
+                        .collect(),
+                    |ch| Some(ch.sdas_um),
+                );
                 m.centres = Some(CentresReport {
                     value: value(o),
                     ci95: ci95(o),
@@ -194,18 +292,8 @@ pub(super) fn methods_report(
                     arm_phase: c.arm_phase,
                     reason: o.reason.clone(),
                     indicative: indicative(o),
-                    chains: c
-                        .chains
-                        .iter()
-                        .map(|ch| ChainReport {
-                            points_um: ch
-                                .points
-                                .iter()
-                                .map(|p| [um(cal, p[0]), um(cal, p[1])])
-                                .collect(),
-                            sdas_um: um(cal, ch.spacing_px),
-                        })
-                        .collect(),
+                    chains,
+                    omitted,
                 })
             }
         }
@@ -219,18 +307,8 @@ fn intercept_report(
     convention: Convention,
     lines_for_target: Option<usize>,
 ) -> InterceptReport {
-    InterceptReport {
-        value: i.value_px.map(|v| um(cal, v.0)),
-        ci95: i.ci95_px.map(|[a, b]| [um(cal, a.0), um(cal, b.0)]),
-        n_lines: i.n_lines,
-        sd: i.sd_px.map(|v| um(cal, v.0)),
-        rel_accuracy_pct: i.rel_accuracy_pct.map(|v| round(v, 2)),
-        lines_for_target,
-        convention: convention_name(convention),
-        reason: i.reason.clone(),
-        indicative: None,
-        lines: i
-            .lines
+    let (lines, omitted) = capped(
+        i.lines
             .iter()
             .map(|l| LineReport {
                 x0_um: um(cal, l.x0_px),
@@ -241,10 +319,38 @@ fn intercept_report(
                 sdas_um: um(cal, l.spacing_px),
             })
             .collect(),
+        |l| Some(l.sdas_um),
+    );
+    InterceptReport {
+        value: i.value_px.map(|v| um(cal, v.0)),
+        ci95: i.ci95_px.map(|[a, b]| [um(cal, a.0), um(cal, b.0)]),
+        n_lines: i.n_lines,
+        sd: i.sd_px.map(|v| um(cal, v.0)),
+        rel_accuracy_pct: i.rel_accuracy_pct.map(|v| round(v, 2)),
+        lines_for_target,
+        convention: convention_name(convention),
+        reason: i.reason.clone(),
+        indicative: None,
+        lines,
+        omitted,
     }
 }
 
 fn fft_report(f: &FftOutcome, cal: UmPerPx) -> FftReport {
+    let (tiles, omitted) = capped(
+        f.tiles
+            .iter()
+            .map(|t| TileReport {
+                x_um: um(cal, t.cx_px),
+                y_um: um(cal, t.cy_px),
+                sdas_um: finite(t.spacing_px).map(|v| um(cal, v)),
+                dir_deg: finite(t.dir_deg).map(|v| round(v, 2)),
+                quality: round(t.quality, 3),
+                used: t.used,
+            })
+            .collect(),
+        |t| t.sdas_um,
+    );
     FftReport {
         value: f.value_px.map(|v| um(cal, v.0)),
         ci95: f.ci95_px.map(|[a, b]| [um(cal, a.0), um(cal, b.0)]),
@@ -257,17 +363,7 @@ fn fft_report(f: &FftOutcome, cal: UmPerPx) -> FftReport {
         orientation_coherence: f.orientation_coherence.map(|v| round(v, 3)),
         reason: f.reason.clone(),
         indicative: None,
-        tiles: f
-            .tiles
-            .iter()
-            .map(|t| TileReport {
-                x_um: um(cal, t.cx_px),
-                y_um: um(cal, t.cy_px),
-                sdas_um: finite(t.spacing_px).map(|v| um(cal, v)),
-                dir_deg: finite(t.dir_deg).map(|v| round(v, 2)),
-                quality: round(t.quality, 3),
-                used: t.used,
-            })
-            .collect(),
+        tiles,
+        omitted,
     }
 }

@@ -637,7 +637,7 @@ fn phase_field(seg: Segmentation, sigma: f64) -> PhaseField {
         .map(|&f| if f { 1.0 } else { 0.0 })
         .collect();
     let (w, h) = (seg.width, seg.height);
-    gaussian_blur_indicator_in_place(&mut ind, &mut Vec::new(), w, h, sigma.max(0.5));
+    gaussian_blur_indicator_in_place(&mut ind, w, h, sigma.max(0.5));
     let sign = if seg.inverted { -1.0f32 } else { 1.0 };
     // The segmentation's smoothed values, taken over (not copied).
     let mut grey = seg.smoothed;
