@@ -965,3 +965,61 @@ fn a_default_composition_is_said() {
     );
     assert!(!i.warnings.iter().any(|w| w.contains("default C0")));
 }
+
+#[test]
+fn every_element_named_is_a_chemical_element() {
+    // IUPAC Periodic Table of the Elements: 118 named elements, hydrogen to
+    // oganesson, each symbol once.
+    let t = armspace::interpret::ELEMENT_SYMBOLS;
+    assert_eq!(t.len(), 118);
+    assert_eq!((t[0], t[13], t[28], t[117]), ("H", "Si", "Cu", "Og"));
+    let mut u = t.to_vec();
+    u.sort_unstable();
+    u.dedup();
+    assert_eq!(u.len(), 118);
+    // A composition: symbols as written.
+    assert!(armspace::interpret::parse_composition("Si=7,Mg=0.3").is_ok());
+    for bad in ["SI=7", "si=7", "Xx=1", "Sii=2"] {
+        let e = armspace::interpret::parse_composition(bad)
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("is not an element symbol"), "{bad}: {e}");
+    }
+    // A coarsening entry's solute, a composition limit and a composition
+    // term of a coefficient in a correlation file.
+    let coarsening = |solute: &str| {
+        user_file(&format!(
+            r#"{{"id": "x-coarse", "form": "coarsening", "sdas_unit": "um", "variable_unit": "s",
+            "coarsening": {{"solute": "{solute}", "prefactor": {{"value": 5.5}},
+              "gibbs_thomson_K_m": {{"value": 2.36e-7}}, "diffusivity_m2_per_s": {{"value": 2.4e-9}},
+              "liquidus_slope_K_per_wt_pct": {{"value": -3.377}}, "partition_coefficient": {{"value": 0.17}},
+              "ce_wt_pct": {{"value": 33.2}}, "melting_point_degC": {{"value": 660.32}},
+              "eutectic_temperature_degC": {{"value": 548.2}}, "max_solubility_wt_pct": {{"value": 5.65}}}},
+            "source": {{"authors": "Lab", "year": 2026, "title": "parameter set", "published_in": "report"}}}}"#
+        ))
+    };
+    assert!(parse(&coarsening("Cu"), "c.json", false).is_ok());
+    for bad in ["Xq", "CU", "copper"] {
+        let e = parse(&coarsening(bad), "c.json", false)
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("is not an element symbol") && e.contains("c.json"),
+            "{bad}: {e}"
+        );
+    }
+    let power = |key: &str| {
+        user_file(&format!(
+            r#"{{"id": "x-pow", "form": "cooling_rate", "sdas_unit": "um", "variable_unit": "K/s",
+            "coefficient": {{"value": 40, "linear": {{"{key}": 1.0}}}}, "exponent": 0.33,
+            "composition_wt_pct": {{"{key}": {{"min": 0, "max": 10}}}},
+            "source": {{"authors": "Lab", "year": 2026, "title": "fit", "published_in": "report"}}}}"#
+        ))
+    };
+    let ok = parse(&power("Si"), "p.json", false);
+    assert!(ok.is_ok(), "{:?}", ok.err());
+    let e = parse(&power("SI"), "p.json", false)
+        .unwrap_err()
+        .to_string();
+    assert!(e.contains("'SI' is not an element symbol"), "{e}");
+}

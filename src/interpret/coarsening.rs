@@ -118,6 +118,14 @@ impl CoarseningParams {
                         .into(),
             }
                 })?;
+        if !super::is_element_symbol(solute.trim()) {
+            return Err(Error::Correlation {
+                reason: format!(
+                    "coarsening: \"solute\" '{solute}' is not an element symbol (e.g. Si, Cu)"
+                ),
+            });
+        }
+        let solute = solute.trim().to_string();
         let positive = |v: f64| v > 0.0;
         let p = Self {
             solute,

@@ -656,6 +656,26 @@ impl Settings {
     }
 }
 
+/// The symbols of the 118 named chemical elements, by atomic number (IUPAC
+/// Periodic Table of the Elements, with the names of elements 113, 115, 117
+/// and 118 approved in 2016).
+pub const ELEMENT_SYMBOLS: [&str; 118] = [
+    "H", "He", "Li", "Be", "B", "C", "N", "O", "F", "Ne", "Na", "Mg", "Al", "Si", "P", "S", "Cl",
+    "Ar", "K", "Ca", "Sc", "Ti", "V", "Cr", "Mn", "Fe", "Co", "Ni", "Cu", "Zn", "Ga", "Ge", "As",
+    "Se", "Br", "Kr", "Rb", "Sr", "Y", "Zr", "Nb", "Mo", "Tc", "Ru", "Rh", "Pd", "Ag", "Cd", "In",
+    "Sn", "Sb", "Te", "I", "Xe", "Cs", "Ba", "La", "Ce", "Pr", "Nd", "Pm", "Sm", "Eu", "Gd", "Tb",
+    "Dy", "Ho", "Er", "Tm", "Yb", "Lu", "Hf", "Ta", "W", "Re", "Os", "Ir", "Pt", "Au", "Hg", "Tl",
+    "Pb", "Bi", "Po", "At", "Rn", "Fr", "Ra", "Ac", "Th", "Pa", "U", "Np", "Pu", "Am", "Cm", "Bk",
+    "Cf", "Es", "Fm", "Md", "No", "Lr", "Rf", "Db", "Sg", "Bh", "Hs", "Mt", "Ds", "Rg", "Cn", "Nh",
+    "Fl", "Mc", "Lv", "Ts", "Og",
+];
+
+/// Whether `s` is the symbol of a chemical element (case as written:
+/// "Si", not "SI" or "si").
+pub fn is_element_symbol(s: &str) -> bool {
+    ELEMENT_SYMBOLS.contains(&s)
+}
+
 /// Parses "C=0.1,Si=7" (wt%) into a composition.
 pub fn parse_composition(text: &str) -> Result<Composition> {
     let unusable = |reason: String| Error::Value { reason };
@@ -667,10 +687,7 @@ pub fn parse_composition(text: &str) -> Result<Composition> {
             ))
         })?;
         let el = el.trim();
-        let ok_symbol = (1..=2).contains(&el.len())
-            && el.chars().next().is_some_and(|c| c.is_ascii_uppercase())
-            && el.chars().skip(1).all(|c| c.is_ascii_lowercase());
-        if !ok_symbol {
+        if !is_element_symbol(el) {
             return Err(unusable(format!(
                 "'{el}' is not an element symbol (e.g. C, Si, Cu)"
             )));

@@ -190,6 +190,26 @@ fn validate(e: EntryRaw, origin: &str, builtin: bool) -> Result<Correlation> {
             }
         }
     };
+    // Every element named (composition limits, composition terms of a
+    // coefficient, a coarsening solute) must be a chemical element, written
+    // as its symbol: a misspelt "SI" would never match a composition.
+    let named: Vec<&str> = e
+        .composition_wt_pct
+        .keys()
+        .map(String::as_str)
+        .chain(match &law {
+            Law::Power { coefficient, .. } => coefficient.elements(),
+            _ => vec![],
+        })
+        .collect();
+    if let Some(el) = named
+        .iter()
+        .find(|el| !crate::interpret::is_element_symbol(el))
+    {
+        return Err(invalid(format!(
+            "'{el}' is not an element symbol (e.g. C, Si, Cu)"
+        )));
+    }
     for (el, r) in &e.composition_wt_pct {
         let ok = |v: Option<f64>| v.is_none_or(|v| v.is_finite() && v >= 0.0);
         if !ok(r.min) || !ok(r.max) || matches!((r.min, r.max), (Some(a), Some(b)) if a > b) {
