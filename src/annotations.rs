@@ -51,9 +51,16 @@
 //! margin (its strokes join the structure's components), text at an angle,
 //! and single characters or short labels of fewer than
 //! [`MIN_LINE_GLYPHS`] letters.
+//!
+//! Data bars, caption bands and the outside of a round field of view are
+//! found by [`find_frame`] (`annotations/frame.rs`, with its own notes).
 
 use crate::blocks::components::{label_runs, Runs};
 use crate::load::GrayImage;
+
+mod frame;
+use frame::add_outside_to_mask;
+pub use frame::find_frame;
 
 /// Grey levels at which the image is cut (see the module notes).
 pub const LEVELS: usize = 5;
@@ -98,12 +105,19 @@ pub const PAD: f64 = 0.3;
 pub enum AnnotationKind {
     /// One or more lines of letters or digits.
     Text,
+    /// A band of one flat level along an edge: a data bar or caption band
+    /// (see [`find_frame`]).
+    Band,
+    /// The flat outside of a round field of view (see [`find_frame`]).
+    OutsideField,
 }
 
 impl AnnotationKind {
     pub fn as_str(self) -> &'static str {
         match self {
             AnnotationKind::Text => "text",
+            AnnotationKind::Band => "band",
+            AnnotationKind::OutsideField => "outside_field",
         }
     }
 }
@@ -116,13 +130,22 @@ pub struct Annotation {
     pub rect: [u32; 4],
     /// Letters found in it (the largest count of any one cut level).
     pub glyphs: usize,
-    /// Median letter height (px).
+    /// Median letter height (px; 0 for a band or an outside field).
     pub letter_height_px: f64,
+    /// The round field of view kept, [cx, cy, semi-axis x, semi-axis y] in
+    /// px, for [`AnnotationKind::OutsideField`] (whose `rect` is the whole
+    /// image: it is left out by this ellipse, not by its rectangle).
+    pub field_px: Option<[f64; 4]>,
+    /// Why it was left out, when it is no text.
+    pub why: Option<String>,
 }
 
 impl Annotation {
     /// Why it was left out, for the report.
     pub fn reason(&self) -> String {
+        if let Some(w) = &self.why {
+            return w.clone();
+        }
         format!(
             "{} glyph-like shapes about {:.0} px high standing in lines: annotation text, whose letter pitch is no arm spacing",
             self.glyphs, self.letter_height_px
@@ -644,6 +667,8 @@ fn merge(lines: Vec<Line>, w: usize, h: usize) -> Vec<Annotation> {
             rect,
             glyphs: counts.values().copied().max().unwrap_or(0),
             letter_height_px: lh,
+            field_px: None,
+            why: None,
         })
         .collect();
     out.sort_by_key(|a| (a.rect[1], a.rect[0]));
@@ -653,6 +678,11 @@ fn merge(lines: Vec<Line>, w: usize, h: usize) -> Vec<Annotation> {
 /// The exclusion mask of `regions` (true = excluded), or'ed into `mask`.
 pub fn add_to_mask(regions: &[Annotation], mask: &mut [bool], w: usize) {
     for a in regions {
+        // The outside of a round field is left out by its ellipse.
+        if let Some(f) = a.field_px {
+            add_outside_to_mask(f, mask, w, mask.len() / w.max(1));
+            continue;
+        }
         let [x0, y0, x1, y1] = a.rect.map(|v| v as usize);
         for y in y0..=y1 {
             mask[y * w + x0..=y * w + x1].fill(true);

@@ -7,6 +7,7 @@
 //! the centres); magenta: the scale bar and its
 //! measured length; yellow: region excluded from measurement".
 
+use crate::annotations::Annotation;
 use crate::calibrate::scale_bar::ScaleBar;
 use crate::load::GrayImage;
 use crate::methods::centres::CentresOutcome;
@@ -81,11 +82,12 @@ fn segment(out: &mut RgbImage, cx: f64, cy: f64, dir_deg: f64, len: f64, colour:
 }
 
 /// The micrograph with what was measured: the FFT tiles' directions, the
-/// intercept lines with their arm centres, and the scale bar and excluded
-/// region.
+/// intercept lines with their arm centres, the scale bar and excluded
+/// region, and the annotations left out.
 pub fn measurement(
     img: &image::GrayImage,
     bar: Option<&ScaleBar>,
+    annotations: &[Annotation],
     outcomes: &[Outcome],
     fft_min_quality: f64,
 ) -> RgbImage {
@@ -101,7 +103,29 @@ pub fn measurement(
         }
     }
     draw_bar(&mut out, bar);
+    draw_annotations(&mut out, annotations);
     out
+}
+
+/// Each annotation left out, outlined in yellow: its box, or for the
+/// outside of a round field of view the rim of the field kept.
+fn draw_annotations(out: &mut RgbImage, annotations: &[Annotation]) {
+    for a in annotations {
+        match a.field_px {
+            Some([cx, cy, ax, ay]) => imageproc::drawing::draw_hollow_ellipse_mut(
+                out,
+                (cx.round() as i32, cy.round() as i32),
+                ax.round() as i32,
+                ay.round() as i32,
+                YELLOW,
+            ),
+            None => {
+                if let Some(r) = rect(a.rect, 0) {
+                    draw_hollow_rect_mut(out, r, YELLOW);
+                }
+            }
+        }
+    }
 }
 
 /// Each analysed tile's direction: cyan where it entered the value, short

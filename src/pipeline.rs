@@ -231,12 +231,30 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
     };
     // Annotation text is left out like the bar (its letter pitch is no arm
     // spacing).
-    let text = annotations::find_text(&loaded.image, mask.as_deref());
-    if !text.is_empty() {
+    let mut found = annotations::find_text(&loaded.image, mask.as_deref());
+    if !found.is_empty() {
         let (w, h) = (loaded.image.width, loaded.image.height);
         let m = mask.get_or_insert_with(|| vec![false; w * h]);
-        annotations::add_to_mask(&text, m, w);
-        excluded.extend(text.iter().map(|a| a.rect));
+        annotations::add_to_mask(&found, m, w);
+        excluded.extend(found.iter().map(|a| a.rect));
+    }
+    // So are data bars, caption bands and the outside of a round field of
+    // view (flat, and their edges are no structure), found around the text
+    // already left out.
+    let frame = annotations::find_frame(&loaded.image, mask.as_deref(), &found);
+    if !frame.is_empty() {
+        let (w, h) = (loaded.image.width, loaded.image.height);
+        let m = mask.get_or_insert_with(|| vec![false; w * h]);
+        annotations::add_to_mask(&frame, m, w);
+        // The outside of a round field is no rectangle: its ellipse is in
+        // its annotation.
+        excluded.extend(
+            frame
+                .iter()
+                .filter(|a| a.field_px.is_none())
+                .map(|a| a.rect),
+        );
+        found.extend(frame);
     }
     // What the overlay needs of the micrograph (a byte a pixel); the
     // micrograph's floats then become the prepared image's, so that no
@@ -286,8 +304,13 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         .as_ref()
         .zip(overlay_base)
         .and_then(|(dir, base)| {
-            let picture =
-                crate::overlay::measurement(&base, bar.as_ref(), &outcomes, opts.fft.min_quality);
+            let picture = crate::overlay::measurement(
+                &base,
+                bar.as_ref(),
+                &found,
+                &outcomes,
+                opts.fft.min_quality,
+            );
             let target = dir.join(overlay_name(path, &info.sha256));
             if opts.protected.is_protected(&target) {
                 warnings.push(Warning::new(
@@ -358,7 +381,7 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         calibration: Some(calibration),
         bar,
         excluded,
-        annotations: text,
+        annotations: found,
         methods: outcomes,
         sdas,
         warnings,

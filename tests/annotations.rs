@@ -11,8 +11,10 @@
 
 mod common;
 
+use armspace::annotations::{find_frame, AnnotationKind};
+use armspace::load::{load, LoadOptions};
 use armspace::pipeline::{measure_file, ImageResult, MeasureOptions};
-use armspace::synth::draw_text;
+use armspace::synth::{draw_text, write_set_styled, Style};
 use armspace::units::UmPerPx;
 use common::repo_file;
 use std::path::Path;
@@ -223,4 +225,235 @@ fn a_comb_of_short_bars_is_no_text() {
     write_png(&path, w, h, &g);
     let r = measure(&path);
     assert!(r.annotations.is_empty(), "{:?}", r.annotations);
+}
+
+// Data bars, caption bands and the outside of a round field of view. The
+// expectations are again those of the trade (common practice, no single
+// source): a flat bar or the dark ring outside an eyepiece's field stop
+// shows no structure, so it gives no arm spacing and does not move the
+// value of the field it frames.
+
+/// Deterministic noise in [-0.5, 0.5) (a 64-bit linear congruential
+/// generator's high bits).
+fn noise(seed: u64, n: usize) -> Vec<f32> {
+    let mut s = seed;
+    (0..n)
+        .map(|_| {
+            s = s
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            (s >> 40) as f32 / (1u64 << 24) as f32 - 0.5
+        })
+        .collect()
+}
+
+fn demo_grey() -> (Vec<f32>, usize, usize) {
+    let img = image::open(repo_file("fixtures/demo/plate-CVF-SP4-step12mm.png"))
+        .unwrap()
+        .to_luma8();
+    let (w, h) = (img.width() as usize, img.height() as usize);
+    (img.pixels().map(|p| p.0[0] as f32 / 255.0).collect(), w, h)
+}
+
+fn kinds(r: &ImageResult, kind: AnnotationKind) -> Vec<[u32; 4]> {
+    r.annotations
+        .iter()
+        .filter(|a| a.kind == kind)
+        .map(|a| a.rect)
+        .collect()
+}
+
+/// A black data bar `band` px deep with a line of light text, added below
+/// (or, `top`, above) a field.
+fn with_data_bar(g: &[f32], w: usize, h0: usize, band: usize, top: bool) -> (Vec<f32>, usize) {
+    let h = h0 + band;
+    let mut out = vec![0.0f32; w * h];
+    let off = if top { band } else { 0 };
+    out[off * w..(off + h0) * w].copy_from_slice(g);
+    let y = if top { 10 } else { h0 + 10 };
+    draw_text(
+        &mut out,
+        w,
+        h,
+        "X200 CVF SP4 12 MM",
+        16.0,
+        y as f64,
+        24.0,
+        0.4,
+        0.92,
+    );
+    (out, h)
+}
+
+#[test]
+fn a_data_bar_under_a_micrograph_leaves_its_value_and_is_reported() {
+    let plain_result = measure(&repo_file("fixtures/demo/plate-CVF-SP4-step12mm.png"));
+    let [lo, hi] = plain_result
+        .sdas
+        .ci95
+        .expect("the demo step has an interval");
+    let (g, w, h0) = demo_grey();
+    let dir = tempfile::tempdir().unwrap();
+    for top in [false, true] {
+        let (bar, h) = with_data_bar(&g, w, h0, 46, top);
+        let path = dir.path().join(format!("bar-{top}.png"));
+        write_png(&path, w, h, &bar);
+        let r = measure(&path);
+        let bands = kinds(&r, AnnotationKind::Band);
+        assert_eq!(bands.len(), 1, "{:?}", r.annotations);
+        let b = bands[0];
+        // The bar and at most the one pixel of its edge, across the width.
+        if top {
+            assert!(b[1] == 0 && (45..=47).contains(&b[3]), "{b:?}");
+        } else {
+            assert!(
+                b[3] as usize == h - 1 && (h0 - 1..=h0).contains(&(b[1] as usize)),
+                "{b:?}"
+            );
+        }
+        assert!(b[0] == 0 && b[2] as usize == w - 1, "{b:?}");
+        assert!(r.excluded.contains(&b));
+        let v = r.sdas.value.expect("the field with a bar has a value").0;
+        assert!(lo.0 <= v && v <= hi.0, "{v} outside [{}, {}]", lo.0, hi.0);
+    }
+}
+
+#[test]
+fn a_data_bar_on_a_featureless_field_gives_no_value() {
+    let (w, h0) = (800, 560);
+    let g: Vec<f32> = noise(7, w * h0).iter().map(|n| 0.5 + 0.08 * n).collect();
+    let (bar, h) = with_data_bar(&g, w, h0, 50, false);
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("bar.png");
+    write_png(&path, w, h, &bar);
+    let r = measure(&path);
+    assert!(r.sdas.value.is_none(), "{:?}", r.sdas.value);
+    assert_eq!(
+        kinds(&r, AnnotationKind::Band).len(),
+        1,
+        "{:?}",
+        r.annotations
+    );
+}
+
+/// The demo field seen through a round field stop of radius `radius` px:
+/// black outside.
+fn through_field_stop(radius: f64) -> (Vec<f32>, usize, usize) {
+    let (mut g, w, h) = demo_grey();
+    let (cx, cy) = (0.5 * w as f64, 0.5 * h as f64);
+    for y in 0..h {
+        for x in 0..w {
+            if (x as f64 + 0.5 - cx).hypot(y as f64 + 0.5 - cy) > radius {
+                g[y * w + x] = 0.0;
+            }
+        }
+    }
+    (g, w, h)
+}
+
+#[test]
+fn a_round_field_of_view_keeps_its_value_and_its_outside_is_reported() {
+    let plain_result = measure(&repo_file("fixtures/demo/plate-CVF-SP4-step12mm.png"));
+    let [lo, hi] = plain_result
+        .sdas
+        .ci95
+        .expect("the demo step has an interval");
+    let v0 = plain_result
+        .sdas
+        .value
+        .expect("the demo step has a value")
+        .0;
+    let dir = tempfile::tempdir().unwrap();
+    // A stop cut by the picture's top and bottom, and one seen whole.
+    for radius in [300.0, 250.0] {
+        let (g, w, h) = through_field_stop(radius);
+        let path = dir.path().join(format!("round-{radius}.png"));
+        write_png(&path, w, h, &g);
+        let r = measure(&path);
+        let outside: Vec<_> = r
+            .annotations
+            .iter()
+            .filter(|a| a.kind == AnnotationKind::OutsideField)
+            .collect();
+        assert_eq!(outside.len(), 1, "{:?}", r.annotations);
+        let [cx, cy, ax, ay] = outside[0].field_px.expect("its ellipse");
+        assert!(
+            (cx - 320.0).abs() < 2.0 && (cy - 256.0).abs() < 2.0,
+            "{cx} {cy}"
+        );
+        assert!(
+            (ax - radius).abs() < 3.0 && (ay - radius).abs() < 3.0,
+            "{ax} {ay}"
+        );
+        assert!(
+            kinds(&r, AnnotationKind::Band).is_empty(),
+            "{:?}",
+            r.annotations
+        );
+        let v = r.sdas.value.expect("the round field has a value").0;
+        if radius > 280.0 {
+            // Nine tenths of the field are kept: the same value within the
+            // plain field's interval.
+            assert!(
+                lo.0 <= v && v <= hi.0,
+                "radius {radius}: {v} outside [{}, {}]",
+                lo.0,
+                hi.0
+            );
+        } else {
+            // Three fifths are kept: a smaller sample of the same
+            // structure, whose own (wider) interval holds the plain
+            // field's value.
+            let [a, b] = r.sdas.ci95.expect("the round field has an interval");
+            assert!(
+                a.0 <= v0 && v0 <= b.0,
+                "radius {radius}: {v0} outside [{}, {}]",
+                a.0,
+                b.0
+            );
+        }
+    }
+}
+
+#[test]
+fn the_demo_fields_and_synthetic_structure_have_no_band_or_outside() {
+    for f in [
+        "plate-CVF-SP4-step06mm.png",
+        "plate-CVF-SP4-step12mm.png",
+        "plate-CVF-SP4-step25mm.png",
+        "plate-CVF-SP4-step50mm.png",
+    ] {
+        let l = load(
+            &repo_file(&format!("fixtures/demo/{f}")),
+            &LoadOptions::default(),
+        )
+        .unwrap();
+        let frame = find_frame(&l.image, None, &[]);
+        assert!(frame.is_empty(), "{f}: {:?}", frame);
+    }
+    // Every structured style, the two-phase one above all (a trunk along
+    // an edge is one flat phase across the picture's width).
+    let dir = tempfile::tempdir().unwrap();
+    for (k, style) in [
+        Style::Clean,
+        Style::Etched,
+        Style::Lace,
+        Style::Binary,
+        Style::Cut,
+        Style::Dense,
+    ]
+    .into_iter()
+    .enumerate()
+    {
+        let sub = dir.path().join(format!("{k}"));
+        write_set_styled(&sub, 5, 4, Some(style)).unwrap();
+        for e in std::fs::read_dir(&sub).unwrap() {
+            let p = e.unwrap().path();
+            if p.extension().is_some_and(|x| x == "png" || x == "tif") {
+                let l = load(&p, &LoadOptions::default()).unwrap();
+                let frame = find_frame(&l.image, None, &[]);
+                assert!(frame.is_empty(), "{style:?} {}: {:?}", p.display(), frame);
+            }
+        }
+    }
 }

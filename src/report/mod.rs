@@ -180,7 +180,9 @@ pub struct ImageReport {
     pub bit_depth: Option<u8>,
     pub calibration: Option<CalibrationReport>,
     /// Rectangles excluded from measurement (scale bar, its box and label
-    /// room, annotations), [x0, y0, x1, y1] in inclusive pixel indices.
+    /// room, annotations but the outside of a round field of view, which
+    /// is an ellipse's outside: see `annotations`), [x0, y0, x1, y1] in
+    /// inclusive pixel indices.
     pub excluded_px: Vec<[u32; 4]>,
     /// Annotations found and left out of the measurement, with why.
     pub annotations: Vec<AnnotationReport>,
@@ -490,15 +492,21 @@ fn finite(x: f64) -> Option<f64> {
 #[derive(Serialize, Deserialize, JsonSchema, Debug)]
 pub struct AnnotationReport {
     /// What it is.
-    #[schemars(extend("enum" = ["text"]))]
+    #[schemars(extend("enum" = ["text", "band", "outside_field"]))]
     #[serde(deserialize_with = "names::name")]
     pub kind: names::Name,
     /// Its rectangle, [x0, y0, x1, y1] in inclusive pixel indices.
     pub box_px: [u32; 4],
-    /// Letters found in it.
+    /// Letters found in it (for a band, those of the text regions in it;
+    /// 0 for an outside field).
     pub glyphs: usize,
-    /// Median letter height (px).
+    /// Median letter height (px); 0 for a band or an outside field.
     pub letter_height_px: f64,
+    /// For `outside_field`: the round field of view kept, [cx, cy, semi-axis
+    /// x, semi-axis y] in px (the outside of this ellipse is left out; its
+    /// `box_px` is the whole image and is not in `excluded_px`); else null.
+    #[serde(default)]
+    pub field_px: Option<[f64; 4]>,
     /// Why it was left out.
     pub reason: String,
 }
@@ -521,6 +529,7 @@ pub fn image_report(r: &ImageResult, opts: &MeasureOptions) -> ImageReport {
                 box_px: a.rect,
                 glyphs: a.glyphs,
                 letter_height_px: round(a.letter_height_px, 1),
+                field_px: a.field_px.map(|f| f.map(|v| round(v, 1))),
                 reason: a.reason(),
             })
             .collect(),
