@@ -258,13 +258,17 @@ pub fn combine(outcomes: &[Outcome], cal: UmPerPx, cal_rel_u: Option<f64>) -> Es
         );
     }
     let mut warnings = Vec::new();
-    // Row spacing named by the centres' evidence (see `rows_explained`).
+    // Row spacing named by the centres' or the FFT's evidence (see `rows_explained`).
     let explained = rows_explained(outcomes, &parts);
     if !explained.is_empty() {
-        for &(i, rows) in &explained {
+        for &(i, rows, witness) in &explained {
             let p = &parts[i];
+            let seen = match witness {
+                Method::Fft => "the period across the arms' rows that most FFT tiles show",
+                _ => "between the rows of arm centres the centres method found",
+            };
             let why = format!(
-                "{:.2} um is the spacing between rows of arms ({:.2} um between the rows of arm centres the centres method found), not the spacing of the arms along a row",
+                "{:.2} um is the spacing between rows of arms ({:.2} um, {seen}), not the spacing of the arms along a row",
                 to_um(p.value),
                 to_um(rows)
             );
@@ -277,7 +281,7 @@ pub fn combine(outcomes: &[Outcome], cal: UmPerPx, cal_rel_u: Option<f64>) -> Es
         parts = parts
             .into_iter()
             .enumerate()
-            .filter(|(i, _)| !explained.iter().any(|(j, _)| j == i))
+            .filter(|(i, _)| !explained.iter().any(|(j, _, _)| j == i))
             .map(|(_, p)| p)
             .collect();
         // The centres' value is not vouched for by the methods that read
@@ -385,33 +389,53 @@ pub fn combine(outcomes: &[Outcome], cal: UmPerPx, cal_rel_u: Option<f64>) -> Es
 }
 
 /// The parts (by index) that read the spacing between rows of arms, each
-/// with that row spacing: where the centres method found its arms standing
-/// in rows (its value s, along the rows) and measured the distance R between
-/// neighbouring rows, a method whose value agrees with R and not with s
-/// reads the rows, not the arms (a transform or a test line laid across the
-/// rows sees their period). Only when R stands clear of s (R at least 1.3 s:
-/// the 10 % agreement band on each side and some room, so that the two
-/// readings cannot be mistaken for each other).
-fn rows_explained(outcomes: &[Outcome], parts: &[Part]) -> Vec<(usize, f64)> {
-    let Some(c) = parts.iter().find(|p| p.method == Method::Centres) else {
-        return vec![];
-    };
-    let Some(rows) = outcomes
+/// with that row spacing and the method whose evidence names it.
+///
+/// Two methods can see that the arms stand in rows and measure the distance
+/// R between rows apart from the spacing s along them: the centres method
+/// (its chains run along the rows; R is the distance between parallel
+/// chains) and the FFT (two periods at right angles in most tiles; s the
+/// finer, R the coarser, see `methods::fft::along_rows`). A method whose
+/// value agrees with R and not with s reads the rows, not the arms (a
+/// transform or a test line laid across the rows sees their period). Only
+/// when R stands clear of s (R at least 1.3 s: the 10 % agreement band on
+/// each side and some room, so that the two readings cannot be mistaken for
+/// each other). A witness whose own value is a row spacing by the other
+/// witness's evidence names nothing: it read the rows itself.
+fn rows_explained(outcomes: &[Outcome], parts: &[Part]) -> Vec<(usize, f64, Method)> {
+    let witnesses: Vec<(Method, f64, f64)> = parts
         .iter()
-        .find_map(|o| o.centres().and_then(|d| d.row_spacing_px))
-    else {
-        return vec![];
+        .filter_map(|p| {
+            let rows = outcomes.iter().find_map(|o| match p.method {
+                Method::Centres => o.centres().and_then(|d| d.row_spacing_px),
+                Method::Fft => o.fft().and_then(|d| d.row_spacing_px.map(|r| r.0)),
+                _ => None,
+            })?;
+            (rows >= 1.3 * p.value).then_some((p.method, p.value, rows))
+        })
+        .collect();
+    let reads_rows = |p: &Part, (m, s, rows): (Method, f64, f64)| {
+        p.method != m && agree(p.value, rows) && !agree(p.value, s)
     };
-    if rows < 1.3 * c.value {
-        return vec![];
-    }
+    let credible: Vec<(Method, f64, f64)> = witnesses
+        .iter()
+        .copied()
+        .filter(|&(m, _, _)| {
+            parts
+                .iter()
+                .filter(|p| p.method == m)
+                .all(|p| !witnesses.iter().any(|&w| reads_rows(p, w)))
+        })
+        .collect();
     parts
         .iter()
         .enumerate()
-        .filter(|(_, p)| {
-            p.method != Method::Centres && agree(p.value, rows) && !agree(p.value, c.value)
+        .filter_map(|(i, p)| {
+            credible
+                .iter()
+                .find(|&&w| reads_rows(p, w))
+                .map(|&(m, _, rows)| (i, rows, m))
         })
-        .map(|(i, _)| (i, rows))
         .collect()
 }
 
@@ -817,5 +841,57 @@ mod tests {
         assert!((e.value.unwrap().0 - 12.0).abs() < 1e-12);
         let [lo, hi] = e.ci95.unwrap();
         assert!((0.5 * (hi.0 - lo.0) - Z95 * 0.5).abs() < 1e-12);
+    }
+
+    /// An FFT outcome whose tiles show spots in rows: `value` along the
+    /// rows, `rows` between them.
+    fn fft_in_rows(value: f64, rows: f64) -> Outcome {
+        use crate::methods::fft::FftOutcome;
+        let ci = [value * 0.98, value * 1.02];
+        Outcome {
+            method: Method::Fft,
+            detail: Detail::Fft(FftOutcome {
+                value_px: Some(Pixels(value)),
+                ci95_px: Some(ci.map(Pixels)),
+                spread_px: Some(Pixels(0.5)),
+                n_tiles_used: 40,
+                n_tiles_analysed: 60,
+                window_px: 64,
+                orientation_deg: Some(0.0),
+                orientation_coherence: Some(0.9),
+                tiles: vec![],
+                reason: None,
+                row_spacing_px: Some(Pixels(rows)),
+                read_along_rows: true,
+            }),
+            ..outcome(Method::Fft, Some(value), Some(ci), 40)
+        }
+    }
+
+    #[test]
+    fn methods_reading_the_rows_the_fft_names_are_left_out() {
+        // Spots 10 px apart along rows 18 px apart (geometry of the case):
+        // the FFT reads along the rows; the intercept and the centres agree
+        // on 18, the rows. Agreement on the rows is no corroboration of the
+        // arms: no value, the two named as reading the rows.
+        let outs = [
+            fft_in_rows(10.0, 18.0),
+            outcome(Method::Intercept, Some(18.1), Some([17.6, 18.6]), 30),
+            outcome(Method::Centres, Some(17.8), Some([17.2, 18.4]), 30),
+        ];
+        let e = combine(&outs, UmPerPx::new(1.0).unwrap(), None);
+        assert!(e.value.is_none(), "{e:?}");
+        let out: Vec<Method> = e.left_out.iter().map(|(m, _)| *m).collect();
+        assert!(out.contains(&Method::Intercept) && out.contains(&Method::Centres), "{out:?}");
+        // A method that agrees with the FFT along the rows corroborates it.
+        let outs = [
+            fft_in_rows(10.0, 18.0),
+            outcome(Method::Intercept, Some(10.2), Some([9.8, 10.6]), 30),
+            outcome(Method::Centres, Some(17.8), Some([17.2, 18.4]), 30),
+        ];
+        let e = combine(&outs, UmPerPx::new(1.0).unwrap(), None);
+        let v = e.value.map(|v| v.0).unwrap_or(f64::NAN);
+        assert!((v - 10.1).abs() < 0.3, "{e:?}");
+        assert!(e.left_out.iter().any(|(m, _)| *m == Method::Centres));
     }
 }

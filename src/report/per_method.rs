@@ -134,6 +134,13 @@ pub struct FftReport {
     /// way).
     #[schemars(range(min = 0, max = 1))]
     pub orientation_coherence: Option<f64>,
+    /// The spacing between rows of spots, um, when most used tiles show two
+    /// periods at right angles (the finer is the value, the coarser this).
+    #[schemars(extend("exclusiveMinimum" = 0))]
+    pub row_spacing_um: Option<f64>,
+    /// Whether the value is the spots' period along their rows, finer than
+    /// the period the tiles first chose (the rows').
+    pub read_along_rows: bool,
     pub reason: Option<String>,
     /// See `InterceptReport::indicative`.
     #[schemars(
@@ -361,6 +368,8 @@ fn fft_report(f: &FftOutcome, cal: UmPerPx) -> FftReport {
         window_um: um(cal, f.window_px as f64),
         orientation_deg: f.orientation_deg.map(|v| round(v, 2)),
         orientation_coherence: f.orientation_coherence.map(|v| round(v, 3)),
+        row_spacing_um: f.row_spacing_px.map(|v| um(cal, v.0)),
+        read_along_rows: f.read_along_rows,
         reason: f.reason.clone(),
         indicative: None,
         tiles,

@@ -98,6 +98,12 @@ pub struct TileResult {
     /// median of its frequency ring (NaN without a peak): how strongly the
     /// tile repeats at twice the spacing it gave, in the same direction.
     pub half_ratio: f64,
+    /// The period the tile repeats at across the chosen one, measured along
+    /// the perpendicular of the chosen direction (NaN when it shows none; see
+    /// [`cross_period`]), its direction and its prominence.
+    pub cross_spacing_px: f64,
+    pub cross_dir_deg: f64,
+    pub cross_quality: f64,
 }
 
 /// The method's result for one image, in pixels.
@@ -117,6 +123,12 @@ pub struct FftOutcome {
     pub tiles: Vec<TileResult>,
     /// Why there is no value, when there is none.
     pub reason: Option<String>,
+    /// The spacing between rows of spots, when most used tiles show a
+    /// second, coarser period across the value's (see [`along_rows`]).
+    pub row_spacing_px: Option<Pixels>,
+    /// Whether the value is the finer period across the one the tiles chose
+    /// first (the spots along their rows; the chosen one was the rows').
+    pub read_along_rows: bool,
 }
 
 impl FftOutcome {
@@ -132,6 +144,8 @@ impl FftOutcome {
             orientation_coherence: None,
             tiles,
             reason: Some(reason),
+            row_spacing_px: None,
+            read_along_rows: false,
         }
     }
 }
@@ -271,10 +285,32 @@ pub fn measure(img: &Prepared, params: &FftParams) -> FftOutcome {
     let mut tiles = analyse_tiles(img, n, (n / 2).max(1), params);
     for t in tiles.iter_mut() {
         if t.spacing_px.is_finite() && !compatible(t.spacing_px, coarse_period) {
+            // The coarse pass may have taken the other of two periods at
+            // right angles (the rows of spots, or the spots along them):
+            // a tile that shows that one across its own gives it, and
+            // `along_rows` decides which of the two is the arm spacing.
+            if t.cross_spacing_px.is_finite() && compatible(t.cross_spacing_px, coarse_period) {
+                std::mem::swap(&mut t.spacing_px, &mut t.cross_spacing_px);
+                std::mem::swap(&mut t.dir_deg, &mut t.cross_dir_deg);
+                std::mem::swap(&mut t.quality, &mut t.cross_quality);
+                // The harmonic test was of the other peak; the period
+                // across was traced to its own fundamental already.
+                t.half_ratio = f64::NAN;
+                continue;
+            }
             t.quality = 0.0;
         }
     }
-    let out = aggregate(tiles, n, params);
+    // Spots in rows first: when the value becomes the spots' period along
+    // the rows, the chosen peaks were the rows', and whether the rows'
+    // period is itself a harmonic does not bear on it (the period along the
+    // rows was traced to its own fundamental). In a tile of six row
+    // periods, half the rows' frequency lies 3 bins from the origin, inside
+    // the window's zero-frequency leakage, where that test means nothing.
+    let out = along_rows(aggregate(tiles, n, params), params);
+    if out.read_along_rows {
+        return out;
+    }
     // A spacing at which most used tiles also repeat at twice its length is
     // the second harmonic of rows whose fundamental is weaker (see
     // `HARMONIC_RATIO`); half the true spacing is not reported.
@@ -333,7 +369,7 @@ pub const TILE_INDEPENDENCE: f64 = 0.25;
 /// harmonic, unequal widths a strong fundamental), never 1 % (-20 dB). A
 /// ratio to the ring's median alone fails where the ring holds almost no
 /// power (a clean grating, whose ring median is the quantisation floor).
-const FUNDAMENTAL_FLOOR: f64 = 0.01;
+pub(crate) const FUNDAMENTAL_FLOOR: f64 = 0.01;
 
 /// Whether a tile's period is compatible with the period reproduced across
 /// scales: within a factor sqrt 2, the geometric midpoint between that period
@@ -400,7 +436,13 @@ fn analyse_tiles_with(
                 .iter()
                 .map(|&(x, y)| {
                     an.power(&img.image.data, w, x, y, &mut buf);
-                    let peak = choose_peak_with(&mut search, &buf, params, lone_peaks_only);
+                    let chosen = choose_peak_and_cross(&mut search, &buf, params, lone_peaks_only);
+                    let peak = chosen.map(|(p, _)| p);
+                    let cross = chosen.and_then(|(_, c)| c);
+                    let (cross_spacing_px, cross_dir_deg, cross_quality) = cross
+                        .map_or((f64::NAN, f64::NAN, 0.0), |c| {
+                            (c.spacing_px, c.dir_deg, c.prominence)
+                        });
                     let half_ratio = peak.map_or(f64::NAN, |p| {
                         let half = search.power_at(p.fx / 2.0, p.fy / 2.0);
                         let top = search.power_at(p.fx, p.fy);
@@ -420,6 +462,9 @@ fn analyse_tiles_with(
                             quality: p.prominence,
                             used: false,
                             half_ratio,
+                            cross_spacing_px,
+                            cross_dir_deg,
+                            cross_quality,
                         },
                         None => TileResult {
                             cx_px: cx,
@@ -429,6 +474,9 @@ fn analyse_tiles_with(
                             quality: 0.0,
                             used: false,
                             half_ratio,
+                            cross_spacing_px,
+                            cross_dir_deg,
+                            cross_quality,
                         },
                     }
                 })
@@ -541,6 +589,90 @@ fn aggregate(mut tiles: Vec<TileResult>, n: usize, params: &FftParams) -> FftOut
         orientation_coherence: coherence,
         tiles,
         reason: None,
+        row_spacing_px: None,
+        read_along_rows: false,
+    }
+}
+
+/// Smallest share of the used tiles that must show a period across their
+/// own (`TileResult::cross_spacing_px`) for the field to count as spots in
+/// rows: the rows must be a property of the field, seen in most of it, not
+/// of a stray tile where two grains or a texture meet.
+const ROWS_SHARE: f64 = 0.5;
+
+/// Two periods at right angles, seen in most tiles: the finer one is the
+/// arm spacing and the coarser one the spacing between rows.
+///
+/// Secondary arms are the finest periodic dendritic feature of a section.
+/// A coarser period across them is the spacing of the rows the arms stand
+/// in: in a section that cuts the arms across, the distance between rows of
+/// spots (neighbouring trunks, or the two sides of one trunk); on a column
+/// of arms, the primary spacing. So when most used tiles show a resolved
+/// second period across their own (see [`cross_period`]):
+/// - if it is finer, the tiles chose the rows, and the value becomes the
+///   finer period (aggregated over the tiles that show it, as the chosen
+///   one is), with the chosen one kept as the row spacing;
+/// - if it is coarser, the value stands and the coarser period is reported
+///   as the row spacing.
+///
+/// Common practice (no single source) measures the spacing of cut arms
+/// along their row, as the spots' count along a trunk.
+fn along_rows(out: FftOutcome, params: &FftParams) -> FftOutcome {
+    let Some(value) = out.value_px else {
+        return out;
+    };
+    let used = out.tiles.iter().filter(|t| t.used).count();
+    let across: Vec<f64> = out
+        .tiles
+        .iter()
+        .filter(|t| t.used && t.cross_spacing_px.is_finite())
+        .filter(|t| t.cross_quality >= params.min_quality)
+        .map(|t| t.cross_spacing_px)
+        .collect();
+    if used == 0 || (across.len() as f64) < ROWS_SHARE * used as f64 {
+        return out;
+    }
+    let Some(m) = stats::median(&across) else {
+        return out;
+    };
+    if m >= peaks::RESOLVED_RATIO * value.0 {
+        return FftOutcome {
+            row_spacing_px: Some(Pixels(m)),
+            ..out
+        };
+    }
+    if m * peaks::RESOLVED_RATIO > value.0 {
+        return out;
+    }
+    let n = out.window_px;
+    let tiles: Vec<TileResult> = out
+        .tiles
+        .iter()
+        .map(|t| {
+            let shows = t.used && t.cross_spacing_px.is_finite();
+            TileResult {
+                spacing_px: t.cross_spacing_px,
+                dir_deg: t.cross_dir_deg,
+                quality: if shows { t.cross_quality } else { 0.0 },
+                used: false,
+                ..*t
+            }
+        })
+        .collect();
+    let along = aggregate(tiles, n, params);
+    // Without a value along the rows there is none: the chosen period is
+    // the rows', never the arms'.
+    let reason = along.reason.as_ref().map(|r| {
+        format!(
+            "most tiles show spots in rows {:.1} px apart, and along the rows {r}",
+            value.0
+        )
+    });
+    FftOutcome {
+        row_spacing_px: Some(value),
+        read_along_rows: true,
+        reason,
+        ..along
     }
 }
 

@@ -23,6 +23,17 @@ pub(crate) fn choose_peak_with(
     params: &FftParams,
     lone_peaks_only: bool,
 ) -> Option<Peak> {
+    choose_peak_and_cross(search, power, params, lone_peaks_only).map(|(p, _)| p)
+}
+
+/// `choose_peak_with`, and with the chosen peak the period the tile shows
+/// across it, when it shows one (see [`cross_period`]).
+pub(crate) fn choose_peak_and_cross(
+    search: &mut CandidateSearch,
+    power: &[f64],
+    params: &FftParams,
+    lone_peaks_only: bool,
+) -> Option<(Peak, Option<Cross>)> {
     let n = search.n;
     let (cands, orient) = search.run(power);
     let aligned = |p: &&Peak| {
@@ -56,7 +67,93 @@ pub(crate) fn choose_peak_with(
         .max_by(|a, b| a.power.total_cmp(&b.power))
         .or_else(|| cands.iter().filter(own_ray).find(periodic))
         .copied()?;
-    Some(fundamental_of(first, &cands, n, params))
+    let chosen = fundamental_of(first, &cands, n, params);
+    let cross = cross_period(&chosen, &cands, power, search, params);
+    Some((chosen, cross))
+}
+
+/// A period a tile shows across its chosen one.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Cross {
+    /// The period along the direction perpendicular to the chosen peak's
+    /// frequency vector, pixels.
+    pub spacing_px: f64,
+    /// That direction, degrees as [`Peak::dir_deg`].
+    pub dir_deg: f64,
+    pub prominence: f64,
+}
+
+/// Smallest ratio of two frequencies for their peaks to count as two
+/// periods. A tile holds about `periods_per_tile` (6) periods of the
+/// chosen one, and a Hann-windowed peak of N periods has a half-power full
+/// width of 1.44 bins (Harris 1978): two peaks closer than one such width
+/// (1 + 1.44 / 6 = 1.24 in frequency) are not resolved as two periods.
+pub(crate) const RESOLVED_RATIO: f64 = 1.24;
+
+/// The period a tile repeats at across its chosen peak: a reliable, narrow
+/// candidate (the same tests as the chosen peak: prominence, relative
+/// width) more than `90 - MAX_OFF_AXIS_DEG` degrees off the chosen peak's
+/// direction, traced to its own fundamental, whose period measured along
+/// the perpendicular of the chosen peak's frequency vector differs from the
+/// chosen period by at least [`RESOLVED_RATIO`]; the strongest such one.
+///
+/// Why: a section that cuts secondary arms across shows rounded spots
+/// standing in rows. Their spectrum has two periods at right angles: the
+/// spacing of the spots along a row (the arm spacing) and the distance
+/// between rows (coarser: neighbouring rows are the arms of other trunks or
+/// of the trunk's other side). The rows' wide channels often carry the more
+/// power, so the chosen peak may be the rows'. Where rows are staggered the
+/// spots' peak lies off the perpendicular by the stagger (a centred lattice
+/// has no peak exactly along the row), but its component along the row is
+/// the spots' period; that component is what is returned. A column of
+/// secondary arms on a trunk (a fishbone) shows, across its arms, only the
+/// coarser primary spacing, or nothing periodic at all.
+///
+/// The period across must also be the strongest feature of its own ray
+/// (`MAX_RAY_EXCESS`, as the ladder asks of tiles without a dominant
+/// orientation): a harmonic or side lobe of arms that run across the chosen
+/// ones (the other arm family of an equiaxed cross) has its fundamental on
+/// the same ray at lower frequency, and is not a period of spots.
+pub(crate) fn cross_period(
+    chosen: &Peak,
+    cands: &[Peak],
+    power: &[f64],
+    search: &CandidateSearch,
+    params: &FftParams,
+) -> Option<Cross> {
+    let n = search.n;
+    let f0 = chosen.freq();
+    if f0 <= 0.0 {
+        return None;
+    }
+    // Unit vector along the chosen frequency, and its perpendicular.
+    let (ux, uy) = (chosen.fx / f0, chosen.fy / f0);
+    let (px, py) = (-uy, ux);
+    cands
+        .iter()
+        .filter(|c| c.prominence >= params.min_quality)
+        // A peak 20 dB below the chosen one is no structure the field is
+        // made of (the floor `FUNDAMENTAL_FLOOR` of the harmonic test); on
+        // a flat spectrum, as of a clean grating, its prominence over an
+        // empty ring means nothing.
+        .filter(|c| c.power >= super::FUNDAMENTAL_FLOOR * chosen.power)
+        .filter(|c| axial_difference(c.dir_deg(), chosen.dir_deg()) >= 90.0 - MAX_OFF_AXIS_DEG)
+        .filter(|c| relative_width(power, n, c) <= MAX_RELATIVE_WIDTH)
+        .filter_map(|c| {
+            let f = fundamental_of(*c, cands, n, params);
+            if search.ray_excess_below(&f) >= MAX_RAY_EXCESS {
+                return None;
+            }
+            let along = (f.fx * px + f.fy * py).abs();
+            let resolved = along >= RESOLVED_RATIO * f0 || along * RESOLVED_RATIO <= f0;
+            (along > 0.0 && resolved).then_some((c.power, along, f.prominence))
+        })
+        .max_by(|a, b| a.0.total_cmp(&b.0))
+        .map(|(_, along, prominence)| Cross {
+            spacing_px: 1.0 / along,
+            dir_deg: (-py).atan2(px).to_degrees().rem_euclid(180.0),
+            prominence,
+        })
 }
 
 /// Largest ratio of the strongest smoothed power on a peak's own ray, at

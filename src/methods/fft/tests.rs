@@ -9,6 +9,9 @@ fn tile(spacing_px: f64, quality: f64) -> TileResult {
         quality,
         used: false,
         half_ratio: f64::NAN,
+        cross_spacing_px: f64::NAN,
+        cross_dir_deg: f64::NAN,
+        cross_quality: 0.0,
     }
 }
 
@@ -358,6 +361,9 @@ fn finer_period_parallel_to_a_coarser_one_is_dropped() {
         quality: 20.0,
         used: false,
         half_ratio: f64::NAN,
+        cross_spacing_px: f64::NAN,
+        cross_dir_deg: f64::NAN,
+        cross_quality: 0.0,
     };
     let build = |coarse_dir: f64| {
         let mut scales = Vec::new();
@@ -404,4 +410,98 @@ fn a_clean_grating_is_measured() {
             .unwrap_or_else(|| panic!("{period}: {:?}", out.reason));
         assert!((v / period - 1.0).abs() < 0.01, "{period}: {v}");
     }
+}
+
+/// Dark elliptical spots in rows: spacing `a` along each row, rows `b`
+/// apart, the whole lattice turned by `angle_deg`; odd rows shifted by
+/// `stagger` x a. The spots are 0.7 a long along the row and 0.6 b across
+/// it, so the channels between rows (0.4 b) are wider than the gaps along a
+/// row (0.3 a), as in a section that cuts arms across.
+fn spots_in_rows(n: usize, a: f64, b: f64, angle_deg: f64, stagger: f64) -> Vec<f32> {
+    let (c, s) = (angle_deg.to_radians().cos(), angle_deg.to_radians().sin());
+    (0..n * n)
+        .map(|i| {
+            let (x, y) = ((i % n) as f64, (i / n) as f64);
+            // Lattice coordinates: u along the rows, v across them.
+            let (u, v) = (x * c + y * s, -x * s + y * c);
+            let row = (v / b).round();
+            let dv = v - row * b;
+            let shift = if (row as i64).rem_euclid(2) == 1 {
+                stagger * a
+            } else {
+                0.0
+            };
+            let du = (u - shift) - ((u - shift) / a).round() * a;
+            let r = ((du / (0.35 * a)).powi(2) + (dv / (0.3 * b)).powi(2)).sqrt();
+            // A soft edge about a pixel wide.
+            let ink = (1.0 - (r - 1.0) * 0.35 * a).clamp(0.0, 1.0);
+            (0.8 - 0.5 * ink) as f32
+        })
+        .collect()
+}
+
+#[test]
+fn spots_in_rows_are_measured_along_the_rows() {
+    // Geometry of the lattice (drawn here): the spots stand `a` apart along
+    // their rows and the rows `b` apart, so the arm spacing is `a` and the
+    // row spacing `b` (common practice, no single source: cut arms are
+    // counted along their row). A staggered lattice (a centred rectangular
+    // one) has no spectral peak exactly along the rows; its peaks at
+    // (1/a, +-1/(2b)) carry 1/a along the rows (its reciprocal lattice, a
+    // fact of Fourier analysis).
+    for (a, b, angle, stagger) in [
+        (10.0, 20.0, 0.0, 0.0),
+        (10.0, 17.0, 30.0, 0.0),
+        (12.0, 22.0, 115.0, 0.2),
+        (8.0, 15.0, 60.0, 0.0),
+    ] {
+        let n = 512;
+        // 8-bit levels with a camera's noise (uniform, +-0.03 of the
+        // range, from a fixed-seed SplitMix64 sequence).
+        let mut state = 0x9E37_79B9_7F4A_7C15u64;
+        let data: Vec<f32> = spots_in_rows(n, a, b, angle, stagger)
+            .into_iter()
+            .map(|v| {
+                state = state.wrapping_add(0x9E37_79B9_7F4A_7C15);
+                let mut z = state;
+                z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+                z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+                z ^= z >> 31;
+                let u = (z >> 11) as f32 / (1u64 << 53) as f32;
+                ((v + 0.06 * (u - 0.5)) * 255.0).round() / 255.0
+            })
+            .collect();
+        let img = GrayImage::from_vec(n, n, data).unwrap();
+        let out = measure(
+            &prepare(&img, None, &PreprocessParams::default()),
+            &FftParams::default(),
+        );
+        let v = out.value_px.map(|p| p.0);
+        let rows = out.row_spacing_px.map(|p| p.0);
+        // The rows are named whenever the value was read along them; a
+        // tile sized on the finer period may hold too few row periods (three
+        // here) for a narrow peak, and then the rows go unreported.
+        let ok = v.is_some_and(|v| (v / a - 1.0).abs() < 0.03)
+            && (!out.read_along_rows || rows.is_some_and(|r| (r / b - 1.0).abs() < 0.05));
+        assert!(
+            ok,
+            "a {a} b {b} angle {angle} stagger {stagger}: value {v:?} rows {rows:?} ({:?})",
+            out.reason
+        );
+    }
+}
+
+#[test]
+fn a_grating_has_no_rows() {
+    // A sinusoid repeats in one direction only (a fact of Fourier
+    // analysis): no period across it, no row spacing.
+    let n = 512;
+    let img = GrayImage::from_vec(n, n, sinusoid(n, 12.0, 20.0)).unwrap();
+    let out = measure(
+        &prepare(&img, None, &PreprocessParams::default()),
+        &FftParams::default(),
+    );
+    assert!(out.value_px.is_some());
+    assert_eq!(out.row_spacing_px, None);
+    assert!(!out.read_along_rows);
 }
