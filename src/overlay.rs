@@ -4,7 +4,7 @@
 //! "cyan: direction along which the arms repeat in each reliable FFT tile
 //! (short: rejected as an outlier, orange); green: intercept test lines, red
 //! ticks at the arm centres they cross; blue: chains of arm centres (dots at
-//! the centres); magenta: the scale bar and its
+//! the centres; orange: chains across rows, not used); magenta: the scale bar and its
 //! measured length; yellow: region excluded from measurement".
 
 use crate::annotations::Annotation;
@@ -161,16 +161,18 @@ fn draw_intercept(out: &mut RgbImage, i: &InterceptOutcome) {
     }
 }
 
-/// Each chain of arm centres as a blue polyline, with a dot at each centre.
+/// Each chain of arm centres as a blue polyline (orange when it runs across
+/// rows and was not used), with a dot at each centre.
 fn draw_centres(out: &mut RgbImage, c: &CentresOutcome) {
     for ch in &c.chains {
+        let colour = if ch.used { BLUE } else { ORANGE };
         for pair in ch.points.windows(2) {
             let (a, b) = (pair[0], pair[1]);
             draw_line_segment_mut(
                 out,
                 (a[0] as f32, a[1] as f32),
                 (b[0] as f32, b[1] as f32),
-                BLUE,
+                colour,
             );
         }
         for p in &ch.points {
@@ -178,7 +180,7 @@ fn draw_centres(out: &mut RgbImage, c: &CentresOutcome) {
                 out,
                 (p[0].round() as i32, p[1].round() as i32),
                 2,
-                BLUE,
+                colour,
             );
         }
     }

@@ -107,6 +107,9 @@ pub struct Chain {
     pub points: Vec<[f64; 2]>,
     /// End-to-end distance over the number of gaps.
     pub spacing_px: f64,
+    /// Whether the chain entered the value: false for a chain that runs
+    /// across rows (see [`across_rows`]).
+    pub used: bool,
 }
 
 impl Chain {
@@ -169,11 +172,12 @@ impl CentresOutcome {
     pub fn into_outcome(self) -> super::Outcome {
         use super::{segment_dir_deg, Detail, Local, Method, Outcome};
         use crate::units::Pixels;
-        let used = self.value_px.is_some();
+        let valued = self.value_px.is_some();
         let local = self
             .chains
             .iter()
             .map(|c| {
+                let used = valued && c.used;
                 let (a, b) = c.ends();
                 let m = c.centroid();
                 Local {
@@ -340,7 +344,11 @@ fn analyse_phase(phase: &[bool], w: usize, h: usize, params: &CentresParams) -> 
             }
         }
     }
-    let row_spacing_px = row_spacing(&chains);
+    let mut chains = chains;
+    across_rows(&mut chains);
+    // The rows are measured between the chains that run along them.
+    let along: Vec<Chain> = chains.iter().filter(|c| c.used).cloned().collect();
+    let row_spacing_px = row_spacing(&along);
     let base = CentresOutcome {
         centres,
         row_spacing_px,
@@ -359,12 +367,12 @@ fn analyse_phase(phase: &[bool], w: usize, h: usize, params: &CentresParams) -> 
             ..base
         };
     }
-    let spacings: Vec<f64> = chains.iter().map(|c| c.spacing_px).collect();
-    if chains.len() < params.min_chains {
+    let spacings: Vec<f64> = along.iter().map(|c| c.spacing_px).collect();
+    if along.len() < params.min_chains {
         return CentresOutcome {
             reason: Some(format!(
-                "too few arm rows: {} chains of at least {} arms, {} needed",
-                chains.len(),
+                "too few arm rows: {} chains of at least {} arms along rows, {} needed",
+                along.len(),
                 params.min_gaps + 1,
                 params.min_chains
             )),
@@ -401,7 +409,7 @@ fn analyse_phase(phase: &[bool], w: usize, h: usize, params: &CentresParams) -> 
         value_px: Some(Pixels(s.mean)),
         ci95_px: Some(ci.map(Pixels)),
         sd_px: Some(Pixels(s.sd)),
-        n_chains: chains.len(),
+        n_chains: along.len(),
         rel_accuracy_pct: Some(100.0 * (ci[1] - s.mean) / s.mean),
         chains,
         ..base
@@ -625,6 +633,7 @@ fn build_chains(points: &[[f64; 2]], links: &[Vec<usize>], p: &CentresParams) ->
             chains.push(Chain {
                 points: pts,
                 spacing_px: spacing,
+                used: true,
             });
         }
     }
@@ -637,8 +646,15 @@ fn build_chains(points: &[[f64; 2]], links: &[Vec<usize>], p: &CentresParams) ->
 /// half a spacing to the side (a chain continuing the same row is not a
 /// neighbouring row).
 fn row_spacing(chains: &[Chain]) -> Option<f64> {
+    let d: Vec<f64> = row_distances(chains).into_iter().flatten().collect();
+    crate::stats::median(&d)
+}
+
+/// For each chain, the distance to its nearest parallel neighbour chain as
+/// `row_spacing` defines it (`None` without one).
+fn row_distances(chains: &[Chain]) -> Vec<Option<f64>> {
     let cos_par = 15f64.to_radians().cos();
-    let mut d = Vec::new();
+    let mut d = Vec::with_capacity(chains.len());
     for (i, a) in chains.iter().enumerate() {
         let u = a.unit();
         let ca = a.centroid();
@@ -660,11 +676,31 @@ fn row_spacing(chains: &[Chain]) -> Option<f64> {
                 best = best.min(across);
             }
         }
-        if best.is_finite() {
-            d.push(best);
+        d.push(best.is_finite().then_some(best));
+    }
+    d
+}
+
+/// Marks the chains that run across rows as not used, and returns how many
+/// were marked. Along a row the arms are nearer each other than the rows
+/// are (the rule behind `ROW_NEIGHBOURS`), so a chain whose own spacing
+/// exceeds the distance to its nearest parallel chain links spots of
+/// neighbouring rows: its spacing is the rows', not the arms'. Where the
+/// spots of a row are fused or close, such chains form beside the chains
+/// along the rows, and a mean over both lies between the two spacings. The
+/// rule for the whole field below (the chains' mean against the row
+/// spacing) is the same rule; here it is applied to each chain. A chain
+/// without a parallel neighbour gives no such evidence and is kept.
+fn across_rows(chains: &mut [Chain]) -> usize {
+    let d = row_distances(chains);
+    let mut n = 0;
+    for (c, d) in chains.iter_mut().zip(d) {
+        if d.is_some_and(|d| d < c.spacing_px) {
+            c.used = false;
+            n += 1;
         }
     }
-    crate::stats::median(&d)
+    n
 }
 
 #[cfg(test)]
@@ -777,5 +813,32 @@ mod tests {
         let chains = build_chains(&pts, &l, &CentresParams::default());
         let f = parallel_fraction(&chains).unwrap();
         assert!(f < 0.45, "{f} over {} chains", chains.len());
+    }
+
+    #[test]
+    fn chains_across_rows_are_not_used() {
+        // Geometry of the case: spots 10 px apart along horizontal rows 20
+        // px apart. Chains along the rows (spacing 10, neighbours 20 away)
+        // are kept; chains down the columns link neighbouring rows (spacing
+        // 20, their parallel neighbours 10 away) and are marked not used.
+        let chain = |pts: Vec<[f64; 2]>, s: f64| Chain {
+            points: pts,
+            spacing_px: s,
+            used: true,
+        };
+        let mut chains = Vec::new();
+        for r in 0..3 {
+            let y = 20.0 * r as f64;
+            chains.push(chain((0..5).map(|i| [10.0 * i as f64, y]).collect(), 10.0));
+        }
+        for c in 0..3 {
+            let x = 100.0 + 10.0 * c as f64;
+            chains.push(chain((0..4).map(|i| [x, 20.0 * i as f64]).collect(), 20.0));
+        }
+        assert_eq!(across_rows(&mut chains), 3);
+        assert!(chains[..3].iter().all(|c| c.used));
+        assert!(chains[3..].iter().all(|c| !c.used));
+        let along: Vec<Chain> = chains.iter().filter(|c| c.used).cloned().collect();
+        assert_eq!(row_spacing(&along), Some(20.0));
     }
 }

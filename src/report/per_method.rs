@@ -63,6 +63,9 @@ pub struct ChainReport {
     /// The centres along the chain, [x, y] in um from the top-left corner.
     pub points_um: Vec<[f64; 2]>,
     pub sdas_um: f64,
+    /// Whether the chain entered the value (false: it runs across rows,
+    /// its spacing longer than the distance to its nearest parallel chain).
+    pub used: bool,
 }
 
 /// The line-intercept method.
@@ -281,6 +284,7 @@ pub(super) fn methods_report(
                                 .map(|p| [um(cal, p[0]), um(cal, p[1])])
                                 .collect(),
                             sdas_um: um(cal, ch.spacing_px),
+                            used: ch.used,
                         })
                         .collect(),
                     |ch| Some(ch.sdas_um),
