@@ -311,6 +311,17 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
                 &outcomes,
                 opts.fft.min_quality,
             );
+            let file = path.display().to_string();
+            let picture = crate::overlay::with_panel(
+                picture,
+                &crate::overlay::Caption {
+                    file: &file,
+                    sdas: &sdas,
+                    outcomes: &outcomes,
+                    um_per_px,
+                    calibration_source: calibration.source.name(),
+                },
+            );
             let target = dir.join(overlay_name(path, &info.sha256));
             if opts.protected.is_protected(&target) {
                 warnings.push(Warning::new(

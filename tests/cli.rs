@@ -572,3 +572,57 @@ fn a_stated_uncertainty_of_the_given_calibration_widens_the_interval() {
     let r = armspace(&["measure", &img, "--um-per-px-uncertainty-pct", "1"]);
     assert_eq!(r.code, 2, "{}", r.stderr);
 }
+
+/// The picture of what was measured carries a panel under the micrograph
+/// (value, methods, calibration, legend, the tool's scale and the caution),
+/// and a picture of an image without a value says so across it.
+#[test]
+fn a_measurement_picture_speaks_for_itself() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let comb = d.join("comb.png");
+    write_comb_png(&comb, 320, 240, 12.0);
+    // A flat field: nothing to measure (a fact of the case).
+    image::GrayImage::from_pixel(320, 240, image::Luma([128]))
+        .save(d.join("flat.png"))
+        .unwrap();
+    let pictures = d.join("pictures");
+    let run = armspace(&[
+        "measure",
+        &path_str(&comb),
+        &path_str(&d.join("flat.png")),
+        "--um-per-px",
+        "0.5",
+        "--overlay",
+        &path_str(&pictures),
+    ]);
+    assert!(run.code == 0 || run.code == 3, "{}", run.stderr);
+    let rep = report(&run);
+    let picture = |i: usize| {
+        let p = rep["images"][i]["overlay"].as_str().unwrap();
+        image::open(p).unwrap().to_rgb8()
+    };
+    for i in 0..2 {
+        let img = picture(i);
+        assert_eq!(img.width(), 320);
+        // The panel under the micrograph, on a dark ground, holds text:
+        // light pixels in the rows below the micrograph.
+        assert!(img.height() > 240 + 100, "{}", img.height());
+        let light = (240..img.height())
+            .flat_map(|y| (0..img.width()).map(move |x| (x, y)))
+            .filter(|&(x, y)| img.get_pixel(x, y)[0] > 200)
+            .count();
+        assert!(light > 500, "panel text pixels: {light}");
+    }
+    // The flat field's picture: the band across its middle is darkened and
+    // carries the words in orange (230, 159, 0).
+    let flat = picture(1);
+    let orange = (0..240)
+        .flat_map(|y| (0..320).map(move |x| (x, y)))
+        .filter(|&(x, y)| {
+            let p = flat.get_pixel(x, y);
+            p[0] > 180 && p[1] > 110 && p[1] < 200 && p[2] < 60
+        })
+        .count();
+    assert!(orange > 100, "orange pixels of NO VALUE: {orange}");
+}

@@ -1,11 +1,15 @@
 //! Pictures of what was measured, drawn on the micrograph, for the report.
 //!
-//! Colours read on a grey micrograph. One caption explains a picture:
-//! "cyan: direction along which the arms repeat in each reliable FFT tile
-//! (short: rejected as an outlier, orange); green: intercept test lines, red
-//! ticks at the arm centres they cross; blue: chains of arm centres (dots at
-//! the centres; orange: chains across rows, not used); magenta: the scale bar and its
-//! measured length; yellow: region excluded from measurement".
+//! Colours (a palette safe for colour-blind readers) read on a grey
+//! micrograph: sky blue, the direction along which the arms repeat in each
+//! reliable FFT tile (short and orange: rejected as an outlier); bluish
+//! green, intercept test lines with vermillion ticks at the arm centres they
+//! cross; blue, chains of arm centres (dots at the centres; orange: chains
+//! across rows, not used); reddish purple, the scale bar and its measured
+//! length; yellow, regions left out of measurement. A measurement picture
+//! carries a panel under it (`panel`) that says this in words, with the
+//! value, the methods' values, the calibration, a scale drawn by the tool
+//! and the caution.
 
 use crate::annotations::Annotation;
 use crate::calibrate::scale_bar::ScaleBar;
@@ -19,13 +23,46 @@ use imageproc::drawing::{draw_hollow_rect_mut, draw_line_segment_mut};
 use imageproc::rect::Rect;
 use std::path::Path;
 
-pub const MAGENTA: Rgb<u8> = Rgb([255, 0, 200]);
-pub const YELLOW: Rgb<u8> = Rgb([255, 220, 0]);
-pub const CYAN: Rgb<u8> = Rgb([0, 230, 255]);
-pub const ORANGE: Rgb<u8> = Rgb([255, 140, 0]);
-pub const GREEN: Rgb<u8> = Rgb([40, 255, 60]);
-pub const RED: Rgb<u8> = Rgb([255, 40, 40]);
-pub const BLUE: Rgb<u8> = Rgb([40, 110, 255]);
+mod panel;
+pub use panel::{round_length_um, with_panel, Caption, CAUTION};
+
+// The colours of the marks: the palette of M. Okabe and K. Ito, "Color
+// Universal Design: how to make figures and presentations that are friendly
+// to colorblind people" (2008), whose eight colours stay apart for readers
+// with any common colour-vision deficiency (the old red ticks on green
+// lines merged for red-green colour-blind readers). The names keep the
+// marks' old roles.
+pub const MAGENTA: Rgb<u8> = Rgb([204, 121, 167]); // reddish purple
+pub const YELLOW: Rgb<u8> = Rgb([240, 228, 66]);
+pub const CYAN: Rgb<u8> = Rgb([86, 180, 233]); // sky blue
+pub const ORANGE: Rgb<u8> = Rgb([230, 159, 0]);
+pub const GREEN: Rgb<u8> = Rgb([0, 158, 115]); // bluish green
+pub const RED: Rgb<u8> = Rgb([213, 94, 0]); // vermillion
+pub const BLUE: Rgb<u8> = Rgb([0, 114, 178]);
+
+/// Width of the marks' strokes, px: one pixel per 500 of the picture's
+/// shorter side (at least one), so that a picture scaled down to a report's
+/// column (about 800 px) keeps its marks at least a pixel wide.
+fn stroke_width(out: &RgbImage) -> u32 {
+    (out.width().min(out.height()) / 500).max(1)
+}
+
+/// A straight stroke `width` pixels wide from a to b: parallel one-pixel
+/// lines a pixel apart, centred on the segment.
+fn stroke(out: &mut RgbImage, a: (f32, f32), b: (f32, f32), colour: Rgb<u8>, width: u32) {
+    let (dx, dy) = (b.0 - a.0, b.1 - a.1);
+    let len = dx.hypot(dy).max(1e-6);
+    let (nx, ny) = (-dy / len, dx / len);
+    for k in 0..width {
+        let off = k as f32 - 0.5 * (width as f32 - 1.0);
+        draw_line_segment_mut(
+            out,
+            (a.0 + off * nx, a.1 + off * ny),
+            (b.0 + off * nx, b.1 + off * ny),
+            colour,
+        );
+    }
+}
 
 /// The grey image as RGB, for drawing on.
 pub fn to_rgb(img: &GrayImage) -> RgbImage {
@@ -69,16 +106,14 @@ pub fn calibration(img: &GrayImage, bar: Option<&ScaleBar>) -> RgbImage {
 fn segment(out: &mut RgbImage, cx: f64, cy: f64, dir_deg: f64, len: f64, colour: Rgb<u8>) {
     let (c, s) = (dir_deg.to_radians().cos(), dir_deg.to_radians().sin());
     let (dx, dy) = (0.5 * len * c, -0.5 * len * s);
-    for off in [-0.5f32, 0.0, 0.5] {
-        // Three parallel strokes, half a pixel apart, for visibility.
-        let (ox, oy) = (off * s as f32, off * c as f32);
-        draw_line_segment_mut(
-            out,
-            ((cx - dx) as f32 + ox, (cy - dy) as f32 + oy),
-            ((cx + dx) as f32 + ox, (cy + dy) as f32 + oy),
-            colour,
-        );
-    }
+    let width = stroke_width(out) + 1;
+    stroke(
+        out,
+        ((cx - dx) as f32, (cy - dy) as f32),
+        ((cx + dx) as f32, (cy + dy) as f32),
+        colour,
+        width,
+    );
 }
 
 /// The micrograph with what was measured: the FFT tiles' directions, the
@@ -150,13 +185,16 @@ fn draw_intercept(out: &mut RgbImage, i: &InterceptOutcome) {
             l.x1_px as f32,
             l.y1_px as f32,
         );
-        draw_line_segment_mut(out, (x0, y0), (x1, y1), GREEN);
-        // Ticks across the line at each arm centre.
+        let width = stroke_width(out);
+        stroke(out, (x0, y0), (x1, y1), GREEN, width);
+        // Ticks across the line at each arm centre, their length scaled
+        // with the strokes.
         let len = ((x1 - x0).hypot(y1 - y0)).max(1e-3);
-        let (nx, ny) = (-(y1 - y0) / len * 3.0, (x1 - x0) / len * 3.0);
+        let half = 3.0 * width as f32;
+        let (nx, ny) = (-(y1 - y0) / len * half, (x1 - x0) / len * half);
         for &(cx, cy) in &l.arm_centres_px {
             let (cx, cy) = (cx as f32, cy as f32);
-            draw_line_segment_mut(out, (cx - nx, cy - ny), (cx + nx, cy + ny), RED);
+            stroke(out, (cx - nx, cy - ny), (cx + nx, cy + ny), RED, width);
         }
     }
 }
@@ -165,21 +203,27 @@ fn draw_intercept(out: &mut RgbImage, i: &InterceptOutcome) {
 /// rows and was not used), with a dot at each centre.
 fn draw_centres(out: &mut RgbImage, c: &CentresOutcome) {
     for ch in &c.chains {
-        let colour = if ch.used { BLUE } else { ORANGE };
+        let colour = if ch.used && c.value_px.is_some() {
+            BLUE
+        } else {
+            ORANGE
+        };
+        let width = stroke_width(out);
         for pair in ch.points.windows(2) {
             let (a, b) = (pair[0], pair[1]);
-            draw_line_segment_mut(
+            stroke(
                 out,
                 (a[0] as f32, a[1] as f32),
                 (b[0] as f32, b[1] as f32),
                 colour,
+                width,
             );
         }
         for p in &ch.points {
             imageproc::drawing::draw_filled_circle_mut(
                 out,
                 (p[0].round() as i32, p[1].round() as i32),
-                2,
+                2 * width as i32,
                 colour,
             );
         }
