@@ -78,6 +78,9 @@ pub fn image_lines(img: &ImageReport) -> Vec<String> {
             i.correlation.id
         ));
     }
+    if let Some(o) = &img.overlay {
+        lines.push(format!("  picture: {o}"));
+    }
     for w in &img.warnings {
         lines.push(format!("  warning: {w}"));
     }

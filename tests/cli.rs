@@ -614,6 +614,15 @@ fn a_measurement_picture_speaks_for_itself() {
             .count();
         assert!(light > 500, "panel text pixels: {light}");
     }
+    // stderr names where each picture went.
+    for i in 0..2 {
+        let p = rep["images"][i]["overlay"].as_str().unwrap();
+        assert!(
+            run.stderr.contains(&format!("picture: {p}")),
+            "{}",
+            run.stderr
+        );
+    }
     // The flat field's picture: the band across its middle is darkened and
     // carries the words in orange (230, 159, 0).
     let flat = picture(1);
