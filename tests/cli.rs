@@ -635,3 +635,35 @@ fn a_measurement_picture_speaks_for_itself() {
         .count();
     assert!(orange > 100, "orange pixels of NO VALUE: {orange}");
 }
+
+/// A closed stderr (piped into `head`, a terminal gone) loses the lines a
+/// person would read, never the run: the images are measured and the report
+/// written, with the exit status of the measurement (before, the first line
+/// written panicked and the report was lost).
+#[test]
+fn a_closed_stderr_loses_no_report() {
+    let dir = tempfile::tempdir().unwrap();
+    let img = dir.path().join("a.png");
+    write_comb_png(&img, 160, 160, 10.0);
+    let out = dir.path().join("r.json");
+    let mut child = std::process::Command::new(env!("CARGO_BIN_EXE_armspace"))
+        .args([
+            "measure",
+            &path_str(&img),
+            "--um-per-px",
+            "1",
+            "--out",
+            &path_str(&out),
+        ])
+        .stdout(std::process::Stdio::null())
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    // The reading end closed before anything is written to it.
+    drop(child.stderr.take());
+    let status = child.wait().unwrap();
+    assert!(matches!(status.code(), Some(0) | Some(3)), "{status:?}");
+    let rep: Value = serde_json::from_str(&std::fs::read_to_string(&out).unwrap()).unwrap();
+    assert_eq!(rep["images"].as_array().unwrap().len(), 1);
+    assert!(!dir.path().join("r.json.journal").exists());
+}
