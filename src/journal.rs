@@ -287,6 +287,53 @@ fn diff(at: &str, was: &Value, now: &Value, out: &mut Vec<String>) {
     }
 }
 
+/// The lock of one report: held by the run writing it, so that two runs
+/// given the same `--out` do not write each other's journal and report
+/// (the second is refused before it measures anything). An advisory lock
+/// on `REPORT.lock` (`File::try_lock`, flock on Unix): the system releases
+/// it when the process ends, however it ends, so a killed run leaves no
+/// stale lock. The file is removed when the lock is dropped.
+#[derive(Debug)]
+pub struct RunLock {
+    path: PathBuf,
+    _file: std::fs::File,
+}
+
+impl RunLock {
+    /// Takes the lock beside the report `out`, or says which run holds it.
+    pub fn acquire(out: &Path) -> Result<Self> {
+        let mut name = out.as_os_str().to_os_string();
+        name.push(".lock");
+        let path = PathBuf::from(name);
+        let file = std::fs::OpenOptions::new()
+            .create(true)
+            .truncate(false)
+            .write(true)
+            .open(&path)
+            .map_err(|source| Error::Write {
+                path: path.clone(),
+                source,
+            })?;
+        match file.try_lock() {
+            Ok(()) => Ok(Self { path, _file: file }),
+            Err(std::fs::TryLockError::WouldBlock) => Err(Error::Input {
+                path: out.to_path_buf(),
+                reason: format!(
+                    "another armspace run is writing this report (it holds {}); wait for it to finish, or name another --out",
+                    path.display()
+                ),
+            }),
+            Err(std::fs::TryLockError::Error(source)) => Err(Error::Write { path, source }),
+        }
+    }
+}
+
+impl Drop for RunLock {
+    fn drop(&mut self) {
+        let _ = std::fs::remove_file(&self.path);
+    }
+}
+
 /// The journal being written by a run.
 #[derive(Debug)]
 pub struct Journal {

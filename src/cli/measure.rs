@@ -291,6 +291,19 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
             return ExitCode::from(EXIT_FATAL);
         }
     };
+    // One run per report: a second run given the same --out is refused
+    // before it reads or replaces the first one's journal.
+    let _lock = match &journal_path {
+        Some(_) => match args.out.as_deref().map(armspace::journal::RunLock::acquire) {
+            Some(Ok(lock)) => Some(lock),
+            Some(Err(e)) => {
+                say!("armspace: {e}");
+                return ExitCode::from(EXIT_USAGE);
+            }
+            None => None,
+        },
+        None => None,
+    };
     let fingerprint = armspace::journal::fingerprint(&given, &opts);
     // With --resume, the images the journal holds and that are unchanged are
     // taken over; the rest are measured.
