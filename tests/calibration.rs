@@ -13,12 +13,12 @@ fn spec(i: u64, bar: Option<ScaleBarSpec>) -> FieldSpec {
     FieldSpec {
         width: 560 + 37 * (i as u32 % 5),
         height: 420 + 23 * (i as u32 % 4),
-        morphology: if i % 2 == 0 {
+        morphology: if i.is_multiple_of(2) {
             Morphology::Columnar
         } else {
             Morphology::Equiaxed
         },
-        style: if i % 3 == 0 {
+        style: if i.is_multiple_of(3) {
             Style::Clean
         } else {
             Style::Etched
