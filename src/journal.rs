@@ -65,13 +65,19 @@ struct Fingerprint {
 /// Everything that decides an image's report in a run with `opts` over the
 /// `inputs` as given (module docs), as JSON.
 pub fn fingerprint(inputs: &[String], opts: &MeasureOptions) -> Value {
+    // Paths as the user spelled them name the same files whatever trailing
+    // separator or `./` they carry: `in/`, `./in` and `in` are one input.
+    let inputs: Vec<String> = inputs.iter().map(|p| lexical(p)).collect();
     let f = Fingerprint {
         tool: env!("CARGO_PKG_NAME"),
         version: env!("CARGO_PKG_VERSION"),
-        parameters: report::parameters(inputs, opts),
+        parameters: report::parameters(&inputs, opts),
         um_per_px_rel_uncertainty: opts.calibration.manual_rel_uncertainty,
         trust_calibration: opts.calibration.trust,
-        overlay_dir: opts.overlay_dir.as_ref().map(|d| d.display().to_string()),
+        overlay_dir: opts
+            .overlay_dir
+            .as_ref()
+            .map(|d| lexical(&d.display().to_string())),
         // The report names the correlation; its coefficients and those of
         // the alternatives beside it may come from a file that changed.
         correlation_entries_sha256: opts.interpret.as_ref().map(|s| {
@@ -81,6 +87,21 @@ pub fn fingerprint(inputs: &[String], opts: &MeasureOptions) -> Value {
     // Plain numbers, strings and maps of string keys always serialise; were
     // it ever to fail, the message stands in, the same on both runs.
     serde_json::to_value(&f).unwrap_or_else(|e| Value::String(format!("no fingerprint: {e}")))
+}
+
+/// A path with its `.` components and repeated or trailing separators
+/// dropped, without touching the file system (`..` is kept: through a link
+/// it need not mean the parent).
+fn lexical(path: &str) -> String {
+    let p: PathBuf = Path::new(path)
+        .components()
+        .filter(|c| !matches!(c, std::path::Component::CurDir))
+        .collect();
+    if p.as_os_str().is_empty() {
+        ".".into()
+    } else {
+        p.display().to_string()
+    }
 }
 
 #[derive(Serialize, Deserialize)]
@@ -456,6 +477,17 @@ fn sync_folder(path: &Path) {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn one_folder_spelled_three_ways_is_one_input() {
+        // Path syntax (POSIX): a trailing separator, a leading `./` and a
+        // repeated separator name the same directory entry.
+        for p in ["in/", "./in", "in", ".//in//"] {
+            assert_eq!(lexical(p), "in", "{p}");
+        }
+        assert_eq!(lexical("./"), ".");
+        assert_eq!(lexical("a/../b"), "a/../b");
+    }
 
     #[test]
     fn the_journal_lies_beside_the_report() {
