@@ -299,51 +299,6 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         .value
         .and_then(crate::interpret::plausibility::sdas_warning);
     warnings.extend(implausible.iter().cloned());
-    let overlay = opts
-        .overlay_dir
-        .as_ref()
-        .zip(overlay_base)
-        .and_then(|(dir, base)| {
-            let picture = crate::overlay::measurement(
-                &base,
-                bar.as_ref(),
-                &found,
-                &outcomes,
-                opts.fft.min_quality,
-            );
-            let file = path.display().to_string();
-            let picture = crate::overlay::with_panel(
-                picture,
-                &crate::overlay::Caption {
-                    file: &file,
-                    sdas: &sdas,
-                    outcomes: &outcomes,
-                    um_per_px,
-                    calibration_source: calibration.source.name(),
-                },
-            );
-            let target = dir.join(overlay_name(path, &info.sha256));
-            if opts.protected.is_protected(&target) {
-                warnings.push(Warning::new(
-                    "overlay.not-written",
-                    format!(
-                        "overlay not written: {} is an input of this run",
-                        target.display()
-                    ),
-                ));
-                return None;
-            }
-            match crate::overlay::write_png(&target, &picture) {
-                Ok(()) => Some(target),
-                Err(e) => {
-                    warnings.push(Warning::new(
-                        "overlay.not-written",
-                        format!("overlay not written: {e}"),
-                    ));
-                    None
-                }
-            }
-        });
     let interpretation = opts
         .interpret
         .as_ref()
@@ -386,6 +341,53 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         }
         a
     });
+    // The picture is drawn last, so that its panel can state the decision.
+    let overlay = opts
+        .overlay_dir
+        .as_ref()
+        .zip(overlay_base)
+        .and_then(|(dir, base)| {
+            let picture = crate::overlay::measurement(
+                &base,
+                bar.as_ref(),
+                &found,
+                &outcomes,
+                opts.fft.min_quality,
+            );
+            let file = path.display().to_string();
+            let picture = crate::overlay::with_panel(
+                picture,
+                &crate::overlay::Caption {
+                    file: &file,
+                    sdas: &sdas,
+                    outcomes: &outcomes,
+                    um_per_px,
+                    calibration_source: calibration.source.name(),
+                    acceptance: acceptance.as_ref(),
+                },
+            );
+            let target = dir.join(overlay_name(path, &info.sha256));
+            if opts.protected.is_protected(&target) {
+                warnings.push(Warning::new(
+                    "overlay.not-written",
+                    format!(
+                        "overlay not written: {} is an input of this run",
+                        target.display()
+                    ),
+                ));
+                return None;
+            }
+            match crate::overlay::write_png(&target, &picture) {
+                Ok(()) => Some(target),
+                Err(e) => {
+                    warnings.push(Warning::new(
+                        "overlay.not-written",
+                        format!("overlay not written: {e}"),
+                    ));
+                    None
+                }
+            }
+        });
     ImageResult {
         file: path.to_path_buf(),
         info: Some(info),
