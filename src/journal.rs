@@ -59,6 +59,9 @@ struct Fingerprint {
     um_per_px_rel_uncertainty: Option<f64>,
     trust_calibration: Option<crate::calibrate::CalibrationSource>,
     overlay_dir: Option<String>,
+    /// Only when given, so that journals of runs without it still match.
+    #[serde(skip_serializing_if = "Option::is_none", default)]
+    overlay_max_width: Option<u32>,
     correlation_entries_sha256: Option<String>,
 }
 
@@ -78,6 +81,7 @@ pub fn fingerprint(inputs: &[String], opts: &MeasureOptions) -> Value {
             .overlay_dir
             .as_ref()
             .map(|d| lexical(&d.display().to_string())),
+        overlay_max_width: opts.overlay_max_width,
         // The report names the correlation; its coefficients and those of
         // the alternatives beside it may come from a file that changed.
         correlation_entries_sha256: opts.interpret.as_ref().map(|s| {

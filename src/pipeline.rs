@@ -33,6 +33,8 @@ pub struct MeasureOptions {
     pub methods: Vec<Method>,
     /// Folder for a picture per image of what was measured.
     pub overlay_dir: Option<PathBuf>,
+    /// Largest width of a picture, px (wider ones are scaled down).
+    pub overlay_max_width: Option<u32>,
     /// Files no output may replace (the run's inputs, resolved).
     pub protected: crate::files::Protected,
     /// Correlation and alloy for cooling rate and solidification time.
@@ -56,6 +58,7 @@ impl MeasureOptions {
             target_rel_accuracy_pct: 10.0,
             methods: Method::ALL.to_vec(),
             overlay_dir: None,
+            overlay_max_width: None,
             protected: crate::files::Protected::default(),
             interpret: None,
             spec: None,
@@ -354,6 +357,7 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
                 &outcomes,
                 opts.fft.min_quality,
             );
+            let picture = crate::overlay::fit_width(picture, opts.overlay_max_width);
             let file = path.display().to_string();
             let picture = crate::overlay::with_panel(
                 picture,

@@ -667,3 +667,43 @@ fn a_closed_stderr_loses_no_report() {
     assert_eq!(rep["images"].as_array().unwrap().len(), 1);
     assert!(!dir.path().join("r.json.journal").exists());
 }
+
+/// `--overlay-max-width` scales a wide picture down for a report's page,
+/// with its panel set for that width; a width too small to read is refused.
+#[test]
+fn pictures_fit_the_width_asked_for() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let comb = d.join("wide.png");
+    write_comb_png(&comb, 1200, 300, 12.0);
+    let pictures = d.join("pictures");
+    let run = armspace(&[
+        "measure",
+        &path_str(&comb),
+        "--um-per-px",
+        "0.5",
+        "--overlay",
+        &path_str(&pictures),
+        "--overlay-max-width",
+        "400",
+    ]);
+    assert!(run.code == 0 || run.code == 3, "{}", run.stderr);
+    let rep = report(&run);
+    let p = rep["images"][0]["overlay"].as_str().unwrap();
+    let img = image::open(p).unwrap();
+    assert_eq!(img.width(), 400);
+    // The micrograph part keeps its aspect (1200 x 300 -> 400 x 100), with
+    // the panel under it.
+    assert!(img.height() > 100 + 100, "{}", img.height());
+    let run = armspace(&[
+        "measure",
+        &path_str(&comb),
+        "--um-per-px",
+        "0.5",
+        "--overlay",
+        &path_str(&pictures),
+        "--overlay-max-width",
+        "50",
+    ]);
+    assert_eq!(run.code, 2, "{}", run.stderr);
+}

@@ -61,6 +61,10 @@ pub(super) struct MeasureArgs {
     /// Write a picture per image of what was measured into this folder.
     #[arg(long)]
     overlay: Option<PathBuf>,
+    /// Largest width of a picture, px: wider ones are scaled down to it
+    /// (the panel under it is set for that width), for a report's page.
+    #[arg(long, value_parser = clap::value_parser!(u32).range(200..=20000), requires = "overlay")]
+    overlay_max_width: Option<u32>,
     /// Worker threads (default: one per core).
     #[arg(long, value_parser = clap::value_parser!(u16).range(1..))]
     jobs: Option<u16>,
@@ -211,6 +215,7 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
         target_rel_accuracy_pct: args.target_ra_pct,
         methods,
         overlay_dir: args.overlay.clone(),
+        overlay_max_width: args.overlay_max_width,
         protected: Default::default(),
         interpret,
         spec,
