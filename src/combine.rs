@@ -942,7 +942,7 @@ mod tests {
         let mut o = outcome(Method::Intercept, Some(20.0), Some([18.0, 22.0]), 7);
         let values: Vec<f64> = (1..=12).map(|i| 10.0 + (i as f64).powf(1.3)).collect();
         for (i, v) in values.iter().enumerate() {
-            let mut l = o.local[0].clone();
+            let mut l = o.local[0];
             l.spacing = Pixels(*v);
             if i < 2 {
                 o.local[i] = l;

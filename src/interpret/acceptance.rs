@@ -680,7 +680,7 @@ pub fn assess(
         },
         pool_field: spec
             .pools(zone.map(|z| z.name.as_str()))
-            .then(|| PoolField {
+            .then_some(PoolField {
                 calibration_half_um: evidence.calibration_half_um,
                 doubt: None,
             }),

@@ -177,7 +177,7 @@ fn expanded(k: usize, sigma: f64, c: f64) -> f64 {
 /// whenever the near side's is at stake.
 pub fn probability_of_deciding(k: usize, sigma: f64, c: f64, d: f64, g: f64) -> f64 {
     use statrs::distribution::{ContinuousCDF, Normal};
-    if k < MIN_FIELDS || !(sigma > 0.0) || !d.is_finite() {
+    if k < MIN_FIELDS || sigma.is_nan() || sigma <= 0.0 || !d.is_finite() {
         return 0.0;
     }
     let b = |s: f64| g * expanded(k, s, c);
@@ -196,7 +196,8 @@ pub const MAX_FIELDS: usize = 10_000;
 /// does (the value lies within the calibration's part of the limit, or too
 /// close to it).
 pub fn fields_for_probability(sigma: f64, c: f64, d: f64, g: f64, p: f64) -> Option<usize> {
-    if !(d.abs() > g * c) || !(sigma > 0.0) {
+    // NaN in any input also ends here.
+    if d.is_nan() || d.abs() <= g * c || sigma.is_nan() || sigma <= 0.0 {
         return None;
     }
     // The probability grows with k (the interval narrows and its quantile
