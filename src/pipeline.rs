@@ -337,6 +337,9 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
             .clone()
             .or_else(|| implausible.as_ref().map(|w| w.message.clone()));
         if let (Some(doubt), Some(_)) = (doubt, a.decision) {
+            if let Some(p) = a.pool_field.as_mut() {
+                p.doubt = Some(doubt.clone());
+            }
             a.decision = Some(acceptance::Decision::Indeterminate);
             a.reason = format!("not decided: {doubt}");
             a.measurements_to_decide = None;
