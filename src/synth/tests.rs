@@ -22,6 +22,10 @@ fn base(morphology: Morphology, style: Style) -> FieldSpec {
             polarity: Polarity::LightOnDark,
             corner: Corner::BottomRight,
             backing_box: true,
+            ticks: false,
+            label: None,
+            ink: None,
+            inset_px: None,
         }),
         seed: 7,
     }
