@@ -882,7 +882,10 @@ mod tests {
         let e = combine(&outs, UmPerPx::new(1.0).unwrap(), None);
         assert!(e.value.is_none(), "{e:?}");
         let out: Vec<Method> = e.left_out.iter().map(|(m, _)| *m).collect();
-        assert!(out.contains(&Method::Intercept) && out.contains(&Method::Centres), "{out:?}");
+        assert!(
+            out.contains(&Method::Intercept) && out.contains(&Method::Centres),
+            "{out:?}"
+        );
         // A method that agrees with the FFT along the rows corroborates it.
         let outs = [
             fft_in_rows(10.0, 18.0),

@@ -36,6 +36,8 @@
 //! beyond (the edge of a backing box) is ignored.
 
 use crate::load::GrayImage;
+
+mod clear;
 use schemars::JsonSchema;
 use serde::Serialize;
 
@@ -85,10 +87,10 @@ const END_TOLERANCE_PX: i64 = 2;
 const MIN_ON_LINE: f64 = 0.8;
 
 /// Shortest bar taken, px. A bar is read to about half a pixel at each
-/// end; under 40 px that is already more than 1 % of the calibration,
-/// and a band that short is no more than a few arm spacings of a fine
+/// end; under 32 px that is more than 1.5 % of the calibration, and a
+/// band that short is no more than a few arm spacings of a fine
 /// structure, whose straight stretches it could not be told from.
-const MIN_BAR_LEN: usize = 40;
+const MIN_BAR_LEN: usize = 32;
 
 /// How many times longer than any other straight band of the image the bar
 /// must be: a bar is drawn to stand out, and the structure's straight
@@ -125,7 +127,8 @@ enum Verdict {
     Unmeasurable(&'static str),
 }
 
-/// Finds the scale bar, or says why there is none.
+/// Finds the scale bar, or says why there is none: first a bar set off
+/// from its surroundings (`clear`), then one lying on the structure.
 pub fn detect(img: &GrayImage) -> crate::Result<ScaleBar> {
     let none = |reason: String| crate::Error::Calibration { reason };
     let (w, h) = (img.width, img.height);
@@ -137,6 +140,31 @@ pub fn detect(img: &GrayImage) -> crate::Result<ScaleBar> {
             "the image holds grey values that are not numbers; no scale bar can be read".into(),
         ));
     }
+    // First a bar set off from its surroundings: where its tests hold
+    // (a plain surround a few pixels out, rows of nearly equal ends) they
+    // are the stronger evidence, and bars on backing boxes are measured as
+    // before; but it must be long enough (MIN_BAR_LEN), which that search
+    // alone does not ask (on busy fields it took short straight stretches
+    // of the structure for bars). Otherwise a bar lying on the structure.
+    match clear::detect(img) {
+        Ok(bar) if bar.length_px >= MIN_BAR_LEN as f64 => Ok(bar),
+        _ => detect_on_structure(img).0,
+    }
+}
+
+fn not_standing_out(b: &ScaleBar, rival: &ScaleBar) -> String {
+    format!(
+        "no bar stands out: straight bands of similar length ({:.0} px at x = {}, y = {} \
+         and {:.0} px at x = {}, y = {}) belong to the structure or to a drawing; \
+         give the scale with --um-per-px or --profile",
+        b.length_px, b.x0, b.y0, rival.length_px, rival.x0, rival.y0
+    )
+}
+
+/// A bar lying on the structure (see the module notes and `examine`), and
+/// every straight band found, box strips left out.
+fn detect_on_structure(img: &GrayImage) -> (crate::Result<ScaleBar>, Vec<ScaleBar>) {
+    let none = |reason: String| crate::Error::Calibration { reason };
     let (lo, hi) = img
         .data
         .iter()
@@ -144,10 +172,13 @@ pub fn detect(img: &GrayImage) -> crate::Result<ScaleBar> {
             (a.min(*v), b.max(*v))
         });
     let range = hi - lo;
-    if !(range >= 0.05) {
-        return Err(none(
-            "the image has too little contrast to show a scale bar".into(),
-        ));
+    if range.is_nan() || range < 0.05 {
+        return (
+            Err(none(
+                "the image has too little contrast to show a scale bar".into(),
+            )),
+            Vec::new(),
+        );
     }
     let mut found: Vec<ScaleBar> = Vec::new();
     let mut near: Option<NearMiss> = None;
@@ -202,26 +233,21 @@ pub fn detect(img: &GrayImage) -> crate::Result<ScaleBar> {
             best = Some(bar);
         }
     }
+    let bands: Vec<ScaleBar> = found.iter().filter(|a| !is_box_strip(a)).cloned().collect();
     // The bar stands out: no other straight band of the image, away from
     // it, is more than half its length (see STAND_OUT).
     if let Some(b) = best {
-        let near_bar = |a: &ScaleBar| {
-            a.x0 <= b.x1 && b.x0 <= a.x1 && a.y0 <= b.y1 + 6 && b.y0 <= a.y1 + 6
-        };
-        if let Some(rival) = found
-            .iter()
-            .filter(|a| !is_box_strip(a) && !near_bar(a))
-            .find(|a| a.length_px * STAND_OUT > b.length_px)
-        {
-            return Err(none(format!(
-                "no bar stands out: straight bands of similar length ({:.0} px at x = {}, y = {} \
-                 and {:.0} px at x = {}, y = {}) belong to the structure or to a drawing; \
-                 give the scale with --um-per-px or --profile",
-                b.length_px, b.x0, b.y0, rival.length_px, rival.x0, rival.y0
-            )));
+        let near_bar =
+            |a: &ScaleBar| a.x0 <= b.x1 && b.x0 <= a.x1 && a.y0 <= b.y1 + 6 && b.y0 <= a.y1 + 6;
+        if let Some(rival) = bands.iter().find(|a| {
+            !near_bar(a)
+                && a.length_px >= MIN_BAR_LEN as f64
+                && a.length_px * STAND_OUT > b.length_px
+        }) {
+            return (Err(none(not_standing_out(b, rival))), bands);
         }
     }
-    match (best, near) {
+    let result = match (best, near) {
         (Some(b), _) => Ok(b.clone()),
         (None, Some(n)) => Err(none(format!(
             "a straight band of one level, {} px long, at x = {}, y = {}, looks like a scale \
@@ -231,7 +257,8 @@ pub fn detect(img: &GrayImage) -> crate::Result<ScaleBar> {
         (None, None) => Err(none(
             "no solid horizontal bar stands out from the image".into(),
         )),
-    }
+    };
+    (result, bands)
 }
 
 /// Horizontal runs of candidates at least `min_len` long, row by row.
@@ -340,13 +367,6 @@ fn rectangles(img: &GrayImage, is_cand: &impl Fn(f32) -> bool) -> Vec<Rect> {
     for g in open {
         emit(g, &mut done);
     }
-    if std::env::var("ARMSPACE_BAR_DEBUG").is_ok() {
-        for r in &done {
-            if r.x1 - r.x0 > 150 {
-                eprintln!("DBG rect {r:?}");
-            }
-        }
-    }
     done
 }
 
@@ -391,10 +411,10 @@ fn examine(img: &GrayImage, r: Rect, polarity: Polarity, range: f32) -> Verdict 
         || length < MIN_BAR_LEN
         || length as f64 > 0.9 * w as f64
     {
-        { dbg_no(348, &r); return Verdict::No; }
+        return Verdict::No;
     }
     if x0 < 9 || x1 + 9 >= w || y0 < 6 || y1 + 6 >= h {
-        { dbg_no(351, &r); return Verdict::No; }
+        return Verdict::No;
     }
     // Entering a dark bar the grey falls; leaving it, it rises.
     let into = match polarity {
@@ -413,7 +433,7 @@ fn examine(img: &GrayImage, r: Rect, polarity: Polarity, range: f32) -> Verdict 
         .flat_map(|y| img.row(y)[x0 + 1..x1].iter().copied())
         .collect();
     let Some(ink) = median_f32(interior) else {
-        { dbg_no(370, &r); return Verdict::No; }
+        return Verdict::No;
     };
     let ink = ink as f64;
     // Pixel noise of the ink: the median absolute difference of horizontal
@@ -429,15 +449,14 @@ fn examine(img: &GrayImage, r: Rect, polarity: Polarity, range: f32) -> Verdict 
         })
         .collect();
     let Some(mad) = median_f64(&diffs) else {
-        { dbg_no(386, &r); return Verdict::No; }
+        return Verdict::No;
     };
     let noise = 1.4826 * mad / std::f64::consts::SQRT_2;
 
     // Each column's step at the top and at the bottom edge: the grey
     // three rows outside (past the blur of a drawn edge) against the ink.
-    let col_mean = |x: usize| {
-        (iy0..=iy1).map(|y| img.get(x, y) as f64).sum::<f64>() / n_rows as f64
-    };
+    let col_mean =
+        |x: usize| (iy0..=iy1).map(|y| img.get(x, y) as f64).sum::<f64>() / n_rows as f64;
     let means: Vec<f64> = (x0..=x1).map(col_mean).collect();
     let step_top: Vec<f64> = (x0..=x1)
         .zip(&means)
@@ -455,14 +474,14 @@ fn examine(img: &GrayImage, r: Rect, polarity: Polarity, range: f32) -> Verdict 
     steps.sort_by(f64::total_cmp);
     let contrast = steps[(steps.len() * 4 / 5).min(steps.len() - 1)];
     if !(contrast > 0.0 && contrast.is_finite()) {
-        { dbg_no(412, &r); return Verdict::No; }
+        return Verdict::No;
     }
     // A step that is to be located to a fraction of a pixel must stand well
     // above the noise: four standard deviations of it (a 4-sigma step is
     // seen wherever it is; located to noise / slope, a small fraction of a
     // pixel).
     if contrast < 4.0 * noise {
-        { dbg_no(419, &r); return Verdict::No; }
+        return Verdict::No;
     }
     // Flat ink along the bar: the spread of the column means (10th to 90th
     // percentile; 2.56 standard deviations of a normal law) within what the
@@ -478,7 +497,7 @@ fn examine(img: &GrayImage, r: Rect, polarity: Polarity, range: f32) -> Verdict 
         let spread = m[(n * 9 / 10).min(n - 1)] - m[n / 10];
         let allowed = 1.3 * 2.56 * noise / (n_rows as f64).sqrt() + 0.2 * contrast;
         if spread > allowed {
-            { dbg_no(435, &r); return Verdict::No; }
+            return Verdict::No;
         }
     }
 
@@ -497,7 +516,9 @@ fn examine(img: &GrayImage, r: Rect, polarity: Polarity, range: f32) -> Verdict 
         let v = ys.map(|y| img.get(x, y) as f64);
         let (lo, hi) = v
             .iter()
-            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), q| (a.min(*q), b.max(*q)));
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), q| {
+                (a.min(*q), b.max(*q))
+            });
         hi - lo <= 0.25 * contrast
     };
     let shown_at = |steps: &[f64], i: usize, ys: [usize; 3]| {
@@ -532,7 +553,7 @@ fn examine(img: &GrayImage, r: Rect, polarity: Polarity, range: f32) -> Verdict 
     // neither edge is seen (structure of the bar's own ink touching both
     // edges there would make the bar's extent a guess).
     if (top.len() as f64) < 0.2 * length as f64 || (bottom.len() as f64) < 0.2 * length as f64 {
-        { dbg_no(474, &r); return Verdict::No; }
+        return Verdict::No;
     }
     let mut gap = 0usize;
     let mut worst_gap = 0usize;
@@ -541,7 +562,7 @@ fn examine(img: &GrayImage, r: Rect, polarity: Polarity, range: f32) -> Verdict 
         worst_gap = worst_gap.max(gap);
     }
     if 4 * worst_gap > length {
-        { dbg_no(483, &r); return Verdict::No; }
+        return Verdict::No;
     }
     // Straightness: four in five located positions within 0.5 px of the
     // edge's median line. A drawn edge with a plain outside, blurred or
@@ -555,8 +576,7 @@ fn examine(img: &GrayImage, r: Rect, polarity: Polarity, range: f32) -> Verdict 
         let inl = pos.iter().filter(|p| (*p - mid).abs() <= 0.5).count() as f64;
         Some((mid, inl / pos.len() as f64))
     };
-    let (Some((top_y, top_in)), Some((bot_y, bot_in))) = (straight(&top), straight(&bottom))
-    else {
+    let (Some((top_y, top_in)), Some((bot_y, bot_in))) = (straight(&top), straight(&bottom)) else {
         return Verdict::No;
     };
     if top_in < MIN_ON_LINE || bot_in < MIN_ON_LINE || bot_y - top_y < 1.5 {
@@ -577,9 +597,9 @@ fn examine(img: &GrayImage, r: Rect, polarity: Polarity, range: f32) -> Verdict 
     // bar's polarity (a touching feature of another grey leaves the step
     // where it is, only smaller; one lighter than a light bar, or darker
     // than a dark one, would turn the profile back and could hide a sliver
-    // of the bar's own grey), and the last two of them are plain (within a
-    // quarter of the contrast) and clearly not the ink (twice the
-    // tolerance). An end that a feature of the bar's own grey covers in
+    // of the bar's own grey), and the second and third of them, past the
+    // blur of a drawn step, are plain (within a quarter of the contrast)
+    // and clearly not the ink (twice the tolerance). An end that a feature of the bar's own grey covers in
     // every row cannot be placed: the ink runs on, and where the feature
     // ends says nothing about the bar.
     let level_tol = (5.0 * noise).max(0.05 * contrast);
@@ -587,11 +607,15 @@ fn examine(img: &GrayImage, r: Rect, polarity: Polarity, range: f32) -> Verdict 
     // Beyond the ink, on the far side from the bar's polarity: for a dark
     // bar not darker than the ink, for a light bar not lighter.
     let far_side = |v: f32| -into * (v as f64 - ink) >= -level_tol;
-    // One row's end: the last ink pixel walking outward from `start`
-    // (`dir` -1 to the left, +1 to the right), the five beyond it checked,
+    // One row's end: the last ink pixel walking outward from just inside
+    // the band's end (to the left or to the right), the five beyond it checked,
     // the step located.
     let locate = |row: &[f32], left: bool| -> Option<f64> {
-        let mut i = if left { (x0 + 3).min(x1) } else { x1.saturating_sub(3).max(x0) };
+        let mut i = if left {
+            (x0 + 3).min(x1)
+        } else {
+            x1.saturating_sub(3).max(x0)
+        };
         if !at_ink(row[i]) {
             return None;
         }
@@ -603,14 +627,17 @@ fn examine(img: &GrayImage, r: Rect, polarity: Polarity, range: f32) -> Verdict 
             }
             i = next;
         }
-        if !beyond(i, 7).is_some_and(|j| j < w) {
+        if beyond(i, 7).is_none_or(|j| j >= w) {
             return None;
         }
-        let out: Vec<f32> = (1..=5).filter_map(|k| beyond(i, k)).map(|j| row[j]).collect();
+        let out: Vec<f32> = (1..=5)
+            .filter_map(|k| beyond(i, k))
+            .map(|j| row[j])
+            .collect();
         if out.len() < 5 || !out.iter().all(|v| far_side(*v)) {
             return None;
         }
-        let (o1, o2) = (out[3] as f64, out[4] as f64);
+        let (o1, o2) = (out[1] as f64, out[2] as f64);
         if (o1 - o2).abs() > 0.25 * contrast || -into * (o1 - ink) < 2.0 * level_tol {
             return None;
         }
@@ -629,7 +656,11 @@ fn examine(img: &GrayImage, r: Rect, polarity: Polarity, range: f32) -> Verdict 
         // few tenths of a pixel); at least half of the rows that show the
         // end must agree.
         let mid = median_f64(&pos)?;
-        let kept: Vec<f64> = pos.iter().copied().filter(|p| (p - mid).abs() <= 0.75).collect();
+        let kept: Vec<f64> = pos
+            .iter()
+            .copied()
+            .filter(|p| (p - mid).abs() <= 0.75)
+            .collect();
         if kept.is_empty() || 2 * kept.len() < pos.len() {
             return None;
         }
@@ -668,7 +699,7 @@ fn examine(img: &GrayImage, r: Rect, polarity: Polarity, range: f32) -> Verdict 
             .flat_map(|&y| img.row(y)[x0..=x1].iter().copied())
             .collect(),
     ) else {
-        { dbg_no(599, &r); return Verdict::No; }
+        return Verdict::No;
     };
     let backing_box = grow_box(img, [x0, y0, x1, y1], surround, 0.15 * range);
     let (pad_x, pad_y) = ((2 * thickness).max(8), (5 * thickness).max(16));
@@ -845,6 +876,22 @@ mod tests {
     }
 
     #[test]
+    fn bar_touched_by_dark_structure_is_measured_edge_to_edge() {
+        // A dark bar on a textured field, touched above, below and at one
+        // end (over some of its rows) by features of a dark grey near its
+        // own: measured as drawn (pixels 250..=369: 120 px), by the
+        // set-off search or by the one on the structure.
+        let mut img = field(400, 300);
+        draw(&mut img, 250, 270, 369, 275, 0.0);
+        draw(&mut img, 265, 258, 295, 269, 0.12);
+        draw(&mut img, 310, 276, 345, 290, 0.12);
+        draw(&mut img, 370, 262, 385, 272, 0.12);
+        let bar = detect(&img).unwrap();
+        assert!((bar.length_px - 120.0).abs() <= 0.5, "{bar:?}");
+        assert_eq!((bar.y0, bar.y1), (270, 275));
+    }
+
+    #[test]
     fn no_bar_in_a_plain_field() {
         assert!(detect(&field(300, 200)).is_err());
     }
@@ -872,11 +919,5 @@ mod tests {
         // A weaker fall just before the bar's own step leaves it in place.
         let row = [0.9f32, 0.8, 0.7, 0.7, 0.0, 0.0, 0.0];
         assert!((edge(&row, 0, 5, -1.0).unwrap() - 3.5).abs() < 1e-6);
-    }
-}
-
-fn dbg_no(line: usize, r: &Rect) {
-    if std::env::var("ARMSPACE_BAR_DEBUG").is_ok() && r.x1 - r.x0 > 90 {
-        eprintln!("DBG no at line {line}: {r:?}");
     }
 }

@@ -367,7 +367,9 @@ impl BarPlacement {
         let (reach, label_h, gap) = bar_extras(&self.spec);
         if self.spec.ticks {
             // Ticks flush with the bar's ends: its outer edges are the bar's.
-            let tw = (self.spec.thickness_px as usize / 2).max(2).min(x1 - x0 + 1);
+            let tw = (self.spec.thickness_px as usize / 2)
+                .max(2)
+                .min(x1 - x0 + 1);
             let (ty0, ty1) = (
                 y0.saturating_sub(reach as usize),
                 (y1 + reach as usize).min(h - 1),
