@@ -87,6 +87,10 @@ fn bar_lengths_within_half_a_pixel() {
                 Corner::BottomLeft
             },
             backing_box: (i / 4) % 2 == 0,
+            ticks: false,
+            label: None,
+            ink: None,
+            inset_px: None,
         };
         let s = spec(i, Some(bar));
         let Ok((img, truth)) = render(&s) else {
@@ -172,6 +176,10 @@ fn a_scratch_longer_than_the_bar_is_not_taken_for_it() {
             polarity: Polarity::DarkOnLight,
             corner: Corner::BottomRight,
             backing_box: i % 2 == 0,
+            ticks: false,
+            label: None,
+            ink: None,
+            inset_px: None,
         };
         let (img, truth) = render(&spec(i, Some(bar))).unwrap();
         let tb = truth.scale_bar.unwrap();

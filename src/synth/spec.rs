@@ -156,6 +156,10 @@ pub fn random_spec_styled(rng: &mut impl Rng, index: usize, style: Option<Style>
                 Corner::BottomRight
             },
             backing_box: rng.random_bool(0.5),
+            ticks: false,
+            label: None,
+            ink: None,
+            inset_px: None,
         })
     } else {
         None
