@@ -218,33 +218,12 @@ fn detect_on_structure(img: &GrayImage) -> (crate::Result<ScaleBar>, Vec<ScaleBa
             }
         }
     }
-    // A strip of a backing box above or below a bar looks like a bar of the
-    // opposite polarity, longer than the bar. A box is always larger than the
-    // bar it backs, so a candidate that spans a vertically adjacent candidate
-    // of opposite polarity is a piece of that one's box.
-    let is_box_strip = |a: &ScaleBar| {
-        found.iter().any(|b| {
-            b.polarity != a.polarity
-                && b.x0 >= a.x0
-                && b.x1 <= a.x1
-                && (b.y0.saturating_sub(a.y1) <= 4 && b.y0 > a.y1
-                    || a.y0.saturating_sub(b.y1) <= 4 && a.y0 > b.y1)
-        })
-    };
-    let mut best: Option<&ScaleBar> = None;
-    for bar in found.iter().filter(|a| !is_box_strip(a)) {
-        let better = match best {
-            None => true,
-            Some(b) => {
-                bar.length_px > b.length_px + 0.5
-                    || ((bar.length_px - b.length_px).abs() <= 0.5 && bar.confidence > b.confidence)
-            }
-        };
-        if better {
-            best = Some(bar);
-        }
-    }
-    let bands: Vec<ScaleBar> = found.iter().filter(|a| !is_box_strip(a)).cloned().collect();
+    let best = best_bar(&found);
+    let bands: Vec<ScaleBar> = found
+        .iter()
+        .filter(|a| !is_box_strip(&found, a))
+        .cloned()
+        .collect();
     // The bar stands out: no other straight band of the image, away from
     // it, is more than half its length (see STAND_OUT).
     if let Some(b) = best {
@@ -838,6 +817,40 @@ pub fn mask_of(bar: &ScaleBar, width: usize, height: usize) -> Vec<bool> {
         }
     }
     m
+}
+
+/// Whether candidate `a` is a strip of another's backing box. A strip of a
+/// backing box above or below a bar looks like a bar of the opposite
+/// polarity, longer than the bar. A box is always larger than the bar it
+/// backs, so a candidate that spans a vertically adjacent candidate of
+/// opposite polarity is a piece of that one's box.
+fn is_box_strip(found: &[ScaleBar], a: &ScaleBar) -> bool {
+    found.iter().any(|b| {
+        b.polarity != a.polarity
+            && b.x0 >= a.x0
+            && b.x1 <= a.x1
+            && (b.y0.saturating_sub(a.y1) <= 4 && b.y0 > a.y1
+                || a.y0.saturating_sub(b.y1) <= 4 && a.y0 > b.y1)
+    })
+}
+
+/// The longest candidate that is no strip of a box; of two within half a
+/// pixel of each other, the more confident.
+fn best_bar(found: &[ScaleBar]) -> Option<&ScaleBar> {
+    let mut best: Option<&ScaleBar> = None;
+    for bar in found.iter().filter(|a| !is_box_strip(found, a)) {
+        let better = match best {
+            None => true,
+            Some(b) => {
+                bar.length_px > b.length_px + 0.5
+                    || ((bar.length_px - b.length_px).abs() <= 0.5 && bar.confidence > b.confidence)
+            }
+        };
+        if better {
+            best = Some(bar);
+        }
+    }
+    best
 }
 
 #[cfg(test)]

@@ -60,32 +60,7 @@ pub(super) fn detect(img: &GrayImage) -> crate::Result<ScaleBar> {
             );
         }
     }
-    // A strip of a backing box above or below a bar looks like a bar of the
-    // opposite polarity, longer than the bar. A box is always larger than the
-    // bar it backs, so a candidate that spans a vertically adjacent candidate
-    // of opposite polarity is a piece of that one's box.
-    let is_box_strip = |a: &ScaleBar| {
-        found.iter().any(|b| {
-            b.polarity != a.polarity
-                && b.x0 >= a.x0
-                && b.x1 <= a.x1
-                && (b.y0.saturating_sub(a.y1) <= 4 && b.y0 > a.y1
-                    || a.y0.saturating_sub(b.y1) <= 4 && a.y0 > b.y1)
-        })
-    };
-    let mut best: Option<&ScaleBar> = None;
-    for bar in found.iter().filter(|a| !is_box_strip(a)) {
-        let better = match best {
-            None => true,
-            Some(b) => {
-                bar.length_px > b.length_px + 0.5
-                    || ((bar.length_px - b.length_px).abs() <= 0.5 && bar.confidence > b.confidence)
-            }
-        };
-        if better {
-            best = Some(bar);
-        }
-    }
+    let best = super::best_bar(&found);
     best.cloned()
         .ok_or_else(|| none("no solid horizontal bar stands out from the image"))
 }
