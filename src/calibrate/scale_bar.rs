@@ -251,6 +251,38 @@ fn detect_on_structure(img: &GrayImage) -> (crate::Result<ScaleBar>, Vec<ScaleBa
     (result, bands)
 }
 
+/// The bar's backing box, if it has one, and the region left out of
+/// measurement around the bar: the bar padded by room for its ticks and its
+/// label (twice its thickness to the sides, at least 8 px; five times above
+/// and below, at least 16 px), grown to cover the box.
+fn box_and_mask(
+    img: &GrayImage,
+    bar: [usize; 4],
+    thickness: usize,
+    surround: f32,
+    range: f32,
+) -> (Option<[usize; 4]>, [usize; 4]) {
+    let (w, h) = (img.width, img.height);
+    let [x0, y0, x1, y1] = bar;
+    let backing_box = grow_box(img, bar, surround, 0.15 * range);
+    let (pad_x, pad_y) = ((2 * thickness).max(8), (5 * thickness).max(16));
+    let mut mask = [
+        x0.saturating_sub(pad_x),
+        y0.saturating_sub(pad_y),
+        (x1 + pad_x).min(w - 1),
+        (y1 + pad_y).min(h - 1),
+    ];
+    if let Some(b) = backing_box {
+        mask = [
+            mask[0].min(b[0]),
+            mask[1].min(b[1]),
+            mask[2].max(b[2]),
+            mask[3].max(b[3]),
+        ];
+    }
+    (backing_box, mask)
+}
+
 /// Horizontal runs of candidates at least `min_len` long, row by row.
 fn row_runs(row: &[f32], min_len: usize, is_cand: &impl Fn(f32) -> bool) -> Vec<(usize, usize)> {
     let w = row.len();
@@ -691,22 +723,7 @@ fn examine(img: &GrayImage, r: Rect, polarity: Polarity, range: f32) -> Verdict 
     ) else {
         return Verdict::No;
     };
-    let backing_box = grow_box(img, [x0, y0, x1, y1], surround, 0.15 * range);
-    let (pad_x, pad_y) = ((2 * thickness).max(8), (5 * thickness).max(16));
-    let mut mask = [
-        x0.saturating_sub(pad_x),
-        y0.saturating_sub(pad_y),
-        (x1 + pad_x).min(w - 1),
-        (y1 + pad_y).min(h - 1),
-    ];
-    if let Some(b) = backing_box {
-        mask = [
-            mask[0].min(b[0]),
-            mask[1].min(b[1]),
-            mask[2].max(b[2]),
-            mask[3].max(b[3]),
-        ];
-    }
+    let (backing_box, mask) = box_and_mask(img, [x0, y0, x1, y1], thickness, surround, range);
     let u = |v: usize| v as u32;
     Verdict::Bar(Box::new(ScaleBar {
         length_px: mean_len,

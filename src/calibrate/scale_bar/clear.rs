@@ -6,7 +6,7 @@
 //! were looked for (`super::on_structure`); it is kept first, unchanged,
 //! because where its tests hold they are the stronger evidence.
 
-use super::{edge, grow_box, Polarity, ScaleBar, MIN_CONFIDENCE};
+use super::{edge, Polarity, ScaleBar, MIN_CONFIDENCE};
 use crate::load::GrayImage;
 
 const CANDIDATE_FRACTIONS: [f32; 2] = [0.25, 0.45];
@@ -73,29 +73,7 @@ fn groups(img: &GrayImage, is_cand: &impl Fn(f32) -> bool) -> Vec<Group> {
     let mut done: Vec<Group> = Vec::new();
     for y in 0..h {
         let row = img.row(y);
-        let mut runs = Vec::new();
-        // A run of at least `min_len` candidates covers a multiple of
-        // `min_len`: only runs through those columns are traced, so a row
-        // with none of them a candidate is passed over in w / min_len tests
-        // (the same runs, in the same order, as a scan of every pixel).
-        let mut next = 0;
-        for k in (0..w).step_by(min_len) {
-            if k < next || !is_cand(row[k]) {
-                continue;
-            }
-            let mut s = k;
-            while s > next && is_cand(row[s - 1]) {
-                s -= 1;
-            }
-            let mut e = k + 1;
-            while e < w && is_cand(row[e]) {
-                e += 1;
-            }
-            if e - s >= min_len {
-                runs.push((s, e - 1));
-            }
-            next = e;
-        }
+        let runs = super::row_runs(row, min_len, is_cand);
         let mut next_open = Vec::new();
         let mut used = vec![false; runs.len()];
         for mut g in open.drain(..) {
@@ -309,22 +287,8 @@ fn examine(
             .flat_map(|&y| img.row(y)[x0..=x1].iter().copied())
             .collect(),
     )?;
-    let backing_box = grow_box(img, [x0, y0, x1, y1], surround, 0.15 * range);
-    let (pad_x, pad_y) = ((2 * thickness).max(8), (5 * thickness).max(16));
-    let mut mask = [
-        x0.saturating_sub(pad_x),
-        y0.saturating_sub(pad_y),
-        (x1 + pad_x).min(w - 1),
-        (y1 + pad_y).min(h - 1),
-    ];
-    if let Some(b) = backing_box {
-        mask = [
-            mask[0].min(b[0]),
-            mask[1].min(b[1]),
-            mask[2].max(b[2]),
-            mask[3].max(b[3]),
-        ];
-    }
+    let (backing_box, mask) =
+        super::box_and_mask(img, [x0, y0, x1, y1], thickness, surround, range);
     let u = |v: usize| v as u32;
     Some(ScaleBar {
         length_px: mean_len,
