@@ -35,6 +35,10 @@ pub struct MeasureOptions {
     pub overlay_dir: Option<PathBuf>,
     /// Largest width of a picture, px (wider ones are scaled down).
     pub overlay_max_width: Option<u32>,
+    /// Width, px, of a small copy of each picture kept in memory for the
+    /// HTML page (`--html`); the picture is then drawn even without
+    /// `overlay_dir`.
+    pub thumbnail_width: Option<u32>,
     /// Files no output may replace (the run's inputs, resolved).
     pub protected: crate::files::Protected,
     /// Correlation and alloy for cooling rate and solidification time.
@@ -59,6 +63,7 @@ impl MeasureOptions {
             methods: Method::ALL.to_vec(),
             overlay_dir: None,
             overlay_max_width: None,
+            thumbnail_width: None,
             protected: crate::files::Protected::default(),
             interpret: None,
             spec: None,
@@ -95,6 +100,9 @@ pub struct ImageResult {
     pub error: Option<String>,
     /// The picture of what was measured, when one was written.
     pub overlay: Option<PathBuf>,
+    /// A small copy of the picture, JPEG bytes, for the HTML page (with
+    /// [`MeasureOptions::thumbnail_width`]).
+    pub thumbnail: Option<Vec<u8>>,
     /// Cooling rate and solidification time, when a correlation was given.
     pub interpretation: Option<crate::Result<crate::interpret::Interpretation>>,
     /// The decision against the spec's limit, when a spec was given.
@@ -144,6 +152,7 @@ impl ImageResult {
             warnings: vec![],
             error: Some(error),
             overlay: None,
+            thumbnail: None,
             interpretation: None,
             acceptance,
             interrupted: false,
@@ -262,10 +271,8 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
     // What the overlay needs of the micrograph (a byte a pixel); the
     // micrograph's floats then become the prepared image's, so that no
     // second float image is held while the methods run.
-    let overlay_base = opts
-        .overlay_dir
-        .as_ref()
-        .map(|_| crate::overlay::grey_levels(&loaded.image));
+    let overlay_base = (opts.overlay_dir.is_some() || opts.thumbnail_width.is_some())
+        .then(|| crate::overlay::grey_levels(&loaded.image));
     let image_width = loaded.image.width as u32;
     let prepared = preprocess::prepare_owned(loaded.image, mask, &opts.preprocess);
     let um_per_px = calibration.um_per_px;
@@ -348,31 +355,46 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         a
     });
     // The picture is drawn last, so that its panel can state the decision.
+    let drawn = overlay_base.map(|base| {
+        crate::overlay::measurement(&base, bar.as_ref(), &found, &outcomes, opts.fft.min_quality)
+    });
+    let file = path.display().to_string();
+    let caption = crate::overlay::Caption {
+        file: &file,
+        sdas: &sdas,
+        outcomes: &outcomes,
+        um_per_px,
+        calibration_source: calibration.source.name(),
+        acceptance: acceptance.as_ref(),
+    };
+    // The page's copy is scaled before its panel is set, so that the panel's
+    // text is set for the width the page shows.
+    let thumbnail = opts
+        .thumbnail_width
+        .zip(drawn.as_ref())
+        .and_then(|(width, picture)| {
+            let small = crate::overlay::fit_width(picture.clone(), Some(width));
+            match crate::overlay::encode_jpeg_within(
+                &crate::overlay::with_panel(small, &caption),
+                crate::overlay::PAGE_PICTURE_BYTES,
+            ) {
+                Ok(bytes) => Some(bytes),
+                Err(e) => {
+                    warnings.push(Warning::new(
+                        "overlay.not-written",
+                        format!("the page's copy of the picture could not be made: {e}"),
+                    ));
+                    None
+                }
+            }
+        });
     let overlay = opts
         .overlay_dir
         .as_ref()
-        .zip(overlay_base)
-        .and_then(|(dir, base)| {
-            let picture = crate::overlay::measurement(
-                &base,
-                bar.as_ref(),
-                &found,
-                &outcomes,
-                opts.fft.min_quality,
-            );
+        .zip(drawn)
+        .and_then(|(dir, picture)| {
             let picture = crate::overlay::fit_width(picture, opts.overlay_max_width);
-            let file = path.display().to_string();
-            let picture = crate::overlay::with_panel(
-                picture,
-                &crate::overlay::Caption {
-                    file: &file,
-                    sdas: &sdas,
-                    outcomes: &outcomes,
-                    um_per_px,
-                    calibration_source: calibration.source.name(),
-                    acceptance: acceptance.as_ref(),
-                },
-            );
+            let picture = crate::overlay::with_panel(picture, &caption);
             let target = dir.join(overlay_name(path, &info.sha256));
             if opts.protected.is_protected(&target) {
                 warnings.push(Warning::new(
@@ -407,6 +429,7 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         warnings,
         error: None,
         overlay,
+        thumbnail,
         interpretation,
         acceptance,
         interrupted: false,

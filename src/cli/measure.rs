@@ -80,7 +80,16 @@ pub(super) struct MeasureArgs {
     /// Also write a CSV summary, a row per image (atomically).
     #[arg(long)]
     csv: Option<PathBuf>,
+    /// Also write one self-contained HTML page of the batch (pictures
+    /// embedded, readable offline, printable to A4), atomically.
+    #[arg(long, value_name = "FILE")]
+    html: Option<PathBuf>,
 }
+
+/// Width, px, of the pictures embedded in the HTML page: a page of A4 with
+/// 12 mm margins is 186 mm wide, 703 px at the 96 px per inch browsers lay
+/// out at; 720 fills it.
+const PAGE_PICTURE_WIDTH: u32 = 720;
 
 /// Calibration sources. Precedence: --um-per-px, then --profile, then the
 /// scale bar, then TIFF resolution tags.
@@ -175,13 +184,19 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
             return ExitCode::from(EXIT_USAGE);
         }
     };
-    if let (Some(csv), Some(out)) = (&args.csv, &args.out) {
-        if csv == out {
-            say!(
-                "armspace: --csv and --out name the same file ({}); give each its own",
-                csv.display()
-            );
-            return ExitCode::from(EXIT_USAGE);
+    for (a, b, names) in [
+        (&args.csv, &args.out, "--csv and --out"),
+        (&args.html, &args.out, "--html and --out"),
+        (&args.html, &args.csv, "--html and --csv"),
+    ] {
+        if let (Some(a), Some(b)) = (a, b) {
+            if a == b {
+                say!(
+                    "armspace: {names} name the same file ({}); give each its own",
+                    a.display()
+                );
+                return ExitCode::from(EXIT_USAGE);
+            }
         }
     }
     let spec = match args
@@ -216,6 +231,7 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
         methods,
         overlay_dir: args.overlay.clone(),
         overlay_max_width: args.overlay_max_width,
+        thumbnail_width: args.html.as_ref().map(|_| PAGE_PICTURE_WIDTH),
         protected: Default::default(),
         interpret,
         spec,
@@ -244,7 +260,11 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
     {
         protected.add(p);
     }
-    for (path, role) in [(&args.out, "report"), (&args.csv, "CSV summary")] {
+    for (path, role) in [
+        (&args.out, "report"),
+        (&args.csv, "CSV summary"),
+        (&args.html, "HTML page"),
+    ] {
         if let Some(path) = path {
             if let Err(e) = protected.check_output(path, role) {
                 say!("armspace: {e}");
@@ -265,10 +285,13 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
                 path: journal.clone(),
                 reason: "is not a regular file (a FIFO, device or socket); the journal of the report needs this name".into(),
             })
-        } else if args.csv.as_deref() == Some(journal.as_path()) {
+        } else if args.csv.as_deref() == Some(journal.as_path())
+            || args.html.as_deref() == Some(journal.as_path())
+        {
             Err(armspace::Error::Input {
                 path: journal.clone(),
-                reason: "is the name of the report's journal; give --csv another name".into(),
+                reason: "is the name of the report's journal; give --csv and --html other names"
+                    .into(),
             })
         } else {
             protected.check_output(journal, "journal")
@@ -444,6 +467,43 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
             });
         match written {
             Ok(()) => say!("CSV summary written to {}", path.display()),
+            Err(e) => {
+                say!("armspace: {e}");
+                write_failed = true;
+            }
+        }
+    }
+    if let Some(path) = &args.html {
+        let mut pictures: std::collections::BTreeMap<String, Vec<u8>> = results
+            .iter()
+            .filter_map(|r| Some((r.file.display().to_string(), r.thumbnail.clone()?)))
+            .collect();
+        // Images taken over from the journal (--resume) were not drawn in
+        // this run: their pictures written then, when still there, are
+        // scaled for the page.
+        for im in &rep.images {
+            if pictures.contains_key(&im.file) {
+                continue;
+            }
+            let Some(full) = im.overlay.as_deref() else {
+                continue;
+            };
+            let small = image::open(full)
+                .ok()
+                .map(|p| armspace::overlay::fit_width(p.to_rgb8(), Some(PAGE_PICTURE_WIDTH)));
+            if let Some(Ok(bytes)) = small.map(|p| {
+                armspace::overlay::encode_jpeg_within(&p, armspace::overlay::PAGE_PICTURE_BYTES)
+            }) {
+                pictures.insert(im.file.clone(), bytes);
+            }
+        }
+        let written = report::html::page(&rep, &pictures, path.parent())
+            .map_err(|e| format!("{}: {e}", path.display()))
+            .and_then(|text| {
+                armspace::files::write_output(path, text.as_bytes()).map_err(|e| e.to_string())
+            });
+        match written {
+            Ok(()) => say!("HTML page written to {}", path.display()),
             Err(e) => {
                 say!("armspace: {e}");
                 write_failed = true;

@@ -265,6 +265,44 @@ pub fn fit_width(picture: RgbImage, max_width: Option<u32>) -> RgbImage {
     }
 }
 
+/// Largest size, bytes, of a picture's copy on the HTML page: a page of 200
+/// images must stay under 30 MB, and base64 adds a third to each picture,
+/// so 90 KB a picture (120 KB on the page) leaves room for the histograms
+/// and text (about 15 KB an image).
+pub const PAGE_PICTURE_BYTES: usize = 90 * 1024;
+
+/// Encodes a picture as JPEG bytes of at most `max_bytes`: the highest of a
+/// few qualities (75 down to 45) that fits, then the picture at three
+/// quarters of its width, and so on. A grey micrograph's noise does not
+/// compress, so a fixed quality would let a page grow with its images'
+/// noise.
+pub fn encode_jpeg_within(img: &RgbImage, max_bytes: usize) -> crate::Result<Vec<u8>> {
+    let encode = |img: &RgbImage, q: u8| -> crate::Result<Vec<u8>> {
+        let mut buf = Vec::new();
+        image::codecs::jpeg::JpegEncoder::new_with_quality(&mut buf, q)
+            .encode_image(img)
+            .map_err(|e| crate::Error::Write {
+                path: std::path::PathBuf::from("(picture in memory)"),
+                source: std::io::Error::other(e.to_string()),
+            })?;
+        Ok(buf)
+    };
+    let mut current = img.clone();
+    loop {
+        let mut last = Vec::new();
+        for q in [75, 65, 55, 45] {
+            last = encode(&current, q)?;
+            if last.len() <= max_bytes {
+                return Ok(last);
+            }
+        }
+        if current.width() <= 200 {
+            return Ok(last);
+        }
+        current = fit_width(current.clone(), Some(current.width() * 3 / 4));
+    }
+}
+
 /// Encodes a PNG in memory, marked as this tool's picture
 /// ([`crate::files::OWN_PICTURE_TEXT`]), and writes it atomically.
 pub fn write_png(path: &Path, img: &RgbImage) -> crate::Result<()> {
@@ -285,4 +323,34 @@ pub fn write_png(path: &Path, img: &RgbImage) -> crate::Result<()> {
         source: std::io::Error::other(e.to_string()),
     })?;
     crate::files::write_output(path, &bytes)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_noisy_picture_is_held_to_the_page_budget_and_decodes() {
+        // White noise is the worst case for JPEG (no two neighbouring pixels
+        // alike, so nothing to compress): at 2560 x 1920 it must still come
+        // out within the budget, as a JPEG that decodes (to the same size,
+        // or scaled down by quarters).
+        let mut state = 0x2545_f491_4f6c_dd1du64;
+        let img = RgbImage::from_fn(2560, 1920, |_, _| {
+            state ^= state << 13;
+            state ^= state >> 7;
+            state ^= state << 17;
+            let v = (state >> 56) as u8;
+            Rgb([v, v / 2, 255 - v])
+        });
+        let bytes = encode_jpeg_within(&img, PAGE_PICTURE_BYTES).unwrap();
+        assert!(bytes.len() <= PAGE_PICTURE_BYTES, "{}", bytes.len());
+        let back = image::load_from_memory_with_format(&bytes, image::ImageFormat::Jpeg).unwrap();
+        assert!(back.width() <= 2560 && back.width() >= 200);
+        assert_eq!(
+            back.height(),
+            ((1920u64 * back.width() as u64) / 2560) as u32,
+            "aspect kept"
+        );
+    }
 }

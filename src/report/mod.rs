@@ -11,6 +11,7 @@
 //! schema/report.schema.json against it (`ARMSPACE_BLESS=1` rewrites it).
 
 mod csv_rows;
+pub mod html;
 pub mod names;
 mod per_method;
 mod schema;
