@@ -491,7 +491,9 @@ fn the_readme_demo_command_gives_what_the_readme_says() {
         .skip(4)
         .map(|a| match a {
             a if a.starts_with("fixtures/") => path_str(&repo_file(a)),
-            a if a.starts_with("demo-report.") => path_str(&out.path().join(a)),
+            a if a.starts_with("demo-report.") || a == "demo-pictures" => {
+                path_str(&out.path().join(a))
+            }
             a => a.to_string(),
         })
         .collect();
@@ -534,6 +536,14 @@ fn the_readme_demo_command_gives_what_the_readme_says() {
     }
     assert!(images[3]["sdas_um"]["value"].is_null());
     assert!(out.path().join("demo-report.csv").exists());
+    // The pictures and the page the README names.
+    for img in images {
+        let pic = img["overlay"].as_str().expect("a picture per image");
+        assert!(std::path::Path::new(pic).starts_with(out.path().join("demo-pictures")));
+        assert!(std::path::Path::new(pic).is_file());
+    }
+    let page = std::fs::read_to_string(out.path().join("demo-report.html")).unwrap();
+    assert!(page.contains(armspace::report::CAUTION));
 }
 
 #[test]
