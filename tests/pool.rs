@@ -442,6 +442,11 @@ fn a_pool_whose_interval_would_reach_below_zero_is_not_decided() {
     assert_eq!(zone["verdict"], "indeterminate");
     let reason = pooled["reason"].as_str().unwrap();
     assert!(reason.contains("below zero"), "{reason}");
+    assert!(
+        run.stderr.contains("um (no interval) of 2 field(s)"),
+        "{}",
+        run.stderr
+    );
 
     let (header, rows) = read_csv(&csv_path);
     let col = |name: &str| header.iter().position(|h| h == name).unwrap();
