@@ -124,6 +124,7 @@ pub fn batch_lines(rep: &Report) -> Vec<String> {
                     (Some(v), Some([lo, hi])) => {
                         format!("pooled mean {v:.2} um (95% CI {lo:.2} to {hi:.2})")
                     }
+                    (Some(v), None) => format!("pooled mean {v:.2} um (no interval)"),
                     _ => "no pooled mean".to_string(),
                 };
                 lines.push(format!(

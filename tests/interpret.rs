@@ -1023,3 +1023,70 @@ fn every_element_named_is_a_chemical_element() {
         .to_string();
     assert!(e.contains("'SI' is not an element symbol"), "{e}");
 }
+
+#[test]
+fn recalled_parameters_and_unchecked_limits_are_said() {
+    // The Al-Si set's diffusivity 3e-9 m2/s is from memory (its status in
+    // data/correlations.json: no publication at hand gave a casting value);
+    // the Al-Cu set's, 2.4e-9 m2/s, was read (Sci. Rep. 7 (2017) 45770,
+    // Table 1). Each result names the recalled parameters.
+    let recalled = |id: &str| {
+        interpret_with(
+            &entry(id),
+            40.0,
+            Request {
+                composition: admitted(&entry(id)),
+                ..Request::default()
+            },
+        )
+        .warnings
+        .into_iter()
+        .find(|w| w.contains("from memory, not read in a publication"))
+        .unwrap_or_default()
+    };
+    let si = recalled("al-si-coarsening");
+    assert!(
+        si.contains("diffusivity_m2_per_s") && si.contains("prefactor"),
+        "{si}"
+    );
+    let cu = recalled("al-cu-coarsening");
+    assert!(
+        cu.contains("prefactor") && !cu.contains("diffusivity"),
+        "{cu}"
+    );
+    // The Al-Si eutectic composition is read (12.2 +- 0.1 at.% Si, Murray &
+    // McAlister 1984 = 12.64 wt% with their atomic masses), so not named.
+    assert!(!si.contains("ce_wt_pct"), "{si}");
+    assert!(close(
+        0.122 * 28.0855 / (0.122 * 28.0855 + 0.878 * 26.98154) * 100.0,
+        12.64,
+        1e-3
+    ));
+
+    // Flemings (1974) is for Al-4.5Cu (admitted 4-5 wt% Cu, assumed) and
+    // needs no composition to compute: without a Cu content its limit
+    // cannot be checked, and the result says so.
+    let f = entry("al-4.5cu-time-flemings-1974");
+    let unchecked = |composition: Composition| {
+        interpret_with(
+            &f,
+            40.0,
+            Request {
+                composition,
+                ..Request::default()
+            },
+        )
+        .warnings
+        .iter()
+        .any(|w| w.contains("no Cu content given") && w.contains("4-5 wt%"))
+    };
+    assert!(unchecked(Composition::new()));
+    assert!(!unchecked(comp("Cu=4.5")));
+    // An entry without composition limits (AZ91D) warns of none.
+    let i = interpret_with(
+        &entry("mg-az91d-cooling-rate-dube-1998"),
+        20.0,
+        Request::default(),
+    );
+    assert!(!i.warnings.iter().any(|w| w.contains("content given")));
+}

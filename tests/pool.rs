@@ -279,3 +279,182 @@ fn a_pooled_zone_is_decided_once_on_its_fields_mean() {
     assert!(out[0]["file"].as_str().unwrap().ends_with("spoke-9.png"));
     assert_eq!(pooled["decision"], "pass");
 }
+
+/// The CSV's header and rows, by column name.
+fn read_csv(path: &std::path::Path) -> (Vec<String>, Vec<Vec<String>>) {
+    let mut r = csv::Reader::from_path(path).unwrap();
+    let header = r.headers().unwrap().iter().map(String::from).collect();
+    let rows = r
+        .records()
+        .map(|rec| rec.unwrap().iter().map(String::from).collect())
+        .collect();
+    (header, rows)
+}
+
+/// The CSV's columns before the pooled zones were added, in their order:
+/// the columns a spreadsheet already reads stay where they were (README:
+/// "Columns are only ever added at the end").
+const COLUMNS_BEFORE_POOLS: [&str; 32] = [
+    "file",
+    "um_per_px",
+    "calibration_source",
+    "sdas_um",
+    "ci95_low_um",
+    "ci95_high_um",
+    "n",
+    "fft_um",
+    "intercept_um",
+    "cooling_rate_K_per_s",
+    "solidification_time_s",
+    "zone",
+    "limit_um",
+    "decision",
+    "warnings",
+    "error",
+    "reason",
+    "warning_codes",
+    "centres_um",
+    "statistic",
+    "compared_um",
+    "compared_ci95_low_um",
+    "compared_ci95_high_um",
+    "calibration_rel_uncertainty",
+    "cooling_rate_ci95_low_K_per_s",
+    "cooling_rate_ci95_high_K_per_s",
+    "solidification_time_ci95_low_s",
+    "solidification_time_ci95_high_s",
+    "correlation",
+    "tool",
+    "schema",
+    "caution",
+];
+
+#[test]
+fn the_csv_carries_each_pooled_zone_on_its_rows() {
+    // Two fields of one pooled zone, combs of 14 and 18 um, and a field in
+    // no zone (the spec has no general limit, so it is not assessed).
+    let dir = tempfile::tempdir().unwrap();
+    let mut files = Vec::new();
+    for (name, period) in [("spoke-0", 14.0), ("spoke-1", 18.0), ("hub-0", 16.0)] {
+        let p = dir.path().join(format!("{name}.png"));
+        write_comb_png(&p, 320, 320, period);
+        files.push(path_str(&p));
+    }
+    let specs = tempfile::tempdir().unwrap();
+    let out = tempfile::tempdir().unwrap();
+    let csv_path = out.path().join("r.csv");
+    let mut args = vec!["measure", "--um-per-px", "1"];
+    args.extend(files.iter().map(String::as_str));
+    let spec = spec_file(specs.path(), 30.0, true);
+    let csv_arg = path_str(&csv_path);
+    args.extend_from_slice(&["--spec", &spec, "--csv", &csv_arg]);
+    let run = armspace(&args);
+    let rep: Value = serde_json::from_str(&run.stdout).unwrap();
+    let pooled = &rep["summary"]["acceptance"]["zones"][0]["pooled"];
+    assert_eq!(pooled["fields_used"].as_array().unwrap().len(), 2);
+
+    let (header, rows) = read_csv(&csv_path);
+    assert_eq!(&header[..32], &COLUMNS_BEFORE_POOLS[..]);
+    assert_eq!(header, armspace::report::CSV_COLUMNS.to_vec());
+    let col = |name: &str| header.iter().position(|h| h == name).unwrap();
+    let num = |cell: &str| -> Option<f64> { (!cell.is_empty()).then(|| cell.parse().unwrap()) };
+    let mut pooled_rows = 0;
+    for row in &rows {
+        if row[col("file")].contains("spoke-") {
+            pooled_rows += 1;
+            assert_eq!(
+                num(&row[col("pooled_zone_um")]),
+                pooled["value_um"].as_f64()
+            );
+            assert_eq!(
+                num(&row[col("pooled_zone_ci95_low_um")]),
+                pooled["ci95_um"][0].as_f64()
+            );
+            assert_eq!(
+                num(&row[col("pooled_zone_ci95_high_um")]),
+                pooled["ci95_um"][1].as_f64()
+            );
+            assert_eq!(
+                num(&row[col("pooled_zone_between_field_sd_um")]),
+                pooled["between_field_sd_um"].as_f64()
+            );
+            assert_eq!(row[col("pooled_zone_fields_used")], "2");
+            assert_eq!(
+                row[col("pooled_zone_decision")],
+                pooled["decision"].as_str().unwrap()
+            );
+            assert_eq!(
+                row[col("pooled_zone_reason")],
+                pooled["reason"].as_str().unwrap()
+            );
+            assert_eq!(row[col("pooled_zone_this_field")], "used");
+        } else {
+            // Not in a pooled zone: the pool's columns are empty.
+            for c in &header[32..] {
+                assert_eq!(row[col(c)], "", "{c}");
+            }
+        }
+    }
+    assert_eq!(pooled_rows, 2);
+}
+
+#[test]
+fn a_pool_whose_interval_would_reach_below_zero_is_not_decided() {
+    // Two fields of 10 and 30 um in one pooled zone: mean about 20 um, and
+    // with one degree of freedom t_0.975,1 = 12.706 (table of Student's t)
+    // the plain interval is 20 +- 12.706 x 14.1 / sqrt(2), about +-127 um,
+    // which reaches below zero. A spacing is positive: no interval, no
+    // decision, the reason said, in the report and in the CSV.
+    let dir = tempfile::tempdir().unwrap();
+    let mut files = Vec::new();
+    for (i, period) in [10.0, 30.0].iter().enumerate() {
+        let p = dir.path().join(format!("spoke-{i}.png"));
+        // 640 px: the 30 um comb has 21 periods, enough for two methods.
+        write_comb_png(&p, 640, 640, *period);
+        files.push(path_str(&p));
+    }
+    let specs = tempfile::tempdir().unwrap();
+    let out = tempfile::tempdir().unwrap();
+    let csv_path = out.path().join("r.csv");
+    let mut args = vec!["measure", "--um-per-px", "1"];
+    args.extend(files.iter().map(String::as_str));
+    let spec = spec_file(specs.path(), 25.0, true);
+    let csv_arg = path_str(&csv_path);
+    args.extend_from_slice(&["--spec", &spec, "--csv", &csv_arg]);
+    let run = armspace(&args);
+    assert_eq!(run.code, 5, "{}", run.stderr);
+    let rep: Value = serde_json::from_str(&run.stdout).unwrap();
+    let zone = &rep["summary"]["acceptance"]["zones"][0];
+    let pooled = &zone["pooled"];
+    let values: Vec<f64> = rep["images"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|i| i["acceptance"]["compared_um"].as_f64().unwrap())
+        .collect();
+    assert!(
+        (values[0] - 10.0).abs() < 1.0 && (values[1] - 30.0).abs() < 3.0,
+        "{values:?}"
+    );
+    assert!(pooled["value_um"].as_f64().is_some());
+    assert!(pooled["ci95_um"].is_null());
+    assert_eq!(pooled["decision"], "indeterminate");
+    assert_eq!(zone["verdict"], "indeterminate");
+    let reason = pooled["reason"].as_str().unwrap();
+    assert!(reason.contains("below zero"), "{reason}");
+    assert!(
+        run.stderr.contains("um (no interval) of 2 field(s)"),
+        "{}",
+        run.stderr
+    );
+
+    let (header, rows) = read_csv(&csv_path);
+    let col = |name: &str| header.iter().position(|h| h == name).unwrap();
+    for row in &rows {
+        assert!(!row[col("pooled_zone_um")].is_empty());
+        assert_eq!(row[col("pooled_zone_ci95_low_um")], "");
+        assert_eq!(row[col("pooled_zone_ci95_high_um")], "");
+        assert_eq!(row[col("pooled_zone_decision")], "indeterminate");
+        assert!(row[col("pooled_zone_reason")].contains("below zero"));
+    }
+}

@@ -235,6 +235,34 @@ impl CoarseningParams {
         })
     }
 
+    /// The parameters (by their names in a correlation file) whose status
+    /// is "from memory": the prefactor, those of M, and the phase diagram's
+    /// points a derived slope or partition coefficient rests on.
+    pub fn recalled(&self) -> Vec<&'static str> {
+        let from_memory = |p: &Param| p.status.as_deref() == Some("from memory");
+        [
+            ("prefactor", Some(&self.prefactor)),
+            ("gibbs_thomson_K_m", Some(&self.gibbs_thomson_k_m)),
+            ("diffusivity_m2_per_s", Some(&self.diffusivity_m2_per_s)),
+            (
+                "liquidus_slope_K_per_wt_pct",
+                Some(&self.liquidus_slope_k_per_wt_pct),
+            ),
+            ("partition_coefficient", Some(&self.partition_coefficient)),
+            ("ce_wt_pct", Some(&self.ce_wt_pct)),
+            ("melting_point_degC", self.melting_point_degc.as_ref()),
+            (
+                "eutectic_temperature_degC",
+                self.eutectic_temperature_degc.as_ref(),
+            ),
+            ("max_solubility_wt_pct", self.max_solubility_wt_pct.as_ref()),
+        ]
+        .into_iter()
+        .filter(|(_, p)| p.is_some_and(from_memory))
+        .map(|(name, _)| name)
+        .collect()
+    }
+
     /// The coarsening constant M (m^3/s) at nominal composition c0 (wt%).
     pub fn m_constant(&self, c0: f64) -> Result<f64> {
         let ce = self.ce_wt_pct.value;

@@ -356,6 +356,37 @@ pub fn interpret(corr: &Correlation, req: &Request) -> Result<Interpretation> {
         if let Some(w) = p.phase_diagram_mismatch() {
             warnings.push(format!("correlation '{}': {w}", corr.id));
         }
+        // A parameter recalled rather than read moves M by as much as it is
+        // off (M is proportional to Gamma and D, inversely to |m|): the
+        // reader is told which ones, so that they can be checked.
+        let recalled = p.recalled();
+        if !recalled.is_empty() {
+            warnings.push(format!(
+                "correlation '{}': the model's {} from memory, not read in a publication at hand: check before relying on the result",
+                corr.id,
+                match recalled.as_slice() {
+                    [one] => format!("{one} is"),
+                    more => format!("{} are", more.join(", ")),
+                }
+            ));
+        }
+    }
+    // A composition limit on an element not given is not checked: the
+    // entry is applied on the reader's word that the alloy is inside it.
+    for (el, r) in &corr.composition {
+        let needed = match &corr.law {
+            library::Law::Power { coefficient, .. } => {
+                coefficient.elements().contains(&el.as_str())
+            }
+            library::Law::Coarsening(p) => p.solute == *el,
+        };
+        if !needed && !req.composition.contains_key(el) {
+            warnings.push(format!(
+                "no {el} content given: '{}' covers {el} {} wt% only, which could not be checked; give it with --composition {el}=<wt%>",
+                corr.id,
+                library::range_text(r)
+            ));
+        }
     }
     // Composition limits that are not the source's are said on every result.
     for (el, r) in &corr.composition {

@@ -76,6 +76,27 @@ pub struct Pooled {
 }
 
 impl Pooled {
+    /// Why the pool's interval cannot be given, if it cannot: a t interval
+    /// whose lower bound reaches zero or below. A spacing is positive, so
+    /// such an interval says the normal model of the mean (module docs)
+    /// does not hold for these few, scattered fields: no bound from it can
+    /// be defended, and a log-scale interval would rest on a model of the
+    /// fields the data cannot check either (with two or three fields the
+    /// spread of the logs is as poorly known as that of the values). The
+    /// pool then gives its mean with no interval and decides nothing.
+    pub fn no_interval_reason(&self) -> Option<String> {
+        (self.ci95_um[0] <= 0.0).then(|| {
+            format!(
+                "the {} fields scatter so widely (mean {:.4} um, field values' sd {:.4} um, coverage factor {:.3} at {:.1} degrees of freedom) that the 95 % interval of their mean would reach below zero; a spacing is positive, so that interval does not hold and none is given: measure more fields, or check that the fields belong to one zone",
+                self.fields,
+                self.value_um,
+                self.per_field_sd_um(),
+                self.coverage_factor,
+                self.dof
+            )
+        })
+    }
+
     /// The standard deviation of one field's value about the zone's mean as
     /// the pool sees it (between-field and within-field together):
     /// u_s sqrt(k), the spread a field like these would have.
@@ -250,6 +271,8 @@ pub struct PooledZone {
     pub method: String,
     /// The zone's mean SDAS, um; null when fewer than two fields have one.
     pub value_um: Option<f64>,
+    /// Its 95 % interval, um; null with a mean when the fields scatter so
+    /// widely that the interval would reach below zero (`reason` says so).
     pub ci95_um: Option<[f64; 2]>,
     /// Between-field standard deviation (moment estimate: the fields'
     /// variance less their mean within-field variance), um.
@@ -344,6 +367,11 @@ pub fn decide_zone(
         );
         return out;
     };
+    if let Some(reason) = p.no_interval_reason() {
+        out.ci95_um = None;
+        out.reason = format!("not decided: {reason}");
+        return out;
+    }
     let evidence = Evidence {
         value: Some(Micrometres(p.value_um)),
         ci95: Some(p.ci95_um.map(Micrometres)),
@@ -438,6 +466,31 @@ mod tests {
         // (The degrees of freedom are capped at 1e6: t there differs from
         // 1.96 in the sixth digit.)
         assert!((half - 1.2).abs() < 1e-3, "{half}");
+    }
+
+    #[test]
+    fn a_pool_whose_interval_would_reach_below_zero_gives_none() {
+        // Two fields of 10 and 30 um: mean 20, sd sqrt(200) = 14.142,
+        // t_0.975,1 = 12.706 (table of Student's t), half-width 12.706 x
+        // 14.142 / sqrt(2) = 127.1 um: the plain t interval would run from
+        // -107 to 147 um, and a spacing cannot be negative.
+        let p = pool_fields(&[field(10.0, 1.0), field(30.0, 1.0)]).unwrap();
+        assert!((p.value_um - 20.0).abs() < 1e-9);
+        let half = 0.5 * (p.ci95_um[1] - p.ci95_um[0]);
+        assert!(
+            (half - 12.706_2 * 200f64.sqrt() / 2f64.sqrt()).abs() < 1e-2,
+            "{half}"
+        );
+        let why = p
+            .no_interval_reason()
+            .expect("the interval reaches below zero");
+        assert!(
+            why.contains("below zero") && why.contains("2 fields"),
+            "{why}"
+        );
+        // Fields close together keep their interval.
+        let q = pool_fields(&[field(19.0, 1.0), field(21.0, 1.0)]).unwrap();
+        assert!(q.ci95_um[0] > 0.0 && q.no_interval_reason().is_none());
     }
 
     #[test]

@@ -2,8 +2,12 @@
 
 use super::*;
 
-/// Columns of the CSV summary, one row per image.
-pub const CSV_COLUMNS: [&str; 32] = [
+/// Columns of the CSV summary, one row per image. The `pooled_zone_*`
+/// columns repeat, on each row of a zone the spec pools, that zone's pool
+/// (its mean, interval, between-field sd, fields used, decision, fields to
+/// decide and reason) and say what the pool took from this row's image;
+/// they are empty for images of zones not pooled.
+pub const CSV_COLUMNS: [&str; 41] = [
     "file",
     "um_per_px",
     "calibration_source",
@@ -36,7 +40,46 @@ pub const CSV_COLUMNS: [&str; 32] = [
     "tool",
     "schema",
     "caution",
+    "pooled_zone_um",
+    "pooled_zone_ci95_low_um",
+    "pooled_zone_ci95_high_um",
+    "pooled_zone_between_field_sd_um",
+    "pooled_zone_fields_used",
+    "pooled_zone_decision",
+    "pooled_zone_fields_to_decide",
+    "pooled_zone_reason",
+    "pooled_zone_this_field",
 ];
+
+/// The pool of the zone an image was offered to (spec `pool`), if any: the
+/// zone's summary whose pool names the file among the fields used or left
+/// out.
+fn pooled_zone_of<'a>(
+    report: &'a Report,
+    image: &ImageReport,
+) -> Option<&'a crate::interpret::pool::PooledZone> {
+    let a = image.acceptance.as_ref()?;
+    report
+        .summary
+        .acceptance
+        .as_ref()?
+        .zones
+        .iter()
+        .filter(|z| z.zone == a.zone)
+        .filter_map(|z| z.pooled.as_ref())
+        .find(|p| {
+            p.fields_used.contains(&image.file)
+                || p.fields_left_out.iter().any(|l| l.file == image.file)
+        })
+}
+
+/// What a pool took from a file: "used", or "left out: " and the reason.
+fn field_part(pool: &crate::interpret::pool::PooledZone, file: &str) -> String {
+    match pool.fields_left_out.iter().find(|l| l.file == file) {
+        Some(l) => format!("left out: {}", l.reason),
+        None => "used".into(),
+    }
+}
 
 /// The CSV summary of a report: the header on the first row (so that a
 /// spreadsheet's import finds it and the delimiter), then a row per image in
@@ -109,6 +152,23 @@ pub fn csv_summary(report: &Report) -> crate::Result<String> {
             report.schema.to_string(),
             report.caution.to_string(),
         ];
+        let pool = pooled_zone_of(report, i);
+        let pooled = [
+            num(pool.and_then(|p| p.value_um)),
+            num(pool.and_then(|p| p.ci95_um.map(|c| c[0]))),
+            num(pool.and_then(|p| p.ci95_um.map(|c| c[1]))),
+            num(pool.and_then(|p| p.between_field_sd_um)),
+            pool.map(|p| p.fields_used.len().to_string())
+                .unwrap_or_default(),
+            pool.map(|p| p.decision.name().to_string())
+                .unwrap_or_default(),
+            pool.and_then(|p| p.fields_to_decide)
+                .map(|n| n.to_string())
+                .unwrap_or_default(),
+            pool.map(|p| p.reason.clone()).unwrap_or_default(),
+            pool.map(|p| field_part(p, &i.file)).unwrap_or_default(),
+        ];
+        let record: Vec<String> = record.into_iter().chain(pooled).collect();
         w.write_record(&record).map_err(|e| encoding(&e))?;
     }
     let bytes = w.into_inner().map_err(|e| encoding(&e))?;
