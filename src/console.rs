@@ -78,10 +78,34 @@ pub fn image_lines(img: &ImageReport) -> Vec<String> {
             i.correlation.id
         ));
     }
+    lines.extend(img.at.iter().map(at_line));
     for w in &img.warnings {
         lines.push(format!("  warning: {w}"));
     }
     lines
+}
+
+/// The line of one `--at` point: where, within what radius, the value with
+/// its interval and support, or why there is none.
+fn at_line(a: &report::AtReport) -> String {
+    let radius = match (a.radius_um, a.radius_rule) {
+        (Some(r), "given") => format!(" within {r} um"),
+        (Some(r), _) => format!(" within {r} um (the smallest radius with a value)"),
+        (None, _) => String::new(),
+    };
+    let place = format!("  at {} ({} um, {} um){radius}", a.given, a.x_um, a.y_um);
+    match (a.value_um, a.ci95_um) {
+        (Some(v), Some([lo, hi])) => format!(
+            "{place}: SDAS {v} um (95% CI {lo} to {hi}), n = {} ({:.1} independent) [{}]",
+            a.n,
+            a.n_eff,
+            a.methods.join(", ")
+        ),
+        _ => format!(
+            "{place}: no value: {}",
+            a.reason.as_deref().unwrap_or("no reason given")
+        ),
+    }
 }
 
 /// The batch's closing lines: counts, each acceptance zone's tally and the

@@ -39,6 +39,8 @@ pub struct MeasureOptions {
     pub interpret: Option<crate::interpret::Settings>,
     /// SDAS limits and the decision rule.
     pub spec: Option<crate::interpret::acceptance::Spec>,
+    /// Points where the local SDAS is asked for (`--at`), in input order.
+    pub at: Vec<crate::spatial::AtSpec>,
 }
 
 impl MeasureOptions {
@@ -59,6 +61,7 @@ impl MeasureOptions {
             protected: crate::files::Protected::default(),
             interpret: None,
             spec: None,
+            at: vec![],
         }
     }
 }
@@ -98,6 +101,8 @@ pub struct ImageResult {
     pub acceptance: Option<crate::interpret::acceptance::Acceptance>,
     /// Not measured because the run was interrupted before this image.
     pub interrupted: bool,
+    /// The local SDAS at each point asked for (`--at`), in the order given.
+    pub at: Vec<crate::spatial::AtResult>,
 }
 
 /// The error of an image the run did not reach (see [`measure_batch`]).
@@ -144,6 +149,7 @@ impl ImageResult {
             interpretation: None,
             acceptance,
             interrupted: false,
+            at: vec![],
         }
     }
 
@@ -291,6 +297,27 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
     warnings.extend(combine::disagreements(&outcomes, um_per_px));
     let sdas = combine::combine(&outcomes, um_per_px, calibration.rel_uncertainty);
     warnings.extend(sdas.warnings.iter().cloned());
+    // The local SDAS at the points asked for, from the same outcomes and
+    // the same combination as the image's value.
+    let at = if opts.at.is_empty() {
+        vec![]
+    } else {
+        let index = crate::spatial::Index::new(&outcomes, um_per_px);
+        opts.at
+            .iter()
+            .map(|spec| {
+                crate::spatial::at(
+                    &index,
+                    spec,
+                    &outcomes,
+                    um_per_px,
+                    calibration.rel_uncertainty,
+                    (info.width, info.height),
+                    opts.fft.min_quality,
+                )
+            })
+            .collect()
+    };
     warnings.extend(crate::interpret::plausibility::field_warning(
         image_width,
         um_per_px.get(),
@@ -401,6 +428,7 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         interpretation,
         acceptance,
         interrupted: false,
+        at,
     }
 }
 

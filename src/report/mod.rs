@@ -10,10 +10,12 @@
 //! names a string can take). `tests/schema.rs` checks the committed
 //! schema/report.schema.json against it (`ARMSPACE_BLESS=1` rewrites it).
 
+mod at;
 mod csv_rows;
 pub mod names;
 mod per_method;
 mod schema;
+pub use at::{at_report, AtMethodReport, AtReport};
 pub use csv_rows::{csv_summary, CSV_COLUMNS};
 pub use per_method::*;
 pub use schema::json_schema;
@@ -103,6 +105,9 @@ pub struct Parameters {
     #[serde(skip_serializing_if = "Option::is_none")]
     #[schemars(with = "InterpretationParameters")]
     pub interpretation: Option<InterpretationParameters>,
+    /// The points of --at as given, in order; absent without it.
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub at: Vec<String>,
 }
 
 /// The interpretation settings (--correlation).
@@ -207,6 +212,11 @@ pub struct ImageReport {
     #[serde(skip_serializing_if = "Option::is_none")]
     #[schemars(with = "Acceptance")]
     pub acceptance: Option<Acceptance>,
+    /// The local SDAS at each point asked for with --at, in the order
+    /// given; absent without --at (and for an image that could not be
+    /// measured).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub at: Vec<AtReport>,
 }
 
 /// The calibration applied to the image.
@@ -585,6 +595,10 @@ pub fn image_report(r: &ImageResult, opts: &MeasureOptions) -> ImageReport {
             compared_ci95_um: a.compared_ci95_um.map(|[x, y]| [round(x, 4), round(y, 4)]),
             ..a.clone()
         }),
+        at: match cal {
+            Some(c) => r.at.iter().map(|a| at_report(a, c.get())).collect(),
+            None => vec![],
+        },
     }
 }
 
@@ -733,6 +747,7 @@ pub fn parameters(inputs: &[String], opts: &MeasureOptions) -> Parameters {
             freezing_range_k: s.freezing_range.map(|k| k.0),
             extrapolate: s.extrapolate,
         }),
+        at: opts.at.iter().map(|a| a.text.clone()).collect(),
     }
 }
 

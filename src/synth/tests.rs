@@ -2,6 +2,7 @@ use super::*;
 
 fn base(morphology: Morphology, style: Style) -> FieldSpec {
     FieldSpec {
+        gradient: None,
         width: 300,
         height: 240,
         morphology,

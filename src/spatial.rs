@@ -1,0 +1,651 @@
+//! Where in the image: every method's local measurements (FFT tiles at
+//! their centres, intercept lines at their mid-points, chains of arm
+//! centres at their centroids) in one spatial index, positions in
+//! micrometres from the image's top-left corner (x right, y down), and the
+//! SDAS at a point from the measurements around it (`measure --at`).
+//!
+//! Stage: after `combine` (it reuses the combination of methods), before
+//! `report`; it reads `methods` and `combine` and nothing reads it back but
+//! the pipeline and the report.
+
+use crate::blocks::point_pattern;
+use crate::combine::{self, Estimate};
+use crate::methods::{self, Detail, Local, Method, Outcome};
+use crate::stats;
+use crate::units::{Micrometres, Pixels, UmPerPx};
+use kiddo::{KdTree, SquaredEuclidean};
+
+/// One local measurement in the index.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Entry {
+    pub method: Method,
+    /// Position, um from the image's top-left corner (y down).
+    pub x_um: f64,
+    pub y_um: f64,
+    /// The measurement as the method gave it (pixels).
+    pub local: Local,
+}
+
+/// A k-d tree (kiddo) over the local measurements of one image.
+pub struct Index {
+    entries: Vec<Entry>,
+    tree: KdTree<f64, 2>,
+}
+
+impl Index {
+    /// The index of every local measurement of the outcomes (used or not;
+    /// the queries choose), calibrated with `cal`. Measurements at a
+    /// position that is not finite are left out.
+    pub fn new(outcomes: &[Outcome], cal: UmPerPx) -> Self {
+        let entries: Vec<Entry> = outcomes
+            .iter()
+            .flat_map(|o| {
+                o.local.iter().map(move |l| Entry {
+                    method: o.method,
+                    x_um: cal.to_um(l.x).0,
+                    y_um: cal.to_um(l.y).0,
+                    local: *l,
+                })
+            })
+            .filter(|e| e.x_um.is_finite() && e.y_um.is_finite())
+            .collect();
+        Self::of_entries(entries)
+    }
+
+    /// The index of the entries as given.
+    pub fn of_entries(entries: Vec<Entry>) -> Self {
+        let points: Vec<[f64; 2]> = entries.iter().map(|e| [e.x_um, e.y_um]).collect();
+        // Tiles lie on a grid (many share an x or a y), which the tree's
+        // buckets cannot split; `kd_tree` moves each point by at most
+        // 2e-9 um per entry (2e-5 um for 10 000 entries), far below a
+        // pixel, to keep coordinates distinct.
+        let tree = point_pattern::kd_tree(&points);
+        Self { entries, tree }
+    }
+
+    pub fn entries(&self) -> &[Entry] {
+        &self.entries
+    }
+
+    pub fn len(&self) -> usize {
+        self.entries.len()
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.entries.is_empty()
+    }
+
+    /// The entries closer than `r` to the point (um), in index order.
+    pub fn within(&self, p: [f64; 2], r: Micrometres) -> Vec<usize> {
+        if self.entries.is_empty() || r.0.is_nan() || r.0 <= 0.0 {
+            return vec![];
+        }
+        let mut found: Vec<usize> = self
+            .tree
+            .within_unsorted::<SquaredEuclidean>(&p, r.0 * r.0)
+            .into_iter()
+            .map(|n| n.item as usize)
+            .collect();
+        found.sort_unstable();
+        found
+    }
+
+    /// The `k` entries nearest to the point, nearest first, each with its
+    /// distance (ties in index order).
+    pub fn nearest(&self, p: [f64; 2], k: usize) -> Vec<(usize, Micrometres)> {
+        if self.entries.is_empty() || k == 0 {
+            return vec![];
+        }
+        let mut found: Vec<(usize, Micrometres)> = self
+            .tree
+            .nearest_n::<SquaredEuclidean>(&p, k.min(self.entries.len()))
+            .into_iter()
+            .map(|n| (n.item as usize, Micrometres(n.distance.sqrt())))
+            .collect();
+        found.sort_by(|a, b| a.1 .0.total_cmp(&b.1 .0).then(a.0.cmp(&b.0)));
+        found
+    }
+}
+
+/// The unit of a length on the command line.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum LengthUnit {
+    Micrometres,
+    Pixels,
+}
+
+/// A point asked for with `--at X,Y[:R]`, as given.
+#[derive(Clone, Debug, PartialEq)]
+pub struct AtSpec {
+    /// The text as given.
+    pub text: String,
+    pub x: f64,
+    pub y: f64,
+    /// The radius, when given.
+    pub radius: Option<f64>,
+    /// The unit of x, y and the radius.
+    pub unit: LengthUnit,
+}
+
+/// Parses `X,Y[:R]`: the point from the image's top-left corner (y down)
+/// and an optional radius. Micrometres unless a number carries `px`; a
+/// `px` on any number makes them all pixels (`400,300px`, `400px,300px:50px`
+/// and `400,300:50px` say the same), and `um` may be written for clarity,
+/// but not beside `px`.
+pub fn parse_at(s: &str) -> crate::Result<AtSpec> {
+    let bad = |why: String| crate::Error::Value {
+        reason: format!("'{s}': {why}"),
+    };
+    let text = s.trim();
+    let (point, radius) = match text.split_once(':') {
+        Some((p, r)) => (p, Some(r)),
+        None => (text, None),
+    };
+    let Some((xs, ys)) = point.split_once(',') else {
+        return Err(bad(
+            "expected X,Y or X,Y:R (the point from the image's top-left corner, um, or pixels with a px suffix; R the radius)".into(),
+        ));
+    };
+    let mut units = Vec::new();
+    let mut number = |t: &str, what: &str| -> crate::Result<f64> {
+        let t = t.trim();
+        let (n, unit) = if let Some(n) = t.strip_suffix("px") {
+            (n, Some(LengthUnit::Pixels))
+        } else if let Some(n) = t.strip_suffix("um").or_else(|| t.strip_suffix("µm")) {
+            (n, Some(LengthUnit::Micrometres))
+        } else {
+            (t, None)
+        };
+        let v: f64 = n.trim().parse().map_err(|_| {
+            bad(format!(
+                "{what} '{t}' is not a number (with an optional um or px suffix)"
+            ))
+        })?;
+        if !v.is_finite() {
+            return Err(bad(format!("{what} '{t}' is not a finite number")));
+        }
+        units.extend(unit);
+        Ok(v)
+    };
+    let x = number(xs, "x")?;
+    let y = number(ys, "y")?;
+    let r = radius.map(|r| number(r, "the radius")).transpose()?;
+    let px = units.contains(&LengthUnit::Pixels);
+    if px && units.contains(&LengthUnit::Micrometres) {
+        return Err(bad(
+            "mixes um and px; give the point and the radius in one unit".into(),
+        ));
+    }
+    if x < 0.0 || y < 0.0 {
+        return Err(bad(format!(
+            "the point ({x}, {y}) lies outside any image: positions are measured from the image's top-left corner and cannot be negative"
+        )));
+    }
+    if let Some(r) = r {
+        if r <= 0.0 {
+            return Err(bad(format!("the radius {r} must be greater than zero")));
+        }
+    }
+    Ok(AtSpec {
+        text: text.to_string(),
+        x,
+        y,
+        radius: r,
+        unit: if px {
+            LengthUnit::Pixels
+        } else {
+            LengthUnit::Micrometres
+        },
+    })
+}
+
+impl AtSpec {
+    fn to_um(&self, v: f64, cal: UmPerPx) -> f64 {
+        match self.unit {
+            LengthUnit::Micrometres => v,
+            LengthUnit::Pixels => cal.to_um(Pixels(v)).0,
+        }
+    }
+
+    /// The point in um from the image's top-left corner.
+    pub fn point_um(&self, cal: UmPerPx) -> [f64; 2] {
+        [self.to_um(self.x, cal), self.to_um(self.y, cal)]
+    }
+
+    /// The radius in um, when given.
+    pub fn radius_um(&self, cal: UmPerPx) -> Option<Micrometres> {
+        self.radius.map(|r| Micrometres(self.to_um(r, cal)))
+    }
+
+    /// Whether the point lies in an image of `width` x `height` pixels.
+    pub fn inside(&self, width: u32, height: u32, cal: UmPerPx) -> bool {
+        let [x, y] = self.point_um(cal);
+        let (w, h) = (
+            cal.to_um(Pixels(width as f64)).0,
+            cal.to_um(Pixels(height as f64)).0,
+        );
+        x <= w && y <= h
+    }
+}
+
+/// Fewest independent local measurements of one method behind a local
+/// value: 3, so that the Student-t interval rests on two degrees of
+/// freedom (t = 4.30). With two measurements the standard deviation rests
+/// on a single difference (t = 12.7): an interval in name only, whose
+/// width is mostly chance. FFT tiles count a quarter each
+/// ([`Method::independent_fraction`]: half-overlapping tiles share their
+/// area), so a local FFT value needs 12 tiles.
+pub const MIN_LOCAL_INDEPENDENT: f64 = 3.0;
+
+/// Above this many measurements the search for the smallest radius tries
+/// a radius only when the count has grown by 1 % since the last one tried:
+/// the radius found is then within the next 1 % of measurements of the
+/// smallest, and a query on an image of 10 000 local measurements stays
+/// fast.
+const EXACT_SEARCH_UP_TO: usize = 500;
+
+/// One method's part in a local value.
+#[derive(Clone, Debug, PartialEq)]
+pub struct AtMethod {
+    pub method: Method,
+    /// Its used local measurements within the radius.
+    pub n: usize,
+    /// Of those, how many count as independent.
+    pub n_eff: f64,
+    pub value: Option<Micrometres>,
+    pub ci95: Option<[Micrometres; 2]>,
+    /// Why it has no local value, when it has none.
+    pub reason: Option<String>,
+}
+
+/// The SDAS at a point.
+#[derive(Clone, Debug, PartialEq)]
+pub struct AtResult {
+    pub spec: AtSpec,
+    /// The point, um from the image's top-left corner.
+    pub x_um: f64,
+    pub y_um: f64,
+    /// The radius the value rests on: the one given, or the smallest that
+    /// gives a value (the distance of the farthest measurement in it);
+    /// none when the point lies outside the image.
+    pub radius_um: Option<Micrometres>,
+    /// Whether the radius was given (else chosen).
+    pub radius_given: bool,
+    /// The local value: the methods' local values combined as the image's
+    /// are ([`combine::combine`]).
+    pub estimate: Estimate,
+    pub methods: Vec<AtMethod>,
+}
+
+/// A method's local outcome from its used local measurements `locals`
+/// near a point, in the method-neutral shape, with the statistics the
+/// method uses for its own value (so a local value is read as the image's
+/// is): the FFT's quality-weighted median of tiles with the standard error
+/// of a median (1.2533 s / sqrt(n_eff), s the MAD-based standard
+/// deviation); the mean of lines or chains with its Student-t interval.
+/// Then its bias and the evidence rule, as every method's value
+/// ([`methods::with_bias`], [`methods::require_support`]). `image` is the
+/// method's outcome on the whole image: its row spacing goes with the local
+/// outcome, so that the combination leaves out a method reading the rows
+/// here as it does for the image.
+fn local_outcome(image: &Outcome, locals: &[&Local]) -> Outcome {
+    let method = image.method;
+    let n = locals.len();
+    let n_eff = n as f64 * method.independent_fraction();
+    let mut o = Outcome {
+        method,
+        value: None,
+        ci95: None,
+        n,
+        spread: None,
+        reason: None,
+        warnings: vec![],
+        local: vec![],
+        for_target: None,
+        indicative: None,
+        detail: light_detail(image),
+    };
+    if image.value.is_none() {
+        o.reason =
+            Some("no value on the whole image, so none of its local measurements is used".into());
+        return o;
+    }
+    if n_eff < MIN_LOCAL_INDEPENDENT {
+        o.reason = Some(format!(
+            "{n} local measurement(s) ({n_eff:.1} independent) within the radius; a local value needs {MIN_LOCAL_INDEPENDENT:.0} independent"
+        ));
+        return o;
+    }
+    let values: Vec<f64> = locals.iter().map(|l| l.spacing.0).collect();
+    let stat = match method {
+        Method::Fft => {
+            // The method's own weights, ln(quality), and its own screen:
+            // tiles further than three robust standard deviations from the
+            // weighted median are left out and the median taken again
+            // (`methods::fft`), here among the neighbourhood's tiles.
+            let w: Vec<f64> = locals
+                .iter()
+                .map(|l| l.quality.map_or(1.0, |q| q.ln().max(0.0)))
+                .collect();
+            let wm =
+                |v: &[f64], w: &[f64]| stats::weighted_median(v, w).or_else(|| stats::median(v));
+            wm(&values, &w).and_then(|m0| {
+                let s0 = stats::mad_sd(&values, m0).unwrap_or(0.0);
+                let limit = (3.0 * s0).max(1e-9 * m0);
+                let (kv, kw): (Vec<f64>, Vec<f64>) = values
+                    .iter()
+                    .zip(&w)
+                    .filter(|(v, _)| (*v - m0).abs() <= limit)
+                    .unzip();
+                o.n = kv.len();
+                let n_eff = kv.len() as f64 * method.independent_fraction();
+                if n_eff < MIN_LOCAL_INDEPENDENT {
+                    return None;
+                }
+                let m = wm(&kv, &kw)?;
+                let s = stats::mad_sd(&kv, m)?;
+                let t = stats::t_quantile(0.975, n_eff - 1.0)?;
+                Some((m, t * 1.2533 * s / n_eff.sqrt(), s))
+            })
+        }
+        Method::Intercept => {
+            // The method's screen of lines (modified z-score over 3.5,
+            // Iglewicz & Hoaglin 1993), among the neighbourhood's lines.
+            let med = stats::median(&values).unwrap_or(f64::NAN);
+            let sd = stats::mad_sd(&values, med).unwrap_or(0.0);
+            let kept: Vec<f64> = values
+                .iter()
+                .copied()
+                .filter(|v| sd <= 0.0 || (v - med).abs() <= 3.5 * sd)
+                .collect();
+            o.n = kept.len();
+            if (kept.len() as f64) < MIN_LOCAL_INDEPENDENT {
+                None
+            } else {
+                stats::Summary::of(&kept).map(|s| (s.mean, s.ci95_half_width, s.sd))
+            }
+        }
+        Method::Centres => stats::Summary::of(&values).map(|s| (s.mean, s.ci95_half_width, s.sd)),
+    };
+    match stat {
+        Some((m, half, s)) => {
+            o.value = Some(Pixels(m));
+            o.ci95 = Some([Pixels(m - half), Pixels(m + half)]);
+            o.spread = Some(Pixels(s));
+        }
+        None => {
+            o.reason = Some(format!(
+                "{} of {n} local measurement(s) within the radius left after the method's outlier screen, too few for a value with a spread (a local value needs {MIN_LOCAL_INDEPENDENT:.0} independent)",
+                o.n
+            ))
+        }
+    }
+    methods::require_support(methods::with_bias(o))
+}
+
+/// The method's detail with only what the combination reads of it (the
+/// row spacing), so that each radius tried does not copy every tile.
+fn light_detail(image: &Outcome) -> Detail {
+    match &image.detail {
+        Detail::Fft(f) => Detail::Fft(crate::methods::fft::FftOutcome {
+            value_px: None,
+            ci95_px: None,
+            spread_px: None,
+            n_tiles_used: 0,
+            n_tiles_analysed: 0,
+            window_px: f.window_px,
+            orientation_deg: None,
+            orientation_coherence: None,
+            tiles: vec![],
+            reason: None,
+            row_spacing_px: f.row_spacing_px,
+            read_along_rows: f.read_along_rows,
+        }),
+        Detail::Intercept(_) => Detail::Intercept(crate::methods::intercept::InterceptOutcome {
+            value_px: None,
+            ci95_px: None,
+            sd_px: None,
+            n_lines: 0,
+            rel_accuracy_pct: None,
+            lines: vec![],
+            reason: None,
+        }),
+        Detail::Centres(c) => Detail::Centres(crate::methods::centres::CentresOutcome {
+            row_spacing_px: c.row_spacing_px,
+            ..Default::default()
+        }),
+    }
+}
+
+/// The local value from the used entries `chosen` (indices into the
+/// index): each method's local outcome, then their combination.
+fn evaluate(
+    index: &Index,
+    chosen: &[usize],
+    outcomes: &[Outcome],
+    cal: UmPerPx,
+    cal_rel_u: Option<f64>,
+) -> (Estimate, Vec<AtMethod>) {
+    let local: Vec<Outcome> = outcomes
+        .iter()
+        .map(|o| {
+            let mine: Vec<&Local> = chosen
+                .iter()
+                .map(|&i| &index.entries[i])
+                .filter(|e| e.method == o.method)
+                .map(|e| &e.local)
+                .collect();
+            local_outcome(o, &mine)
+        })
+        .collect();
+    let estimate = combine::combine(&local, cal, cal_rel_u);
+    let parts = local
+        .iter()
+        .map(|o| AtMethod {
+            method: o.method,
+            n: o.n,
+            n_eff: o.n as f64 * o.method.independent_fraction(),
+            value: o.value.map(|v| cal.to_um(v)),
+            ci95: o.ci95.map(|c| c.map(|v| cal.to_um(v))),
+            reason: o.reason.clone(),
+        })
+        .collect();
+    (estimate, parts)
+}
+
+/// The SDAS at a point of an image of `width` x `height` pixels, from the
+/// local measurements that entered their method's value (`used`).
+///
+/// With a radius given, from the used measurements closer than it. Without
+/// one, from the smallest radius that gives a value: the measurements are
+/// taken nearest first, and the first set for which the combination gives
+/// a value stands. A value needs, as the image's does, two methods that
+/// agree (when more than one was run), each with at least
+/// [`MIN_LOCAL_INDEPENDENT`] independent measurements for its Student-t
+/// interval. A larger radius averages over more of the casting, which may
+/// vary; the smallest one keeps the value as local as the evidence allows,
+/// and the radius is reported beside it. No value, with the reason, when
+/// even all the image's measurements give none, or the point lies outside
+/// the image.
+pub fn at(
+    index: &Index,
+    spec: &AtSpec,
+    outcomes: &[Outcome],
+    cal: UmPerPx,
+    cal_rel_u: Option<f64>,
+    (width, height): (u32, u32),
+    fft_min_quality: f64,
+) -> AtResult {
+    let [x_um, y_um] = spec.point_um(cal);
+    let given = spec.radius_um(cal);
+    let result = |radius_um, (estimate, methods)| AtResult {
+        spec: spec.clone(),
+        x_um,
+        y_um,
+        radius_um,
+        radius_given: given.is_some(),
+        estimate,
+        methods,
+    };
+    if !spec.inside(width, height, cal) {
+        let (w, h) = (
+            cal.to_um(Pixels(width as f64)).0,
+            cal.to_um(Pixels(height as f64)).0,
+        );
+        return result(
+            None,
+            (
+                Estimate::none(format!(
+                    "the point ({x_um:.1}, {y_um:.1}) um lies outside the image ({w:.1} x {h:.1} um, {width} x {height} px)"
+                )),
+                vec![],
+            ),
+        );
+    }
+    let p = [x_um, y_um];
+    // The local measurements a local value may rest on: those that entered
+    // their method's value (`used`), but for the FFT every reliable tile
+    // (a spectral peak of the method's quality; the tiles below it are
+    // left out as the method leaves them out). The FFT's `used` also holds
+    // its outlier screen around the image's median, which presumes one
+    // spacing over the image: in a casting whose spacing changes across
+    // the field, it drops the tiles of the part that differs from the
+    // majority, and a point there would read the majority's spacing. The
+    // same screen is applied among the neighbourhood's tiles instead
+    // (`local_outcome`). Only methods with a value on the image count.
+    let valued = |m: Method| outcomes.iter().any(|o| o.method == m && o.value.is_some());
+    let used = |i: &usize| {
+        let e = &index.entries[*i];
+        match e.method {
+            Method::Fft => {
+                valued(Method::Fft)
+                    && e.local.spacing.0.is_finite()
+                    && e.local.quality.is_some_and(|q| q >= fft_min_quality)
+            }
+            _ => e.local.used,
+        }
+    };
+    if let Some(r) = given {
+        let chosen: Vec<usize> = index.within(p, r).into_iter().filter(used).collect();
+        let (mut e, m) = evaluate(index, &chosen, outcomes, cal, cal_rel_u);
+        if let Some(why) = e.reason.take() {
+            e.reason = Some(format!("within {:.1} um: {why}", r.0));
+        }
+        return result(Some(r), (e, m));
+    }
+    let order: Vec<(usize, Micrometres)> = index
+        .nearest(p, index.len())
+        .into_iter()
+        .filter(|(i, _)| used(i))
+        .collect();
+    let needed = outcomes.iter().filter(|o| o.value.is_some()).count().min(2);
+    let mut counts = vec![0.0f64; outcomes.len()];
+    let mut tried_at = 0usize;
+    let mut last = None;
+    for (k, &(i, d)) in order.iter().enumerate() {
+        if let Some(slot) = outcomes
+            .iter()
+            .position(|o| o.method == index.entries[i].method)
+        {
+            counts[slot] += index.entries[i].method.independent_fraction();
+        }
+        // Entries at the same distance enter together.
+        if order.get(k + 1).is_some_and(|n| n.1 .0 <= d.0) {
+            continue;
+        }
+        let ready = counts
+            .iter()
+            .filter(|&&c| c >= MIN_LOCAL_INDEPENDENT)
+            .count();
+        if needed == 0 || ready < needed {
+            continue;
+        }
+        let n = k + 1;
+        if n > EXACT_SEARCH_UP_TO && n < order.len() && (n - tried_at) * 100 < tried_at {
+            continue;
+        }
+        tried_at = n;
+        let chosen: Vec<usize> = order[..n].iter().map(|&(i, _)| i).collect();
+        let (e, m) = evaluate(index, &chosen, outcomes, cal, cal_rel_u);
+        if e.value.is_some() {
+            return result(Some(d), (e, m));
+        }
+        last = Some((d, e, m));
+    }
+    let (reach, mut e, m) = match last {
+        Some(l) => l,
+        None => {
+            let chosen: Vec<usize> = order.iter().map(|&(i, _)| i).collect();
+            let (e, m) = evaluate(index, &chosen, outcomes, cal, cal_rel_u);
+            (order.last().map_or(Micrometres(0.0), |o| o.1), e, m)
+        }
+    };
+    let why = e.reason.take().unwrap_or_default();
+    e.reason = Some(format!(
+        "no radius gives a value (up to {:.1} um, all {} used local measurements of the image): {why}",
+        reach.0,
+        order.len()
+    ));
+    result(None, (e, m))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn parses_points_radii_and_units() {
+        let a = parse_at("120,340").unwrap();
+        assert_eq!(
+            (a.x, a.y, a.radius, a.unit),
+            (120.0, 340.0, None, LengthUnit::Micrometres)
+        );
+        let b = parse_at(" 400,300:50px ").unwrap();
+        assert_eq!(
+            (b.x, b.y, b.radius, b.unit),
+            (400.0, 300.0, Some(50.0), LengthUnit::Pixels)
+        );
+        let c = parse_at("400px,300px").unwrap();
+        assert_eq!(c.unit, LengthUnit::Pixels);
+        let d = parse_at("1.5um,2e1um:3um").unwrap();
+        assert_eq!((d.x, d.y, d.radius), (1.5, 20.0, Some(3.0)));
+    }
+
+    #[test]
+    fn refuses_absurd_points_with_the_value() {
+        for (s, says) in [
+            ("12", "expected X,Y"),
+            ("a,3", "x 'a' is not a number"),
+            ("3,4:-2", "radius -2 must be greater than zero"),
+            ("3,4:0", "greater than zero"),
+            ("-3,4", "cannot be negative"),
+            ("3px,4um", "mixes um and px"),
+            ("3,NaN", "not a finite number"),
+            ("3,4:", "the radius '' is not a number"),
+        ] {
+            let e = parse_at(s).unwrap_err().to_string();
+            assert!(e.contains(s.trim()) && e.contains(says), "{s}: {e}");
+        }
+    }
+
+    #[test]
+    fn a_point_beyond_the_image_has_no_value_and_says_so() {
+        let cal = UmPerPx::new(0.5).unwrap();
+        let index = Index::of_entries(vec![]);
+        let r = at(
+            &index,
+            &parse_at("600,10").unwrap(),
+            &[],
+            cal,
+            None,
+            (1000, 800),
+            6.0,
+        );
+        assert!(r.estimate.value.is_none() && r.radius_um.is_none());
+        assert!(r
+            .estimate
+            .reason
+            .unwrap()
+            .contains("outside the image (500.0 x 400.0 um"));
+    }
+}

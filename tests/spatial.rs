@@ -1,0 +1,185 @@
+//! The spatial index of local measurements (`armspace::spatial`): its
+//! radius and nearest-neighbour queries against a brute-force search over
+//! the same points (the definition of both queries; common practice, no
+//! single source).
+
+use armspace::methods::{Local, Method};
+use armspace::spatial::{Entry, Index};
+use armspace::units::{Micrometres, Pixels};
+use proptest::prelude::*;
+
+fn entry(x: f64, y: f64) -> Entry {
+    Entry {
+        method: Method::Fft,
+        x_um: x,
+        y_um: y,
+        local: Local {
+            x: Pixels(x),
+            y: Pixels(y),
+            spacing: Pixels(10.0),
+            dir_deg: 0.0,
+            quality: None,
+            used: true,
+        },
+    }
+}
+
+/// The index moves each point by at most 2e-9 um per entry to keep grid
+/// coordinates distinct (see `Index::of_entries`); points closer than this
+/// to the radius may fall either way.
+const SLACK: f64 = 1e-5;
+
+fn points() -> impl Strategy<Value = Vec<(f64, f64)>> {
+    // Free positions, and positions on a grid of tiles (many equal x and
+    // y, which the tree's buckets must cope with).
+    prop_oneof![
+        prop::collection::vec((0.0..500.0f64, 0.0..400.0f64), 0..300),
+        prop::collection::vec((0..40u32, 0..30u32), 0..600).prop_map(|v| v
+            .into_iter()
+            .map(|(i, j)| (12.5 * i as f64, 12.5 * j as f64))
+            .collect()),
+    ]
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig {
+        cases: 64,
+        failure_persistence: None,
+        rng_seed: proptest::test_runner::RngSeed::Fixed(20261204),
+        ..ProptestConfig::default()
+    })]
+
+    #[test]
+    fn radius_and_nearest_queries_agree_with_brute_force(
+        pts in points(),
+        q in (-50.0..550.0f64, -50.0..450.0f64),
+        r in 0.1..200.0f64,
+        k in 1usize..40,
+    ) {
+        let index = Index::of_entries(pts.iter().map(|&(x, y)| entry(x, y)).collect());
+        let dist = |i: usize| (pts[i].0 - q.0).hypot(pts[i].1 - q.1);
+        let found = index.within([q.0, q.1], Micrometres(r));
+        // Every point well inside is found, nothing well outside is, and
+        // no point twice.
+        for i in 0..pts.len() {
+            let d = dist(i);
+            if d < r - SLACK {
+                prop_assert!(found.contains(&i), "missed {i} at {d} < {r}");
+            }
+            if d > r + SLACK {
+                prop_assert!(!found.contains(&i), "found {i} at {d} > {r}");
+            }
+        }
+        prop_assert!(found.windows(2).all(|w| w[0] < w[1]));
+        // The k nearest: the same distances as the k smallest by brute force.
+        let mut all: Vec<f64> = (0..pts.len()).map(dist).collect();
+        all.sort_by(f64::total_cmp);
+        let near = index.nearest([q.0, q.1], k);
+        prop_assert_eq!(near.len(), k.min(pts.len()));
+        for (j, &(i, d)) in near.iter().enumerate() {
+            prop_assert!((d.0 - all[j]).abs() < SLACK, "{j}: {} against {}", d.0, all[j]);
+            prop_assert!((d.0 - dist(i)).abs() < SLACK);
+        }
+    }
+}
+
+/// `--at` on mixed fields (two parts of different spacing, `synth
+/// --gradient 1:1.5:2`, fresh seeds 9311 in the clean and etched styles,
+/// four fields each), at each part's centre within a radius that stays in
+/// the part (0.45 of its width): a value is within 5 % of the part's drawn
+/// spacing (the generator's truth), or there is none. Figures when this
+/// was written: seeds 9311, a value at 1 of 16 points (-4.3 %); on seeds
+/// 9302 tried before, at 4 of 24 (-2.1 % to +3.8 %). The points with no
+/// value are mostly those of parts whose lines and chains the methods'
+/// screens around the image's value left out, or images where the methods
+/// give no value at all. The issue's target (each part within 5 %) is not
+/// met: most parts get no value.
+/// The default radius (the smallest that gives a value) may reach across
+/// into the other part and read its spacing: see DEVELOPERS.md, "Where in
+/// the casting".
+#[test]
+fn at_a_part_of_a_mixed_field_reads_that_part_or_nothing() {
+    use armspace::pipeline::{measure_file, MeasureOptions};
+    use armspace::spatial::parse_at;
+    use armspace::synth::{write_set_graded, Gradient, Style};
+    use armspace::units::UmPerPx;
+    let mut values = 0;
+    let mut lines = Vec::new();
+    for style in [Style::Clean, Style::Etched] {
+        let dir = tempfile::tempdir().unwrap();
+        let g = Gradient::parse("1:1.5:2").unwrap();
+        let truths = write_set_graded(dir.path(), 9311, 4, Some(style), Some(g)).unwrap();
+        for t in truths {
+            let bands = t.bands.clone().unwrap();
+            let h = t.spec.height as f64;
+            let at = bands
+                .iter()
+                .map(|b| {
+                    let (x0, x1) = (b.x0_px as f64, b.x1_px as f64);
+                    parse_at(&format!(
+                        "{}px,{}px:{}px",
+                        0.5 * (x0 + x1),
+                        0.5 * h,
+                        0.45 * (x1 - x0)
+                    ))
+                    .unwrap()
+                })
+                .collect();
+            let opts = MeasureOptions {
+                at,
+                ..MeasureOptions::manual(UmPerPx::new(t.um_per_px).unwrap())
+            };
+            let r = measure_file(&dir.path().join(&t.file), &opts);
+            assert_eq!(r.at.len(), bands.len());
+            for (a, b) in r.at.iter().zip(&bands) {
+                let got = a.estimate.value.map(|v| v.0 / b.sdas_um - 1.0);
+                lines.push(format!("{style:?} {} band {}: {got:?}", t.file, b.x0_px));
+                if let Some(e) = got {
+                    values += 1;
+                    assert!(e.abs() <= 0.05, "{}: {:+.1} %", t.file, 100.0 * e);
+                    // The value rests on measurements within the radius.
+                    assert!(a.radius_given && a.estimate.n > 0);
+                } else {
+                    assert!(a.estimate.reason.is_some());
+                }
+            }
+        }
+    }
+    eprintln!("{}", lines.join("\n"));
+    assert!(values > 0, "no part gave a value: {lines:?}");
+}
+
+/// Absurd `--at` arguments are usage errors (exit status 2, as the other
+/// options' bad values) whose message names the option and the value; no
+/// panic, and nothing is measured.
+#[test]
+fn absurd_points_are_usage_errors_naming_the_option_and_value() {
+    let demo = concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/fixtures/demo/plate-CVF-SP4-step06mm.png"
+    );
+    for (value, says) in [
+        ("3,4:-2", "must be greater than zero"),
+        ("abc", "expected X,Y"),
+        ("1,x", "'x' is not a number"),
+        ("-5,4", "cannot be negative"),
+        ("4px,5um", "mixes um and px"),
+        ("99999,5px", "lies outside every image"),
+        ("99999,5", "lies outside every image"),
+    ] {
+        let out = std::process::Command::new(env!("CARGO_BIN_EXE_armspace"))
+            .args(["measure", demo, "--um-per-px", "1", "--at", value])
+            .output()
+            .unwrap();
+        let stderr = String::from_utf8_lossy(&out.stderr);
+        assert_eq!(out.status.code(), Some(2), "{value}: {stderr}");
+        assert!(
+            stderr.contains("--at") && stderr.contains(value) && stderr.contains(says),
+            "{value}: {stderr}"
+        );
+        assert!(
+            !stderr.contains("panicked") && out.stdout.is_empty(),
+            "{value}"
+        );
+    }
+}
