@@ -89,7 +89,7 @@ proptest! {
 /// the part (0.45 of its width): a value is within 5 % of the part's drawn
 /// spacing (the generator's truth), or there is none. Figures when this
 /// was written: seeds 9311, a value at 1 of 16 points (-4.3 %); on seeds
-/// 9302 tried before, at 4 of 24 (-2.1 % to +3.8 %). The points with no
+/// 9302 tried before, at 3 of 24 (-2.1 % to +3.8 %). The points with no
 /// value are mostly those of parts whose lines and chains the methods'
 /// screens around the image's value left out, or images where the methods
 /// give no value at all. The target (each part within 5 %) is not
