@@ -89,8 +89,8 @@ pub fn image_lines(img: &ImageReport) -> Vec<String> {
 /// its interval and support, or why there is none.
 fn at_line(a: &report::AtReport) -> String {
     let radius = match (a.radius_um, a.radius_rule) {
-        (Some(r), "given") => format!(" within {r} um"),
-        (Some(r), _) => format!(" within {r} um (the smallest radius with a value)"),
+        (Some(r), "given") => format!(" within {r:.1} um"),
+        (Some(r), _) => format!(" within {r:.1} um (the smallest radius with a value)"),
         (None, _) => String::new(),
     };
     let place = format!("  at {} ({} um, {} um){radius}", a.given, a.x_um, a.y_um);
