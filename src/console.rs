@@ -79,6 +79,18 @@ pub fn image_lines(img: &ImageReport) -> Vec<String> {
         ));
     }
     lines.extend(img.at.iter().map(at_line));
+    for p in &img.profile {
+        let valued = p.bins.iter().filter(|b| b.value_um.is_some()).count();
+        lines.push(match &p.reason {
+            Some(r) => format!("  along {}: no profile: {r}", p.given),
+            None => format!(
+                "  along {}: {} bin(s) of {:.1} um, {valued} with a value (images[].profile)",
+                p.given,
+                p.bins.len(),
+                p.bin_um
+            ),
+        });
+    }
     for w in &img.warnings {
         lines.push(format!("  warning: {w}"));
     }

@@ -41,6 +41,8 @@ pub struct MeasureOptions {
     pub spec: Option<crate::interpret::acceptance::Spec>,
     /// Points where the local SDAS is asked for (`--at`), in input order.
     pub at: Vec<crate::spatial::AtSpec>,
+    /// Lines along which a profile of the SDAS is asked for (`--along`).
+    pub along: Vec<crate::spatial::AlongSpec>,
 }
 
 impl MeasureOptions {
@@ -62,6 +64,7 @@ impl MeasureOptions {
             interpret: None,
             spec: None,
             at: vec![],
+            along: vec![],
         }
     }
 }
@@ -103,6 +106,8 @@ pub struct ImageResult {
     pub interrupted: bool,
     /// The local SDAS at each point asked for (`--at`), in the order given.
     pub at: Vec<crate::spatial::AtResult>,
+    /// The profile along each line asked for (`--along`), in the order given.
+    pub profiles: Vec<crate::spatial::Profile>,
 }
 
 /// The error of an image the run did not reach (see [`measure_batch`]).
@@ -150,6 +155,7 @@ impl ImageResult {
             acceptance,
             interrupted: false,
             at: vec![],
+            profiles: vec![],
         }
     }
 
@@ -299,15 +305,16 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
     warnings.extend(sdas.warnings.iter().cloned());
     // The local SDAS at the points asked for, from the same outcomes and
     // the same combination as the image's value.
-    let at = if opts.at.is_empty() {
-        vec![]
-    } else {
-        let index = crate::spatial::Index::new(&outcomes, um_per_px);
-        opts.at
+    let index = (!opts.at.is_empty() || !opts.along.is_empty())
+        .then(|| crate::spatial::Index::new(&outcomes, um_per_px));
+    let profiles = match &index {
+        None => vec![],
+        Some(index) => opts
+            .along
             .iter()
             .map(|spec| {
-                crate::spatial::at(
-                    &index,
+                crate::spatial::along(
+                    index,
                     spec,
                     &outcomes,
                     um_per_px,
@@ -316,7 +323,25 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
                     opts.fft.min_quality,
                 )
             })
-            .collect()
+            .collect(),
+    };
+    let at = match &index {
+        None => vec![],
+        Some(index) => opts
+            .at
+            .iter()
+            .map(|spec| {
+                crate::spatial::at(
+                    index,
+                    spec,
+                    &outcomes,
+                    um_per_px,
+                    calibration.rel_uncertainty,
+                    (info.width, info.height),
+                    opts.fft.min_quality,
+                )
+            })
+            .collect(),
     };
     warnings.extend(crate::interpret::plausibility::field_warning(
         image_width,
@@ -429,6 +454,7 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         acceptance,
         interrupted: false,
         at,
+        profiles,
     }
 }
 

@@ -453,6 +453,20 @@ fn evaluate(
     (estimate, parts)
 }
 
+/// Whether a local measurement may enter a local value (see the notes in
+/// [`at`]): used by its method, or for the FFT (when it has a value on the
+/// image) a reliable tile.
+fn counts(e: &Entry, fft_valued: bool, fft_min_quality: f64) -> bool {
+    match e.method {
+        Method::Fft => {
+            fft_valued
+                && e.local.spacing.0.is_finite()
+                && e.local.quality.is_some_and(|q| q >= fft_min_quality)
+        }
+        _ => e.local.used,
+    }
+}
+
 /// The SDAS at a point of an image of `width` x `height` pixels, from the
 /// local measurements that entered their method's value (`used`).
 ///
@@ -513,18 +527,10 @@ pub fn at(
     // majority, and a point there would read the majority's spacing. The
     // same screen is applied among the neighbourhood's tiles instead
     // (`local_outcome`). Only methods with a value on the image count.
-    let valued = |m: Method| outcomes.iter().any(|o| o.method == m && o.value.is_some());
-    let used = |i: &usize| {
-        let e = &index.entries[*i];
-        match e.method {
-            Method::Fft => {
-                valued(Method::Fft)
-                    && e.local.spacing.0.is_finite()
-                    && e.local.quality.is_some_and(|q| q >= fft_min_quality)
-            }
-            _ => e.local.used,
-        }
-    };
+    let fft_valued = outcomes
+        .iter()
+        .any(|o| o.method == Method::Fft && o.value.is_some());
+    let used = |i: &usize| counts(&index.entries[*i], fft_valued, fft_min_quality);
     if let Some(r) = given {
         let chosen: Vec<usize> = index.within(p, r).into_iter().filter(used).collect();
         let (mut e, m) = evaluate(index, &chosen, outcomes, cal, cal_rel_u);
@@ -589,6 +595,172 @@ pub fn at(
     result(None, (e, m))
 }
 
+/// A line asked for with `--along X0,Y0:X1,Y1[:BIN]`, as given.
+#[derive(Clone, Debug, PartialEq)]
+pub struct AlongSpec {
+    /// The text as given.
+    pub text: String,
+    pub from: [f64; 2],
+    pub to: [f64; 2],
+    /// The bin length, when given.
+    pub bin: Option<f64>,
+    pub unit: LengthUnit,
+}
+
+/// Bins along a line when no bin length is given: 10, a profile's
+/// resolution that still leaves each bin a tenth of the line to hold the
+/// measurements a local value needs.
+pub const DEFAULT_BINS: usize = 10;
+
+/// Parses `X0,Y0:X1,Y1[:BIN]` (units as in [`parse_at`]).
+pub fn parse_along(s: &str) -> crate::Result<AlongSpec> {
+    let bad = |why: String| crate::Error::Value {
+        reason: format!("'{s}': {why}"),
+    };
+    let text = s.trim();
+    let parts: Vec<&str> = text.split(':').collect();
+    if !(2..=3).contains(&parts.len()) {
+        return Err(bad(
+            "expected X0,Y0:X1,Y1 or X0,Y0:X1,Y1:BIN (the line's ends from the image's top-left corner, um, or pixels with a px suffix; BIN the bin length)".into(),
+        ));
+    }
+    // Each end is read as a point, the bin as a radius would be.
+    let a = parse_at(parts[0]).map_err(|e| bad(format!("its start: {e}")))?;
+    let b = match parts.get(2) {
+        Some(bin) => parse_at(&format!("{}:{bin}", parts[1])),
+        None => parse_at(parts[1]),
+    }
+    .map_err(|e| bad(format!("its end or bin: {e}")))?;
+    let explicit = |t: &str| t.contains("um") || t.contains("µm");
+    let px = a.unit == LengthUnit::Pixels || b.unit == LengthUnit::Pixels;
+    if px && parts.iter().any(|t| explicit(t)) {
+        return Err(bad("mixes um and px; give the line in one unit".into()));
+    }
+    if a.x == b.x && a.y == b.y {
+        return Err(bad("the line's two ends are the same point".into()));
+    }
+    Ok(AlongSpec {
+        text: text.to_string(),
+        from: [a.x, a.y],
+        to: [b.x, b.y],
+        bin: b.radius,
+        unit: if px {
+            LengthUnit::Pixels
+        } else {
+            LengthUnit::Micrometres
+        },
+    })
+}
+
+/// One bin of a profile.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Bin {
+    /// Distance of the bin's centre from the line's start, um.
+    pub distance_um: f64,
+    /// The bin's centre, um from the top-left corner.
+    pub x_um: f64,
+    pub y_um: f64,
+    pub estimate: Estimate,
+    /// Each method's value in the bin.
+    pub methods: Vec<AtMethod>,
+}
+
+/// SDAS against distance along a line.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Profile {
+    pub spec: AlongSpec,
+    pub from_um: [f64; 2],
+    pub to_um: [f64; 2],
+    pub bin_um: f64,
+    pub bins: Vec<Bin>,
+    /// Why there is no profile (a line leaving the image).
+    pub reason: Option<String>,
+}
+
+/// The profile along a line: the line cut into bins of equal length, each
+/// bin the square of that side centred on the line (so a bin weighs the
+/// field beside the line as far as along it), and each bin's value from
+/// the measurements in its square as [`at`] reads a neighbourhood (the same
+/// measurements, statistics and combination).
+pub fn along(
+    index: &Index,
+    spec: &AlongSpec,
+    outcomes: &[Outcome],
+    cal: UmPerPx,
+    cal_rel_u: Option<f64>,
+    (width, height): (u32, u32),
+    fft_min_quality: f64,
+) -> Profile {
+    let um = |v: f64| match spec.unit {
+        LengthUnit::Micrometres => v,
+        LengthUnit::Pixels => cal.to_um(Pixels(v)).0,
+    };
+    let (a, b) = (
+        [um(spec.from[0]), um(spec.from[1])],
+        [um(spec.to[0]), um(spec.to[1])],
+    );
+    let len = (b[0] - a[0]).hypot(b[1] - a[1]);
+    let bin = spec.bin.map_or(len / DEFAULT_BINS as f64, um).min(len);
+    let mut p = Profile {
+        spec: spec.clone(),
+        from_um: a,
+        to_um: b,
+        bin_um: bin,
+        bins: vec![],
+        reason: None,
+    };
+    let (w, h) = (
+        cal.to_um(Pixels(width as f64)).0,
+        cal.to_um(Pixels(height as f64)).0,
+    );
+    let inside = |q: [f64; 2]| q[0] >= 0.0 && q[1] >= 0.0 && q[0] <= w && q[1] <= h;
+    if !inside(a) || !inside(b) {
+        p.reason = Some(format!(
+            "the line leaves the image ({w:.1} x {h:.1} um, {width} x {height} px)"
+        ));
+        return p;
+    }
+    let u = [(b[0] - a[0]) / len, (b[1] - a[1]) / len];
+    let n = (len / bin).round().max(1.0) as usize;
+    let step = len / n as f64;
+    let fft_valued = outcomes
+        .iter()
+        .any(|o| o.method == Method::Fft && o.value.is_some());
+    for k in 0..n {
+        let t0 = k as f64 * step;
+        let c = [
+            a[0] + u[0] * (t0 + 0.5 * step),
+            a[1] + u[1] * (t0 + 0.5 * step),
+        ];
+        let chosen: Vec<usize> = index
+            .within(
+                c,
+                Micrometres(step * std::f64::consts::FRAC_1_SQRT_2 * 1.0001),
+            )
+            .into_iter()
+            .filter(|&i| {
+                let e = &index.entries[i];
+                let (dx, dy) = (e.x_um - a[0], e.y_um - a[1]);
+                let along = dx * u[0] + dy * u[1];
+                let across = (-dx * u[1] + dy * u[0]).abs();
+                counts(e, fft_valued, fft_min_quality)
+                    && along >= t0
+                    && along < t0 + step
+                    && across <= 0.5 * step
+            })
+            .collect();
+        let (estimate, methods) = evaluate(index, &chosen, outcomes, cal, cal_rel_u);
+        p.bins.push(Bin {
+            distance_um: t0 + 0.5 * step,
+            x_um: c[0],
+            y_um: c[1],
+            estimate,
+            methods,
+        });
+    }
+    p
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -625,6 +797,33 @@ mod tests {
         ] {
             let e = parse_at(s).unwrap_err().to_string();
             assert!(e.contains(s.trim()) && e.contains(says), "{s}: {e}");
+        }
+    }
+
+    #[test]
+    fn parses_lines_and_refuses_absurd_ones() {
+        let a = parse_along("0,10:100,10:20").unwrap();
+        assert_eq!(
+            (a.from, a.to, a.bin, a.unit),
+            (
+                [0.0, 10.0],
+                [100.0, 10.0],
+                Some(20.0),
+                LengthUnit::Micrometres
+            )
+        );
+        let b = parse_along("0,10px:100,10").unwrap();
+        assert_eq!((b.bin, b.unit), (None, LengthUnit::Pixels));
+        for (s, says) in [
+            ("0,10", "expected X0,Y0:X1,Y1"),
+            ("0,10:5,5:1:2", "expected X0,Y0:X1,Y1"),
+            ("0,10:5,5:-1", "greater than zero"),
+            ("0,10:0,10", "the same point"),
+            ("0px,10:5um,5", "mixes um and px"),
+            ("a,1:2,3", "not a number"),
+        ] {
+            let e = parse_along(s).unwrap_err().to_string();
+            assert!(e.contains(s) && e.contains(says), "{s}: {e}");
         }
     }
 

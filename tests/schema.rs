@@ -153,6 +153,7 @@ fn the_schema_keeps_the_contracts_constraints() {
         "/$defs/MethodsReport/properties/centres",
         "/$defs/MethodsReport/properties/fft",
         "/$defs/MethodsReport/properties/intercept",
+        "/$defs/Parameters/properties/along",
         "/$defs/Parameters/properties/at",
         "/$defs/Parameters/properties/interpretation",
         "/$defs/Parameters/properties/spec",
@@ -165,6 +166,7 @@ fn the_schema_keeps_the_contracts_constraints() {
         "/$defs/intercept/properties/omitted",
         "/$defs/image/properties/acceptance",
         "/$defs/image/properties/at",
+        "/$defs/image/properties/profile",
         "/$defs/image/properties/interpretation",
     ];
     expected.sort();
@@ -224,6 +226,8 @@ fn full_report(correlation: &str, composition: &str) -> Value {
         "150,120",
         "--at",
         "200px,150px:120px",
+        "--along",
+        "20,100:400,100:80",
     ]);
     serde_json::from_str(&run.stdout)
         .unwrap_or_else(|e| panic!("stdout is not JSON ({e}); stderr: {}", run.stderr))

@@ -84,6 +84,12 @@ pub(super) struct MeasureArgs {
     /// and on the terminal.
     #[arg(long, value_name = "X,Y[:R]", value_parser = armspace::spatial::parse_at, allow_hyphen_values = true)]
     at: Vec<armspace::spatial::AtSpec>,
+    /// SDAS against distance along the line from X0,Y0 to X1,Y1 (units as
+    /// for --at), in bins of length BIN (default a tenth of the line),
+    /// each bin the square of that side on the line. Repeatable. In the
+    /// report (images[].profile).
+    #[arg(long, value_name = "X0,Y0:X1,Y1[:BIN]", value_parser = armspace::spatial::parse_along, allow_hyphen_values = true)]
+    along: Vec<armspace::spatial::AlongSpec>,
 }
 
 /// Calibration sources. Precedence: --um-per-px, then --profile, then the
@@ -223,6 +229,7 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
         interpret,
         spec,
         at: args.at.clone(),
+        along: args.along.clone(),
     };
     let inputs = collect_inputs(&args.paths);
     if !inputs

@@ -15,7 +15,7 @@ mod csv_rows;
 pub mod names;
 mod per_method;
 mod schema;
-pub use at::{at_report, AtMethodReport, AtReport};
+pub use at::{at_report, profile_report, AtMethodReport, AtReport, BinReport, ProfileReport};
 pub use csv_rows::{csv_summary, CSV_COLUMNS};
 pub use per_method::*;
 pub use schema::json_schema;
@@ -108,6 +108,9 @@ pub struct Parameters {
     /// The points of --at as given, in order; absent without it.
     #[serde(skip_serializing_if = "Vec::is_empty")]
     pub at: Vec<String>,
+    /// The lines of --along as given, in order; absent without it.
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub along: Vec<String>,
 }
 
 /// The interpretation settings (--correlation).
@@ -217,6 +220,10 @@ pub struct ImageReport {
     /// measured).
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub at: Vec<AtReport>,
+    /// SDAS against distance along each line asked for with --along, in
+    /// the order given; absent without --along.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub profile: Vec<ProfileReport>,
 }
 
 /// The calibration applied to the image.
@@ -599,6 +606,7 @@ pub fn image_report(r: &ImageResult, opts: &MeasureOptions) -> ImageReport {
             Some(c) => r.at.iter().map(|a| at_report(a, c.get())).collect(),
             None => vec![],
         },
+        profile: r.profiles.iter().map(profile_report).collect(),
     }
 }
 
@@ -748,6 +756,7 @@ pub fn parameters(inputs: &[String], opts: &MeasureOptions) -> Parameters {
             extrapolate: s.extrapolate,
         }),
         at: opts.at.iter().map(|a| a.text.clone()).collect(),
+        along: opts.along.iter().map(|a| a.text.clone()).collect(),
     }
 }
 

@@ -111,8 +111,13 @@ pub(crate) fn render_graded(spec: &FieldSpec, g: &Gradient) -> Result<(Gray16, T
             seed: mix(spec.seed, u64::from(i) + 1),
             ..spec.clone()
         };
-        let (img, t) = render(&band)
-            .map_err(|e| SynthError::InvalidSpec(format!("band {} of {}: {e}", i + 1, g.bands)))?;
+        let (img, t) = render(&band).map_err(|e| {
+            let why = match e {
+                SynthError::InvalidSpec(m) => m,
+                other => other.to_string(),
+            };
+            SynthError::InvalidSpec(format!("band {} of {}: {why}", i + 1, g.bands))
+        })?;
         let bw = (x1 - x0) as usize;
         for (y, row) in img.as_raw().chunks_exact(bw).enumerate() {
             pixels[y * w + x0 as usize..y * w + x1 as usize].copy_from_slice(row);
