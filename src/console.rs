@@ -105,7 +105,10 @@ fn at_line(a: &report::AtReport) -> String {
         (Some(r), _) => format!(" within {r:.1} um (the smallest radius with a value)"),
         (None, _) => String::new(),
     };
-    let place = format!("  at {} ({} um, {} um){radius}", a.given, a.x_um, a.y_um);
+    let place = format!(
+        "  at {} ({:.1} um, {:.1} um){radius}",
+        a.given, a.x_um, a.y_um
+    );
     match (a.value_um, a.ci95_um) {
         (Some(v), Some([lo, hi])) => format!(
             "{place}: SDAS {v} um (95% CI {lo} to {hi}), n = {} ({:.1} independent) [{}]",
