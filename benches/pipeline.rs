@@ -38,6 +38,10 @@ fn spec(side: u32, morphology: Morphology, sdas_px: f64) -> FieldSpec {
             polarity: Polarity::DarkOnLight,
             corner: Corner::BottomRight,
             backing_box: true,
+            ticks: false,
+            label: None,
+            ink: None,
+            inset_px: None,
         }),
         seed: 11,
     }

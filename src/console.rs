@@ -91,6 +91,9 @@ pub fn image_lines(img: &ImageReport) -> Vec<String> {
             ),
         });
     }
+    if let Some(o) = &img.overlay {
+        lines.push(format!("  picture: {o}"));
+    }
     for w in &img.warnings {
         lines.push(format!("  warning: {w}"));
     }
@@ -155,6 +158,24 @@ pub fn batch_lines(rep: &Report) -> Vec<String> {
                 z.indeterminate,
                 z.verdict.map_or("no images", |d| d.name())
             ));
+            if let Some(p) = &z.pooled {
+                let value = match (p.value_um, p.ci95_um) {
+                    (Some(v), Some([lo, hi])) => {
+                        format!("pooled mean {v:.2} um (95% CI {lo:.2} to {hi:.2})")
+                    }
+                    _ => "no pooled mean".to_string(),
+                };
+                lines.push(format!(
+                    "  {value} of {} field(s), {} left out: {}; {}",
+                    p.fields_used.len(),
+                    p.fields_left_out.len(),
+                    p.decision.name().to_uppercase(),
+                    p.reason
+                ));
+                for l in &p.fields_left_out {
+                    lines.push(format!("  left out of the pool: {}: {}", l.file, l.reason));
+                }
+            }
         }
         if a.not_assessed > 0 {
             lines.push(format!(

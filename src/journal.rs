@@ -59,19 +59,29 @@ struct Fingerprint {
     um_per_px_rel_uncertainty: Option<f64>,
     trust_calibration: Option<crate::calibrate::CalibrationSource>,
     overlay_dir: Option<String>,
+    /// Only when given, so that journals of runs without it still match.
+    #[serde(skip_serializing_if = "Option::is_none", default)]
+    overlay_max_width: Option<u32>,
     correlation_entries_sha256: Option<String>,
 }
 
 /// Everything that decides an image's report in a run with `opts` over the
 /// `inputs` as given (module docs), as JSON.
 pub fn fingerprint(inputs: &[String], opts: &MeasureOptions) -> Value {
+    // Paths as the user spelled them name the same files whatever trailing
+    // separator or `./` they carry: `in/`, `./in` and `in` are one input.
+    let inputs: Vec<String> = inputs.iter().map(|p| lexical(p)).collect();
     let f = Fingerprint {
         tool: env!("CARGO_PKG_NAME"),
         version: env!("CARGO_PKG_VERSION"),
-        parameters: report::parameters(inputs, opts),
+        parameters: report::parameters(&inputs, opts),
         um_per_px_rel_uncertainty: opts.calibration.manual_rel_uncertainty,
         trust_calibration: opts.calibration.trust,
-        overlay_dir: opts.overlay_dir.as_ref().map(|d| d.display().to_string()),
+        overlay_dir: opts
+            .overlay_dir
+            .as_ref()
+            .map(|d| lexical(&d.display().to_string())),
+        overlay_max_width: opts.overlay_max_width,
         // The report names the correlation; its coefficients and those of
         // the alternatives beside it may come from a file that changed.
         correlation_entries_sha256: opts.interpret.as_ref().map(|s| {
@@ -81,6 +91,21 @@ pub fn fingerprint(inputs: &[String], opts: &MeasureOptions) -> Value {
     // Plain numbers, strings and maps of string keys always serialise; were
     // it ever to fail, the message stands in, the same on both runs.
     serde_json::to_value(&f).unwrap_or_else(|e| Value::String(format!("no fingerprint: {e}")))
+}
+
+/// A path with its `.` components and repeated or trailing separators
+/// dropped, without touching the file system (`..` is kept: through a link
+/// it need not mean the parent).
+fn lexical(path: &str) -> String {
+    let p: PathBuf = Path::new(path)
+        .components()
+        .filter(|c| !matches!(c, std::path::Component::CurDir))
+        .collect();
+    if p.as_os_str().is_empty() {
+        ".".into()
+    } else {
+        p.display().to_string()
+    }
 }
 
 #[derive(Serialize, Deserialize)]
@@ -287,6 +312,53 @@ fn diff(at: &str, was: &Value, now: &Value, out: &mut Vec<String>) {
     }
 }
 
+/// The lock of one report: held by the run writing it, so that two runs
+/// given the same `--out` do not write each other's journal and report
+/// (the second is refused before it measures anything). An advisory lock
+/// on `REPORT.lock` (`File::try_lock`, flock on Unix): the system releases
+/// it when the process ends, however it ends, so a killed run leaves no
+/// stale lock. The file is removed when the lock is dropped.
+#[derive(Debug)]
+pub struct RunLock {
+    path: PathBuf,
+    _file: std::fs::File,
+}
+
+impl RunLock {
+    /// Takes the lock beside the report `out`, or says which run holds it.
+    pub fn acquire(out: &Path) -> Result<Self> {
+        let mut name = out.as_os_str().to_os_string();
+        name.push(".lock");
+        let path = PathBuf::from(name);
+        let file = std::fs::OpenOptions::new()
+            .create(true)
+            .truncate(false)
+            .write(true)
+            .open(&path)
+            .map_err(|source| Error::Write {
+                path: path.clone(),
+                source,
+            })?;
+        match file.try_lock() {
+            Ok(()) => Ok(Self { path, _file: file }),
+            Err(std::fs::TryLockError::WouldBlock) => Err(Error::Input {
+                path: out.to_path_buf(),
+                reason: format!(
+                    "another armspace run is writing this report (it holds {}); wait for it to finish, or name another --out",
+                    path.display()
+                ),
+            }),
+            Err(std::fs::TryLockError::Error(source)) => Err(Error::Write { path, source }),
+        }
+    }
+}
+
+impl Drop for RunLock {
+    fn drop(&mut self) {
+        let _ = std::fs::remove_file(&self.path);
+    }
+}
+
 /// The journal being written by a run.
 #[derive(Debug)]
 pub struct Journal {
@@ -409,6 +481,17 @@ fn sync_folder(path: &Path) {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn one_folder_spelled_three_ways_is_one_input() {
+        // Path syntax (POSIX): a trailing separator, a leading `./` and a
+        // repeated separator name the same directory entry.
+        for p in ["in/", "./in", "in", ".//in//"] {
+            assert_eq!(lexical(p), "in", "{p}");
+        }
+        assert_eq!(lexical("./"), ".");
+        assert_eq!(lexical("a/../b"), "a/../b");
+    }
 
     #[test]
     fn the_journal_lies_beside_the_report() {

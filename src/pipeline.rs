@@ -33,6 +33,8 @@ pub struct MeasureOptions {
     pub methods: Vec<Method>,
     /// Folder for a picture per image of what was measured.
     pub overlay_dir: Option<PathBuf>,
+    /// Largest width of a picture, px (wider ones are scaled down).
+    pub overlay_max_width: Option<u32>,
     /// Files no output may replace (the run's inputs, resolved).
     pub protected: crate::files::Protected,
     /// Correlation and alloy for cooling rate and solidification time.
@@ -60,6 +62,7 @@ impl MeasureOptions {
             target_rel_accuracy_pct: 10.0,
             methods: Method::ALL.to_vec(),
             overlay_dir: None,
+            overlay_max_width: None,
             protected: crate::files::Protected::default(),
             interpret: None,
             spec: None,
@@ -351,51 +354,6 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         .value
         .and_then(crate::interpret::plausibility::sdas_warning);
     warnings.extend(implausible.iter().cloned());
-    let overlay = opts
-        .overlay_dir
-        .as_ref()
-        .zip(overlay_base)
-        .and_then(|(dir, base)| {
-            let picture = crate::overlay::measurement(
-                &base,
-                bar.as_ref(),
-                &found,
-                &outcomes,
-                opts.fft.min_quality,
-            );
-            let file = path.display().to_string();
-            let picture = crate::overlay::with_panel(
-                picture,
-                &crate::overlay::Caption {
-                    file: &file,
-                    sdas: &sdas,
-                    outcomes: &outcomes,
-                    um_per_px,
-                    calibration_source: calibration.source.name(),
-                },
-            );
-            let target = dir.join(overlay_name(path, &info.sha256));
-            if opts.protected.is_protected(&target) {
-                warnings.push(Warning::new(
-                    "overlay.not-written",
-                    format!(
-                        "overlay not written: {} is an input of this run",
-                        target.display()
-                    ),
-                ));
-                return None;
-            }
-            match crate::overlay::write_png(&target, &picture) {
-                Ok(()) => Some(target),
-                Err(e) => {
-                    warnings.push(Warning::new(
-                        "overlay.not-written",
-                        format!("overlay not written: {e}"),
-                    ));
-                    None
-                }
-            }
-        });
     let interpretation = opts
         .interpret
         .as_ref()
@@ -431,6 +389,9 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
             .clone()
             .or_else(|| implausible.as_ref().map(|w| w.message.clone()));
         if let (Some(doubt), Some(_)) = (doubt, a.decision) {
+            if let Some(p) = a.pool_field.as_mut() {
+                p.doubt = Some(doubt.clone());
+            }
             a.decision = Some(acceptance::Decision::Indeterminate);
             a.reason = format!("not decided: {doubt}");
             a.measurements_to_decide = None;
@@ -438,6 +399,54 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         }
         a
     });
+    // The picture is drawn last, so that its panel can state the decision.
+    let overlay = opts
+        .overlay_dir
+        .as_ref()
+        .zip(overlay_base)
+        .and_then(|(dir, base)| {
+            let picture = crate::overlay::measurement(
+                &base,
+                bar.as_ref(),
+                &found,
+                &outcomes,
+                opts.fft.min_quality,
+            );
+            let picture = crate::overlay::fit_width(picture, opts.overlay_max_width);
+            let file = path.display().to_string();
+            let picture = crate::overlay::with_panel(
+                picture,
+                &crate::overlay::Caption {
+                    file: &file,
+                    sdas: &sdas,
+                    outcomes: &outcomes,
+                    um_per_px,
+                    calibration_source: calibration.source.name(),
+                    acceptance: acceptance.as_ref(),
+                },
+            );
+            let target = dir.join(overlay_name(path, &info.sha256));
+            if opts.protected.is_protected(&target) {
+                warnings.push(Warning::new(
+                    "overlay.not-written",
+                    format!(
+                        "overlay not written: {} is an input of this run",
+                        target.display()
+                    ),
+                ));
+                return None;
+            }
+            match crate::overlay::write_png(&target, &picture) {
+                Ok(()) => Some(target),
+                Err(e) => {
+                    warnings.push(Warning::new(
+                        "overlay.not-written",
+                        format!("overlay not written: {e}"),
+                    ));
+                    None
+                }
+            }
+        });
     ImageResult {
         file: path.to_path_buf(),
         info: Some(info),

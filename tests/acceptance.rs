@@ -18,6 +18,7 @@ fn ev(value: f64, ci: Option<[f64; 2]>, n: usize, cal_half: f64) -> Evidence {
         ci95: ci.map(|[a, b]| [Micrometres(a), Micrometres(b)]),
         n,
         calibration_half_um: cal_half,
+        bootstrap: None,
     }
 }
 

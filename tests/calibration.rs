@@ -14,12 +14,12 @@ fn spec(i: u64, bar: Option<ScaleBarSpec>) -> FieldSpec {
         gradient: None,
         width: 560 + 37 * (i as u32 % 5),
         height: 420 + 23 * (i as u32 % 4),
-        morphology: if i % 2 == 0 {
+        morphology: if i.is_multiple_of(2) {
             Morphology::Columnar
         } else {
             Morphology::Equiaxed
         },
-        style: if i % 3 == 0 {
+        style: if i.is_multiple_of(3) {
             Style::Clean
         } else {
             Style::Etched
@@ -88,6 +88,10 @@ fn bar_lengths_within_half_a_pixel() {
                 Corner::BottomLeft
             },
             backing_box: (i / 4) % 2 == 0,
+            ticks: false,
+            label: None,
+            ink: None,
+            inset_px: None,
         };
         let s = spec(i, Some(bar));
         let Ok((img, truth)) = render(&s) else {
@@ -173,6 +177,10 @@ fn a_scratch_longer_than_the_bar_is_not_taken_for_it() {
             polarity: Polarity::DarkOnLight,
             corner: Corner::BottomRight,
             backing_box: i % 2 == 0,
+            ticks: false,
+            label: None,
+            ink: None,
+            inset_px: None,
         };
         let (img, truth) = render(&spec(i, Some(bar))).unwrap();
         let tb = truth.scale_bar.unwrap();

@@ -614,6 +614,15 @@ fn a_measurement_picture_speaks_for_itself() {
             .count();
         assert!(light > 500, "panel text pixels: {light}");
     }
+    // stderr names where each picture went.
+    for i in 0..2 {
+        let p = rep["images"][i]["overlay"].as_str().unwrap();
+        assert!(
+            run.stderr.contains(&format!("picture: {p}")),
+            "{}",
+            run.stderr
+        );
+    }
     // The flat field's picture: the band across its middle is darkened and
     // carries the words in orange (230, 159, 0).
     let flat = picture(1);
@@ -625,4 +634,76 @@ fn a_measurement_picture_speaks_for_itself() {
         })
         .count();
     assert!(orange > 100, "orange pixels of NO VALUE: {orange}");
+}
+
+/// A closed stderr (piped into `head`, a terminal gone) loses the lines a
+/// person would read, never the run: the images are measured and the report
+/// written, with the exit status of the measurement (before, the first line
+/// written panicked and the report was lost).
+#[test]
+fn a_closed_stderr_loses_no_report() {
+    let dir = tempfile::tempdir().unwrap();
+    let img = dir.path().join("a.png");
+    write_comb_png(&img, 160, 160, 10.0);
+    let out = dir.path().join("r.json");
+    let mut child = std::process::Command::new(env!("CARGO_BIN_EXE_armspace"))
+        .args([
+            "measure",
+            &path_str(&img),
+            "--um-per-px",
+            "1",
+            "--out",
+            &path_str(&out),
+        ])
+        .stdout(std::process::Stdio::null())
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    // The reading end closed before anything is written to it.
+    drop(child.stderr.take());
+    let status = child.wait().unwrap();
+    assert!(matches!(status.code(), Some(0) | Some(3)), "{status:?}");
+    let rep: Value = serde_json::from_str(&std::fs::read_to_string(&out).unwrap()).unwrap();
+    assert_eq!(rep["images"].as_array().unwrap().len(), 1);
+    assert!(!dir.path().join("r.json.journal").exists());
+}
+
+/// `--overlay-max-width` scales a wide picture down for a report's page,
+/// with its panel set for that width; a width too small to read is refused.
+#[test]
+fn pictures_fit_the_width_asked_for() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let comb = d.join("wide.png");
+    write_comb_png(&comb, 1200, 300, 12.0);
+    let pictures = d.join("pictures");
+    let run = armspace(&[
+        "measure",
+        &path_str(&comb),
+        "--um-per-px",
+        "0.5",
+        "--overlay",
+        &path_str(&pictures),
+        "--overlay-max-width",
+        "400",
+    ]);
+    assert!(run.code == 0 || run.code == 3, "{}", run.stderr);
+    let rep = report(&run);
+    let p = rep["images"][0]["overlay"].as_str().unwrap();
+    let img = image::open(p).unwrap();
+    assert_eq!(img.width(), 400);
+    // The micrograph part keeps its aspect (1200 x 300 -> 400 x 100), with
+    // the panel under it.
+    assert!(img.height() > 100 + 100, "{}", img.height());
+    let run = armspace(&[
+        "measure",
+        &path_str(&comb),
+        "--um-per-px",
+        "0.5",
+        "--overlay",
+        &path_str(&pictures),
+        "--overlay-max-width",
+        "50",
+    ]);
+    assert_eq!(run.code, 2, "{}", run.stderr);
 }

@@ -176,7 +176,7 @@ fn float_samples_that_are_not_numbers() {
         let data: Vec<f32> = (0..w * h)
             .map(|i| {
                 let x = (i % w) as f32;
-                if (i as usize) % nan_every == 0 {
+                if (i as usize).is_multiple_of(nan_every) {
                     f32::NAN
                 } else {
                     0.5 + 0.4 * (x * std::f32::consts::TAU / 16.0).sin()
@@ -348,7 +348,7 @@ fn float_tiffs_spanning_the_whole_float_range_keep_their_picture() {
     use tiff::encoder::{colortype::Gray32Float, colortype::Gray64Float, TiffEncoder};
     let dir = tempfile::tempdir().unwrap();
     let (w, h) = (64u32, 48u32);
-    let on = |i: u32| (i % w) / 4 % 2 == 0;
+    let on = |i: u32| ((i % w) / 4).is_multiple_of(2);
     let f32s: Vec<f32> = (0..w * h)
         .map(|i| if on(i) { f32::MAX } else { f32::MIN })
         .collect();

@@ -390,3 +390,53 @@ fn the_journal_is_never_written_over_an_input_and_needs_a_report_file() {
     assert_eq!(r.code, 2, "{}", r.stderr);
     assert!(r.stderr.contains("--out"), "{}", r.stderr);
 }
+
+/// Two runs given the same --out: the second is refused before it measures
+/// anything or touches the first one's journal (usage error, status 2), and
+/// the lock is gone once the first run has ended.
+#[test]
+fn a_second_run_on_the_same_report_is_refused() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("r.json");
+    let lock = dir.path().join("r.json.lock");
+    // The first run, stood in for by a lock held by this process.
+    let held = armspace::journal::RunLock::acquire(&out).unwrap();
+    assert!(lock.exists());
+    let img = dir.path().join("a.png");
+    image::GrayImage::from_pixel(64, 64, image::Luma([128]))
+        .save(&img)
+        .unwrap();
+    let run = std::process::Command::new(env!("CARGO_BIN_EXE_armspace"))
+        .args([
+            "measure",
+            img.to_str().unwrap(),
+            "--um-per-px",
+            "1",
+            "--out",
+        ])
+        .arg(&out)
+        .output()
+        .unwrap();
+    assert_eq!(run.status.code(), Some(2));
+    let stderr = String::from_utf8_lossy(&run.stderr);
+    assert!(
+        stderr.contains("another armspace run is writing this report"),
+        "{stderr}"
+    );
+    assert!(!out.exists());
+    drop(held);
+    assert!(!lock.exists());
+    let run = std::process::Command::new(env!("CARGO_BIN_EXE_armspace"))
+        .args([
+            "measure",
+            img.to_str().unwrap(),
+            "--um-per-px",
+            "1",
+            "--out",
+        ])
+        .arg(&out)
+        .output()
+        .unwrap();
+    assert!(matches!(run.status.code(), Some(0) | Some(3)), "{run:?}");
+    assert!(out.exists() && !lock.exists());
+}

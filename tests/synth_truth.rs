@@ -190,6 +190,10 @@ fn synth_scale_bar_bbox_is_exact() {
             polarity,
             corner,
             backing_box: backing,
+            ticks: false,
+            label: None,
+            ink: None,
+            inset_px: None,
         });
         let (img, t) = render(&spec).expect("render");
         let b = t.scale_bar.expect("bar truth");
@@ -358,6 +362,10 @@ fn synth_examples() {
         polarity: Polarity::LightOnDark,
         corner: Corner::BottomRight,
         backing_box: false,
+        ticks: false,
+        label: None,
+        ink: None,
+        inset_px: None,
     });
     let (img, _) = render(&spec).expect("render");
     write_image(&dir.join("columnar_etched.png"), &img, BitDepth::Eight).expect("write");

@@ -15,6 +15,7 @@ fn evidences() -> Vec<Evidence> {
         ci95: Some([Micrometres(lo), Micrometres(hi)]),
         n,
         calibration_half_um: cal,
+        bootstrap: None,
     };
     vec![
         Evidence::default(),
@@ -27,6 +28,7 @@ fn evidences() -> Vec<Evidence> {
             ci95: None,
             n: 4,
             calibration_half_um: 0.0,
+            bootstrap: None,
         },
     ]
 }

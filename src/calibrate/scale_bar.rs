@@ -1,22 +1,37 @@
 //! Detection of a scale bar burned into a micrograph, and its length in
 //! pixels to sub-pixel precision.
 //!
-//! A scale bar is a solid, straight, horizontal rectangle at one extreme of
-//! the grey range (dark on light or light on dark), often on a contrasting
-//! backing box, usually near a corner. Detection, for each polarity:
+//! A scale bar is a solid, straight, horizontal rectangle of one flat ink
+//! near one extreme of the grey range (dark on light or light on dark). It
+//! may stand on a contrasting backing box or lie directly on the structure,
+//! touched by either phase, with end ticks and a label beside it. What sets
+//! it apart from the structure is its own shape, not a plain surround: a
+//! long band of one flat level with two parallel, straight, horizontal
+//! edges and two straight vertical ends, far straighter and longer than any
+//! outline the structure shows.
+//!
+//! A bar set off from its surroundings (on a backing box or a plain part
+//! of the field) is looked for first, as before (`clear.rs`), and taken
+//! when it is at least `MIN_BAR_LEN` long. Otherwise, for each polarity:
 //!
 //! 1. pixels within 25 % (then 45 %, for thin bars that blur has lifted) of
 //!    the grey range of the image's extreme are bar candidates;
-//! 2. horizontal runs of candidates, stacked over consecutive rows with ends
-//!    within 2 px, form rectangles;
+//! 2. horizontal runs of candidates stacked over consecutive rows form
+//!    rectangles: the columns every row of the stack covers (a touching
+//!    feature widens some rows, never all of them);
 //! 3. a rectangle is a bar when it is at least 2 px thick and 4 times longer
-//!    than thick, filled, uniform, clear of the image border, and set off from
-//!    its surroundings above, below and at both ends. Scratches (thin,
-//!    slanted, textured), grain boundaries (not straight) and the image
-//!    border fail these tests;
-//! 4. of the bars found, the longest is taken.
+//!    than thick, clear of the image border, its ink flat (pixel noise and
+//!    drift along the bar small against its contrast), both long edges
+//!    located column by column on one straight horizontal line wherever
+//!    the structure does not hide them, and seen along the whole length
+//!    (see `examine` for each rule and its reason);
+//! 4. of the bars found, the longest is taken, when it is at least twice as
+//!    long as any other straight band away from it. A band that passes the
+//!    shape tests but whose ends cannot be measured (hidden in every row by
+//!    structure of its own grey) is named in the error instead.
 //!
-//! The length is measured edge to edge on every interior row of the bar: each
+//! In the set-off search the length is measured edge to edge on every
+//! interior row of the bar: each
 //! end is located at the centroid of the row's step into (or out of) the bar:
 //! the differences of neighbouring pixels with the bar's sign, over the run
 //! around the largest of them. Rows whose length strays more than 1 px from
@@ -24,9 +39,13 @@
 //! out of the mean. A sharp bar covering pixels x0..=x1 thus
 //! measures x1 - x0 + 1, and a blur that is the same on both sides of an end
 //! (Gaussian, box, defocus) does not move it; a step of the other sign just
-//! beyond (the edge of a backing box) is ignored.
+//! beyond (the edge of a backing box) is ignored. On the structure each end
+//! is placed on its own, as the mean over the rows that show it clearly
+//! (the grey beyond plain and not the ink's) and agree within 0.75 px.
 
 use crate::load::GrayImage;
+
+mod clear;
 use schemars::JsonSchema;
 use serde::Serialize;
 
@@ -55,7 +74,10 @@ pub struct ScaleBar {
     pub y1: u32,
     pub thickness_px: u32,
     pub polarity: Polarity,
-    /// 0 to 1: the weakest of the fill, uniformity and edge-contrast tests.
+    /// 0 to 1: for a bar set off from its surroundings the weakest of the
+    /// fill, uniformity and edge-contrast tests; for a bar on the structure
+    /// the share of its located edges on their lines (0.7 at the least
+    /// share accepted).
     pub confidence: f64,
     /// Contrasting box behind the bar, when there is one: [x0, y0, x1, y1].
     pub backing_box: Option<[u32; 4]>,
@@ -71,28 +93,89 @@ pub const MIN_CONFIDENCE: f64 = 0.7;
 const CANDIDATE_FRACTIONS: [f32; 2] = [0.25, 0.45];
 const END_TOLERANCE_PX: i64 = 2;
 
-#[derive(Clone, Debug)]
-struct Group {
+/// Least share of a bar's located edge positions on its edge's line (see
+/// `examine`).
+const MIN_ON_LINE: f64 = 0.8;
+
+/// Shortest bar taken, px. A bar is read to about half a pixel at each
+/// end; under 32 px that is more than 1.5 % of the calibration, and a
+/// band that short is no more than a few arm spacings of a fine
+/// structure, whose straight stretches it could not be told from.
+const MIN_BAR_LEN: usize = 32;
+
+/// How many times longer than any other straight band of the image the bar
+/// must be: a bar is drawn to stand out, and the structure's straight
+/// stretches come in families of similar lengths, of which the longest is
+/// only a little longer than the next.
+const STAND_OUT: f64 = 2.0;
+
+/// A rectangle of candidate pixels: rows `y0..=y1` all candidates over
+/// columns `x0..=x1`.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+struct Rect {
+    x0: usize,
+    x1: usize,
     y0: usize,
-    starts: Vec<usize>,
-    ends: Vec<usize>,
+    y1: usize,
 }
 
-impl Group {
-    fn last_y(&self) -> usize {
-        self.y0 + self.starts.len() - 1
-    }
+/// Why a band that looked like a bar was not taken: kept for the message
+/// when no bar is found, so that a technician learns what was seen.
+#[derive(Clone, Debug)]
+struct NearMiss {
+    length: usize,
+    x: usize,
+    y: usize,
+    why: &'static str,
 }
 
-/// Finds the scale bar, or says why there is none.
+/// What `examine` concluded about one rectangle.
+enum Verdict {
+    Bar(Box<ScaleBar>),
+    /// Not a bar, and not worth mentioning (too short, curved edges, ...).
+    No,
+    /// A long, straight, flat band that could not be measured.
+    Unmeasurable(&'static str),
+}
+
+/// Finds the scale bar, or says why there is none: first a bar set off
+/// from its surroundings (`clear`), then one lying on the structure.
 pub fn detect(img: &GrayImage) -> crate::Result<ScaleBar> {
-    let none = |reason: &str| crate::Error::Calibration {
-        reason: reason.into(),
-    };
+    let none = |reason: String| crate::Error::Calibration { reason };
     let (w, h) = (img.width, img.height);
-    if w < 16 || h < 8 {
-        return Err(none("the image is too small to hold a scale bar"));
+    if w < 16 || h < 8 || img.data.len() != w * h {
+        return Err(none("the image is too small to hold a scale bar".into()));
     }
+    if img.data.iter().any(|v| !v.is_finite()) {
+        return Err(none(
+            "the image holds grey values that are not numbers; no scale bar can be read".into(),
+        ));
+    }
+    // First a bar set off from its surroundings: where its tests hold
+    // (a plain surround a few pixels out, rows of nearly equal ends) they
+    // are the stronger evidence, and bars on backing boxes are measured as
+    // before; but it must be long enough (MIN_BAR_LEN), which that search
+    // alone does not ask (on busy fields it took short straight stretches
+    // of the structure for bars). Otherwise a bar lying on the structure.
+    match clear::detect(img) {
+        Ok(bar) if bar.length_px >= MIN_BAR_LEN as f64 => Ok(bar),
+        _ => detect_on_structure(img).0,
+    }
+}
+
+fn not_standing_out(b: &ScaleBar, rival: &ScaleBar) -> String {
+    format!(
+        "no bar stands out: straight bands of similar length ({:.0} px at x = {}, y = {} \
+         and {:.0} px at x = {}, y = {}) belong to the structure or to a drawing; \
+         give the scale with --um-per-px or --profile",
+        b.length_px, b.x0, b.y0, rival.length_px, rival.x0, rival.y0
+    )
+}
+
+/// A bar lying on the structure (see the module notes and `examine`), and
+/// every straight band found, box strips left out.
+fn detect_on_structure(img: &GrayImage) -> (crate::Result<ScaleBar>, Vec<ScaleBar>) {
+    let none = |reason: String| crate::Error::Calibration { reason };
     let (lo, hi) = img
         .data
         .iter()
@@ -100,300 +183,88 @@ pub fn detect(img: &GrayImage) -> crate::Result<ScaleBar> {
             (a.min(*v), b.max(*v))
         });
     let range = hi - lo;
-    if range < 0.05 {
-        return Err(none(
-            "the image has too little contrast to show a scale bar",
-        ));
+    if range.is_nan() || range < 0.05 {
+        return (
+            Err(none(
+                "the image has too little contrast to show a scale bar".into(),
+            )),
+            Vec::new(),
+        );
     }
     let mut found: Vec<ScaleBar> = Vec::new();
+    let mut near: Option<NearMiss> = None;
     for fraction in CANDIDATE_FRACTIONS {
         for polarity in [Polarity::DarkOnLight, Polarity::LightOnDark] {
             let is_cand = |v: f32| match polarity {
                 Polarity::DarkOnLight => v <= lo + fraction * range,
                 Polarity::LightOnDark => v >= hi - fraction * range,
             };
-            found.extend(
-                groups(img, &is_cand)
-                    .iter()
-                    .filter_map(|g| examine(img, g, polarity, &is_cand, range)),
-            );
-        }
-    }
-    // A strip of a backing box above or below a bar looks like a bar of the
-    // opposite polarity, longer than the bar. A box is always larger than the
-    // bar it backs, so a candidate that spans a vertically adjacent candidate
-    // of opposite polarity is a piece of that one's box.
-    let is_box_strip = |a: &ScaleBar| {
-        found.iter().any(|b| {
-            b.polarity != a.polarity
-                && b.x0 >= a.x0
-                && b.x1 <= a.x1
-                && (b.y0.saturating_sub(a.y1) <= 4 && b.y0 > a.y1
-                    || a.y0.saturating_sub(b.y1) <= 4 && a.y0 > b.y1)
-        })
-    };
-    let mut best: Option<&ScaleBar> = None;
-    for bar in found.iter().filter(|a| !is_box_strip(a)) {
-        let better = match best {
-            None => true,
-            Some(b) => {
-                bar.length_px > b.length_px + 0.5
-                    || ((bar.length_px - b.length_px).abs() <= 0.5 && bar.confidence > b.confidence)
-            }
-        };
-        if better {
-            best = Some(bar);
-        }
-    }
-    best.cloned()
-        .ok_or_else(|| none("no solid horizontal bar stands out from the image"))
-}
-
-/// Stacks of horizontal candidate runs with nearly equal ends.
-fn groups(img: &GrayImage, is_cand: &impl Fn(f32) -> bool) -> Vec<Group> {
-    let (w, h) = (img.width, img.height);
-    let min_len = 16usize.max(w / 64);
-    let mut open: Vec<Group> = Vec::new();
-    let mut done: Vec<Group> = Vec::new();
-    for y in 0..h {
-        let row = img.row(y);
-        let mut runs = Vec::new();
-        // A run of at least `min_len` candidates covers a multiple of
-        // `min_len`: only runs through those columns are traced, so a row
-        // with none of them a candidate is passed over in w / min_len tests
-        // (the same runs, in the same order, as a scan of every pixel).
-        let mut next = 0;
-        for k in (0..w).step_by(min_len) {
-            if k < next || !is_cand(row[k]) {
-                continue;
-            }
-            let mut s = k;
-            while s > next && is_cand(row[s - 1]) {
-                s -= 1;
-            }
-            let mut e = k + 1;
-            while e < w && is_cand(row[e]) {
-                e += 1;
-            }
-            if e - s >= min_len {
-                runs.push((s, e - 1));
-            }
-            next = e;
-        }
-        let mut next_open = Vec::new();
-        let mut used = vec![false; runs.len()];
-        for mut g in open.drain(..) {
-            let (ls, le) = (*g.starts.last().unwrap_or(&0), *g.ends.last().unwrap_or(&0));
-            let m = runs.iter().enumerate().find(|(i, (s, e))| {
-                !used[*i]
-                    && (*s as i64 - ls as i64).abs() <= END_TOLERANCE_PX
-                    && (*e as i64 - le as i64).abs() <= END_TOLERANCE_PX
-            });
-            match m {
-                Some((i, (s, e))) => {
-                    used[i] = true;
-                    g.starts.push(*s);
-                    g.ends.push(*e);
-                    next_open.push(g);
+            for r in rectangles(img, &is_cand) {
+                match examine(img, r, polarity, range) {
+                    Verdict::Bar(b) => found.push(*b),
+                    Verdict::No => {}
+                    Verdict::Unmeasurable(why) => {
+                        let len = r.x1 - r.x0 + 1;
+                        if near.as_ref().is_none_or(|n| len > n.length) {
+                            near = Some(NearMiss {
+                                length: len,
+                                x: r.x0,
+                                y: r.y0,
+                                why,
+                            });
+                        }
+                    }
                 }
-                None => done.push(g),
             }
         }
-        for (i, (s, e)) in runs.iter().enumerate() {
-            if !used[i] {
-                next_open.push(Group {
-                    y0: y,
-                    starts: vec![*s],
-                    ends: vec![*e],
-                });
-            }
-        }
-        open = next_open;
     }
-    done.extend(open);
-    done.retain(|g| g.starts.len() >= 2);
-    done
-}
-
-/// The middle of the rows' end positions: the order statistic of rank
-/// n/2 (the upper middle one for an even count), not the crate's median,
-/// because a bar's end must be a pixel some row really has (the mean of two
-/// middle ones may fall between them). `None` for no rows.
-fn middle_position(v: &[usize]) -> Option<usize> {
-    let mut s = v.to_vec();
-    let mid = s.len() / 2;
-    (!s.is_empty()).then(|| *s.select_nth_unstable(mid).1)
-}
-
-fn median_f32(mut v: Vec<f32>) -> Option<f32> {
-    crate::stats::median_in_place(&mut v).map(|m| m as f32)
-}
-
-fn examine(
-    img: &GrayImage,
-    g: &Group,
-    polarity: Polarity,
-    is_cand: &impl Fn(f32) -> bool,
-    range: f32,
-) -> Option<ScaleBar> {
-    let (w, h) = (img.width, img.height);
-    let x0 = middle_position(&g.starts)?;
-    let x1 = middle_position(&g.ends)?;
-    let (y0, y1) = (g.y0, g.last_y());
-    let thickness = y1 - y0 + 1;
-    let length = x1 - x0 + 1;
-    // Straight ends.
-    if g.starts
+    let best = best_bar(&found);
+    let bands: Vec<ScaleBar> = found
         .iter()
-        .chain(&g.ends)
-        .zip(g.starts.iter().map(|_| x0).chain(g.ends.iter().map(|_| x1)))
-        .any(|(a, b)| (*a as i64 - b as i64).abs() > END_TOLERANCE_PX)
-    {
-        return None;
-    }
-    // Shape: thick enough to be drawn on purpose, much longer than thick,
-    // not spanning the image, clear of the border (a frame is no bar).
-    if thickness < 2 || length < 4 * thickness || length as f64 > 0.9 * w as f64 {
-        return None;
-    }
-    if x0 < 9 || x1 + 9 >= w || y0 < 4 || y1 + 4 >= h {
-        return None;
-    }
-    // Fill of the rectangle, and uniformity of its interior rows (the top
-    // and bottom rows of a thick bar carry the blur of its edges).
-    let fill = (y0..=y1)
-        .flat_map(|y| img.row(y)[x0..=x1].iter())
-        .filter(|v| is_cand(**v))
-        .count() as f64
-        / (thickness * length) as f64;
-    let (iy0, iy1) = if thickness >= 3 {
-        (y0 + 1, y1 - 1)
-    } else {
-        (y0, y1)
-    };
-    let interior: Vec<f32> = (iy0..=iy1)
-        .flat_map(|y| img.row(y)[x0 + 1..x1].iter().copied())
+        .filter(|a| !is_box_strip(&found, a))
+        .cloned()
         .collect();
-    let mean = interior.iter().map(|v| *v as f64).sum::<f64>() / interior.len() as f64;
-    let sd = (interior
-        .iter()
-        .map(|v| (*v as f64 - mean).powi(2))
-        .sum::<f64>()
-        / interior.len() as f64)
-        .sqrt();
-    let uniformity = (1.0 - sd / (0.1 * range as f64)).clamp(0.0, 1.0);
-    // Set off above and below: some row two to four rows out (past any blur
-    // of the edge) is, along the whole bar, at least 90 % unlike the bar's
-    // own level. A strip of a larger region (a backing box around a bar of
-    // the other polarity) is not: its neighbouring row continues at its level
-    // beyond the bar it frames.
-    let level_tol = (0.1 * range as f64).max(4.0 * sd);
-    let unlike = |y: usize| {
-        let row = &img.row(y)[x0..=x1];
-        row.iter()
-            .filter(|v| (**v as f64 - mean).abs() > level_tol)
-            .count() as f64
-            / row.len() as f64
-    };
-    let above = (2..=4)
-        .filter_map(|d| y0.checked_sub(d))
-        .map(unlike)
-        .fold(0.0, f64::max);
-    let below = (2..=4)
-        .map(|d| y1 + d)
-        .filter(|&y| y < h)
-        .map(unlike)
-        .fold(0.0, f64::max);
-    if above < 0.9 || below < 0.9 {
-        return None;
-    }
-    // Set off at both ends.
-    let ends_clear = {
-        let mut clear = 0usize;
-        for y in y0..=y1 {
-            let row = img.row(y);
-            clear += usize::from(!is_cand(row[x0 - 3])) + usize::from(!is_cand(row[x1 + 3]));
+    // The bar stands out: no other straight band of the image, away from
+    // it, is more than half its length (see STAND_OUT).
+    if let Some(b) = best {
+        let near_bar =
+            |a: &ScaleBar| a.x0 <= b.x1 && b.x0 <= a.x1 && a.y0 <= b.y1 + 6 && b.y0 <= a.y1 + 6;
+        if let Some(rival) = bands.iter().find(|a| {
+            !near_bar(a)
+                && a.length_px >= MIN_BAR_LEN as f64
+                && a.length_px * STAND_OUT > b.length_px
+        }) {
+            return (Err(none(not_standing_out(b, rival))), bands);
         }
-        clear as f64 / (2 * thickness) as f64
-    };
-    let confidence = fill.min(uniformity).min(ends_clear);
-    if confidence < MIN_CONFIDENCE {
-        return None;
     }
+    let result = match (best, near) {
+        (Some(b), _) => Ok(b.clone()),
+        (None, Some(n)) => Err(none(format!(
+            "a straight band of one level, {} px long, at x = {}, y = {}, looks like a scale \
+             bar but cannot be measured: {}",
+            n.length, n.x, n.y, n.why
+        ))),
+        (None, None) => Err(none(
+            "no solid horizontal bar stands out from the image".into(),
+        )),
+    };
+    (result, bands)
+}
 
-    // Sub-pixel length on interior rows.
-    let rows: Vec<usize> = if thickness >= 3 {
-        (y0 + 1..y1).collect()
-    } else {
-        (y0..=y1).collect()
-    };
-    let mut lengths = Vec::new();
-    let mut lefts = Vec::new();
-    let mut rights = Vec::new();
-    // Entering a dark bar the profile falls; leaving it, it rises.
-    let into = match polarity {
-        Polarity::DarkOnLight => -1.0,
-        Polarity::LightOnDark => 1.0,
-    };
-    let at_level = |v: f32| (v as f64 - mean).abs() <= level_tol;
-    for &y in &rows {
-        let row = img.row(y);
-        // Walk out from the bar's middle while the row keeps the bar's level:
-        // the bar's own step is where it leaves it, even when a feature of
-        // the micrograph of similar darkness touches the end.
-        let mid = (x0 + x1) / 2;
-        let mut l = mid;
-        while l > 1 && at_level(row[l - 1]) {
-            l -= 1;
-        }
-        let mut r = mid;
-        while r + 2 < w && at_level(row[r + 1]) {
-            r += 1;
-        }
-        let xl = edge(row, l.saturating_sub(2), l, into)?;
-        let xr = edge(row, r, (r + 2).min(w - 2), -into)?;
-        lengths.push(xr - xl);
-        lefts.push(xl);
-        rights.push(xr);
-    }
-    if lengths.is_empty() {
-        return None;
-    }
-    let mid = crate::stats::median(&lengths)?;
-    let keep: Vec<bool> = lengths.iter().map(|l| (l - mid).abs() <= 1.0).collect();
-    let pick = |v: &[f64]| -> Vec<f64> {
-        v.iter()
-            .zip(&keep)
-            .filter(|(_, k)| **k)
-            .map(|(x, _)| *x)
-            .collect()
-    };
-    let (lengths, lefts, rights) = (pick(&lengths), pick(&lefts), pick(&rights));
-    // With an even count the median is the mean of the two middle lengths,
-    // and when those differ by more than 2 px no row is within 1 px of it:
-    // no row is kept. Such a candidate has no measurable length; it is no
-    // bar (a mean over no rows is NaN, which no later comparison can rank,
-    // so it would also have hidden a real bar found after it).
-    if lengths.is_empty() {
-        return None;
-    }
-    let mean_of = |v: &[f64]| v.iter().sum::<f64>() / v.len() as f64;
-    // The bar's box from its measured ends.
-    let x0 = (mean_of(&lefts) + 0.5).round().max(0.0) as usize;
-    let x1 = (mean_of(&rights) - 0.5).round().max(x0 as f64) as usize;
-    let n = lengths.len() as f64;
-    let mean_len = lengths.iter().sum::<f64>() / n;
-    let sd_len = (lengths.iter().map(|l| (l - mean_len).powi(2)).sum::<f64>() / n).sqrt();
-
-    // Backing box: grow from the bar while the new line is mostly the
-    // surround's level.
-    let surround = median_f32(
-        [y0 - 2, y1 + 2]
-            .iter()
-            .flat_map(|&y| img.row(y)[x0..=x1].iter().copied())
-            .collect(),
-    )?;
-    let backing_box = grow_box(img, [x0, y0, x1, y1], surround, 0.15 * range);
+/// The bar's backing box, if it has one, and the region left out of
+/// measurement around the bar: the bar padded by room for its ticks and its
+/// label (twice its thickness to the sides, at least 8 px; five times above
+/// and below, at least 16 px), grown to cover the box.
+fn box_and_mask(
+    img: &GrayImage,
+    bar: [usize; 4],
+    thickness: usize,
+    surround: f32,
+    range: f32,
+) -> (Option<[usize; 4]>, [usize; 4]) {
+    let (w, h) = (img.width, img.height);
+    let [x0, y0, x1, y1] = bar;
+    let backing_box = grow_box(img, bar, surround, 0.15 * range);
     let (pad_x, pad_y) = ((2 * thickness).max(8), (5 * thickness).max(16));
     let mut mask = [
         x0.saturating_sub(pad_x),
@@ -409,11 +280,455 @@ fn examine(
             mask[3].max(b[3]),
         ];
     }
+    (backing_box, mask)
+}
+
+/// Horizontal runs of candidates at least `min_len` long, row by row.
+fn row_runs(row: &[f32], min_len: usize, is_cand: &impl Fn(f32) -> bool) -> Vec<(usize, usize)> {
+    let w = row.len();
+    let mut runs = Vec::new();
+    // A run of at least `min_len` candidates covers a multiple of
+    // `min_len`: only runs through those columns are traced, so a row
+    // with none of them a candidate is passed over in w / min_len tests
+    // (the same runs, in the same order, as a scan of every pixel).
+    let mut next = 0;
+    for k in (0..w).step_by(min_len.max(1)) {
+        if k < next || !is_cand(row[k]) {
+            continue;
+        }
+        let mut s = k;
+        while s > next && is_cand(row[s - 1]) {
+            s -= 1;
+        }
+        let mut e = k + 1;
+        while e < w && is_cand(row[e]) {
+            e += 1;
+        }
+        if e - s >= min_len {
+            runs.push((s, e - 1));
+        }
+        next = e;
+    }
+    runs
+}
+
+/// Rectangles of candidates: rows whose long runs stack over one another.
+///
+/// A bar lying on the structure shares its ink with whatever of the
+/// structure touches it, so a row of the bar may run on into a touching
+/// feature: rows are not required to end where their neighbours do.
+/// Instead each stack keeps the columns that every one of its rows covers
+/// (the intersection of its runs): the bar's own columns are ink in all of
+/// its rows, a touching feature only in some. When a row narrows the
+/// intersection by more than `END_TOLERANCE_PX`, the stack so far is one
+/// rectangle and the narrower stack goes on as another; a run that no stack
+/// already follows starts a stack of its own (the first row of a bar under
+/// a feature that touched the rows above it).
+fn rectangles(img: &GrayImage, is_cand: &impl Fn(f32) -> bool) -> Vec<Rect> {
+    /// Stacks followed at once; a field of long runs in every row (a dark
+    /// band, a frame) would otherwise grow them without bound.
+    const MAX_OPEN: usize = 256;
+    let (w, h) = (img.width, img.height);
+    let min_len = 16usize.max(w / 64);
+    let tol = END_TOLERANCE_PX as usize;
+    let mut open: Vec<Rect> = Vec::new();
+    let mut done: Vec<Rect> = Vec::new();
+    let emit = |r: Rect, done: &mut Vec<Rect>| {
+        if r.y1 > r.y0 && r.x1 + 1 - r.x0 >= min_len {
+            done.push(r);
+        }
+    };
+    for y in 0..h {
+        let runs = row_runs(img.row(y), min_len, is_cand);
+        let mut next_open: Vec<Rect> = Vec::new();
+        for g in open.drain(..) {
+            // The run sharing most columns with the stack continues it.
+            let cont = runs
+                .iter()
+                .map(|&(s, e)| (s.max(g.x0), e.min(g.x1)))
+                .filter(|(s, e)| e >= s && e + 1 - s >= min_len)
+                .max_by_key(|(s, e)| e - s);
+            match cont {
+                Some((s, e)) => {
+                    if s > g.x0 + tol || e + tol < g.x1 {
+                        emit(g, &mut done);
+                        next_open.push(Rect {
+                            x0: s,
+                            x1: e,
+                            y0: g.y0,
+                            y1: y,
+                        });
+                    } else {
+                        next_open.push(Rect { y1: y, ..g });
+                    }
+                }
+                None => emit(g, &mut done),
+            }
+        }
+        for &(s, e) in &runs {
+            let followed = next_open.iter().any(|g| {
+                g.y1 == y
+                    && g.x0 + tol >= s
+                    && g.x1 <= e + tol
+                    && 2 * (g.x1 + 1 - g.x0) >= e + 1 - s
+            });
+            if !followed && next_open.len() < MAX_OPEN {
+                next_open.push(Rect {
+                    x0: s,
+                    x1: e,
+                    y0: y,
+                    y1: y,
+                });
+            }
+        }
+        // Two stacks that became the same rectangle are one.
+        next_open.sort_by_key(|r| (r.x0, r.x1, std::cmp::Reverse(r.y1 - r.y0)));
+        next_open.dedup_by(|a, b| a.x0 == b.x0 && a.x1 == b.x1);
+        open = next_open;
+    }
+    for g in open {
+        emit(g, &mut done);
+    }
+    done
+}
+
+fn median_f32(mut v: Vec<f32>) -> Option<f32> {
+    crate::stats::median_in_place(&mut v).map(|m| m as f32)
+}
+
+fn median_f64(v: &[f64]) -> Option<f64> {
+    crate::stats::median(v)
+}
+
+/// Tests one rectangle of candidates for a drawn bar and measures it.
+///
+/// What makes a bar, whatever lies around it: a long band of one flat ink
+/// level, with two parallel straight horizontal edges over its whole
+/// length, and two straight vertical ends. Nothing is asked of its
+/// surroundings: the structure may touch it anywhere (a feature of the
+/// bar's own level hides a stretch of an edge, which is then simply not
+/// seen), so the tests look at the bar's own edges and ink:
+///
+/// * the ink is flat: its pixel noise (from differences of neighbouring
+///   pixels, which a smooth shading does not reach) and the drift of its
+///   level along the bar are small against the bar's contrast. Structure
+///   (a dark channel between arms) is shaded, textured and etched
+///   unevenly; a drawn bar is one grey value;
+/// * both long edges, where they are seen, lie on one straight horizontal
+///   line to sub-pixel precision, and are seen along the whole length. The
+///   outline of a phase is curved on the scale of the arm spacing; a
+///   straight edge many arm spacings long, paired with a parallel one,
+///   is drawn;
+/// * each end is a step out of the ink at the same column in every row.
+fn examine(img: &GrayImage, r: Rect, polarity: Polarity, range: f32) -> Verdict {
+    let (w, h) = (img.width, img.height);
+    let Rect { x0, x1, y0, y1 } = r;
+    let thickness = y1 - y0 + 1;
+    let length = x1 - x0 + 1;
+    // Shape: thick enough to be drawn on purpose, much longer than thick
+    // (a bar is read for its length), not spanning the image, clear of
+    // the border (a frame or a data band along the edge is no bar).
+    if thickness < 2
+        || length < 4 * thickness
+        || length < MIN_BAR_LEN
+        || length as f64 > 0.9 * w as f64
+    {
+        return Verdict::No;
+    }
+    if x0 < 9 || x1 + 9 >= w || y0 < 6 || y1 + 6 >= h {
+        return Verdict::No;
+    }
+    // Entering a dark bar the grey falls; leaving it, it rises.
+    let into = match polarity {
+        Polarity::DarkOnLight => -1.0,
+        Polarity::LightOnDark => 1.0,
+    };
+    // Interior rows: the top and bottom rows of a thick bar carry the blur
+    // of its edges.
+    let (iy0, iy1) = if thickness >= 3 {
+        (y0 + 1, y1 - 1)
+    } else {
+        (y0, y1)
+    };
+    let n_rows = iy1 - iy0 + 1;
+    let interior: Vec<f32> = (iy0..=iy1)
+        .flat_map(|y| img.row(y)[x0 + 1..x1].iter().copied())
+        .collect();
+    let Some(ink) = median_f32(interior) else {
+        return Verdict::No;
+    };
+    let ink = ink as f64;
+    // Pixel noise of the ink: the median absolute difference of horizontal
+    // neighbours, as a standard deviation (1.4826 MAD for a normal law,
+    // over sqrt 2 for a difference of two pixels). Robust to a feature
+    // touching the bar's end, which adds only a few large differences.
+    let diffs: Vec<f64> = (iy0..=iy1)
+        .flat_map(|y| {
+            let row = &img.row(y)[x0 + 1..x1];
+            row.windows(2)
+                .map(|p| (p[1] - p[0]).abs() as f64)
+                .collect::<Vec<_>>()
+        })
+        .collect();
+    let Some(mad) = median_f64(&diffs) else {
+        return Verdict::No;
+    };
+    let noise = 1.4826 * mad / std::f64::consts::SQRT_2;
+
+    // Each column's step at the top and at the bottom edge: the grey
+    // three rows outside (past the blur of a drawn edge) against the ink.
+    let col_mean =
+        |x: usize| (iy0..=iy1).map(|y| img.get(x, y) as f64).sum::<f64>() / n_rows as f64;
+    let means: Vec<f64> = (x0..=x1).map(col_mean).collect();
+    let step_top: Vec<f64> = (x0..=x1)
+        .zip(&means)
+        .map(|(x, m)| -into * (img.get(x, y0 - 3) as f64 - m))
+        .collect();
+    let step_bottom: Vec<f64> = (x0..=x1)
+        .zip(&means)
+        .map(|(x, m)| -into * (img.get(x, y1 + 3) as f64 - m))
+        .collect();
+    // The bar's contrast: the step where its edges are free. Features of
+    // the structure touching the bar lower the step where they touch, so a
+    // high order statistic (the 80th percentile of both edges' steps) is
+    // taken, which holds as long as a fifth of the edges is free.
+    let mut steps: Vec<f64> = step_top.iter().chain(&step_bottom).copied().collect();
+    steps.sort_by(f64::total_cmp);
+    let contrast = steps[(steps.len() * 4 / 5).min(steps.len() - 1)];
+    if !(contrast > 0.0 && contrast.is_finite()) {
+        return Verdict::No;
+    }
+    // A step that is to be located to a fraction of a pixel must stand well
+    // above the noise: four standard deviations of it (a 4-sigma step is
+    // seen wherever it is; located to noise / slope, a small fraction of a
+    // pixel).
+    if contrast < 4.0 * noise {
+        return Verdict::No;
+    }
+    // Flat ink along the bar: the spread of the column means (10th to 90th
+    // percentile; 2.56 standard deviations of a normal law) within what the
+    // pixel noise gives a mean of `n_rows` pixels, with a margin of 30 %,
+    // plus a fifth of the contrast for the blur of touching features on a
+    // thin bar's single interior row and for the lightest shading a drawn
+    // ink shows after compression. Shading of the structure across a long
+    // stretch exceeds this.
+    {
+        let mut m = means.clone();
+        m.sort_by(f64::total_cmp);
+        let n = m.len();
+        let spread = m[(n * 9 / 10).min(n - 1)] - m[n / 10];
+        let allowed = 1.3 * 2.56 * noise / (n_rows as f64).sqrt() + 0.2 * contrast;
+        if spread > allowed {
+            return Verdict::No;
+        }
+    }
+
+    // Straight edges. A column shows an edge when its step is at least half
+    // the bar's contrast (a feature touching the bar there leaves a smaller
+    // one). Where shown, the edge is located to sub-pixel precision along
+    // the column; the located edges of the whole bar must lie on one
+    // horizontal line.
+    // A column shows the bar's edge when its step is at least half the
+    // bar's contrast (a feature touching the bar there leaves a smaller
+    // one) and the grey just outside is plain over three rows (y +- 2..=4
+    // within a quarter of the contrast): a feature ending a pixel or two
+    // off the edge would share the edge's blur and pull the located
+    // position, so such columns are no evidence either way.
+    let plain_outside = |x: usize, ys: [usize; 3]| {
+        let v = ys.map(|y| img.get(x, y) as f64);
+        let (lo, hi) = v
+            .iter()
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), q| {
+                (a.min(*q), b.max(*q))
+            });
+        hi - lo <= 0.25 * contrast
+    };
+    let shown_at = |steps: &[f64], i: usize, ys: [usize; 3]| {
+        steps[i] >= 0.5 * contrast && steps[i] >= 4.0 * noise && plain_outside(x0 + i, ys)
+    };
+    let column = |x: usize| -> Vec<f32> { (y0 - 5..=y1 + 5).map(|y| img.get(x, y)).collect() };
+    // Indices in a column: y0 is at 5, y1 at 5 + thickness - 1. The top
+    // edge, entering the bar going down, lies between y0 - 2 and y0 + 1
+    // (differences 3..=5); the bottom one, leaving it, between y1 - 1 and
+    // y1 + 2 (differences 4 + thickness - 1 ..= 6 + thickness - 1).
+    let mut top = Vec::new();
+    let mut bottom = Vec::new();
+    let mut shown_any = vec![false; length];
+    for (i, x) in (x0..=x1).enumerate() {
+        let c = column(x);
+        if shown_at(&step_top, i, [y0 - 2, y0 - 3, y0 - 4]) {
+            if let Some(p) = edge(&c, 3, 5, into) {
+                top.push(p);
+                shown_any[i] = true;
+            }
+        }
+        if shown_at(&step_bottom, i, [y1 + 2, y1 + 3, y1 + 4]) {
+            let b = 4 + thickness - 1;
+            if let Some(p) = edge(&c, b, b + 2, -into) {
+                bottom.push(p);
+                shown_any[i] = true;
+            }
+        }
+    }
+    // Evidence along the whole length: each edge seen over at least a fifth
+    // of the bar, and no stretch longer than a quarter of the bar where
+    // neither edge is seen (structure of the bar's own ink touching both
+    // edges there would make the bar's extent a guess).
+    if (top.len() as f64) < 0.2 * length as f64 || (bottom.len() as f64) < 0.2 * length as f64 {
+        return Verdict::No;
+    }
+    let mut gap = 0usize;
+    let mut worst_gap = 0usize;
+    for s in &shown_any {
+        gap = if *s { 0 } else { gap + 1 };
+        worst_gap = worst_gap.max(gap);
+    }
+    if 4 * worst_gap > length {
+        return Verdict::No;
+    }
+    // Straightness: four in five located positions within 0.5 px of the
+    // edge's median line. A drawn edge with a plain outside, blurred or
+    // compressed, is one line to a few tenths of a pixel in nearly every
+    // column (one in five is left for noise, compression and features
+    // beyond the rows looked at); the outline of a phase wanders by pixels
+    // over an arm spacing and puts no such share of a band many spacings
+    // long on one line.
+    let straight = |pos: &[f64]| -> Option<(f64, f64)> {
+        let mid = median_f64(pos)?;
+        let inl = pos.iter().filter(|p| (*p - mid).abs() <= 0.5).count() as f64;
+        Some((mid, inl / pos.len() as f64))
+    };
+    let (Some((top_y, top_in)), Some((bot_y, bot_in))) = (straight(&top), straight(&bottom)) else {
+        return Verdict::No;
+    };
+    if top_in < MIN_ON_LINE || bot_in < MIN_ON_LINE || bot_y - top_y < 1.5 {
+        return Verdict::No;
+    }
+
+    // A long, flat, straight-edged band: from here on a failure is worth
+    // telling the user about.
+    //
+    // Its ends, each on its own (a feature may touch one end in some rows
+    // and the other end in others). On every interior row: walk out from
+    // inside the band while the grey is the ink's (within 5 noise
+    // deviations, or 5 % of the contrast for quantisation and compression
+    // of a drawn ink, which is one grey), then locate the step out of it
+    // (`edge`, over the three differences beyond the last ink pixel, which
+    // hold a blurred step). The row shows the end when the five pixels
+    // beyond the last ink pixel all lie on the far side of the ink from the
+    // bar's polarity (a touching feature of another grey leaves the step
+    // where it is, only smaller; one lighter than a light bar, or darker
+    // than a dark one, would turn the profile back and could hide a sliver
+    // of the bar's own grey), and the second and third of them, past the
+    // blur of a drawn step, are plain (within a quarter of the contrast)
+    // and clearly not the ink (twice the tolerance). An end that a feature of the bar's own grey covers in
+    // every row cannot be placed: the ink runs on, and where the feature
+    // ends says nothing about the bar.
+    let level_tol = (5.0 * noise).max(0.05 * contrast);
+    let at_ink = |v: f32| (v as f64 - ink).abs() <= level_tol;
+    // Beyond the ink, on the far side from the bar's polarity: for a dark
+    // bar not darker than the ink, for a light bar not lighter.
+    let far_side = |v: f32| -into * (v as f64 - ink) >= -level_tol;
+    // One row's end: the last ink pixel walking outward from just inside
+    // the band's end (to the left or to the right), the five beyond it checked,
+    // the step located.
+    let locate = |row: &[f32], left: bool| -> Option<f64> {
+        let mut i = if left {
+            (x0 + 3).min(x1)
+        } else {
+            x1.saturating_sub(3).max(x0)
+        };
+        if !at_ink(row[i]) {
+            return None;
+        }
+        let beyond = |i: usize, k: usize| if left { i.checked_sub(k) } else { Some(i + k) };
+        while beyond(i, 7).is_some_and(|j| j < w) {
+            let next = beyond(i, 1)?;
+            if !at_ink(row[next]) {
+                break;
+            }
+            i = next;
+        }
+        if beyond(i, 7).is_none_or(|j| j >= w) {
+            return None;
+        }
+        let out: Vec<f32> = (1..=5)
+            .filter_map(|k| beyond(i, k))
+            .map(|j| row[j])
+            .collect();
+        if out.len() < 5 || !out.iter().all(|v| far_side(*v)) {
+            return None;
+        }
+        let (o1, o2) = (out[1] as f64, out[2] as f64);
+        if (o1 - o2).abs() > 0.25 * contrast || -into * (o1 - ink) < 2.0 * level_tol {
+            return None;
+        }
+        if left {
+            edge(row, i - 3, i - 1, into)
+        } else {
+            edge(row, i, i + 2, -into)
+        }
+    };
+    let end_of = |left: bool| -> Option<(Vec<f64>, f64, f64)> {
+        let pos: Vec<f64> = (iy0..=iy1)
+            .filter_map(|y| locate(img.row(y), left))
+            .collect();
+        // A drawn end is vertical: the rows' positions within 0.75 px of
+        // their median (the located steps of one straight end scatter by a
+        // few tenths of a pixel); at least half of the rows that show the
+        // end must agree.
+        let mid = median_f64(&pos)?;
+        let kept: Vec<f64> = pos
+            .iter()
+            .copied()
+            .filter(|p| (p - mid).abs() <= 0.75)
+            .collect();
+        if kept.is_empty() || 2 * kept.len() < pos.len() {
+            return None;
+        }
+        let n = kept.len() as f64;
+        let mean = kept.iter().sum::<f64>() / n;
+        let var = kept.iter().map(|p| (p - mean).powi(2)).sum::<f64>() / n;
+        Some((kept, mean, var))
+    };
+    let (Some((lk, left, lvar)), Some((rk, right, rvar))) = (end_of(true), end_of(false)) else {
+        return Verdict::Unmeasurable(
+            "an end is hidden in every row by structure of the bar's own grey, or is not straight",
+        );
+    };
+    let mean_len = right - left;
+    let sd_len = (lvar + rvar).sqrt();
+    if !(mean_len.is_finite() && mean_len > 0.0) {
+        return Verdict::No;
+    }
+    // The bar's box from its measured ends.
+    let bx0 = (left + 0.5).round().max(0.0) as usize;
+    let bx1 = (right - 0.5).round().max(bx0 as f64) as usize;
+    // Confidence: the edges' straightness (the share of located edges on
+    // the line, mapped so that the least accepted share gives
+    // MIN_CONFIDENCE).
+    let on_line = MIN_CONFIDENCE
+        + (1.0 - MIN_CONFIDENCE) * (top_in.min(bot_in) - MIN_ON_LINE) / (1.0 - MIN_ON_LINE);
+    let confidence = on_line.clamp(0.0, 1.0);
+    let rows = lk.len().min(rk.len());
+    let (x0, x1) = (bx0, bx1);
+
+    // Backing box: grow from the bar while the new line is mostly the
+    // surround's level.
+    let Some(surround) = median_f32(
+        [y0 - 2, y1 + 2]
+            .iter()
+            .flat_map(|&y| img.row(y)[x0..=x1].iter().copied())
+            .collect(),
+    ) else {
+        return Verdict::No;
+    };
+    let (backing_box, mask) = box_and_mask(img, [x0, y0, x1, y1], thickness, surround, range);
     let u = |v: usize| v as u32;
-    Some(ScaleBar {
+    Verdict::Bar(Box::new(ScaleBar {
         length_px: mean_len,
         length_sd_px: sd_len,
-        rows: lengths.len(),
+        rows,
         x0: u(x0),
         y0: u(y0),
         x1: u(x1),
@@ -423,7 +738,7 @@ fn examine(
         confidence,
         backing_box: backing_box.map(|b| b.map(u)),
         mask: mask.map(u),
-    })
+    }))
 }
 
 /// Position, in pixel-centre coordinates, of a step of a row whose largest
@@ -521,6 +836,40 @@ pub fn mask_of(bar: &ScaleBar, width: usize, height: usize) -> Vec<bool> {
     m
 }
 
+/// Whether candidate `a` is a strip of another's backing box. A strip of a
+/// backing box above or below a bar looks like a bar of the opposite
+/// polarity, longer than the bar. A box is always larger than the bar it
+/// backs, so a candidate that spans a vertically adjacent candidate of
+/// opposite polarity is a piece of that one's box.
+fn is_box_strip(found: &[ScaleBar], a: &ScaleBar) -> bool {
+    found.iter().any(|b| {
+        b.polarity != a.polarity
+            && b.x0 >= a.x0
+            && b.x1 <= a.x1
+            && (b.y0.saturating_sub(a.y1) <= 4 && b.y0 > a.y1
+                || a.y0.saturating_sub(b.y1) <= 4 && a.y0 > b.y1)
+    })
+}
+
+/// The longest candidate that is no strip of a box; of two within half a
+/// pixel of each other, the more confident.
+fn best_bar(found: &[ScaleBar]) -> Option<&ScaleBar> {
+    let mut best: Option<&ScaleBar> = None;
+    for bar in found.iter().filter(|a| !is_box_strip(found, a)) {
+        let better = match best {
+            None => true,
+            Some(b) => {
+                bar.length_px > b.length_px + 0.5
+                    || ((bar.length_px - b.length_px).abs() <= 0.5 && bar.confidence > b.confidence)
+            }
+        };
+        if better {
+            best = Some(bar);
+        }
+    }
+    best
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -565,6 +914,24 @@ mod tests {
         assert!((bar.length_px - 100.0).abs() < 1e-9);
         assert_eq!(bar.backing_box, Some([20, 240, 160, 290]));
         assert!(bar.mask[0] <= 20 && bar.mask[3] >= 290);
+    }
+
+    #[test]
+    fn bar_touched_by_dark_structure_is_measured_edge_to_edge() {
+        // A dark bar on a textured field, touched above, below and at one
+        // end (over some of its rows) by features of a dark grey near its
+        // own: measured as drawn (pixels 250..=369: 120 px), by the
+        // set-off search or by the one on the structure.
+        let mut img = field(400, 300);
+        draw(&mut img, 250, 270, 369, 275, 0.0);
+        draw(&mut img, 265, 258, 295, 269, 0.12);
+        draw(&mut img, 310, 276, 345, 290, 0.12);
+        draw(&mut img, 370, 262, 385, 272, 0.12);
+        let bar = detect(&img).unwrap();
+        assert!((bar.length_px - 120.0).abs() <= 0.5, "{bar:?}");
+        // Its rows lie within the drawn ones (the set-off search keeps the
+        // rows whose ends agree: those the end feature does not touch).
+        assert!(bar.y0 >= 270 && bar.y1 <= 275, "{bar:?}");
     }
 
     #[test]

@@ -68,7 +68,7 @@ pub(super) fn run(args: CalibrateArgs) -> ExitCode {
         let path = match input {
             armspace::load::Input::Image(p) => p,
             armspace::load::Input::Skipped { path, reason } => {
-                eprintln!("skipped  {}: {reason}", path.display());
+                say!("skipped  {}: {reason}", path.display());
                 continue;
             }
             armspace::load::Input::Missing(p) | armspace::load::Input::Unusable { path: p, .. } => {
@@ -118,7 +118,7 @@ pub(super) fn run(args: CalibrateArgs) -> ExitCode {
                         .unwrap_or_else(|| "image".into());
                     let target = dir.join(format!("{stem}.calibration.png"));
                     if protected.is_protected(&target) {
-                        eprintln!(
+                        say!(
                             "armspace: {}: is an input of this run; its calibration picture is not written",
                             target.display()
                         );
@@ -129,14 +129,14 @@ pub(super) fn run(args: CalibrateArgs) -> ExitCode {
                     let picture =
                         armspace::overlay::calibration(&loaded.image, detected.as_ref().ok());
                     if let Err(e) = armspace::overlay::write_png(&target, &picture) {
-                        eprintln!("armspace: {e}");
+                        say!("armspace: {e}");
                         return ExitCode::from(EXIT_FATAL);
                     }
                 }
             }
         }
         if let Some(e) = entry["error"].as_str() {
-            eprintln!("error    {e}");
+            say!("error    {e}");
         }
         out.push(entry);
     }

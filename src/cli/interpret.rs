@@ -115,13 +115,13 @@ pub(super) fn run_correlations(args: CorrelationsArgs) -> ExitCode {
             match armspace::files::write_stdout(&armspace::interpret::library::table(&lib)) {
                 Ok(()) => ExitCode::from(EXIT_OK),
                 Err(e) => {
-                    eprintln!("armspace: cannot write to standard output: {e}");
+                    say!("armspace: cannot write to standard output: {e}");
                     ExitCode::from(EXIT_FATAL)
                 }
             }
         }
         Err(e) => {
-            eprintln!("armspace: {e}");
+            say!("armspace: {e}");
             ExitCode::from(EXIT_USAGE)
         }
     }
@@ -130,7 +130,7 @@ pub(super) fn run_correlations(args: CorrelationsArgs) -> ExitCode {
 pub(super) fn run_interpret(args: InterpretArgs) -> ExitCode {
     if let Some([lo, hi]) = args.ci {
         if !(lo.0 <= args.sdas.0 && args.sdas.0 <= hi.0) {
-            eprintln!("armspace: the interval --ci does not contain the SDAS value");
+            say!("armspace: the interval --ci does not contain the SDAS value");
             return ExitCode::from(EXIT_USAGE);
         }
     }
@@ -138,7 +138,7 @@ pub(super) fn run_interpret(args: InterpretArgs) -> ExitCode {
         Ok(Some(s)) => s,
         Ok(None) => return ExitCode::from(EXIT_USAGE),
         Err(e) => {
-            eprintln!("armspace: {e}");
+            say!("armspace: {e}");
             return ExitCode::from(EXIT_USAGE);
         }
     };
@@ -148,7 +148,7 @@ pub(super) fn run_interpret(args: InterpretArgs) -> ExitCode {
     {
         Ok(i) => {
             for w in &i.warnings {
-                eprintln!("warning: {w}");
+                say!("warning: {w}");
             }
             if let Err(code) = print_json(&serde_json::json!({
                 "caution": report::CAUTION,
@@ -159,7 +159,7 @@ pub(super) fn run_interpret(args: InterpretArgs) -> ExitCode {
             ExitCode::from(EXIT_OK)
         }
         Err(e) => {
-            eprintln!("armspace: {e}");
+            say!("armspace: {e}");
             ExitCode::from(EXIT_USAGE)
         }
     }

@@ -61,6 +61,10 @@ pub(super) struct MeasureArgs {
     /// Write a picture per image of what was measured into this folder.
     #[arg(long)]
     overlay: Option<PathBuf>,
+    /// Largest width of a picture, px: wider ones are scaled down to it
+    /// (the panel under it is set for that width), for a report's page.
+    #[arg(long, value_parser = clap::value_parser!(u32).range(200..=20000), requires = "overlay")]
+    overlay_max_width: Option<u32>,
     /// Worker threads (default: one per core).
     #[arg(long, value_parser = clap::value_parser!(u16).range(1..))]
     jobs: Option<u16>,
@@ -174,20 +178,20 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
     let calibration = match args.calibration.request() {
         Ok(c) => c,
         Err(e) => {
-            eprintln!("armspace: {e}");
+            say!("armspace: {e}");
             return ExitCode::from(EXIT_USAGE);
         }
     };
     let interpret = match args.alloy.settings(args.correlation.as_deref()) {
         Ok(s) => s,
         Err(e) => {
-            eprintln!("armspace: {e}");
+            say!("armspace: {e}");
             return ExitCode::from(EXIT_USAGE);
         }
     };
     if let (Some(csv), Some(out)) = (&args.csv, &args.out) {
         if csv == out {
-            eprintln!(
+            say!(
                 "armspace: --csv and --out name the same file ({}); give each its own",
                 csv.display()
             );
@@ -202,7 +206,7 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
         None => None,
         Some(Ok(s)) => Some(s),
         Some(Err(e)) => {
-            eprintln!("armspace: {e}");
+            say!("armspace: {e}");
             return ExitCode::from(EXIT_USAGE);
         }
     };
@@ -225,6 +229,7 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
         target_rel_accuracy_pct: args.target_ra_pct,
         methods,
         overlay_dir: args.overlay.clone(),
+        overlay_max_width: args.overlay_max_width,
         protected: Default::default(),
         interpret,
         spec,
@@ -236,7 +241,7 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
         .iter()
         .any(|i| !matches!(i, armspace::load::Input::Skipped { .. }))
     {
-        eprintln!("armspace: no image files found in the given paths");
+        say!("armspace: no image files found in the given paths");
         return ExitCode::from(EXIT_NOT_MEASURED);
     }
     if let Err(e) = points_in_some_image(&args.at, &inputs, args.calibration.um_per_px) {
@@ -262,7 +267,7 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
     for (path, role) in [(&args.out, "report"), (&args.csv, "CSV summary")] {
         if let Some(path) = path {
             if let Err(e) = protected.check_output(path, role) {
-                eprintln!("armspace: {e}");
+                say!("armspace: {e}");
                 return ExitCode::from(EXIT_USAGE);
             }
         }
@@ -289,13 +294,11 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
             protected.check_output(journal, "journal")
         };
         if let Err(e) = checked {
-            eprintln!("armspace: {e}");
+            say!("armspace: {e}");
             return ExitCode::from(EXIT_USAGE);
         }
     } else if args.resume {
-        eprintln!(
-            "armspace: --resume needs --out to name a file: the journal lies beside the report"
-        );
+        say!("armspace: --resume needs --out to name a file: the journal lies beside the report");
         return ExitCode::from(EXIT_USAGE);
     }
     if let Err(code) = create_overlay_dir(args.overlay.as_deref()) {
@@ -309,9 +312,22 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
     {
         Ok(p) => p,
         Err(e) => {
-            eprintln!("armspace: cannot start worker threads: {e}");
+            say!("armspace: cannot start worker threads: {e}");
             return ExitCode::from(EXIT_FATAL);
         }
+    };
+    // One run per report: a second run given the same --out is refused
+    // before it reads or replaces the first one's journal.
+    let _lock = match &journal_path {
+        Some(_) => match args.out.as_deref().map(armspace::journal::RunLock::acquire) {
+            Some(Ok(lock)) => Some(lock),
+            Some(Err(e)) => {
+                say!("armspace: {e}");
+                return ExitCode::from(EXIT_USAGE);
+            }
+            None => None,
+        },
+        None => None,
     };
     let fingerprint = armspace::journal::fingerprint(&given, &opts);
     // With --resume, the images the journal holds and that are unchanged are
@@ -319,7 +335,7 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
     let taken: Vec<Option<report::ImageReport>> = match (&journal_path, args.resume) {
         (Some(journal), true) => match armspace::journal::read(journal, &fingerprint) {
             Ok(None) => {
-                eprintln!(
+                say!(
                     "armspace: note: no journal {} to resume from: measuring every image",
                     journal.display()
                 );
@@ -327,22 +343,22 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
             }
             Ok(Some(earlier)) => {
                 for note in &earlier.notes {
-                    eprintln!("armspace: warning: {note}");
+                    say!("armspace: warning: {note}");
                 }
                 let sorted = pool.install(|| earlier.sort(&inputs));
                 for note in &sorted.notes {
-                    eprintln!("armspace: note: {note}");
+                    say!("armspace: note: {note}");
                 }
                 sorted.taken
             }
             Err(e) => {
-                eprintln!("armspace: {e}");
+                say!("armspace: {e}");
                 return ExitCode::from(EXIT_USAGE);
             }
         },
         (Some(journal), false) => {
             if armspace::files::kind(journal) == armspace::files::Kind::Regular {
-                eprintln!(
+                say!(
                     "armspace: note: replacing the journal {} of an earlier run (--resume takes over the images it finished)",
                     journal.display()
                 );
@@ -356,14 +372,14 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
         Some(path) => match armspace::journal::Journal::start(path, &fingerprint, &carried) {
             Ok(j) => Some(j),
             Err(e) => {
-                eprintln!("armspace: cannot start the journal: {e}");
+                say!("armspace: cannot start the journal: {e}");
                 return ExitCode::from(EXIT_FATAL);
             }
         },
         None => None,
     };
     if !carried.is_empty() {
-        eprintln!(
+        say!(
             "armspace: resuming: {} images taken over from the journal {}, measuring the rest",
             carried.len(),
             journal
@@ -393,12 +409,10 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
         let recorded = journal.as_ref().map(|j| j.record(&img));
         progress.suspend(|| {
             for line in armspace::console::image_lines(&img) {
-                eprintln!("{line}");
+                say!("{line}");
             }
             if let Some(Err(e)) = recorded {
-                eprintln!(
-                    "armspace: warning: the journal is given up, the run goes on without it: {e}"
-                );
+                say!("armspace: warning: the journal is given up, the run goes on without it: {e}");
             }
         });
         progress.inc(1);
@@ -423,21 +437,21 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
     let rep = report::assemble(&given, &opts, batch, &skipped, report::now_utc());
     let json = report::to_json(&rep);
     for s in &rep.skipped {
-        eprintln!("skipped  {}: {}", s.file, s.reason);
+        say!("skipped  {}: {}", s.file, s.reason);
     }
     // The report first, then the CSV; one failing never costs the other.
     let mut write_failed = false;
     match &args.out {
         Some(path) => match armspace::files::write_output(path, json.as_bytes()) {
-            Ok(()) => eprintln!("report written to {}", path.display()),
+            Ok(()) => say!("report written to {}", path.display()),
             Err(e) => {
-                eprintln!("armspace: {e}");
+                say!("armspace: {e}");
                 write_failed = true;
             }
         },
         None => {
             if let Err(e) = armspace::files::write_stdout(&json) {
-                eprintln!("armspace: cannot write the report to standard output: {e}");
+                say!("armspace: cannot write the report to standard output: {e}");
                 write_failed = true;
             }
         }
@@ -449,26 +463,26 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
                 armspace::files::write_output(path, text.as_bytes()).map_err(|e| e.to_string())
             });
         match written {
-            Ok(()) => eprintln!("CSV summary written to {}", path.display()),
+            Ok(()) => say!("CSV summary written to {}", path.display()),
             Err(e) => {
-                eprintln!("armspace: {e}");
+                say!("armspace: {e}");
                 write_failed = true;
             }
         }
     }
     for line in armspace::console::batch_lines(&rep) {
-        eprintln!("{line}");
+        say!("{line}");
     }
     // The journal goes once the report (and CSV) are written whole; a
     // partial report or a failed write keeps it for --resume.
     if let Some(journal) = journal {
         if write_failed || rep.summary.partial {
-            eprintln!(
+            say!(
                 "armspace: the journal {} keeps the images finished; rerun with the same arguments and --resume to measure only the rest",
                 journal.path().display()
             );
         } else if let Err(e) = journal.remove() {
-            eprintln!(
+            say!(
                 "armspace: warning: the report is whole, but its journal could not be removed: {e}"
             );
         }
@@ -551,13 +565,13 @@ fn interrupt_flag() -> &'static AtomicBool {
         if STOP.swap(true, Ordering::SeqCst) {
             std::process::exit(130);
         }
-        eprintln!(
+        say!(
             "armspace: interrupted: finishing the images in progress, then writing a partial report (Ctrl-C again stops at once and writes nothing)"
         );
     });
     if let Err(e) = installed {
         // Without the handler an interrupt ends the run as it always did.
-        eprintln!("armspace: note: Ctrl-C will not leave a partial report: {e}");
+        say!("armspace: note: Ctrl-C will not leave a partial report: {e}");
     }
     &STOP
 }

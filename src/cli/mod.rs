@@ -1,6 +1,16 @@
 //! The command line, one file per subcommand: arguments, calls into the
 //! library, and what is printed. No measuring logic lives here.
 
+/// A line to stderr that never stops the run: when stderr is closed (piped
+/// into `head`, a terminal gone) the line is lost, but the images are still
+/// measured and the report still written. `eprintln!` would panic there.
+macro_rules! say {
+    ($($arg:tt)*) => {{
+        use std::io::Write as _;
+        let _ = writeln!(std::io::stderr(), $($arg)*);
+    }};
+}
+
 mod calibrate;
 mod interpret;
 mod measure;
@@ -84,7 +94,7 @@ pub fn run() -> ExitCode {
         Command::Synth(args) => synth::run(args),
         #[cfg(not(feature = "synth"))]
         Command::Synth { .. } => {
-            eprintln!(
+            say!(
                 "armspace: this build has no generator of synthetic fields; build it with \
                  `cargo build --release --features synth`"
             );
@@ -128,7 +138,7 @@ pub(super) fn create_overlay_dir(dir: Option<&std::path::Path>) -> Result<(), Ex
     match dir.map(std::fs::create_dir_all) {
         Some(Err(e)) => {
             let dir = dir.map(|d| d.display().to_string()).unwrap_or_default();
-            eprintln!("armspace: {dir}: cannot create the overlay folder: {e}");
+            say!("armspace: {dir}: cannot create the overlay folder: {e}");
             Err(ExitCode::from(EXIT_FATAL))
         }
         _ => Ok(()),
@@ -140,11 +150,11 @@ pub(super) fn create_overlay_dir(dir: Option<&std::path::Path>) -> Result<(), Ex
 fn print_json(value: &impl serde::Serialize) -> Result<(), ExitCode> {
     match serde_json::to_string_pretty(value) {
         Ok(j) => armspace::files::write_stdout(&format!("{j}\n")).map_err(|e| {
-            eprintln!("armspace: cannot write to standard output: {e}");
+            say!("armspace: cannot write to standard output: {e}");
             ExitCode::from(EXIT_FATAL)
         }),
         Err(e) => {
-            eprintln!("armspace: {e}");
+            say!("armspace: {e}");
             Err(ExitCode::from(EXIT_FATAL))
         }
     }

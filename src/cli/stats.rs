@@ -28,13 +28,18 @@ pub(super) fn run(args: StatsArgs) -> ExitCode {
         });
     match result {
         Ok(s) => {
-            eprintln!(
+            say!(
                 "{} lines: SDAS {:.2} um (95% CI {:.2} to {:.2}), sd {:.2} um, %RA {:.1}",
-                s.n_lines, s.mean_um, s.ci95_um[0], s.ci95_um[1], s.sd_um, s.rel_accuracy_pct
+                s.n_lines,
+                s.mean_um,
+                s.ci95_um[0],
+                s.ci95_um[1],
+                s.sd_um,
+                s.rel_accuracy_pct
             );
             if let Some(n) = s.lines_for_target {
                 if n > s.n_lines {
-                    eprintln!(
+                    say!(
                         "about {n} lines in all ({} more) would bring %RA to {}",
                         n - s.n_lines,
                         s.target_rel_accuracy_pct
@@ -47,7 +52,7 @@ pub(super) fn run(args: StatsArgs) -> ExitCode {
             ExitCode::from(EXIT_OK)
         }
         Err(e) => {
-            eprintln!("armspace: {e}");
+            say!("armspace: {e}");
             ExitCode::from(EXIT_NOT_MEASURED)
         }
     }

@@ -48,7 +48,7 @@ pub(super) fn run(args: SynthArgs) -> ExitCode {
         .map(|mut d| d.next().is_some())
         .unwrap_or(false);
     if holds_files && !args.replace {
-        eprintln!(
+        say!(
             "armspace: {}: the folder is not empty; choose an empty or new folder, or give --replace",
             args.outdir.display()
         );
@@ -76,7 +76,7 @@ pub(super) fn run(args: SynthArgs) -> ExitCode {
     };
     match result {
         Ok(truths) => {
-            eprintln!(
+            say!(
                 "wrote {} image(s) and truth.json to {}",
                 truths.len(),
                 args.outdir.display()
@@ -84,7 +84,7 @@ pub(super) fn run(args: SynthArgs) -> ExitCode {
             ExitCode::from(EXIT_OK)
         }
         Err(e) => {
-            eprintln!("armspace: {e}");
+            say!("armspace: {e}");
             ExitCode::from(EXIT_FATAL)
         }
     }

@@ -39,6 +39,10 @@
 //! At P = 0.5 it reduces to n' = n h^2 / (d^2 - c^2), the count that only
 //! puts the expected bound on the limit (and decides half the time);
 //! d <= c means only a better calibration can decide it.
+//!
+//! A zone the spec pools (`pool`) is decided once, on the random-effects
+//! mean of its fields, by `interpret::pool`; each image keeps its own
+//! acceptance beside it, and the zone's verdict is the pool's.
 
 use crate::units::Micrometres;
 use schemars::JsonSchema;
@@ -54,7 +58,8 @@ pub enum Statistic {
     #[default]
     Value,
     /// The largest local value (FFT tiles, or intercept lines without an
-    /// FFT map), with the local spread as its uncertainty.
+    /// FFT map), with the uncertainty of a maximum (bootstrap over the local
+    /// values, `combine::max_local`).
     MaxLocal,
 }
 
@@ -107,6 +112,10 @@ pub struct Zone {
     #[serde(default)]
     #[schemars(range(min = 0, max = 400))]
     pub guard_band_pct: Option<f64>,
+    /// Decide the zone once, on the random-effects mean of its fields
+    /// (`pool`), instead of on its worst image; the spec's when absent.
+    #[serde(default)]
+    pub pool: Option<bool>,
     #[serde(skip)]
     matcher: Option<globset::GlobMatcher>,
 }
@@ -134,6 +143,10 @@ pub struct Spec {
     #[serde(default)]
     #[schemars(range(min = 0, max = 400))]
     pub guard_band_pct: Option<f64>,
+    /// Decide each zone once, on the random-effects mean of its fields,
+    /// instead of on its worst image (false when absent: the worst image).
+    #[serde(default)]
+    pub pool: bool,
     #[serde(default)]
     pub zones: Vec<Zone>,
 }
@@ -153,6 +166,18 @@ fn check_guard(pct: Option<f64>, rule: Rule, whose: &str) -> Result<(), String> 
     if rule == Rule::Simple {
         return Err(format!(
             "{whose}\"guard_band_pct\" applies to the guarded rule, not to \"simple\" (which has none)"
+        ));
+    }
+    Ok(())
+}
+
+/// Pooling takes the mean SDAS of a zone's fields: it applies to the
+/// `value` statistic. The largest local value already stands for the worst
+/// place of a field, and a mean of maxima is neither a mean nor a maximum.
+fn check_pool(pool: bool, statistic: Statistic, whose: &str) -> Result<(), String> {
+    if pool && statistic == Statistic::MaxLocal {
+        return Err(format!(
+            "{whose}\"pool\" averages the fields' values and applies to the statistic \"value\", not to \"max_local\" (a mean of maxima is neither)"
         ));
     }
     Ok(())
@@ -188,11 +213,18 @@ impl Spec {
             }
         }
         check_guard(spec.guard_band_pct, spec.rule, "").map_err(&bad)?;
+        check_pool(spec.pool, spec.statistic, "").map_err(&bad)?;
         let mut names = std::collections::BTreeSet::new();
         for z in &mut spec.zones {
             check_guard(
                 z.guard_band_pct.or(spec.guard_band_pct),
                 z.rule.unwrap_or(spec.rule),
+                &format!("zone '{}': ", z.name),
+            )
+            .map_err(&bad)?;
+            check_pool(
+                z.pool.unwrap_or(spec.pool),
+                z.statistic.unwrap_or(spec.statistic),
                 &format!("zone '{}': ", z.name),
             )
             .map_err(&bad)?;
@@ -216,6 +248,33 @@ impl Spec {
             z.matcher = Some(glob.compile_matcher());
         }
         Ok(spec)
+    }
+
+    /// Whether the images of a zone (None: under the general limit) are
+    /// pooled.
+    pub fn pools(&self, zone: Option<&str>) -> bool {
+        match zone {
+            Some(name) => self
+                .zones
+                .iter()
+                .find(|z| z.name == name)
+                .and_then(|z| z.pool)
+                .unwrap_or(self.pool),
+            None => self.pool,
+        }
+    }
+
+    /// The rule and guard band (percent, None under the simple rule) of a
+    /// zone (None: the general limit).
+    pub fn rule_of(&self, zone: Option<&str>) -> (Rule, Option<f64>) {
+        let z = zone.and_then(|name| self.zones.iter().find(|z| z.name == name));
+        let rule = z.and_then(|z| z.rule).unwrap_or(self.rule);
+        let guard = (rule == Rule::Guarded).then(|| {
+            z.and_then(|z| z.guard_band_pct)
+                .or(self.guard_band_pct)
+                .unwrap_or(DEFAULT_GUARD_BAND_PCT)
+        });
+        (rule, guard)
     }
 
     pub fn load(path: &std::path::Path) -> crate::Result<Self> {
@@ -273,6 +332,35 @@ pub struct Evidence {
     pub n: usize,
     /// The calibration's part of the 95 % half-width, um.
     pub calibration_half_um: f64,
+    /// For the largest local value: how its interval was found.
+    pub bootstrap: Option<MaxLocalBootstrap>,
+}
+
+/// The interval of the largest local value, by bootstrap of the maximum
+/// (`combine::max_local`).
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize, JsonSchema)]
+#[serde(deny_unknown_fields)]
+pub struct MaxLocalBootstrap {
+    /// Local values resampled (tiles or lines used).
+    pub local_values: usize,
+    /// Resamples drawn.
+    pub resamples: usize,
+    /// Seed of the fixed generator (SplitMix64): the same image gives the
+    /// same interval on every run.
+    pub seed: u64,
+    /// Standard deviation of the resampled maxima, um.
+    pub sd_um: f64,
+}
+
+/// An image's part in a pooled zone, beside its own acceptance.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, JsonSchema)]
+#[serde(deny_unknown_fields)]
+pub struct PoolField {
+    /// The calibration's part of the compared 95 % half-width, um.
+    pub calibration_half_um: f64,
+    /// Why this image's value cannot be trusted in a pool (a calibration
+    /// the sources contradict, an implausible SDAS); null when it can.
+    pub doubt: Option<String>,
 }
 
 /// The image's decision against the spec's SDAS limit (with --spec).
@@ -302,6 +390,14 @@ pub struct Acceptance {
     /// The same as a number of fields like this one, in all.
     #[schemars(range(min = 1))]
     pub fields_to_decide: Option<usize>,
+    /// Statistic max_local: how the interval of the largest local value was
+    /// found (bootstrap of the maximum); absent otherwise.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub max_local_bootstrap: Option<MaxLocalBootstrap>,
+    /// In a pooled zone: what the pool takes from this image (the zone's
+    /// verdict is the pool's, see the zone's `pooled`); absent otherwise.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub pool_field: Option<PoolField>,
 }
 
 /// Decides one image against a limit under a rule (module docs), with the
@@ -321,6 +417,24 @@ pub fn decide_with_guard(
     limit: f64,
     rule: Rule,
     guard_pct: f64,
+) -> (Decision, String, Option<usize>, Option<usize>) {
+    decide_advising(evidence, limit, rule, guard_pct, |x, lo, hi, k| {
+        let (n_all, advice) = more_to_decide(evidence, x, [lo, hi], limit, k);
+        let fields = n_all.map(|n| n.div_ceil(evidence.n.max(1)));
+        (n_all, fields, advice)
+    })
+}
+
+/// The decision rules (module docs), with the advice for a straddling
+/// result from `advise`: measurements and fields in all that would decide
+/// it, and the advice in words, from the value x, its interval lo to hi and
+/// the guard band k as a fraction of U.
+pub(crate) fn decide_advising(
+    evidence: &Evidence,
+    limit: f64,
+    rule: Rule,
+    guard_pct: f64,
+    advise: impl Fn(f64, f64, f64, f64) -> (Option<usize>, Option<usize>, String),
 ) -> (Decision, String, Option<usize>, Option<usize>) {
     let Some(x) = evidence.value.map(|v| v.0) else {
         return (
@@ -384,8 +498,7 @@ pub fn decide_with_guard(
                     None,
                 )
             } else {
-                let (n_all, advice) = more_to_decide(evidence, x, [lo, hi], limit, k);
-                let fields = n_all.map(|n| n.div_ceil(evidence.n.max(1)));
+                let (n_all, fields, advice) = advise(x, lo, hi, k);
                 let zone = if guard_pct == DEFAULT_GUARD_BAND_PCT {
                     format!("the 95 % interval {lo:.2} to {hi:.2} um contains the limit {limit} um")
                 } else {
@@ -561,6 +674,16 @@ pub fn assess(
         reason: String::new(),
         measurements_to_decide: None,
         fields_to_decide: None,
+        max_local_bootstrap: match statistic {
+            Statistic::MaxLocal => evidence.bootstrap,
+            Statistic::Value => None,
+        },
+        pool_field: spec
+            .pools(zone.map(|z| z.name.as_str()))
+            .then_some(PoolField {
+                calibration_half_um: evidence.calibration_half_um,
+                doubt: None,
+            }),
     };
     match limit {
         None => {
@@ -574,7 +697,12 @@ pub fn assess(
                 guard.unwrap_or(DEFAULT_GUARD_BAND_PCT),
             );
             out.decision = Some(d);
-            out.reason = reason;
+            out.reason = match statistic {
+                Statistic::MaxLocal if evidence.value.is_some() => {
+                    format!("largest local value: {reason}")
+                }
+                _ => reason,
+            };
             out.measurements_to_decide = n;
             out.fields_to_decide = f;
         }

@@ -28,6 +28,7 @@ mod alternatives;
 pub mod coarsening;
 pub mod library;
 pub mod plausibility;
+pub mod pool;
 pub use alternatives::{interpret_with_alternatives, same_family};
 
 pub use library::{Composition, Correlation, Form};

@@ -252,6 +252,19 @@ fn draw_bar(out: &mut RgbImage, bar: Option<&ScaleBar>) {
     }
 }
 
+/// The picture scaled down to at most `max_width` pixels wide (aspect kept;
+/// a triangle filter, which averages the marks rather than dropping their
+/// pixels), or as it is.
+pub fn fit_width(picture: RgbImage, max_width: Option<u32>) -> RgbImage {
+    match max_width {
+        Some(m) if m > 0 && picture.width() > m => {
+            let h = ((picture.height() as u64 * m as u64) / picture.width() as u64).max(1) as u32;
+            image::imageops::resize(&picture, m, h, image::imageops::FilterType::Triangle)
+        }
+        _ => picture,
+    }
+}
+
 /// Encodes a PNG in memory, marked as this tool's picture
 /// ([`crate::files::OWN_PICTURE_TEXT`]), and writes it atomically.
 pub fn write_png(path: &Path, img: &RgbImage) -> crate::Result<()> {

@@ -23,6 +23,8 @@ pub struct Caption<'a> {
     pub um_per_px: UmPerPx,
     /// The calibration's source in words (`manual`, `scale-bar`, ...).
     pub calibration_source: &'a str,
+    /// The decision against a limit, when a spec was given.
+    pub acceptance: Option<&'a crate::interpret::acceptance::Acceptance>,
 }
 
 /// The caution every page of the tool carries.
@@ -117,6 +119,37 @@ fn lines(c: &Caption) -> Vec<String> {
         .collect();
     if !per.is_empty() {
         out.push(format!("Methods: {}", per.join(" · ")));
+    }
+    if let Some(a) = c.acceptance {
+        let zone = a
+            .zone
+            .as_deref()
+            .map(|z| format!(" [{z}]"))
+            .unwrap_or_default();
+        let what = match a.statistic {
+            crate::interpret::acceptance::Statistic::Value => "image value",
+            crate::interpret::acceptance::Statistic::MaxLocal => "largest local value",
+        };
+        let compared = match (a.compared_um, a.compared_ci95_um) {
+            (Some(v), Some([lo, hi])) => {
+                format!(
+                    "{what} {} µm (95 % CI {} to {})",
+                    fmt_um(v),
+                    fmt_um(lo),
+                    fmt_um(hi)
+                )
+            }
+            (Some(v), None) => format!("{what} {} µm", fmt_um(v)),
+            _ => format!("{what}: none"),
+        };
+        let limit = a
+            .limit_um
+            .map(|l| format!(", limit {} µm", fmt_um(l)))
+            .unwrap_or_default();
+        out.push(match a.decision {
+            Some(d) => format!("{}{zone}: {compared}{limit}", d.name().to_uppercase()),
+            None => format!("NOT ASSESSED{zone}: {}", a.reason),
+        });
     }
     out.push(format!(
         "Calibration {} µm/px ({})",

@@ -423,7 +423,14 @@ pub struct ZoneSummary {
     pub pass: usize,
     pub fail: usize,
     pub indeterminate: usize,
+    /// The zone's verdict: its worst image, or the pool's decision when the
+    /// zone is pooled.
     pub verdict: Option<Decision>,
+    /// A pooled zone (spec `pool`): its mean SDAS from its fields, the
+    /// fields used and left out, and its decision; absent otherwise.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    #[schemars(with = "crate::interpret::pool::PooledZone")]
+    pub pooled: Option<crate::interpret::pool::PooledZone>,
 }
 
 /// Per-zone and batch verdicts from the images' acceptances.
@@ -443,7 +450,14 @@ pub fn acceptance_summary(spec: &Spec, images: &[ImageReport]) -> AcceptanceSumm
     if spec.limit_um.is_some() {
         groups.push((None, spec.limit_um));
     }
-    let zones = groups
+    // Images of pooled zones are decided by their zone's pool; the others
+    // one by one.
+    let mut verdicts: Vec<Option<Decision>> = assessed
+        .iter()
+        .filter(|a| !(a.limit_um.is_some() && spec.pools(a.zone.as_deref())))
+        .map(|a| a.decision)
+        .collect();
+    let zones: Vec<ZoneSummary> = groups
         .into_iter()
         .map(|(zone, limit_um)| {
             let members: Vec<&Acceptance> = assessed
@@ -451,12 +465,41 @@ pub fn acceptance_summary(spec: &Spec, images: &[ImageReport]) -> AcceptanceSumm
                 .copied()
                 .filter(|a| a.zone == zone && a.limit_um.is_some())
                 .collect();
+            let pooled = match limit_um {
+                Some(limit) if spec.pools(zone.as_deref()) => {
+                    let offered: Vec<crate::interpret::pool::Offered> = images
+                        .iter()
+                        .filter_map(|i| {
+                            let a = i.acceptance.as_ref()?;
+                            (a.zone == zone && a.limit_um.is_some()).then_some(
+                                crate::interpret::pool::Offered {
+                                    file: &i.file,
+                                    acceptance: Some(a),
+                                    error: i.error.is_some(),
+                                },
+                            )
+                        })
+                        .collect();
+                    let (rule, guard) = spec.rule_of(zone.as_deref());
+                    (!offered.is_empty())
+                        .then(|| crate::interpret::pool::decide_zone(&offered, limit, rule, guard))
+                }
+                _ => None,
+            };
+            let verdict = match &pooled {
+                Some(p) => Some(p.decision),
+                None => acceptance::verdict(members.iter().map(|a| a.decision)),
+            };
+            if pooled.is_some() {
+                verdicts.push(verdict);
+            }
             ZoneSummary {
                 images: members.len(),
                 pass: count(Decision::Pass, &members),
                 fail: count(Decision::Fail, &members),
                 indeterminate: count(Decision::Indeterminate, &members),
-                verdict: acceptance::verdict(members.iter().map(|a| a.decision)),
+                verdict,
+                pooled,
                 zone,
                 limit_um,
             }
@@ -464,7 +507,7 @@ pub fn acceptance_summary(spec: &Spec, images: &[ImageReport]) -> AcceptanceSumm
         .collect();
     let not_assessed = assessed.iter().filter(|a| a.decision.is_none()).count();
     AcceptanceSummary {
-        verdict: acceptance::verdict(assessed.iter().map(|a| a.decision)),
+        verdict: acceptance::verdict(verdicts),
         pass: count(Decision::Pass, &assessed),
         fail: count(Decision::Fail, &assessed),
         indeterminate: count(Decision::Indeterminate, &assessed),

@@ -103,6 +103,56 @@ pub struct ScaleBarSpec {
     pub polarity: Polarity,
     pub corner: Corner,
     pub backing_box: bool,
+    /// End ticks: a stroke of the bar's ink across each end, flush with the
+    /// bar's end (the bar's length edge to edge is unchanged), reaching
+    /// `max(3, thickness)` px above and below it.
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub ticks: bool,
+    /// A label ("50 um") in the bar's ink, centred above or below the bar.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub label: Option<LabelSide>,
+    /// The bar's ink as a fraction of full scale, instead of the extreme of
+    /// its polarity (0 for a dark bar, 1 for a light one): an ink as dark
+    /// (or as light) as the structure's own phase.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub ink: Option<f64>,
+    /// Distance of the bar (its box, ticks and label included) from the
+    /// image's bottom and side edges, px, instead of 3 % of the shorter
+    /// side: a bar further inside the structure.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub inset_px: Option<u32>,
+}
+
+/// Where a scale bar's label goes.
+#[derive(Serialize, Deserialize, Clone, Copy, Debug, PartialEq, Eq)]
+#[serde(rename_all = "lowercase")]
+pub enum LabelSide {
+    Above,
+    Below,
+}
+
+impl ScaleBarSpec {
+    /// A plain bar (no ticks, no label, ink at the polarity's extreme, the
+    /// default inset), as drawn before the options were added.
+    pub fn plain(
+        length_um: f64,
+        thickness_px: u32,
+        polarity: Polarity,
+        corner: Corner,
+        backing_box: bool,
+    ) -> Self {
+        ScaleBarSpec {
+            length_um,
+            thickness_px,
+            polarity,
+            corner,
+            backing_box,
+            ticks: false,
+            label: None,
+            ink: None,
+            inset_px: None,
+        }
+    }
 }
 
 /// Everything needed to render one image.

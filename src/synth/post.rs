@@ -2,7 +2,8 @@
 //! blur, noise, quantisation and the burned-in scale bar.
 
 use super::{
-    hash01, mix, Corner, FieldSpec, Polarity, ScaleBarSpec, ScaleBarTruth, Style, SynthError,
+    hash01, mix, Corner, FieldSpec, LabelSide, Polarity, ScaleBarSpec, ScaleBarTruth, Style,
+    SynthError,
 };
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
@@ -248,6 +249,19 @@ pub(crate) struct BarPlacement {
     backing: Option<(usize, usize, usize, usize)>,
 }
 
+/// Reach of a bar's ticks beyond its top and bottom edges (0 without
+/// ticks), its label's capital height and the label's gap to the bar
+/// (0, 0 without a label), px.
+fn bar_extras(b: &ScaleBarSpec) -> (i64, i64, i64) {
+    let thick = b.thickness_px as i64;
+    let reach = if b.ticks { thick.max(3) } else { 0 };
+    let (label_h, gap) = match b.label {
+        Some(_) => ((2 * thick + 6).clamp(10, 40), (thick / 2).max(3)),
+        None => (0, 0),
+    };
+    (reach, label_h, gap)
+}
+
 pub(crate) fn place_scale_bar(
     spec: &FieldSpec,
     b: &ScaleBarSpec,
@@ -272,16 +286,36 @@ pub(crate) fn place_scale_bar(
     if thick < 1 {
         return bad("scale bar thickness_px must be >= 1".into());
     }
-    let margin = ((0.03 * w.min(h) as f64).round() as i64).max(4);
+    if let Some(ink) = b.ink {
+        if !(0.0..=1.0).contains(&ink) {
+            return bad(format!("scale bar ink {ink} outside 0..=1"));
+        }
+    }
+    let margin = match b.inset_px {
+        Some(m) => m as i64,
+        None => ((0.03 * w.min(h) as f64).round() as i64).max(4),
+    };
     let pad = if b.backing_box { thick.max(4) } else { 0 };
+    // Room below the bar for its ticks and its label (none without them,
+    // so plain bars sit where they always did).
+    let (tick_reach, label_h, label_gap) = bar_extras(b);
+    let label_room = tick_reach.max(label_gap) + label_h;
+    let below = match b.label {
+        Some(LabelSide::Below) => label_room,
+        _ => tick_reach,
+    };
+    let above = match b.label {
+        Some(LabelSide::Above) => label_room,
+        _ => tick_reach,
+    };
     let x0 = match b.corner {
         Corner::BottomLeft => margin + pad,
         Corner::BottomRight => w - margin - pad - len,
     };
-    let y1 = h - 1 - margin - pad;
+    let y1 = h - 1 - margin - pad - below;
     let y0 = y1 + 1 - thick;
     let x1 = x0 + len - 1;
-    if x0 - pad < 0 || y0 - pad < 0 || x1 + pad > w - 1 || x0 > x1 {
+    if x0 - pad < 0 || y0 - pad - above < 0 || x1 + pad > w - 1 || x0 > x1 || y1 < y0 {
         return bad(format!(
             "scale bar ({len} x {thick} px plus margins) does not fit a {w} x {h} image"
         ));
@@ -315,6 +349,10 @@ impl BarPlacement {
             Polarity::DarkOnLight => (BAR_DARK, BOX_LIGHT),
             Polarity::LightOnDark => (BAR_LIGHT, BOX_DARK),
         };
+        let bar_level = match self.spec.ink {
+            Some(ink) => (ink.clamp(0.0, 1.0) * u16::MAX as f64).round() as u16,
+            None => bar_level,
+        };
         let fill = |px: &mut [u16], (x0, y0, x1, y1): (usize, usize, usize, usize), v: u16| {
             for y in y0..=y1 {
                 px[y * w + x0..=y * w + x1].fill(v);
@@ -325,6 +363,39 @@ impl BarPlacement {
         }
         fill(px, self.bar, bar_level);
         let (x0, y0, x1, y1) = self.bar;
+        let h = px.len() / w.max(1);
+        let (reach, label_h, gap) = bar_extras(&self.spec);
+        if self.spec.ticks {
+            // Ticks flush with the bar's ends: its outer edges are the bar's.
+            let tw = (self.spec.thickness_px as usize / 2)
+                .max(2)
+                .min(x1 - x0 + 1);
+            let (ty0, ty1) = (
+                y0.saturating_sub(reach as usize),
+                (y1 + reach as usize).min(h - 1),
+            );
+            fill(px, (x0, ty0, x0 + tw - 1, ty1), bar_level);
+            fill(px, (x1 + 1 - tw, ty0, x1, ty1), bar_level);
+        }
+        if let Some(side) = self.spec.label {
+            let text = format!("{} um", super::q(self.spec.length_um, 3));
+            let unit = label_h as f64 / 6.0;
+            let text_w: f64 = text
+                .chars()
+                .map(|c| super::glyphs::advance(c) as f64 * unit)
+                .sum();
+            let tx = (x0 + x1) as f64 / 2.0 - text_w / 2.0;
+            let ty = match side {
+                LabelSide::Above => y0 as f64 - (reach.max(gap) + label_h) as f64,
+                LabelSide::Below => (y1 + 1) as f64 + (reach.max(gap)) as f64,
+            };
+            let mut grey: Vec<f32> = px.iter().map(|v| *v as f32 / u16::MAX as f32).collect();
+            let level = bar_level as f32 / u16::MAX as f32;
+            super::draw_text(&mut grey, w, h, &text, tx, ty, label_h as f64, 1.0, level);
+            for (p, g) in px.iter_mut().zip(&grey) {
+                *p = (g.clamp(0.0, 1.0) * u16::MAX as f32).round() as u16;
+            }
+        }
         ScaleBarTruth {
             length_px: self.length as f64,
             length_um: self.spec.length_um,

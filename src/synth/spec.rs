@@ -112,7 +112,7 @@ pub fn random_spec(rng: &mut impl Rng, index: usize) -> FieldSpec {
 /// random draws are the same whatever the style, so a seed gives the same
 /// fields (sizes, spacings, nuisances) in either style.
 pub fn random_spec_styled(rng: &mut impl Rng, index: usize, style: Option<Style>) -> FieldSpec {
-    let morphology = if index % 2 == 0 {
+    let morphology = if index.is_multiple_of(2) {
         Morphology::Columnar
     } else {
         Morphology::Equiaxed
@@ -156,6 +156,10 @@ pub fn random_spec_styled(rng: &mut impl Rng, index: usize, style: Option<Style>
                 Corner::BottomRight
             },
             backing_box: rng.random_bool(0.5),
+            ticks: false,
+            label: None,
+            ink: None,
+            inset_px: None,
         })
     } else {
         None

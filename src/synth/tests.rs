@@ -23,6 +23,10 @@ fn base(morphology: Morphology, style: Style) -> FieldSpec {
             polarity: Polarity::LightOnDark,
             corner: Corner::BottomRight,
             backing_box: true,
+            ticks: false,
+            label: None,
+            ink: None,
+            inset_px: None,
         }),
         seed: 7,
     }
@@ -186,4 +190,44 @@ fn a_gradient_draws_bands_of_stepped_spacing_with_its_truth() {
     for bad in ["1", "1:x", "0:1", "1:2:0", "1:2:3:4"] {
         assert!(Gradient::parse(bad).unwrap_err().contains(bad), "{bad}");
     }
+}
+
+#[test]
+fn bar_options_leave_plain_bars_and_the_truth_as_before() {
+    // A plain bar writes none of the new options, so truth.json of the
+    // existing seeds is unchanged.
+    let spec = base(Morphology::Columnar, Style::Etched);
+    let json = serde_json::to_string(&spec).expect("spec as JSON");
+    for key in ["ticks", "label", "ink", "inset_px"] {
+        assert!(!json.contains(key), "{key} written for a plain bar: {json}");
+    }
+    // Ticks, a label, an ink and an inset: the bar's length edge to edge is
+    // still its drawn pixel count, its ink the one asked for, and the ticks
+    // do not reach beyond its ends.
+    let mut spec = base(Morphology::Equiaxed, Style::Etched);
+    spec.width = 400;
+    spec.height = 320;
+    let bar = spec.scale_bar.as_mut().expect("a bar");
+    bar.backing_box = false;
+    bar.ticks = true;
+    bar.label = Some(LabelSide::Below);
+    bar.ink = Some(0.9);
+    bar.inset_px = Some(30);
+    bar.thickness_px = 5;
+    let (img, truth) = render(&spec).expect("render");
+    let b = truth.scale_bar.expect("bar truth");
+    assert_eq!(b.length_px, (b.x1 - b.x0 + 1) as f64);
+    assert_eq!(b.bar_level, (0.9f64 * 65535.0).round() as u16);
+    let px = |x: u32, y: u32| img.get_pixel(x, y).0[0];
+    for y in b.y0..=b.y1 {
+        for x in b.x0..=b.x1 {
+            assert_eq!(px(x, y), b.bar_level);
+        }
+    }
+    // The tick above the bar lies within its ends.
+    assert_eq!(px(b.x0, b.y0 - 2), b.bar_level);
+    assert_eq!(px(b.x1, b.y0 - 2), b.bar_level);
+    // Inset: 30 px from the side, and label room below.
+    assert_eq!(b.x1, 400 - 1 - 30);
+    assert!(b.y1 < 320 - 1 - 30);
 }

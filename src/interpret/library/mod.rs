@@ -492,7 +492,11 @@ pub fn builtin() -> Vec<Correlation> {
         true,
     )
     .unwrap_or_else(|e| {
-        eprintln!("armspace: the built-in correlation library is invalid: {e}");
+        use std::io::Write as _;
+        let _ = writeln!(
+            std::io::stderr(),
+            "armspace: the built-in correlation library is invalid: {e}"
+        );
         Vec::new()
     })
 }
