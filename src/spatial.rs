@@ -275,6 +275,10 @@ pub struct AtResult {
     /// are ([`combine::combine`]).
     pub estimate: Estimate,
     pub methods: Vec<AtMethod>,
+    /// The test that the measurements behind the value (or behind the
+    /// value refused for it) are one population around the point, when it
+    /// was made.
+    pub population: Option<Population>,
 }
 
 /// A method's local outcome from its used local measurements `locals`
@@ -288,7 +292,7 @@ pub struct AtResult {
 /// method's outcome on the whole image: its row spacing goes with the local
 /// outcome, so that the combination leaves out a method reading the rows
 /// here as it does for the image.
-fn local_outcome(image: &Outcome, locals: &[&Local]) -> Outcome {
+fn local_outcome(image: &Outcome, locals: &[&Local]) -> (Outcome, Vec<usize>, f64) {
     let method = image.method;
     let n = locals.len();
     let n_eff = n as f64 * method.independent_fraction();
@@ -308,15 +312,18 @@ fn local_outcome(image: &Outcome, locals: &[&Local]) -> Outcome {
     if image.value.is_none() {
         o.reason =
             Some("no value on the whole image, so none of its local measurements is used".into());
-        return o;
+        return (o, vec![], 0.0);
     }
     if n_eff < MIN_LOCAL_INDEPENDENT {
         o.reason = Some(format!(
             "{n} local measurement(s) ({n_eff:.1} independent) within the radius; a local value needs {MIN_LOCAL_INDEPENDENT:.0} independent"
         ));
-        return o;
+        return (o, vec![], n_eff);
     }
     let values: Vec<f64> = locals.iter().map(|l| l.spacing.0).collect();
+    // The positions (in `locals`) of the measurements the value rests on,
+    // after the method's screen.
+    let mut kept: Vec<usize> = (0..n).collect();
     let stat = match method {
         Method::Fft => {
             // The method's own weights, ln(quality), and its own screen:
@@ -332,11 +339,9 @@ fn local_outcome(image: &Outcome, locals: &[&Local]) -> Outcome {
             wm(&values, &w).and_then(|m0| {
                 let s0 = stats::mad_sd(&values, m0).unwrap_or(0.0);
                 let limit = (3.0 * s0).max(1e-9 * m0);
-                let (kv, kw): (Vec<f64>, Vec<f64>) = values
-                    .iter()
-                    .zip(&w)
-                    .filter(|(v, _)| (*v - m0).abs() <= limit)
-                    .unzip();
+                kept.retain(|&i| (values[i] - m0).abs() <= limit);
+                let (kv, kw): (Vec<f64>, Vec<f64>) =
+                    kept.iter().map(|&i| (values[i], w[i])).unzip();
                 o.n = kv.len();
                 let n_eff = kv.len() as f64 * method.independent_fraction();
                 if n_eff < MIN_LOCAL_INDEPENDENT {
@@ -353,16 +358,13 @@ fn local_outcome(image: &Outcome, locals: &[&Local]) -> Outcome {
             // Iglewicz & Hoaglin 1993), among the neighbourhood's lines.
             let med = stats::median(&values).unwrap_or(f64::NAN);
             let sd = stats::mad_sd(&values, med).unwrap_or(0.0);
-            let kept: Vec<f64> = values
-                .iter()
-                .copied()
-                .filter(|v| sd <= 0.0 || (v - med).abs() <= 3.5 * sd)
-                .collect();
-            o.n = kept.len();
-            if (kept.len() as f64) < MIN_LOCAL_INDEPENDENT {
+            kept.retain(|&i| sd <= 0.0 || (values[i] - med).abs() <= 3.5 * sd);
+            let kv: Vec<f64> = kept.iter().map(|&i| values[i]).collect();
+            o.n = kv.len();
+            if (kv.len() as f64) < MIN_LOCAL_INDEPENDENT {
                 None
             } else {
-                stats::Summary::of(&kept).map(|s| (s.mean, s.ci95_half_width, s.sd))
+                stats::Summary::of(&kv).map(|s| (s.mean, s.ci95_half_width, s.sd))
             }
         }
         Method::Centres => stats::Summary::of(&values).map(|s| (s.mean, s.ci95_half_width, s.sd)),
@@ -380,7 +382,8 @@ fn local_outcome(image: &Outcome, locals: &[&Local]) -> Outcome {
             ))
         }
     }
-    methods::require_support(methods::with_bias(o))
+    let n_eff = kept.len() as f64 * method.independent_fraction();
+    (methods::require_support(methods::with_bias(o)), kept, n_eff)
 }
 
 /// The method's detail with only what the combination reads of it (the
@@ -417,6 +420,15 @@ fn light_detail(image: &Outcome) -> Detail {
     }
 }
 
+/// A local value: the combination, each method's part, and the entries
+/// (indices into the index) of the methods in the combined value that
+/// passed their method's screen, which the value rests on.
+struct Evaluated {
+    estimate: Estimate,
+    parts: Vec<AtMethod>,
+    behind: Vec<usize>,
+}
+
 /// The local value from the used entries `chosen` (indices into the
 /// index): each method's local outcome, then their combination.
 fn evaluate(
@@ -425,32 +437,335 @@ fn evaluate(
     outcomes: &[Outcome],
     cal: UmPerPx,
     cal_rel_u: Option<f64>,
-) -> (Estimate, Vec<AtMethod>) {
-    let local: Vec<Outcome> = outcomes
+) -> Evaluated {
+    let mut n_effs = Vec::with_capacity(outcomes.len());
+    let (local, kept): (Vec<Outcome>, Vec<Vec<usize>>) = outcomes
         .iter()
         .map(|o| {
-            let mine: Vec<&Local> = chosen
+            let mine: Vec<usize> = chosen
                 .iter()
-                .map(|&i| &index.entries[i])
-                .filter(|e| e.method == o.method)
-                .map(|e| &e.local)
+                .copied()
+                .filter(|&i| index.entries[i].method == o.method)
                 .collect();
-            local_outcome(o, &mine)
+            let locals: Vec<&Local> = mine.iter().map(|&i| &index.entries[i].local).collect();
+            let (out, k, n_eff) = local_outcome(o, &locals);
+            n_effs.push(n_eff);
+            (out, k.into_iter().map(|j| mine[j]).collect())
         })
-        .collect();
-    let estimate = combine::combine(&local, cal, cal_rel_u);
+        .unzip();
+    let mut estimate = combine::combine(&local, cal, cal_rel_u);
+    if estimate.value.is_some() {
+        estimate.n_eff = local
+            .iter()
+            .zip(&n_effs)
+            .filter(|(o, _)| estimate.methods.contains(&o.method))
+            .map(|(_, n)| n)
+            .sum();
+    }
     let parts = local
         .iter()
-        .map(|o| AtMethod {
+        .zip(&n_effs)
+        .map(|(o, &n_eff)| AtMethod {
             method: o.method,
             n: o.n,
-            n_eff: o.n as f64 * o.method.independent_fraction(),
+            n_eff,
             value: o.value.map(|v| cal.to_um(v)),
             ci95: o.ci95.map(|c| c.map(|v| cal.to_um(v))),
             reason: o.reason.clone(),
         })
         .collect();
-    (estimate, parts)
+    let behind = local
+        .iter()
+        .zip(kept)
+        .filter(|(o, _)| estimate.methods.contains(&o.method))
+        .flat_map(|(_, k)| k)
+        .collect();
+    Evaluated {
+        estimate,
+        parts,
+        behind,
+    }
+}
+
+/// Significance level of the test that a neighbourhood holds one
+/// population: 5 %, the common level of a test (common practice, no single
+/// source). A neighbourhood found to hold two is given no value; one that
+/// holds two but passes by chance (power) is what the interval must then
+/// cover, so the level is not made stricter than common practice.
+pub const ONE_POPULATION_ALPHA: f64 = 0.05;
+
+/// Largest offset of the measurements' centroid from the point, as a
+/// fraction of the radius, for a value to be read as the point's: 1/2. For
+/// measurements spread evenly around the point within a radius R, each
+/// coordinate of their centroid has a standard deviation of R / (2
+/// sqrt(n)) (a uniform disc's coordinate has variance R^2 / 4); with the
+/// fewest independent measurements a combined value rests on (two methods
+/// of 3), 0.2 R, and an offset beyond R / 2 arises by chance in 4 % of
+/// neighbourhoods (Rayleigh tail, exp(-(0.5 / 0.2)^2 / 2)). Beyond it the
+/// measurements lie to one side: their value is that of another place.
+pub const MAX_CENTROID_OFFSET: f64 = 0.5;
+
+/// Largest default radius in local arm spacings: 20. A local value needs
+/// about a dozen local measurements of each of two methods, each spanning a
+/// few spacings (an FFT tile holds several periods, an intercept line or a
+/// chain of centres some arms); a field covered with them holds that many
+/// within about 10 spacings of a point, and twice that leaves room for half
+/// of the neighbourhood without measurements (background, parts left out).
+/// Farther, the value no longer describes the surroundings of the point
+/// but a region of the section, which the image's value already describes.
+pub const MAX_RADIUS_SPACINGS: f64 = 20.0;
+
+/// Largest default radius as the disc's share of the image's area: a
+/// quarter. A local value describes the place around the point as distinct
+/// from the rest of the field; a disc over more than a quarter of the
+/// image leaves fewer than four disjoint places of its size in the field,
+/// and its value is mostly the image's own (reported as such), not that of
+/// a place in it.
+pub const MAX_RADIUS_IMAGE_SHARE: f64 = 0.25;
+
+/// The test that the measurements behind a local value are one population.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Population {
+    /// The F statistic of a plane (the log spacing changing linearly across
+    /// the neighbourhood) against one level per method, its degrees of
+    /// freedom and its p-value.
+    pub f: f64,
+    pub df: (f64, f64),
+    pub p: f64,
+    /// The plane's change of the spacing across the neighbourhood's
+    /// diameter, relative (0.1: 10 %).
+    pub change_rel: f64,
+    /// Distance of the measurements' centroid from the point, um.
+    pub offset_um: f64,
+    /// The neighbourhood's radius the test was made with, um.
+    pub radius_um: f64,
+}
+
+/// What the test says of a neighbourhood.
+#[derive(Clone, Debug, PartialEq)]
+enum Verdict {
+    /// One population around the point.
+    One(Population),
+    /// The spacing changes across the neighbourhood (the reason).
+    Two(Population, String),
+    /// The measurements lie to one side of the point (the reason).
+    OneSided(Population, String),
+    /// Too few measurements, or placed so, that the test cannot be made.
+    Untestable(String),
+}
+
+/// Solves the symmetric system `a x = b` (q x q, row-major) by Gaussian
+/// elimination with partial pivoting; `None` when it is singular.
+fn solve(mut a: Vec<f64>, mut b: Vec<f64>, q: usize) -> Option<Vec<f64>> {
+    for c in 0..q {
+        let piv = (c..q).max_by(|&i, &j| a[i * q + c].abs().total_cmp(&a[j * q + c].abs()))?;
+        let scale = (0..q).map(|k| a[c * q + k].abs()).fold(0.0, f64::max);
+        if a[piv * q + c].abs() <= 1e-12 * scale.max(1e-300) {
+            return None;
+        }
+        for k in 0..q {
+            a.swap(c * q + k, piv * q + k);
+        }
+        b.swap(c, piv);
+        for r in c + 1..q {
+            let m = a[r * q + c] / a[c * q + c];
+            for k in c..q {
+                a[r * q + k] -= m * a[c * q + k];
+            }
+            b[r] -= m * b[c];
+        }
+    }
+    let mut x = vec![0.0; q];
+    for c in (0..q).rev() {
+        let s: f64 = (c + 1..q).map(|k| a[c * q + k] * x[k]).sum();
+        x[c] = (b[c] - s) / a[c * q + c];
+    }
+    Some(x)
+}
+
+/// The F test of a plane: weighted least squares of the log spacing
+/// `obs` (level, u, v, log spacing, weight as a share of an independent
+/// measurement) with one level per method, against the levels with a plane
+/// in (u, v) added. Each observation weighs its share over its method's
+/// variance about its level (methods differ in scatter); the residual
+/// degrees of freedom are the independent measurements' less the
+/// parameters. `None` when they are fewer than one or the positions lie on
+/// one line. Gives (F, residual degrees of freedom, p, the plane's slope
+/// per unit of u and v).
+fn plane_test(obs: &[(usize, f64, f64, f64, f64)], k: usize) -> Option<(f64, f64, f64, f64)> {
+    let q = k + 2;
+    let mut mean = vec![0.0; k];
+    let mut count = vec![0usize; k];
+    for o in obs {
+        mean[o.0] += o.3;
+        count[o.0] += 1;
+    }
+    for m in 0..k {
+        mean[m] /= count[m].max(1) as f64;
+    }
+    let mut var = vec![0.0; k];
+    for o in obs {
+        var[o.0] += (o.3 - mean[o.0]).powi(2);
+    }
+    for m in 0..k {
+        // A floor far below any measurement's scatter (1e-4 relative),
+        // only against division by zero on identical values.
+        var[m] = (var[m] / count[m].saturating_sub(1).max(1) as f64).max(1e-8);
+    }
+    let w: Vec<f64> = obs.iter().map(|o| o.4 / var[o.0]).collect();
+    let n_eff: f64 = obs.iter().map(|o| o.4).sum();
+    let df2 = n_eff - q as f64;
+    if df2 < 1.0 {
+        return None;
+    }
+    let mut a = vec![0.0; q * q];
+    let mut b = vec![0.0; q];
+    for (o, &wi) in obs.iter().zip(&w) {
+        let mut row = vec![0.0; q];
+        row[o.0] = 1.0;
+        row[k] = o.1;
+        row[k + 1] = o.2;
+        for r in 0..q {
+            b[r] += wi * row[r] * o.3;
+            for c in 0..q {
+                a[r * q + c] += wi * row[r] * row[c];
+            }
+        }
+    }
+    let beta = solve(a, b, q)?;
+    let (mut rss0, mut rss1) = (0.0, 0.0);
+    let mut wmean = vec![(0.0, 0.0); k];
+    for (o, &wi) in obs.iter().zip(&w) {
+        wmean[o.0].0 += wi * o.3;
+        wmean[o.0].1 += wi;
+    }
+    for (o, &wi) in obs.iter().zip(&w) {
+        let m0 = wmean[o.0].0 / wmean[o.0].1;
+        rss0 += wi * (o.3 - m0).powi(2);
+        let fit = beta[o.0] + beta[k] * o.1 + beta[k + 1] * o.2;
+        rss1 += wi * (o.3 - fit).powi(2);
+    }
+    let explained = (rss0 - rss1).max(0.0);
+    let f = if rss1 > 0.0 {
+        (explained / 2.0) / (rss1 / df2)
+    } else if explained > 0.0 {
+        f64::INFINITY
+    } else {
+        0.0
+    };
+    let p = if f.is_infinite() {
+        0.0
+    } else {
+        stats::f_upper_tail(f, 2.0, df2).unwrap_or(1.0)
+    };
+    Some((f, df2, p, beta[k].hypot(beta[k + 1])))
+}
+
+/// Whether the measurements `behind` a local value (indices into the
+/// index) are one population around the point `p`, within `radius` um.
+///
+/// The test: the logarithm of each measurement's spacing against its
+/// position ([`plane_test`]): one level per method (the methods read the
+/// same arms with biases of their own) against the levels and a plane (a
+/// spacing that changes across the neighbourhood: a gradient, or a
+/// boundary between two parts on one side of the point; a step projects
+/// onto the plane). The nested linear model's F test (common practice, no
+/// single source), on all the methods' measurements together, and on each
+/// method's alone (a method whose measurements are few and straddle the
+/// boundary, such as long intercept lines placed by their mid-points, can
+/// hide the change that another method's show). Not one population when
+/// any of these finds the plane at [`ONE_POPULATION_ALPHA`]: the tests are
+/// not corrected for their number, since a false alarm costs a value
+/// (none, with the reason) while a missed change gives a confident wrong
+/// one. Then the centroid of the measurements must lie within
+/// [`MAX_CENTROID_OFFSET`] of the radius from the point.
+fn population(index: &Index, behind: &[usize], p: [f64; 2], radius: f64) -> Verdict {
+    let mut methods: Vec<Method> = behind.iter().map(|&i| index.entries[i].method).collect();
+    methods.sort_by_key(|m| m.name());
+    methods.dedup();
+    let k = methods.len();
+    if behind.is_empty() || radius.is_nan() || radius <= 0.0 {
+        return Verdict::Untestable("no measurements to test".into());
+    }
+    let level = |e: &Entry| methods.iter().position(|m| *m == e.method).unwrap_or(0);
+    // Each measurement weighs its share of an independent one (an FFT
+    // tile a quarter, `Method::independent_fraction`).
+    let obs: Vec<(usize, f64, f64, f64, f64)> = behind
+        .iter()
+        .map(|&i| {
+            let e = &index.entries[i];
+            let s = e.method.independent_fraction();
+            (
+                level(e),
+                (e.x_um - p[0]) / radius,
+                (e.y_um - p[1]) / radius,
+                e.local.spacing.0.ln(),
+                s,
+            )
+        })
+        .filter(|o| o.3.is_finite())
+        .collect();
+    let n_eff: f64 = obs.iter().map(|o| o.4).sum();
+    // The centroid, each measurement weighing its share.
+    let (cx, cy) = obs
+        .iter()
+        .fold((0.0, 0.0), |(x, y), o| (x + o.4 * o.1, y + o.4 * o.2));
+    let offset = (cx / n_eff).hypot(cy / n_eff) * radius;
+    let Some((f, df2, pv, slope)) = plane_test(&obs, k) else {
+        return Verdict::Untestable(format!(
+            "{n_eff:.1} independent measurements behind the value, too few (or placed on one line) to test that they are one population (a plane and {k} method level(s) need at least {})",
+            k + 3
+        ));
+    };
+    let mut pop = Population {
+        f,
+        df: (2.0, df2),
+        p: pv,
+        change_rel: (2.0 * slope).exp() - 1.0,
+        offset_um: offset,
+        radius_um: radius,
+    };
+    let mut which = "all methods' measurements together".to_string();
+    if pv >= ONE_POPULATION_ALPHA && k > 1 {
+        for (m, method) in methods.iter().enumerate() {
+            let mine: Vec<(usize, f64, f64, f64, f64)> = obs
+                .iter()
+                .filter(|o| o.0 == m)
+                .map(|o| (0, o.1, o.2, o.3, o.4))
+                .collect();
+            if let Some((f, df2, pv, slope)) = plane_test(&mine, 1) {
+                if pv < pop.p {
+                    pop = Population {
+                        f,
+                        df: (2.0, df2),
+                        p: pv,
+                        change_rel: (2.0 * slope).exp() - 1.0,
+                        offset_um: offset,
+                        radius_um: radius,
+                    };
+                    which = format!("the {} measurements", method.name());
+                }
+            }
+        }
+    }
+    if pop.p < ONE_POPULATION_ALPHA {
+        return Verdict::Two(
+            pop,
+            format!(
+                "the measurements within {radius:.1} um are not one population: in {which} the spacing changes by {:.0} % across the neighbourhood (F = {:.1} on 2 and {:.1} degrees of freedom, p = {:.3}; a boundary between parts or a gradient)",
+                100.0 * pop.change_rel, pop.f, pop.df.1, pop.p
+            ),
+        );
+    }
+    if offset > MAX_CENTROID_OFFSET * radius {
+        return Verdict::OneSided(
+            pop,
+            format!(
+                "the measurements within {radius:.1} um lie to one side of the point (their centroid {offset:.1} um from it, more than half the radius): their value is that of another place"
+            ),
+        );
+    }
+    Verdict::One(pop)
 }
 
 /// Whether a local measurement may enter a local value (see the notes in
@@ -478,9 +793,13 @@ fn counts(e: &Entry, fft_valued: bool, fft_min_quality: f64) -> bool {
 /// [`MIN_LOCAL_INDEPENDENT`] independent measurements for its Student-t
 /// interval. A larger radius averages over more of the casting, which may
 /// vary; the smallest one keeps the value as local as the evidence allows,
-/// and the radius is reported beside it. No value, with the reason, when
-/// even all the image's measurements give none, or the point lies outside
-/// the image.
+/// and the radius is reported beside it. A value stands only when the
+/// measurements behind it are one population around the point
+/// ([`population`]); a radius whose measurements hold two ends the search
+/// (a larger one holds both as well), and the search ends at
+/// [`MAX_RADIUS_SPACINGS`] local spacings or a disc of
+/// [`MAX_RADIUS_IMAGE_SHARE`] of the image. No value, with the reason,
+/// when no radius gives one, or the point lies outside the image.
 pub fn at(
     index: &Index,
     spec: &AtSpec,
@@ -492,7 +811,7 @@ pub fn at(
 ) -> AtResult {
     let [x_um, y_um] = spec.point_um(cal);
     let given = spec.radius_um(cal);
-    let result = |radius_um, (estimate, methods)| AtResult {
+    let result = |radius_um, estimate, methods, population| AtResult {
         spec: spec.clone(),
         x_um,
         y_um,
@@ -500,6 +819,7 @@ pub fn at(
         radius_given: given.is_some(),
         estimate,
         methods,
+        population,
     };
     if !spec.inside(width, height, cal) {
         let (w, h) = (
@@ -508,12 +828,11 @@ pub fn at(
         );
         return result(
             None,
-            (
-                Estimate::none(format!(
-                    "the point ({x_um:.1}, {y_um:.1}) um lies outside the image ({w:.1} x {h:.1} um, {width} x {height} px)"
-                )),
-                vec![],
-            ),
+            Estimate::none(format!(
+                "the point ({x_um:.1}, {y_um:.1}) um lies outside the image ({w:.1} x {h:.1} um, {width} x {height} px)"
+            )),
+            vec![],
+            None,
         );
     }
     let p = [x_um, y_um];
@@ -531,13 +850,37 @@ pub fn at(
         .iter()
         .any(|o| o.method == Method::Fft && o.value.is_some());
     let used = |i: &usize| counts(&index.entries[*i], fft_valued, fft_min_quality);
+    // A value stands only when its measurements are one population around
+    // the point (`population`); otherwise none, with the reason.
+    let refuse = |mut e: Estimate, why: String| {
+        e.value = None;
+        e.ci95 = None;
+        e.budget = None;
+        e.reason = Some(why);
+        e
+    };
     if let Some(r) = given {
         let chosen: Vec<usize> = index.within(p, r).into_iter().filter(used).collect();
-        let (mut e, m) = evaluate(index, &chosen, outcomes, cal, cal_rel_u);
-        if let Some(why) = e.reason.take() {
-            e.reason = Some(format!("within {:.1} um: {why}", r.0));
+        let ev = evaluate(index, &chosen, outcomes, cal, cal_rel_u);
+        let mut e = ev.estimate;
+        if e.value.is_none() {
+            if let Some(why) = e.reason.take() {
+                e.reason = Some(format!("within {:.1} um: {why}", r.0));
+            }
+            return result(Some(r), e, ev.parts, None);
         }
-        return result(Some(r), (e, m));
+        return match population(index, &ev.behind, p, r.0) {
+            Verdict::One(pop) => result(Some(r), e, ev.parts, Some(pop)),
+            Verdict::Two(pop, why) | Verdict::OneSided(pop, why) => {
+                result(Some(r), refuse(e, why), ev.parts, Some(pop))
+            }
+            Verdict::Untestable(why) => result(
+                Some(r),
+                refuse(e, format!("within {:.1} um: {why}", r.0)),
+                ev.parts,
+                None,
+            ),
+        };
     }
     let order: Vec<(usize, Micrometres)> = index
         .nearest(p, index.len())
@@ -545,9 +888,17 @@ pub fn at(
         .filter(|(i, _)| used(i))
         .collect();
     let needed = outcomes.iter().filter(|o| o.value.is_some()).count().min(2);
+    let r_image = {
+        let (w, h) = (
+            cal.to_um(Pixels(width as f64)).0,
+            cal.to_um(Pixels(height as f64)).0,
+        );
+        (MAX_RADIUS_IMAGE_SHARE * w * h / std::f64::consts::PI).sqrt()
+    };
     let mut counts = vec![0.0f64; outcomes.len()];
     let mut tried_at = 0usize;
-    let mut last = None;
+    let mut last: Option<(Micrometres, Estimate, Vec<AtMethod>, Option<Population>)> = None;
+    let mut stop: Option<String> = None;
     for (k, &(i, d)) in order.iter().enumerate() {
         if let Some(slot) = outcomes
             .iter()
@@ -571,28 +922,76 @@ pub fn at(
             continue;
         }
         tried_at = n;
-        let chosen: Vec<usize> = order[..n].iter().map(|&(i, _)| i).collect();
-        let (e, m) = evaluate(index, &chosen, outcomes, cal, cal_rel_u);
-        if e.value.is_some() {
-            return result(Some(d), (e, m));
+        // The radius is bounded by the local spacing (the median of the
+        // measurements within it, um).
+        let spacings: Vec<f64> = order[..n]
+            .iter()
+            .map(|&(j, _)| cal.to_um(index.entries[j].local.spacing).0)
+            .collect();
+        let local_spacing = stats::median(&spacings).unwrap_or(f64::NAN);
+        let r_max = (MAX_RADIUS_SPACINGS * local_spacing).min(r_image);
+        if d.0 > r_max {
+            stop = Some(format!(
+                "no radius up to {r_max:.1} um ({MAX_RADIUS_SPACINGS:.0} local spacings of {local_spacing:.1} um, or a disc of a quarter of the image, {r_image:.1} um, whichever is smaller) gives a value from one population around the point"
+            ));
+            break;
         }
-        last = Some((d, e, m));
+        let chosen: Vec<usize> = order[..n].iter().map(|&(i, _)| i).collect();
+        let ev = evaluate(index, &chosen, outcomes, cal, cal_rel_u);
+        if ev.estimate.value.is_none() {
+            last = Some((d, ev.estimate, ev.parts, None));
+            continue;
+        }
+        match population(index, &ev.behind, p, d.0) {
+            Verdict::One(pop) => return result(Some(d), ev.estimate, ev.parts, Some(pop)),
+            // A larger radius holds the other population as well: stop.
+            Verdict::Two(pop, why) => {
+                return result(
+                    None,
+                    refuse(
+                        ev.estimate,
+                        format!("no radius gives a value from one population: {why}"),
+                    ),
+                    ev.parts,
+                    Some(pop),
+                )
+            }
+            // A larger radius may reach the other side, or bring enough
+            // measurements for the test.
+            Verdict::OneSided(pop, why) => {
+                last = Some((d, refuse(ev.estimate, why), ev.parts, Some(pop)));
+            }
+            Verdict::Untestable(why) => {
+                last = Some((d, refuse(ev.estimate, why), ev.parts, None));
+            }
+        }
     }
-    let (reach, mut e, m) = match last {
+    let (reach, mut e, m, pop) = match last {
         Some(l) => l,
         None => {
             let chosen: Vec<usize> = order.iter().map(|&(i, _)| i).collect();
-            let (e, m) = evaluate(index, &chosen, outcomes, cal, cal_rel_u);
-            (order.last().map_or(Micrometres(0.0), |o| o.1), e, m)
+            let ev = evaluate(index, &chosen, outcomes, cal, cal_rel_u);
+            (
+                order.last().map_or(Micrometres(0.0), |o| o.1),
+                ev.estimate,
+                ev.parts,
+                None,
+            )
         }
     };
+    e.value = None;
+    e.ci95 = None;
+    e.budget = None;
     let why = e.reason.take().unwrap_or_default();
-    e.reason = Some(format!(
-        "no radius gives a value (up to {:.1} um, all {} used local measurements of the image): {why}",
-        reach.0,
-        order.len()
-    ));
-    result(None, (e, m))
+    e.reason = Some(match stop {
+        Some(s) => format!("{s}; at {:.1} um: {why}", reach.0),
+        None => format!(
+            "no radius gives a value from one population (up to {:.1} um, all {} used local measurements of the image): {why}",
+            reach.0,
+            order.len()
+        ),
+    });
+    result(None, e, m, pop)
 }
 
 /// A line asked for with `--along X0,Y0:X1,Y1[:BIN]`, as given.
@@ -749,7 +1148,23 @@ pub fn along(
                     && across <= 0.5 * step
             })
             .collect();
-        let (estimate, methods) = evaluate(index, &chosen, outcomes, cal, cal_rel_u);
+        let ev = evaluate(index, &chosen, outcomes, cal, cal_rel_u);
+        let mut estimate = ev.estimate;
+        // A bin's value, as a point's, rests on one population: a bin
+        // across a boundary or a steep gradient gives none.
+        if estimate.value.is_some() {
+            let why = match population(index, &ev.behind, c, 0.5 * step) {
+                Verdict::Two(_, why) | Verdict::Untestable(why) => Some(why),
+                Verdict::One(_) | Verdict::OneSided(..) => None,
+            };
+            if let Some(why) = why {
+                estimate.value = None;
+                estimate.ci95 = None;
+                estimate.budget = None;
+                estimate.reason = Some(why);
+            }
+        }
+        let methods = ev.parts;
         p.bins.push(Bin {
             distance_um: t0 + 0.5 * step,
             x_um: c[0],
@@ -825,6 +1240,73 @@ mod tests {
             let e = parse_along(s).unwrap_err().to_string();
             assert!(e.contains(s) && e.contains(says), "{s}: {e}");
         }
+    }
+
+    /// Intercept-like entries (one independent each) on a 9 x 9 grid of
+    /// 10 um over a disc of 40 um around (50, 50), spacing `f(x)` with a
+    /// deterministic scatter of +/- 3 %.
+    fn grid(f: impl Fn(f64) -> f64) -> (Index, Vec<usize>) {
+        let mut entries = Vec::new();
+        for i in 0..9 {
+            for j in 0..9 {
+                let (x, y) = (10.0 + 10.0 * i as f64, 10.0 + 10.0 * j as f64);
+                if (x - 50.0).hypot(y - 50.0) > 40.0 {
+                    continue;
+                }
+                let jitter = 1.0 + 0.03 * ((i * 7 + j * 3) % 5) as f64 / 2.0 - 0.03;
+                entries.push(Entry {
+                    method: Method::Intercept,
+                    x_um: x,
+                    y_um: y,
+                    local: Local {
+                        x: Pixels(x),
+                        y: Pixels(y),
+                        spacing: Pixels(f(x) * jitter),
+                        dir_deg: 0.0,
+                        quality: None,
+                        used: true,
+                    },
+                });
+            }
+        }
+        let ids = (0..entries.len()).collect();
+        (Index::of_entries(entries), ids)
+    }
+
+    #[test]
+    fn the_population_test_tells_one_part_from_two() {
+        // One spacing over the disc: one population (the scatter is a
+        // measurement's, with no trend). A step of 1.5 times across the
+        // middle (a two-part field's boundary through the point): the
+        // plane's F test finds it. The step's size is the generator's
+        // two-part field; the expectations follow from the test's
+        // definition (a nested linear model's F test; common practice, no
+        // single source).
+        let (one, ids) = grid(|_| 20.0);
+        assert!(matches!(
+            population(&one, &ids, [50.0, 50.0], 40.0),
+            Verdict::One(_)
+        ));
+        let (two, ids) = grid(|x| if x < 50.0 { 20.0 } else { 30.0 });
+        match population(&two, &ids, [50.0, 50.0], 40.0) {
+            Verdict::Two(p, why) => {
+                assert!(p.p < 1e-6 && p.change_rel > 0.3, "{p:?}");
+                assert!(why.contains("not one population"), "{why}");
+            }
+            v => panic!("{v:?}"),
+        }
+        // The uniform disc seen from a point at its rim: its measurements
+        // lie to one side (centroid 40 um away, radius 60 um).
+        let (one, ids) = grid(|_| 20.0);
+        assert!(matches!(
+            population(&one, &ids, [90.0, 50.0], 60.0),
+            Verdict::OneSided(..)
+        ));
+        // Two measurements cannot test a plane.
+        assert!(matches!(
+            population(&one, &ids[..2], [50.0, 50.0], 40.0),
+            Verdict::Untestable(_)
+        ));
     }
 
     #[test]
