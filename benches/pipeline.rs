@@ -17,6 +17,7 @@ use std::io::Cursor;
 
 fn spec(side: u32, morphology: Morphology, sdas_px: f64) -> FieldSpec {
     FieldSpec {
+        gradient: None,
         width: side,
         height: side,
         morphology,

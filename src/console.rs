@@ -78,6 +78,19 @@ pub fn image_lines(img: &ImageReport) -> Vec<String> {
             i.correlation.id
         ));
     }
+    lines.extend(img.at.iter().map(at_line));
+    for p in &img.profile {
+        let valued = p.bins.iter().filter(|b| b.value_um.is_some()).count();
+        lines.push(match &p.reason {
+            Some(r) => format!("  along {}: no profile: {r}", p.given),
+            None => format!(
+                "  along {}: {} bin(s) of {:.1} um, {valued} with a value (images[].profile)",
+                p.given,
+                p.bins.len(),
+                p.bin_um
+            ),
+        });
+    }
     if let Some(o) = &img.overlay {
         lines.push(format!("  picture: {o}"));
     }
@@ -85,6 +98,32 @@ pub fn image_lines(img: &ImageReport) -> Vec<String> {
         lines.push(format!("  warning: {w}"));
     }
     lines
+}
+
+/// The line of one `--at` point: where, within what radius, the value with
+/// its interval and support, or why there is none.
+fn at_line(a: &report::AtReport) -> String {
+    let radius = match (a.radius_um, a.radius_rule) {
+        (Some(r), "given") => format!(" within {r:.1} um"),
+        (Some(r), _) => format!(" within {r:.1} um (the smallest radius with a value)"),
+        (None, _) => String::new(),
+    };
+    let place = format!(
+        "  at {} ({:.1} um, {:.1} um){radius}",
+        a.given, a.x_um, a.y_um
+    );
+    match (a.value_um, a.ci95_um) {
+        (Some(v), Some([lo, hi])) => format!(
+            "{place}: SDAS {v} um (95% CI {lo} to {hi}), n = {} ({:.1} independent) [{}]",
+            a.n,
+            a.n_eff,
+            a.methods.join(", ")
+        ),
+        _ => format!(
+            "{place}: no value: {}",
+            a.reason.as_deref().unwrap_or("no reason given")
+        ),
+    }
 }
 
 /// The batch's closing lines: counts, each acceptance zone's tally and the

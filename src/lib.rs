@@ -25,6 +25,7 @@ pub mod pipeline;
 pub mod preprocess;
 pub mod report;
 pub mod segment;
+pub mod spatial;
 pub mod stats;
 #[cfg(feature = "synth")]
 pub mod synth;

@@ -45,6 +45,10 @@ pub struct MeasureOptions {
     pub interpret: Option<crate::interpret::Settings>,
     /// SDAS limits and the decision rule.
     pub spec: Option<crate::interpret::acceptance::Spec>,
+    /// Points where the local SDAS is asked for (`--at`), in input order.
+    pub at: Vec<crate::spatial::AtSpec>,
+    /// Lines along which a profile of the SDAS is asked for (`--along`).
+    pub along: Vec<crate::spatial::AlongSpec>,
 }
 
 impl MeasureOptions {
@@ -67,6 +71,8 @@ impl MeasureOptions {
             protected: crate::files::Protected::default(),
             interpret: None,
             spec: None,
+            at: vec![],
+            along: vec![],
         }
     }
 }
@@ -109,6 +115,10 @@ pub struct ImageResult {
     pub acceptance: Option<crate::interpret::acceptance::Acceptance>,
     /// Not measured because the run was interrupted before this image.
     pub interrupted: bool,
+    /// The local SDAS at each point asked for (`--at`), in the order given.
+    pub at: Vec<crate::spatial::AtResult>,
+    /// The profile along each line asked for (`--along`), in the order given.
+    pub profiles: Vec<crate::spatial::Profile>,
 }
 
 /// The error of an image the run did not reach (see [`measure_batch`]).
@@ -156,6 +166,8 @@ impl ImageResult {
             interpretation: None,
             acceptance,
             interrupted: false,
+            at: vec![],
+            profiles: vec![],
         }
     }
 
@@ -301,6 +313,46 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
     warnings.extend(combine::disagreements(&outcomes, um_per_px));
     let sdas = combine::combine(&outcomes, um_per_px, calibration.rel_uncertainty);
     warnings.extend(sdas.warnings.iter().cloned());
+    // The local SDAS at the points asked for, from the same outcomes and
+    // the same combination as the image's value.
+    let index = (!opts.at.is_empty() || !opts.along.is_empty())
+        .then(|| crate::spatial::Index::new(&outcomes, um_per_px));
+    let profiles = match &index {
+        None => vec![],
+        Some(index) => opts
+            .along
+            .iter()
+            .map(|spec| {
+                crate::spatial::along(
+                    index,
+                    spec,
+                    &outcomes,
+                    um_per_px,
+                    calibration.rel_uncertainty,
+                    (info.width, info.height),
+                    opts.fft.min_quality,
+                )
+            })
+            .collect(),
+    };
+    let at = match &index {
+        None => vec![],
+        Some(index) => opts
+            .at
+            .iter()
+            .map(|spec| {
+                crate::spatial::at(
+                    index,
+                    spec,
+                    &outcomes,
+                    um_per_px,
+                    calibration.rel_uncertainty,
+                    (info.width, info.height),
+                    opts.fft.min_quality,
+                )
+            })
+            .collect(),
+    };
     warnings.extend(crate::interpret::plausibility::field_warning(
         image_width,
         um_per_px.get(),
@@ -433,6 +485,8 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         interpretation,
         acceptance,
         interrupted: false,
+        at,
+        profiles,
     }
 }
 

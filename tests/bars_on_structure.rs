@@ -71,6 +71,7 @@ fn field(seed: u64, i: u64, style: Style) -> FieldSpec {
         blur_sigma_px: r(10) * 1.5,
         illumination: r(11) * 0.15,
         scale_bar: None,
+        gradient: None,
         seed: mix(seed, i),
     }
 }

@@ -11,6 +11,7 @@ use common::*;
 
 fn spec(i: u64, bar: Option<ScaleBarSpec>) -> FieldSpec {
     FieldSpec {
+        gradient: None,
         width: 560 + 37 * (i as u32 % 5),
         height: 420 + 23 * (i as u32 % 4),
         morphology: if i.is_multiple_of(2) {

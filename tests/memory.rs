@@ -173,6 +173,7 @@ fn the_reports_lists_of_local_measurements_are_bounded() {
     use armspace::synth::{render, FieldSpec, Morphology, Style};
     // A fine field of 4096 x 4096 px: tens of thousands of FFT tiles.
     let spec = FieldSpec {
+        gradient: None,
         width: 4096,
         height: 4096,
         morphology: Morphology::Columnar,

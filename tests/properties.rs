@@ -12,6 +12,7 @@ use proptest::prelude::*;
 
 fn field(sdas: f64, angle: f64, etched: bool, seed: u64) -> GrayImage {
     let spec = FieldSpec {
+        gradient: None,
         width: 512,
         height: 448,
         morphology: Morphology::Columnar,

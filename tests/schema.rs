@@ -153,6 +153,8 @@ fn the_schema_keeps_the_contracts_constraints() {
         "/$defs/MethodsReport/properties/centres",
         "/$defs/MethodsReport/properties/fft",
         "/$defs/MethodsReport/properties/intercept",
+        "/$defs/Parameters/properties/along",
+        "/$defs/Parameters/properties/at",
         "/$defs/Parameters/properties/interpretation",
         "/$defs/Parameters/properties/spec",
         "/$defs/Range/properties/min_exclusive",
@@ -168,6 +170,8 @@ fn the_schema_keeps_the_contracts_constraints() {
         "/$defs/fft/properties/omitted",
         "/$defs/intercept/properties/omitted",
         "/$defs/image/properties/acceptance",
+        "/$defs/image/properties/at",
+        "/$defs/image/properties/profile",
         "/$defs/image/properties/interpretation",
     ];
     expected.sort();
@@ -223,6 +227,12 @@ fn full_report(correlation: &str, composition: &str) -> Value {
         "50K",
         "--spec",
         &path_str(&repo_file("fixtures/demo-spec.json")),
+        "--at",
+        "150,120",
+        "--at",
+        "200px,150px:120px",
+        "--along",
+        "20,100:400,100:80",
     ]);
     serde_json::from_str(&run.stdout)
         .unwrap_or_else(|e| panic!("stdout is not JSON ({e}); stderr: {}", run.stderr))
@@ -278,6 +288,9 @@ fn a_full_report_validates_and_writes_no_key_the_schema_leaves_out() {
         assert!(images.iter().any(|i| i["calibration"]["bar"].is_object()));
         assert!(images.iter().any(|i| i["error"].is_string()));
         assert!(images.iter().any(|i| i["methods"]["centres"].is_object()));
+        assert!(images
+            .iter()
+            .any(|i| i["at"][1]["per_method"][0].is_object()));
         assert!(images.iter().any(|i| i.pointer(alternative).is_some()));
         assert!(rep["summary"]["acceptance"]["zones"][0].is_object());
         assert!(!rep["skipped"].as_array().unwrap().is_empty());

@@ -12,6 +12,7 @@ use std::time::Instant;
 
 fn clean_columnar(angle: f64, sdas: f64, seed: u64) -> FieldSpec {
     FieldSpec {
+        gradient: None,
         width: 512,
         height: 512,
         morphology: Morphology::Columnar,
@@ -412,6 +413,7 @@ fn synth_style_option_draws_the_same_fields_in_one_style() {
 /// a count on the pixels must give the recorded spacing.
 fn exact(style: Style, morphology: Morphology, sdas: f64, seed: u64) -> FieldSpec {
     FieldSpec {
+        gradient: None,
         style,
         morphology,
         ..clean_columnar(35.0, sdas, seed)

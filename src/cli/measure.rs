@@ -84,6 +84,20 @@ pub(super) struct MeasureArgs {
     /// embedded, readable offline, printable to A4), atomically.
     #[arg(long, value_name = "FILE")]
     html: Option<PathBuf>,
+    /// The SDAS at a point (for example a crack origin), X,Y from the
+    /// image's top-left corner (y down), in um, or in pixels with a px
+    /// suffix (400,300px). Repeatable. From the local measurements within
+    /// the radius R (400,300:50px), or by default within the smallest
+    /// radius that gives a value (reported). In the report (images[].at)
+    /// and on the terminal.
+    #[arg(long, value_name = "X,Y[:R]", value_parser = armspace::spatial::parse_at, allow_hyphen_values = true)]
+    at: Vec<armspace::spatial::AtSpec>,
+    /// SDAS against distance along the line from X0,Y0 to X1,Y1 (units as
+    /// for --at), in bins of length BIN (default a tenth of the line),
+    /// each bin the square of that side on the line. Repeatable. In the
+    /// report (images[].profile).
+    #[arg(long, value_name = "X0,Y0:X1,Y1[:BIN]", value_parser = armspace::spatial::parse_along, allow_hyphen_values = true)]
+    along: Vec<armspace::spatial::AlongSpec>,
 }
 
 /// Width, px, of the pictures embedded in the HTML page: a page of A4 with
@@ -235,6 +249,8 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
         protected: Default::default(),
         interpret,
         spec,
+        at: args.at.clone(),
+        along: args.along.clone(),
     };
     let inputs = collect_inputs(&args.paths);
     if !inputs
@@ -243,6 +259,10 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
     {
         say!("armspace: no image files found in the given paths");
         return ExitCode::from(EXIT_NOT_MEASURED);
+    }
+    if let Err(e) = points_in_some_image(&args.at, &inputs, args.calibration.um_per_px) {
+        eprintln!("armspace: {e}");
+        return ExitCode::from(EXIT_USAGE);
     }
     // Every output is checked before the first image is measured: none may
     // replace an input (after resolving links), and each must be writable.
@@ -536,6 +556,58 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
         report::Outcome::NotMeasured => EXIT_NOT_MEASURED,
         report::Outcome::Indeterminate => EXIT_INDETERMINATE,
     })
+}
+
+/// A point of `--at` that lies outside every image is a mistake in the
+/// command (a unit slip, x and y swapped), caught before anything is
+/// measured when the images' sizes are known in the point's unit: pixels,
+/// or um with `--um-per-px`. Otherwise (a calibration from the scale bar)
+/// each image's entry says that the point lies outside it.
+fn points_in_some_image(
+    points: &[armspace::spatial::AtSpec],
+    inputs: &[armspace::load::Input],
+    manual: Option<armspace::units::UmPerPx>,
+) -> Result<(), String> {
+    use armspace::spatial::LengthUnit;
+    if points.is_empty() {
+        return Ok(());
+    }
+    let sizes: Vec<(u32, u32)> = inputs
+        .iter()
+        .filter_map(|i| match i {
+            armspace::load::Input::Image(p) => armspace::load::read_header(p).ok(),
+            _ => None,
+        })
+        .map(|h| (h.width, h.height))
+        .collect();
+    let Some(&(wmax, hmax)) = sizes
+        .iter()
+        .max_by_key(|(w, h)| u64::from(*w) * u64::from(*h))
+    else {
+        return Ok(());
+    };
+    for p in points {
+        let cal = match (p.unit, manual) {
+            (LengthUnit::Pixels, _) => armspace::units::UmPerPx::new(1.0).ok(),
+            (LengthUnit::Micrometres, m) => m,
+        };
+        let Some(cal) = cal else { continue };
+        if !sizes.iter().any(|&(w, h)| p.inside(w, h, cal)) {
+            let (unit, w, h) = match p.unit {
+                LengthUnit::Pixels => ("px", f64::from(wmax), f64::from(hmax)),
+                LengthUnit::Micrometres => (
+                    "um",
+                    f64::from(wmax) * cal.get(),
+                    f64::from(hmax) * cal.get(),
+                ),
+            };
+            return Err(format!(
+                "invalid value '{}' for '--at': the point lies outside every image (the largest is {w:.1} x {h:.1} {unit}; positions are from the top-left corner, x to the right, y down)",
+                p.text
+            ));
+        }
+    }
+    Ok(())
 }
 
 /// No image taken over from a journal.

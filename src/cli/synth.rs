@@ -28,6 +28,13 @@ pub(super) struct SynthArgs {
     /// etched alternate. The same seed gives the same fields in any style.
     #[arg(long, value_enum)]
     style: Option<armspace::synth::Style>,
+    /// Give every field a spacing that steps across it from the left edge
+    /// (as from a chilled wall inwards): F0:F1[:N] draws N bands (8 when
+    /// not given) whose spacing steps evenly from F0 to F1 times the
+    /// field's; 1:1.5:2 is two parts. Each band and the slope are in
+    /// truth.json (bands, gradient_um_per_mm).
+    #[arg(long, value_name = "F0:F1[:N]", value_parser = armspace::synth::Gradient::parse, conflicts_with = "fields")]
+    gradient: Option<armspace::synth::Gradient>,
     /// Write into a folder that already holds files (images of the same
     /// names and truth.json are replaced; others stay and are not in the truth).
     #[arg(long)]
@@ -48,11 +55,12 @@ pub(super) fn run(args: SynthArgs) -> ExitCode {
         return ExitCode::from(EXIT_USAGE);
     }
     let result = match &args.fields {
-        None => armspace::synth::write_set_styled(
+        None => armspace::synth::write_set_graded(
             &args.outdir,
             args.seed,
             args.count as usize,
             args.style,
+            args.gradient,
         )
         .map_err(|e| e.to_string()),
         Some(path) => armspace::files::read_text(path, "field-description file")

@@ -10,11 +10,13 @@
 //! names a string can take). `tests/schema.rs` checks the committed
 //! schema/report.schema.json against it (`ARMSPACE_BLESS=1` rewrites it).
 
+mod at;
 mod csv_rows;
 pub mod html;
 pub mod names;
 mod per_method;
 mod schema;
+pub use at::{at_report, profile_report, AtMethodReport, AtReport, BinReport, ProfileReport};
 pub use csv_rows::{csv_summary, CSV_COLUMNS};
 pub use per_method::*;
 pub use schema::json_schema;
@@ -104,6 +106,12 @@ pub struct Parameters {
     #[serde(skip_serializing_if = "Option::is_none")]
     #[schemars(with = "InterpretationParameters")]
     pub interpretation: Option<InterpretationParameters>,
+    /// The points of --at as given, in order; absent without it.
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub at: Vec<String>,
+    /// The lines of --along as given, in order; absent without it.
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub along: Vec<String>,
 }
 
 /// The interpretation settings (--correlation).
@@ -208,6 +216,15 @@ pub struct ImageReport {
     #[serde(skip_serializing_if = "Option::is_none")]
     #[schemars(with = "Acceptance")]
     pub acceptance: Option<Acceptance>,
+    /// The local SDAS at each point asked for with --at, in the order
+    /// given; absent without --at (and for an image that could not be
+    /// measured).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub at: Vec<AtReport>,
+    /// SDAS against distance along each line asked for with --along, in
+    /// the order given; absent without --along.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub profile: Vec<ProfileReport>,
 }
 
 /// The calibration applied to the image.
@@ -629,6 +646,11 @@ pub fn image_report(r: &ImageResult, opts: &MeasureOptions) -> ImageReport {
             compared_ci95_um: a.compared_ci95_um.map(|[x, y]| [round(x, 4), round(y, 4)]),
             ..a.clone()
         }),
+        at: match cal {
+            Some(c) => r.at.iter().map(|a| at_report(a, c.get())).collect(),
+            None => vec![],
+        },
+        profile: r.profiles.iter().map(profile_report).collect(),
     }
 }
 
@@ -777,6 +799,8 @@ pub fn parameters(inputs: &[String], opts: &MeasureOptions) -> Parameters {
             freezing_range_k: s.freezing_range.map(|k| k.0),
             extrapolate: s.extrapolate,
         }),
+        at: opts.at.iter().map(|a| a.text.clone()).collect(),
+        along: opts.along.iter().map(|a| a.text.clone()).collect(),
     }
 }
 

@@ -96,6 +96,8 @@ pub(crate) fn render(spec: &FieldSpec) -> Result<(Gray16, Truth), SynthError> {
         stems: None,
         drawn_as: None,
         light_phase_fraction: None,
+        bands: None,
+        gradient_um_per_mm: None,
     };
     Ok((img, truth))
 }

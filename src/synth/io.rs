@@ -96,6 +96,19 @@ pub fn write_set_styled(
     count: usize,
     style: Option<Style>,
 ) -> Result<Vec<Truth>, SynthError> {
+    write_set_graded(outdir, seed, count, style, None)
+}
+
+/// `write_set_styled` with every field given the spacing `gradient` when
+/// one is given (the random draws are those of `write_set_styled`: the same
+/// fields, their spacing stepping across them).
+pub fn write_set_graded(
+    outdir: &Path,
+    seed: u64,
+    count: usize,
+    style: Option<Style>,
+    gradient: Option<super::Gradient>,
+) -> Result<Vec<Truth>, SynthError> {
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
     let named: Vec<NamedSpec> = (0..count)
         .map(|i| NamedSpec {
@@ -104,7 +117,10 @@ pub fn write_set_styled(
             } else {
                 format!("img_{i:03}.png")
             },
-            spec: random_spec_styled(&mut rng, i, style),
+            spec: FieldSpec {
+                gradient,
+                ..random_spec_styled(&mut rng, i, style)
+            },
         })
         .collect();
     write_specs(outdir, &named, Some(seed))

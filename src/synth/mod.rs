@@ -20,6 +20,7 @@ mod featureless;
 pub use featureless::draw_text;
 mod geom;
 mod glyphs;
+mod graded;
 mod io;
 mod layout;
 mod post;
@@ -32,9 +33,10 @@ use rand_chacha::ChaCha8Rng;
 use serde::{Deserialize, Serialize};
 use std::path::PathBuf;
 
+pub use graded::{BandTruth, Gradient};
 pub use io::{
-    write_image, write_set, write_set_styled, write_specs, BitDepth, NamedSpec, SpecFile,
-    TRUTH_SCHEMA,
+    write_image, write_set, write_set_graded, write_set_styled, write_specs, BitDepth, NamedSpec,
+    SpecFile, TRUTH_SCHEMA,
 };
 pub use spec::{random_spec, random_spec_styled};
 
@@ -180,6 +182,10 @@ pub struct FieldSpec {
     pub illumination: f64,
     pub scale_bar: Option<ScaleBarSpec>,
     pub seed: u64,
+    /// A spacing that steps across the image from the left edge (bands of
+    /// their own spacing); absent for a field of one spacing.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub gradient: Option<Gradient>,
 }
 
 /// Where the scale bar was drawn.
@@ -280,6 +286,15 @@ pub struct Truth {
     /// (arms plus light holes of the lace), before any inversion.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub light_phase_fraction: Option<f64>,
+    /// A field with a gradient (`FieldSpec::gradient`): each band as drawn,
+    /// left to right. `sdas_px` and `sdas_um` are then over all bands.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub bands: Option<Vec<BandTruth>>,
+    /// A field with a gradient: the least-squares slope of the bands' drawn
+    /// spacing against the distance of their centres from the left edge,
+    /// um of spacing per mm.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub gradient_um_per_mm: Option<f64>,
 }
 
 /// Errors of the synthetic generator.
@@ -308,6 +323,9 @@ pub enum SynthError {
 /// Render one synthetic micrograph and its truth record (`file` left empty).
 pub fn render(spec: &FieldSpec) -> Result<(Gray16, Truth), SynthError> {
     spec::validate(spec)?;
+    if let Some(g) = &spec.gradient {
+        return graded::render_graded(spec, g);
+    }
     if !matches!(spec.style, Style::Clean | Style::Etched) {
         return real::render(spec);
     }
@@ -403,6 +421,8 @@ pub fn render(spec: &FieldSpec) -> Result<(Gray16, Truth), SynthError> {
         stems: None,
         drawn_as: None,
         light_phase_fraction: None,
+        bands: None,
+        gradient_um_per_mm: None,
     };
     Ok((img, truth))
 }

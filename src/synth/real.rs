@@ -152,6 +152,8 @@ pub(crate) fn render(spec: &FieldSpec) -> Result<(Gray16, Truth), SynthError> {
         stems,
         drawn_as: (spec.style == Style::Binary).then_some(drawn_as),
         light_phase_fraction: light.map(|l| q(l, 9)),
+        bands: None,
+        gradient_um_per_mm: None,
     };
     Ok((img, truth))
 }

@@ -166,6 +166,8 @@ pub fn random_spec_styled(rng: &mut impl Rng, index: usize, style: Option<Style>
     };
     FieldSpec {
         width,
+        gradient: None,
+
         height,
         morphology,
         style,

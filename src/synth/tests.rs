@@ -2,6 +2,7 @@ use super::*;
 
 fn base(morphology: Morphology, style: Style) -> FieldSpec {
     FieldSpec {
+        gradient: None,
         width: 300,
         height: 240,
         morphology,
@@ -132,6 +133,63 @@ fn synth_serde_names() {
     let j = serde_json::to_string(&(Morphology::Equiaxed, Style::Etched, Polarity::DarkOnLight))
         .expect("json");
     assert_eq!(j, r#"["equiaxed","etched","dark-on-light"]"#);
+}
+
+#[test]
+fn a_gradient_draws_bands_of_stepped_spacing_with_its_truth() {
+    // The bands' drawn spacing follows the factors (within the arms'
+    // jitter: a tenth, over some tens of spacings), the whole field's is
+    // the count-weighted mean of the bands', and the slope is the
+    // least-squares one of the bands against their centres (its
+    // definition; common practice, no single source).
+    let spec = FieldSpec {
+        width: 600,
+        gradient: Some(Gradient::parse("1:2:3").expect("gradient")),
+        ..base(Morphology::Columnar, Style::Clean)
+    };
+    let (img, t) = render(&spec).expect("render");
+    assert_eq!((img.width(), img.height()), (600, 240));
+    let bands = t.bands.clone().expect("bands in the truth");
+    assert_eq!(
+        bands.iter().map(|b| (b.x0_px, b.x1_px)).collect::<Vec<_>>(),
+        [(0, 200), (200, 400), (400, 600)]
+    );
+    for b in &bands {
+        let want = 12.0 * b.factor;
+        assert!((b.sdas_px / want - 1.0).abs() < 0.1, "{b:?}");
+        assert!((b.sdas_um - b.sdas_px * 0.5).abs() < 1e-6);
+    }
+    let n: usize = bands.iter().map(|b| b.sdas_count).sum();
+    let mean = bands
+        .iter()
+        .map(|b| b.sdas_px * b.sdas_count as f64)
+        .sum::<f64>()
+        / n as f64;
+    assert_eq!(t.sdas_count, n);
+    assert!((t.sdas_px - mean).abs() < 1e-6);
+    // Centres at 50, 150 and 250 um = 0.05, 0.15, 0.25 mm: slope (s3 - s1) / 0.2.
+    let slope = (bands[2].sdas_um - bands[0].sdas_um) / 0.2;
+    assert!((t.gradient_um_per_mm.expect("slope") - slope).abs() < 1e-3);
+    assert!(t.scale_bar.is_some());
+    // The same spec renders the same pixels; without a gradient nothing of
+    // it is written.
+    assert_eq!(render(&spec).expect("again").0.as_raw(), img.as_raw());
+    let plain = serde_json::to_string(
+        &render(&base(Morphology::Columnar, Style::Clean))
+            .expect("plain")
+            .1,
+    )
+    .expect("json");
+    assert!(!plain.contains("gradient") && !plain.contains("bands"));
+    // Nothing to grade in a featureless field; bad text is refused.
+    let featureless = FieldSpec {
+        gradient: spec.gradient,
+        ..base(Morphology::Columnar, Style::Featureless)
+    };
+    assert!(render(&featureless).is_err());
+    for bad in ["1", "1:x", "0:1", "1:2:0", "1:2:3:4"] {
+        assert!(Gradient::parse(bad).unwrap_err().contains(bad), "{bad}");
+    }
 }
 
 #[test]
