@@ -966,6 +966,19 @@ pub fn at(
             }
         }
     }
+    // No radius within the bound had the measurements a value needs: what
+    // the whole image gives says nothing about the point, so none of it is
+    // reported for the point.
+    if let (Some(s), None) = (&stop, &last) {
+        return result(
+            None,
+            Estimate::none(format!(
+                "{s}: within it, fewer methods than a value needs (two, or the only one run) have the {MIN_LOCAL_INDEPENDENT} independent local measurements each needs"
+            )),
+            Vec::new(),
+            None,
+        );
+    }
     let (reach, mut e, m, pop) = match last {
         Some(l) => l,
         None => {
