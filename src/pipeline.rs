@@ -406,10 +406,21 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         }
         a
     });
-    // The picture is drawn last, so that its panel can state the decision.
-    let drawn = overlay_base.map(|base| {
-        crate::overlay::measurement(&base, bar.as_ref(), &found, &outcomes, opts.fft.min_quality)
-    });
+    // The picture is drawn last, so that its panel can state the decision;
+    // once for each width it is shown at (its strokes are set for that
+    // width), one copy at a time.
+    let draw = |shown: Option<u32>| {
+        overlay_base.as_ref().map(|base| {
+            crate::overlay::measurement(
+                base,
+                bar.as_ref(),
+                &found,
+                &outcomes,
+                opts.fft.min_quality,
+                shown,
+            )
+        })
+    };
     let file = path.display().to_string();
     let caption = crate::overlay::Caption {
         file: &file,
@@ -423,9 +434,9 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
     // text is set for the width the page shows.
     let thumbnail = opts
         .thumbnail_width
-        .zip(drawn.as_ref())
+        .and_then(|width| Some((width, draw(Some(width))?)))
         .and_then(|(width, picture)| {
-            let small = crate::overlay::fit_width(picture.clone(), Some(width));
+            let small = crate::overlay::fit_width(picture, Some(width));
             match crate::overlay::encode_jpeg_within(
                 &crate::overlay::with_panel(small, &caption),
                 crate::overlay::PAGE_PICTURE_BYTES,
@@ -443,7 +454,7 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
     let overlay = opts
         .overlay_dir
         .as_ref()
-        .zip(drawn)
+        .and_then(|dir| Some((dir, draw(opts.overlay_max_width)?)))
         .and_then(|(dir, picture)| {
             let picture = crate::overlay::fit_width(picture, opts.overlay_max_width);
             let picture = crate::overlay::with_panel(picture, &caption);

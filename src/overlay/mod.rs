@@ -41,10 +41,32 @@ pub const RED: Rgb<u8> = Rgb([213, 94, 0]); // vermillion
 pub const BLUE: Rgb<u8> = Rgb([0, 114, 178]);
 
 /// Width of the marks' strokes, px: one pixel per 500 of the picture's
-/// shorter side (at least one), so that a picture scaled down to a report's
-/// column (about 800 px) keeps its marks at least a pixel wide.
-fn stroke_width(out: &RgbImage) -> u32 {
-    (out.width().min(out.height()) / 500).max(1)
+/// shorter side (at least one), and, when the picture will be shown scaled
+/// down to `shown_width` pixels wide (a factor f), at least 2.5 f, that is
+/// 2.5 pixels after scaling. The scaling's triangle filter averages over f
+/// pixels on either side of each new pixel's centre, which lies up to f / 2
+/// off the stroke's middle; a stroke 2.5 f wide then covers all of that
+/// filter but its outer tails (3 % of its weight in one dimension), so the
+/// pixel nearest the stroke's middle keeps nearly the mark's own colour at
+/// any sub-pixel position, and every kind of mark stays visible and told
+/// apart by its colour at a report's width (`tests/overlay_marks.rs`).
+fn stroke_width(out: &RgbImage, shown_width: Option<u32>) -> u32 {
+    let own = (out.width().min(out.height()) / 500).max(1);
+    match shown_width {
+        Some(w) if w > 0 && w < out.width() => {
+            own.max((2.5 * out.width() as f64 / w as f64).ceil() as u32)
+        }
+        _ => own,
+    }
+}
+
+/// A rectangle's outline `width` pixels thick, growing outwards from `r`.
+fn thick_rect(out: &mut RgbImage, r: [u32; 4], width: u32, colour: Rgb<u8>) {
+    for g in 0..width {
+        if let Some(r) = rect(r, g) {
+            draw_hollow_rect_mut(out, r, colour);
+        }
+    }
 }
 
 /// A straight stroke `width` pixels wide from a to b: parallel one-pixel
@@ -97,16 +119,26 @@ fn rect(r: [u32; 4], grow: u32) -> Option<Rect> {
 /// measured length marked by a line under it, and the excluded region.
 pub fn calibration(img: &GrayImage, bar: Option<&ScaleBar>) -> RgbImage {
     let mut out = to_rgb(img);
-    draw_bar(&mut out, bar);
+    let width = stroke_width(&out, None);
+    draw_bar(&mut out, bar, width);
     out
 }
 
 /// A line segment centred at (cx, cy), `len` long, at `dir_deg`
 /// counter-clockwise from +x with y up (the methods' convention).
-fn segment(out: &mut RgbImage, cx: f64, cy: f64, dir_deg: f64, len: f64, colour: Rgb<u8>) {
+#[allow(clippy::too_many_arguments)]
+fn segment(
+    out: &mut RgbImage,
+    cx: f64,
+    cy: f64,
+    dir_deg: f64,
+    len: f64,
+    colour: Rgb<u8>,
+    width: u32,
+) {
     let (c, s) = (dir_deg.to_radians().cos(), dir_deg.to_radians().sin());
     let (dx, dy) = (0.5 * len * c, -0.5 * len * s);
-    let width = stroke_width(out) + 1;
+    let width = width + 1;
     stroke(
         out,
         ((cx - dx) as f32, (cy - dy) as f32),
@@ -118,66 +150,70 @@ fn segment(out: &mut RgbImage, cx: f64, cy: f64, dir_deg: f64, len: f64, colour:
 
 /// The micrograph with what was measured: the FFT tiles' directions, the
 /// intercept lines with their arm centres, the scale bar and excluded
-/// region, and the annotations left out.
+/// region, and the annotations left out. `shown_width`: the width the
+/// picture will be scaled down to, when it will be (the strokes are drawn
+/// wide enough to stay visible there; see [`stroke_width`]).
 pub fn measurement(
     img: &image::GrayImage,
     bar: Option<&ScaleBar>,
     annotations: &[Annotation],
     outcomes: &[Outcome],
     fft_min_quality: f64,
+    shown_width: Option<u32>,
 ) -> RgbImage {
     let mut out = RgbImage::from_fn(img.width(), img.height(), |x, y| {
         let v = img.get_pixel(x, y)[0];
         Rgb([v, v, v])
     });
+    let width = stroke_width(&out, shown_width);
     for o in outcomes {
         match &o.detail {
-            Detail::Fft(f) => draw_fft(&mut out, f, fft_min_quality),
-            Detail::Intercept(i) => draw_intercept(&mut out, i),
-            Detail::Centres(c) => draw_centres(&mut out, c),
+            Detail::Fft(f) => draw_fft(&mut out, f, fft_min_quality, width),
+            Detail::Intercept(i) => draw_intercept(&mut out, i, width),
+            Detail::Centres(c) => draw_centres(&mut out, c, width),
         }
     }
-    draw_bar(&mut out, bar);
-    draw_annotations(&mut out, annotations);
+    draw_bar(&mut out, bar, width);
+    draw_annotations(&mut out, annotations, width);
     out
 }
 
 /// Each annotation left out, outlined in yellow: its box, or for the
 /// outside of a round field of view the rim of the field kept.
-fn draw_annotations(out: &mut RgbImage, annotations: &[Annotation]) {
+fn draw_annotations(out: &mut RgbImage, annotations: &[Annotation], width: u32) {
     for a in annotations {
         match a.field_px {
-            Some([cx, cy, ax, ay]) => imageproc::drawing::draw_hollow_ellipse_mut(
-                out,
-                (cx.round() as i32, cy.round() as i32),
-                ax.round() as i32,
-                ay.round() as i32,
-                YELLOW,
-            ),
-            None => {
-                if let Some(r) = rect(a.rect, 0) {
-                    draw_hollow_rect_mut(out, r, YELLOW);
+            Some([cx, cy, ax, ay]) => {
+                for g in 0..width as i32 {
+                    imageproc::drawing::draw_hollow_ellipse_mut(
+                        out,
+                        (cx.round() as i32, cy.round() as i32),
+                        ax.round() as i32 + g,
+                        ay.round() as i32 + g,
+                        YELLOW,
+                    )
                 }
             }
+            None => thick_rect(out, a.rect, width, YELLOW),
         }
     }
 }
 
 /// Each analysed tile's direction: cyan where it entered the value, short
 /// orange where it was reliable but rejected as an outlier.
-fn draw_fft(out: &mut RgbImage, f: &FftOutcome, fft_min_quality: f64) {
+fn draw_fft(out: &mut RgbImage, f: &FftOutcome, fft_min_quality: f64, width: u32) {
     let len = 0.4 * f.window_px as f64;
     for t in f.tiles.iter().filter(|t| t.spacing_px.is_finite()) {
         if t.used {
-            segment(out, t.cx_px, t.cy_px, t.dir_deg, len, CYAN);
+            segment(out, t.cx_px, t.cy_px, t.dir_deg, len, CYAN, width);
         } else if t.quality >= fft_min_quality {
-            segment(out, t.cx_px, t.cy_px, t.dir_deg, 0.5 * len, ORANGE);
+            segment(out, t.cx_px, t.cy_px, t.dir_deg, 0.5 * len, ORANGE, width);
         }
     }
 }
 
 /// Each test line in green, with red ticks at the arm centres it counted.
-fn draw_intercept(out: &mut RgbImage, i: &InterceptOutcome) {
+fn draw_intercept(out: &mut RgbImage, i: &InterceptOutcome, width: u32) {
     for l in &i.lines {
         let (x0, y0, x1, y1) = (
             l.x0_px as f32,
@@ -185,7 +221,6 @@ fn draw_intercept(out: &mut RgbImage, i: &InterceptOutcome) {
             l.x1_px as f32,
             l.y1_px as f32,
         );
-        let width = stroke_width(out);
         stroke(out, (x0, y0), (x1, y1), GREEN, width);
         // Ticks across the line at each arm centre, their length scaled
         // with the strokes.
@@ -201,14 +236,13 @@ fn draw_intercept(out: &mut RgbImage, i: &InterceptOutcome) {
 
 /// Each chain of arm centres as a blue polyline (orange when it runs across
 /// rows and was not used), with a dot at each centre.
-fn draw_centres(out: &mut RgbImage, c: &CentresOutcome) {
+fn draw_centres(out: &mut RgbImage, c: &CentresOutcome, width: u32) {
     for ch in &c.chains {
         let colour = if ch.used && c.value_px.is_some() {
             BLUE
         } else {
             ORANGE
         };
-        let width = stroke_width(out);
         for pair in ch.points.windows(2) {
             let (a, b) = (pair[0], pair[1]);
             stroke(
@@ -223,20 +257,20 @@ fn draw_centres(out: &mut RgbImage, c: &CentresOutcome) {
             imageproc::drawing::draw_filled_circle_mut(
                 out,
                 (p[0].round() as i32, p[1].round() as i32),
-                2 * width as i32,
+                width as i32 + 1,
                 colour,
             );
         }
     }
 }
 
-fn draw_bar(out: &mut RgbImage, bar: Option<&ScaleBar>) {
+fn draw_bar(out: &mut RgbImage, bar: Option<&ScaleBar>, width: u32) {
     let h = out.height();
     if let Some(b) = bar {
-        if let Some(r) = rect(b.mask, 0) {
-            draw_hollow_rect_mut(out, r, YELLOW);
-        }
-        for grow in [2, 3] {
+        thick_rect(out, b.mask, width, YELLOW);
+        // Outlined two pixels outside the bar, the outline as thick as the
+        // other strokes (at least two pixels, as it always was).
+        for grow in 2..2 + width.max(2) {
             if let Some(r) = rect([b.x0, b.y0, b.x1, b.y1], grow) {
                 draw_hollow_rect_mut(out, r, MAGENTA);
             }
@@ -244,10 +278,15 @@ fn draw_bar(out: &mut RgbImage, bar: Option<&ScaleBar>) {
         // The measured length, centred on the bar, drawn below it.
         let cx = 0.5 * (b.x0 + b.x1) as f32;
         let half = 0.5 * b.length_px as f32;
-        let y = (b.y1 + 6).min(h.saturating_sub(1)) as f32;
-        draw_line_segment_mut(out, (cx - half, y), (cx + half - 1.0, y), MAGENTA);
+        let y = (b.y1 + 4 + 2 * width.max(2)).min(h.saturating_sub(1)) as f32;
+        let tick = 3.0 * width as f32;
+        if width <= 1 {
+            draw_line_segment_mut(out, (cx - half, y), (cx + half - 1.0, y), MAGENTA);
+        } else {
+            stroke(out, (cx - half, y), (cx + half - 1.0, y), MAGENTA, width);
+        }
         for x in [cx - half, cx + half - 1.0] {
-            draw_line_segment_mut(out, (x, y - 3.0), (x, y + 3.0), MAGENTA);
+            stroke(out, (x, y - tick), (x, y + tick), MAGENTA, width);
         }
     }
 }
