@@ -58,6 +58,8 @@ fn demo_page() -> Page {
         &path_str(&d.join("pictures")),
         "--html",
         &path_str(&d.join("page.html")),
+        "--at",
+        "300,300",
     ]);
     assert!(
         run.stderr.contains("HTML page written to"),
@@ -133,9 +135,25 @@ fn the_page_holds_every_image_with_its_value_decision_and_picture() {
 
     let images = page.report["images"].as_array().unwrap();
     assert_eq!(images.len(), 5);
+    // The spec's zones, each with its verdict.
+    let zones = page.report["summary"]["acceptance"]["zones"]
+        .as_array()
+        .unwrap();
+    let zone_table: String = doc
+        .select(&sel("h2 + table"))
+        .next()
+        .unwrap()
+        .text()
+        .collect();
+    for z in zones {
+        assert!(
+            zone_table.contains(z["zone"].as_str().unwrap()),
+            "{zone_table}"
+        );
+    }
     // One row per image in the table, one panel per image.
     let rows: Vec<_> = doc
-        .select(&sel("table"))
+        .select(&sel("table#images"))
         .next()
         .unwrap()
         .select(&sel("tr"))
@@ -169,6 +187,15 @@ fn the_page_holds_every_image_with_its_value_decision_and_picture() {
         }
         if let Some(e) = im["error"].as_str() {
             assert!(panel_text.contains(e), "{panel_text}");
+        } else {
+            // The point asked for, with its value or the reason it has none.
+            let at = &im["at"][0];
+            assert!(panel_text.contains("(--at)"), "{panel_text}");
+            let said = match at["value_um"].as_f64() {
+                Some(v) => format!("{v}"),
+                None => at["reason"].as_str().unwrap().to_string(),
+            };
+            assert!(panel_text.contains(&said), "{said}");
         }
     }
     // Every picture decodes, is the page's width at most, and links the

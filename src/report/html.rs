@@ -353,11 +353,44 @@ pub fn page(
         esc(&params)
     );
 
+    // The zones of the spec, each with its verdict (and its pooled mean).
+    if let Some(zones) = summary["acceptance"]["zones"]
+        .as_array()
+        .filter(|z| !z.is_empty())
+    {
+        h.push_str("<h2>Zones</h2><table><tr><th>Zone</th><th>Limit (um)</th><th>Images</th><th>Pass</th><th>Fail</th><th>Indeterminate</th><th>Verdict</th><th>Pooled mean (um)</th></tr>");
+        for z in zones {
+            let (class, words) = decision(&z["verdict"]);
+            let pooled = if z["pooled"].is_object() {
+                let p = &z["pooled"];
+                format!(
+                    "{} (95 % interval {}); {}",
+                    num(&p["value_um"]),
+                    interval(&p["ci95_um"]),
+                    text(&p["reason"])
+                )
+            } else {
+                "&ndash;".into()
+            };
+            let _ = write!(
+                h,
+                "<tr><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td><span class=\"{class}\">{words}</span></td><td>{pooled}</td></tr>",
+                z["zone"].as_str().map(esc).unwrap_or_else(|| "general limit".into()),
+                num(&z["limit_um"]),
+                num(&z["images"]),
+                num(&z["pass"]),
+                num(&z["fail"]),
+                num(&z["indeterminate"])
+            );
+        }
+        h.push_str("</table>\n");
+    }
+
     // Table of all images.
     let images = r["images"].as_array().cloned().unwrap_or_default();
     let _ = write!(
         h,
-        "<h2>All images</h2><table><tr><th>#</th><th>File</th><th>SDAS (um)</th><th>95 % interval (um)</th><th>n</th><th>Methods</th><th>Calibration</th><th>Decision</th></tr>"
+        "<h2>All images</h2><table id=\"images\"><tr><th>#</th><th>File</th><th>SDAS (um)</th><th>95 % interval (um)</th><th>n</th><th>Methods</th><th>Calibration</th><th>Decision</th></tr>"
     );
     for (k, im) in images.iter().enumerate() {
         let s = &im["sdas_um"];
@@ -561,6 +594,44 @@ pub fn page(
                 text(&c["law"]),
                 text(&c["source"])
             );
+        }
+        if let Some(points) = im["at"].as_array().filter(|a| !a.is_empty()) {
+            h.push_str("<p>SDAS at points asked for (--at):</p><table><tr><th>Point (um)</th><th>Radius (um)</th><th>SDAS (um)</th><th>95 % interval (um)</th><th>Note</th></tr>");
+            for a in points {
+                let _ = write!(
+                    h,
+                    "<tr><td>{} ({}, {})</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+                    text(&a["given"]),
+                    num(&a["x_um"]),
+                    num(&a["y_um"]),
+                    num(&a["radius_um"]),
+                    num(&a["value_um"]),
+                    interval(&a["ci95_um"]),
+                    text(&a["reason"])
+                );
+            }
+            h.push_str("</table>");
+        }
+        if let Some(lines) = im["profile"].as_array().filter(|a| !a.is_empty()) {
+            for l in lines {
+                let _ = write!(
+                    h,
+                    "<p>SDAS along {} (--along), bins of {} um:</p><table><tr><th>Distance (um)</th><th>SDAS (um)</th><th>95 % interval (um)</th><th>Note</th></tr>",
+                    text(&l["given"]),
+                    num(&l["bin_um"])
+                );
+                for b in l["bins"].as_array().into_iter().flatten() {
+                    let _ = write!(
+                        h,
+                        "<tr><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+                        num(&b["distance_um"]),
+                        num(&b["value_um"]),
+                        interval(&b["ci95_um"]),
+                        text(&b["reason"])
+                    );
+                }
+                h.push_str("</table>");
+            }
         }
         if let Some(ws) = im["warnings"].as_array().filter(|w| !w.is_empty()) {
             h.push_str("<p>Warnings:</p><ul>");
