@@ -353,8 +353,17 @@ pub fn is_own_picture(path: &Path) -> bool {
     own_picture_bytes(&head)
 }
 
+/// The comment a JPEG picture of this tool carries ("Software: armspace
+/// overlay", from [`OWN_PICTURE_TEXT`]).
+pub fn own_picture_comment() -> Vec<u8> {
+    format!("{}: {}", OWN_PICTURE_TEXT.0, OWN_PICTURE_TEXT.1).into_bytes()
+}
+
 fn own_picture_bytes(head: &[u8]) -> bool {
     const SIGNATURE: &[u8] = b"\x89PNG\r\n\x1a\n";
+    if head.starts_with(&[0xFF, 0xD8]) {
+        return own_jpeg_bytes(head);
+    }
     if !head.starts_with(SIGNATURE) {
         return false;
     }
@@ -374,6 +383,29 @@ fn own_picture_bytes(head: &[u8]) -> bool {
             (b"tEXt", Some(d)) if d.starts_with(&want) => return true,
             _ => at += 12 + len,
         }
+    }
+    false
+}
+
+/// Whether a JPEG's segments before its scan data hold the comment of
+/// [`own_picture_comment`] (ITU-T T.81 B.1.1.4: each marker segment after
+/// SOI is FF, a marker byte and a two-byte length that counts itself).
+fn own_jpeg_bytes(head: &[u8]) -> bool {
+    let want = own_picture_comment();
+    let mut at = 2;
+    while at + 4 <= head.len() {
+        if head[at] != 0xFF {
+            return false;
+        }
+        let marker = head[at + 1];
+        let len = u16::from_be_bytes([head[at + 2], head[at + 3]]) as usize;
+        if marker == 0xDA || len < 2 {
+            return false; // start of scan: no comment before the image data
+        }
+        if marker == 0xFE && head.get(at + 4..at + 2 + len) == Some(&want[..]) {
+            return true;
+        }
+        at += 2 + len;
     }
     false
 }

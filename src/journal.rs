@@ -62,6 +62,9 @@ struct Fingerprint {
     /// Only when given, so that journals of runs without it still match.
     #[serde(skip_serializing_if = "Option::is_none", default)]
     overlay_max_width: Option<u32>,
+    /// Only when not the default PNG, for the same reason.
+    #[serde(skip_serializing_if = "Option::is_none", default)]
+    overlay_format: Option<crate::overlay::PictureFormat>,
     correlation_entries_sha256: Option<String>,
 }
 
@@ -82,6 +85,7 @@ pub fn fingerprint(inputs: &[String], opts: &MeasureOptions) -> Value {
             .as_ref()
             .map(|d| lexical(&d.display().to_string())),
         overlay_max_width: opts.overlay_max_width,
+        overlay_format: (opts.overlay_format != Default::default()).then_some(opts.overlay_format),
         // The report names the correlation; its coefficients and those of
         // the alternatives beside it may come from a file that changed.
         correlation_entries_sha256: opts.interpret.as_ref().map(|s| {

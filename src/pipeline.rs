@@ -35,6 +35,8 @@ pub struct MeasureOptions {
     pub overlay_dir: Option<PathBuf>,
     /// Largest width of a picture, px (wider ones are scaled down).
     pub overlay_max_width: Option<u32>,
+    /// The pictures' file format.
+    pub overlay_format: crate::overlay::PictureFormat,
     /// Width, px, of a small copy of each picture kept in memory for the
     /// HTML page (`--html`); the picture is then drawn even without
     /// `overlay_dir`.
@@ -67,6 +69,7 @@ impl MeasureOptions {
             methods: Method::ALL.to_vec(),
             overlay_dir: None,
             overlay_max_width: None,
+            overlay_format: Default::default(),
             thumbnail_width: None,
             protected: crate::files::Protected::default(),
             interpret: None,
@@ -458,7 +461,11 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         .and_then(|(dir, picture)| {
             let picture = crate::overlay::fit_width(picture, opts.overlay_max_width);
             let picture = crate::overlay::with_panel(picture, &caption);
-            let target = dir.join(overlay_name(path, &info.sha256));
+            let target = dir.join(overlay_name(
+                path,
+                &info.sha256,
+                opts.overlay_format.extension(),
+            ));
             if opts.protected.is_protected(&target) {
                 warnings.push(Warning::new(
                     "overlay.not-written",
@@ -469,7 +476,7 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
                 ));
                 return None;
             }
-            match crate::overlay::write_png(&target, &picture) {
+            match opts.overlay_format.write(&target, &picture) {
                 Ok(()) => Some(target),
                 Err(e) => {
                     warnings.push(Warning::new(
@@ -504,12 +511,12 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
 /// File name of an image's overlay: its stem and the first eight hex digits
 /// of its SHA-256, so that images of the same name in different folders do
 /// not overwrite each other's pictures.
-pub fn overlay_name(path: &std::path::Path, sha256: &str) -> String {
+pub fn overlay_name(path: &std::path::Path, sha256: &str, extension: &str) -> String {
     let stem = path
         .file_stem()
         .map(|s| s.to_string_lossy().into_owned())
         .unwrap_or_else(|| "image".into());
-    format!("{stem}-{}.png", &sha256[..sha256.len().min(8)])
+    format!("{stem}-{}.{extension}", &sha256[..sha256.len().min(8)])
 }
 
 /// Measures a batch in parallel; results come back in input order.

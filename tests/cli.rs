@@ -717,3 +717,49 @@ fn pictures_fit_the_width_asked_for() {
     ]);
     assert_eq!(run.code, 2, "{}", run.stderr);
 }
+
+#[test]
+fn jpeg_pictures_are_written_and_never_measured_again() {
+    // --overlay-format jpeg: a JPEG picture (ISO/IEC 10918-1, decoded by
+    // the image crate), named .jpg, and skipped as the tool's own when a
+    // later run is given the folder that holds it.
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let comb = d.join("comb.png");
+    write_comb_png(&comb, 400, 300, 12.0);
+    let run = armspace(&[
+        "measure",
+        &path_str(&comb),
+        "--um-per-px",
+        "0.5",
+        "--overlay",
+        &path_str(d),
+        "--overlay-format",
+        "jpeg",
+    ]);
+    assert!(run.code == 0 || run.code == 3, "{}", run.stderr);
+    let rep = report(&run);
+    let p = rep["images"][0]["overlay"].as_str().unwrap().to_string();
+    assert!(p.ends_with(".jpg"), "{p}");
+    let bytes = std::fs::read(&p).unwrap();
+    assert_eq!(&bytes[..2], &[0xFF, 0xD8]);
+    let img = image::load_from_memory_with_format(&bytes, image::ImageFormat::Jpeg).unwrap();
+    assert_eq!(img.width(), 400);
+    // The folder now holds the micrograph and its picture: only the
+    // micrograph is measured.
+    let again = armspace(&["measure", &path_str(d), "--um-per-px", "0.5"]);
+    let rep = report(&again);
+    let files: Vec<&str> = rep["images"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|i| i["file"].as_str().unwrap())
+        .collect();
+    assert_eq!(files.len(), 1, "{files:?}");
+    assert!(files[0].ends_with("comb.png"));
+    assert!(rep["skipped"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .any(|s| s["file"].as_str().unwrap().ends_with(".jpg")));
+}

@@ -65,6 +65,11 @@ pub(super) struct MeasureArgs {
     /// (the panel under it is set for that width), for a report's page.
     #[arg(long, value_parser = clap::value_parser!(u32).range(200..=20000), requires = "overlay")]
     overlay_max_width: Option<u32>,
+    /// File format of the pictures: png (lossless) or jpeg (smaller, for a
+    /// report; quality 90). Either is marked as armspace's own, so that a
+    /// later run over the folder does not measure it.
+    #[arg(long, value_enum, default_value = "png", requires = "overlay")]
+    overlay_format: PictureFormatArg,
     /// Worker threads (default: one per core).
     #[arg(long, value_parser = clap::value_parser!(u16).range(1..))]
     jobs: Option<u16>,
@@ -177,6 +182,13 @@ enum MethodArg {
     All,
 }
 
+/// `--overlay-format`.
+#[derive(Clone, Copy, ValueEnum)]
+enum PictureFormatArg {
+    Png,
+    Jpeg,
+}
+
 pub(super) fn run(args: MeasureArgs) -> ExitCode {
     let methods = match args.method {
         MethodArg::Fft => vec![Method::Fft],
@@ -245,6 +257,10 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
         methods,
         overlay_dir: args.overlay.clone(),
         overlay_max_width: args.overlay_max_width,
+        overlay_format: match args.overlay_format {
+            PictureFormatArg::Png => armspace::overlay::PictureFormat::Png,
+            PictureFormatArg::Jpeg => armspace::overlay::PictureFormat::Jpeg,
+        },
         thumbnail_width: args.html.as_ref().map(|_| PAGE_PICTURE_WIDTH),
         protected: Default::default(),
         interpret,
