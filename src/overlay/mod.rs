@@ -199,16 +199,33 @@ fn draw_annotations(out: &mut RgbImage, annotations: &[Annotation], width: u32) 
     }
 }
 
-/// Each analysed tile's direction: cyan where it entered the value, short
-/// orange where it was reliable but rejected as an outlier.
+/// Each analysed tile: a stroke along the direction its arms repeat in,
+/// three of its measured spacings long (so the stroke carries the quantity:
+/// a finer spacing draws a shorter stroke; at most 0.8 of the tile), sky
+/// blue where it entered the value and orange where it was reliable but
+/// left out as an outlier; an orange ring where the tile was analysed but
+/// showed no reliable period (told apart from a place never analysed,
+/// which carries no mark).
 fn draw_fft(out: &mut RgbImage, f: &FftOutcome, fft_min_quality: f64, width: u32) {
-    let len = 0.4 * f.window_px as f64;
-    for t in f.tiles.iter().filter(|t| t.spacing_px.is_finite()) {
-        if t.used {
-            segment(out, t.cx_px, t.cy_px, t.dir_deg, len, CYAN, width);
-        } else if t.quality >= fft_min_quality {
-            segment(out, t.cx_px, t.cy_px, t.dir_deg, 0.5 * len, ORANGE, width);
+    let cap = 0.8 * f.window_px as f64;
+    for t in &f.tiles {
+        let reliable =
+            t.spacing_px.is_finite() && t.spacing_px > 0.0 && t.quality >= fft_min_quality;
+        if !reliable {
+            let r = 2 * width as i32 + 1;
+            for g in 0..width as i32 {
+                imageproc::drawing::draw_hollow_circle_mut(
+                    out,
+                    (t.cx_px.round() as i32, t.cy_px.round() as i32),
+                    r + g,
+                    ORANGE,
+                );
+            }
+            continue;
         }
+        let len = (3.0 * t.spacing_px).min(cap);
+        let colour = if t.used { CYAN } else { ORANGE };
+        segment(out, t.cx_px, t.cy_px, t.dir_deg, len, colour, width);
     }
 }
 
@@ -257,7 +274,7 @@ fn draw_centres(out: &mut RgbImage, c: &CentresOutcome, width: u32) {
             imageproc::drawing::draw_filled_circle_mut(
                 out,
                 (p[0].round() as i32, p[1].round() as i32),
-                width as i32 + 1,
+                width as i32,
                 colour,
             );
         }
@@ -424,6 +441,59 @@ pub fn write_jpeg(path: &Path, img: &RgbImage) -> crate::Result<()> {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    fn tile(cx: f64, spacing: f64, quality: f64, used: bool) -> crate::methods::fft::TileResult {
+        crate::methods::fft::TileResult {
+            cx_px: cx,
+            cy_px: 50.0,
+            spacing_px: spacing,
+            dir_deg: 0.0,
+            quality,
+            used,
+            half_ratio: 0.0,
+            cross_spacing_px: f64::NAN,
+            cross_dir_deg: 0.0,
+            cross_quality: 0.0,
+        }
+    }
+
+    #[test]
+    fn a_tile_stroke_is_three_spacings_long_and_an_unreliable_tile_a_ring() {
+        // Geometry of the marks: a used tile of spacing 10 px draws a
+        // horizontal sky-blue stroke 30 px long through its centre; a tile
+        // analysed without a reliable period an orange ring around its
+        // centre, empty inside.
+        let f = FftOutcome {
+            value_px: None,
+            ci95_px: None,
+            spread_px: None,
+            n_tiles_used: 1,
+            n_tiles_analysed: 2,
+            window_px: 64,
+            orientation_deg: None,
+            orientation_coherence: None,
+            tiles: vec![
+                tile(50.0, 10.0, 20.0, true),
+                tile(150.0, f64::NAN, 0.0, false),
+            ],
+            reason: None,
+            row_spacing_px: None,
+            read_along_rows: false,
+        };
+        let mut out = RgbImage::from_pixel(200, 100, Rgb([128, 128, 128]));
+        draw_fft(&mut out, &f, 6.0, 1);
+        let blue: Vec<u32> = (0..200)
+            .filter(|&x| *out.get_pixel(x, 50) == CYAN)
+            .collect();
+        let span = blue.last().unwrap() - blue.first().unwrap() + 1;
+        assert!((29..=31).contains(&span), "{span}");
+        assert!(blue.iter().all(|&x| (34..=66).contains(&x)));
+        let orange = (100..200)
+            .filter(|&x| *out.get_pixel(x, 50) == ORANGE)
+            .count();
+        assert_eq!(orange, 2, "a ring crosses the row through its centre twice");
+        assert_eq!(*out.get_pixel(150, 50), Rgb([128, 128, 128]));
+    }
 
     #[test]
     fn a_jpeg_picture_decodes_and_is_known_as_the_tools_own() {

@@ -33,8 +33,14 @@ pub const CAUTION: &str = "Results support, and never replace, the judgement of 
 /// The marks of a measurement picture, as (colour, words), in the order the
 /// legend lists them.
 const LEGEND: [(Rgb<u8>, &str); 8] = [
-    (CYAN, "FFT tile: direction the arms repeat in"),
-    (ORANGE, "tile or chain not used"),
+    (
+        CYAN,
+        "FFT tile: direction the arms repeat in, 3 spacings long",
+    ),
+    (
+        ORANGE,
+        "tile or chain not used (ring: tile without a reliable period)",
+    ),
     (GREEN, "intercept test line"),
     (RED, "arm counted on a line"),
     (BLUE, "chain of arm centres"),
