@@ -91,6 +91,28 @@ pub fn image_lines(img: &ImageReport) -> Vec<String> {
             ),
         });
     }
+    for p in &img.profile {
+        if let Some(plot) = &p.plot {
+            lines.push(format!("  picture: {plot} (profile along {})", p.given));
+        }
+    }
+    if let Some(m) = &img.map {
+        lines.push(match &m.reason {
+            Some(r) => format!("  map: none: {r}"),
+            None => format!(
+                "  map: {} of {} cells of {:.1} um with a value (images[].map)",
+                m.cells_with_value,
+                m.columns * m.rows,
+                m.step_um
+            ),
+        });
+        for p in [&m.picture_sdas, &m.picture_solidification_time]
+            .into_iter()
+            .flatten()
+        {
+            lines.push(format!("  picture: {p}"));
+        }
+    }
     if let Some(o) = &img.overlay {
         lines.push(format!("  picture: {o}"));
     }
