@@ -144,6 +144,8 @@ pub struct ImageResult {
     pub map_pictures: Vec<(&'static str, Result<PathBuf, String>)>,
     /// Every local measurement of the image, for the point table.
     pub locals: Vec<crate::spatial::Entry>,
+    /// Columnar, equiaxed or mixed, from the arms' directions.
+    pub morphology: Option<crate::spatial::morphology::Morphology>,
 }
 
 /// The error of an image the run did not reach (see [`measure_batch`]).
@@ -199,6 +201,7 @@ impl ImageResult {
             map_times: vec![],
             map_pictures: vec![],
             locals: vec![],
+            morphology: None,
         }
     }
 
@@ -341,62 +344,79 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
     for o in &outcomes {
         warnings.extend(o.warnings.iter().cloned());
     }
+    let sdas = combine::combine(&outcomes, um_per_px, calibration.rel_uncertainty);
+    // The arms' directions for the morphology, from the prepared image at
+    // the arm spacing: the image's value, else the median local
+    // measurement of the methods with a value, else of any method.
+    let arm_spacing = sdas.value.map(|v| um_per_px.to_px(v)).or_else(|| {
+        let of = |valued: bool| {
+            let v: Vec<f64> = outcomes
+                .iter()
+                .filter(|o| !valued || o.value.is_some())
+                .flat_map(|o| o.local.iter().map(|l| l.spacing.0))
+                .filter(|v| v.is_finite() && *v > 0.0)
+                .collect();
+            crate::stats::median(&v).map(crate::units::Pixels)
+        };
+        of(true).or_else(|| of(false))
+    });
+    let dir_samples = arm_spacing
+        .map(|s| crate::spatial::morphology::direction_samples(&prepared, s, um_per_px, &opts.fft))
+        .unwrap_or_default();
     drop(prepared);
     warnings.extend(combine::disagreements(&outcomes, um_per_px));
-    let sdas = combine::combine(&outcomes, um_per_px, calibration.rel_uncertainty);
     warnings.extend(sdas.warnings.iter().cloned());
     // The local SDAS at the points asked for, from the same outcomes and
     // the same combination as the image's value.
     let wants_map = opts.map_dir.is_some() || opts.points;
-    let index = (!opts.at.is_empty() || !opts.along.is_empty() || wants_map)
-        .then(|| crate::spatial::Index::new(&outcomes, um_per_px));
-    let profiles = match &index {
-        None => vec![],
-        Some(index) => opts
-            .along
-            .iter()
-            .map(|spec| {
-                crate::spatial::along(
-                    index,
-                    spec,
-                    &outcomes,
-                    um_per_px,
-                    calibration.rel_uncertainty,
-                    (info.width, info.height),
-                    opts.fft.min_quality,
-                )
-            })
-            .collect(),
-    };
-    let at = match &index {
-        None => vec![],
-        Some(index) => opts
-            .at
-            .iter()
-            .map(|spec| {
-                crate::spatial::at(
-                    index,
-                    spec,
-                    &outcomes,
-                    um_per_px,
-                    calibration.rel_uncertainty,
-                    (info.width, info.height),
-                    opts.fft.min_quality,
-                )
-            })
-            .collect(),
-    };
-    let map = match &index {
-        Some(index) if wants_map => Some(crate::spatial::map::map(
-            index,
+    let index = crate::spatial::Index::new(&outcomes, um_per_px);
+    let dims = (info.width, info.height);
+    let morphology = Some(crate::spatial::morphology::morphology(
+        &dir_samples,
+        arm_spacing,
+        um_per_px,
+        dims,
+    ));
+    let profiles: Vec<crate::spatial::Profile> = opts
+        .along
+        .iter()
+        .map(|spec| {
+            crate::spatial::along(
+                &index,
+                spec,
+                &outcomes,
+                um_per_px,
+                calibration.rel_uncertainty,
+                dims,
+                opts.fft.min_quality,
+            )
+        })
+        .collect();
+    let at: Vec<crate::spatial::AtResult> = opts
+        .at
+        .iter()
+        .map(|spec| {
+            crate::spatial::at(
+                &index,
+                spec,
+                &outcomes,
+                um_per_px,
+                calibration.rel_uncertainty,
+                dims,
+                opts.fft.min_quality,
+            )
+        })
+        .collect();
+    let map = wants_map.then(|| {
+        crate::spatial::map::map(
+            &index,
             &outcomes,
             um_per_px,
             calibration.rel_uncertainty,
-            (info.width, info.height),
+            dims,
             opts.fft.min_quality,
-        )),
-        _ => None,
-    };
+        )
+    });
     // Local cooling rates and solidification times, from the chosen law.
     let local_times = |e: &Estimate| {
         let settings = opts.interpret.as_ref()?;
@@ -570,9 +590,10 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
             ));
         }
     }
-    let locals: Vec<crate::spatial::Entry> = match (&index, opts.points) {
-        (Some(index), true) => index.entries().to_vec(),
-        _ => vec![],
+    let locals: Vec<crate::spatial::Entry> = if opts.points {
+        index.entries().to_vec()
+    } else {
+        vec![]
     };
     warnings.extend(crate::interpret::plausibility::field_warning(
         image_width,
@@ -722,6 +743,7 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         map_times,
         map_pictures,
         locals,
+        morphology,
     }
 }
 

@@ -16,6 +16,7 @@ use crate::units::{Micrometres, Pixels, UmPerPx};
 use kiddo::{KdTree, SquaredEuclidean};
 
 pub mod map;
+pub mod morphology;
 
 /// One local measurement in the index.
 #[derive(Clone, Copy, Debug, PartialEq)]

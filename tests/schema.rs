@@ -176,6 +176,8 @@ fn the_schema_keeps_the_contracts_constraints() {
         // Absent without --map or --points, --correlation, or a plot
         // written, so that a report without them reads as before.
         "/$defs/image/properties/map",
+        // Absent for an image that could not be measured.
+        "/$defs/image/properties/morphology",
         "/$defs/map/properties/cooling_rate_K_per_s",
         "/$defs/map/properties/solidification_time_s",
         "/$defs/map/properties/picture_solidification_time",

@@ -14,6 +14,7 @@ mod at;
 mod csv_rows;
 pub mod html;
 mod map;
+mod morphology;
 pub mod names;
 mod per_method;
 mod points;
@@ -21,6 +22,7 @@ mod schema;
 pub use at::{at_report, profile_report, AtMethodReport, AtReport, BinReport, ProfileReport};
 pub use csv_rows::{csv_summary, CSV_COLUMNS};
 pub use map::{map_report, MapReason, MapReport};
+pub use morphology::{morphology_report, MorphologyReport, MorphologyThresholds};
 pub use per_method::*;
 pub use points::{points_csv, POINT_COLUMNS};
 pub use schema::json_schema;
@@ -233,6 +235,11 @@ pub struct ImageReport {
     /// absent otherwise.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub map: Option<MapReport>,
+    /// Columnar, equiaxed or mixed, from the coherence of the arms'
+    /// directions over neighbourhoods (absent for an image that could not
+    /// be measured).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub morphology: Option<MorphologyReport>,
 }
 
 /// The calibration applied to the image.
@@ -677,6 +684,7 @@ pub fn image_report(r: &ImageResult, opts: &MeasureOptions) -> ImageReport {
             .map
             .as_ref()
             .map(|m| map_report(m, &r.map_times, &r.map_pictures)),
+        morphology: r.morphology.as_ref().map(morphology_report),
     }
 }
 
