@@ -456,7 +456,7 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
             return Err(format!("{} is an input of this run", target.display()));
         }
         let picture = draw().map_err(|e| e.to_string())?;
-        crate::overlay::write_png(&target, &picture).map_err(|e| e.to_string())?;
+        crate::plots::write_png(&target, &picture).map_err(|e| e.to_string())?;
         Ok(target)
     };
     let profile_plots: Vec<Result<PathBuf, String>> = match &opts.plot_dir {
