@@ -7,7 +7,7 @@ use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 
 /// How the method reads the morphology, in words (the report names it).
-pub const METHOD: &str = "doubled-angle coherence of the arms' directions in spectral tiles (the FFT method's tile analysis at its tile size for the arm spacing, tiles side by side, each counted when its peak has the method's quality and its period is within a factor of sqrt 2 of the arm spacing): each neighbourhood (a disc of 10 spacings around each cell of the map's grid) is aligned when the mean resultant length R of its tiles' doubled directions is at least aligned_min_r and the Rayleigh test finds a common direction at rayleigh_alpha, crossed when R is below aligned_min_r, undecided otherwise or with fewer than 3 tiles; the image is columnar when at least class_share of its decided neighbourhoods are aligned and the aligned ones share a direction (R of their directions at least aligned_min_r), equiaxed when at least class_share are crossed or the aligned ones share no direction, mixed otherwise; with fewer than min_decided decided neighbourhoods the image's tiles are read together as one neighbourhood (aligned: columnar, crossed: equiaxed, never mixed) when they cover at least whole_image_cover of its area";
+pub const METHOD: &str = "doubled-angle coherence of the arms' directions in spectral tiles (the FFT method's tile analysis at its tile size for the arm spacing, tiles side by side, each counted when its peak has the method's quality and its period is within a factor of sqrt 2 of the arm spacing): each neighbourhood (a disc of 10 spacings around each cell of a grid of cells 10 spacings wide, laid as the map's from the spacing the tiles were sized for) is aligned when the mean resultant length R of its tiles' doubled directions is at least aligned_min_r and the Rayleigh test finds a common direction at rayleigh_alpha, crossed when R is below aligned_min_r, undecided otherwise or with fewer than 3 tiles; the image is columnar when at least class_share of its decided neighbourhoods are aligned and the aligned ones share a direction (R of their directions at least aligned_min_r), equiaxed when at least class_share are crossed or the aligned ones share no direction, mixed otherwise; with fewer than min_decided decided neighbourhoods the image's tiles are read together as one neighbourhood (aligned: columnar, crossed: equiaxed, never mixed) when they cover at least whole_image_cover of its area";
 
 /// Columnar, equiaxed or mixed, from the arms' directions.
 #[derive(Serialize, Deserialize, JsonSchema, Debug)]
@@ -48,7 +48,7 @@ pub struct MorphologyReport {
     /// neighbourhood; never mixed); null without a class.
     #[schemars(extend("enum" = ["neighbourhoods", "whole image", null]))]
     pub decided_by: Option<String>,
-    /// The neighbourhoods: cells of `step_um` (as `map`), discs of
+    /// The neighbourhoods: cells of `step_um` (laid as `map`'s, from `spacing_um`), discs of
     /// `radius_um` around their centres.
     pub step_um: f64,
     pub radius_um: f64,

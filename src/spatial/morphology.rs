@@ -22,7 +22,8 @@
 //! direction over many grains. An equiaxed dendrite sends its arms out in
 //! perpendicular directions (the cubic growth directions), and neighbouring
 //! grains are turned at random, so within a few spacings the directions
-//! cross. Each neighbourhood (the map's cells: discs of 10 local spacings,
+//! cross. Each neighbourhood (cells laid as the map's, from the spacing
+//! the tiles were sized for: discs of 10 spacings,
 //! [`super::map::MAP_RADIUS_SPACINGS`]) is called aligned or crossed, and
 //! the image by the share of its neighbourhoods that are aligned and
 //! whether they share one direction.
