@@ -91,6 +91,49 @@ pub fn image_lines(img: &ImageReport) -> Vec<String> {
             ),
         });
     }
+    for p in &img.profile {
+        if let Some(plot) = &p.plot {
+            lines.push(format!("  picture: {plot} (profile along {})", p.given));
+        }
+    }
+    if let Some(m) = &img.map {
+        lines.push(match &m.reason {
+            Some(r) => format!("  map: none: {r}"),
+            None => format!(
+                "  map: {} of {} cells of {:.1} um with a value (images[].map)",
+                m.cells_with_value,
+                m.columns * m.rows,
+                m.step_um
+            ),
+        });
+        for p in [&m.picture_sdas, &m.picture_solidification_time]
+            .into_iter()
+            .flatten()
+        {
+            lines.push(format!("  picture: {p}"));
+        }
+    }
+    if let Some(m) = &img.morphology {
+        let aniso = m
+            .anisotropy
+            .map(|a| format!("anisotropy {a:.2}; "))
+            .unwrap_or_default();
+        let counts = format!(
+            "{} aligned, {} crossed, {} undecided neighbourhoods of {:.0} um",
+            m.aligned, m.crossed, m.undecided, m.step_um
+        );
+        let growth = match (m.growth_direction_deg, m.growth_spread_deg) {
+            (Some(d), Some(s)) => format!(", growth direction {d:.1} deg (spread {s:.1} deg)"),
+            _ => String::new(),
+        };
+        lines.push(match (&m.class, &m.reason) {
+            (Some(c), _) => format!("  morphology: {c}{growth} ({aniso}{counts})"),
+            (None, r) => format!(
+                "  morphology: none: {} ({aniso}{counts})",
+                r.as_deref().unwrap_or("no reason given")
+            ),
+        });
+    }
     if let Some(o) = &img.overlay {
         lines.push(format!("  picture: {o}"));
     }

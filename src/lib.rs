@@ -22,6 +22,7 @@ pub mod methods;
 pub mod overlay;
 pub mod packbits;
 pub mod pipeline;
+pub mod plots;
 pub mod preprocess;
 pub mod report;
 pub mod segment;

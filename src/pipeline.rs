@@ -51,6 +51,14 @@ pub struct MeasureOptions {
     pub at: Vec<crate::spatial::AtSpec>,
     /// Lines along which a profile of the SDAS is asked for (`--along`).
     pub along: Vec<crate::spatial::AlongSpec>,
+    /// Folder for the maps of each image (`--map`).
+    pub map_dir: Option<PathBuf>,
+    /// Folder for the plot of each profile (`--along`; `--plots`, else
+    /// the folder of `--map` or `--overlay`).
+    pub plot_dir: Option<PathBuf>,
+    /// Whether the point table is asked for (`--points`): the map is then
+    /// read even without `--map`, for each local measurement's local value.
+    pub points: bool,
 }
 
 impl MeasureOptions {
@@ -76,6 +84,9 @@ impl MeasureOptions {
             spec: None,
             at: vec![],
             along: vec![],
+            map_dir: None,
+            plot_dir: None,
+            points: false,
         }
     }
 }
@@ -122,6 +133,22 @@ pub struct ImageResult {
     pub at: Vec<crate::spatial::AtResult>,
     /// The profile along each line asked for (`--along`), in the order given.
     pub profiles: Vec<crate::spatial::Profile>,
+    /// With a correlation, the cooling rate and solidification time of each
+    /// profile's bins (none for a bin without a value).
+    pub profile_times: Vec<Vec<Option<crate::interpret::LocalTimes>>>,
+    /// The plot of each profile, when it was written (or why not).
+    pub profile_plots: Vec<Result<PathBuf, String>>,
+    /// The map of local SDAS (with `--map` or `--points`).
+    pub map: Option<crate::spatial::map::Map>,
+    /// With a correlation, each map cell's cooling rate and solidification
+    /// time (none for a cell without a value).
+    pub map_times: Vec<Option<crate::interpret::LocalTimes>>,
+    /// The map pictures written: (what, path), or why one was not.
+    pub map_pictures: Vec<(&'static str, Result<PathBuf, String>)>,
+    /// Every local measurement of the image, for the point table.
+    pub locals: Vec<crate::spatial::Entry>,
+    /// Columnar, equiaxed or mixed, from the arms' directions.
+    pub morphology: Option<crate::spatial::morphology::Morphology>,
 }
 
 /// The error of an image the run did not reach (see [`measure_batch`]).
@@ -171,6 +198,13 @@ impl ImageResult {
             interrupted: false,
             at: vec![],
             profiles: vec![],
+            profile_times: vec![],
+            profile_plots: vec![],
+            map: None,
+            map_times: vec![],
+            map_pictures: vec![],
+            locals: vec![],
+            morphology: None,
         }
     }
 
@@ -286,8 +320,9 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
     // What the overlay needs of the micrograph (a byte a pixel); the
     // micrograph's floats then become the prepared image's, so that no
     // second float image is held while the methods run.
-    let overlay_base = (opts.overlay_dir.is_some() || opts.thumbnail_width.is_some())
-        .then(|| crate::overlay::grey_levels(&loaded.image));
+    let overlay_base =
+        (opts.overlay_dir.is_some() || opts.thumbnail_width.is_some() || opts.map_dir.is_some())
+            .then(|| crate::overlay::grey_levels(&loaded.image));
     let image_width = loaded.image.width as u32;
     let prepared = preprocess::prepare_owned(loaded.image, mask, &opts.preprocess);
     let um_per_px = calibration.um_per_px;
@@ -312,49 +347,256 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
     for o in &outcomes {
         warnings.extend(o.warnings.iter().cloned());
     }
+    let sdas = combine::combine(&outcomes, um_per_px, calibration.rel_uncertainty);
+    // The arms' directions for the morphology, from the prepared image at
+    // the arm spacing: the image's value, else the median local
+    // measurement of the methods with a value, else of any method.
+    let arm_spacing = sdas.value.map(|v| um_per_px.to_px(v)).or_else(|| {
+        let of = |valued: bool| {
+            let v: Vec<f64> = outcomes
+                .iter()
+                .filter(|o| !valued || o.value.is_some())
+                .flat_map(|o| o.local.iter().map(|l| l.spacing.0))
+                .filter(|v| v.is_finite() && *v > 0.0)
+                .collect();
+            crate::stats::median(&v).map(crate::units::Pixels)
+        };
+        of(true).or_else(|| of(false))
+    });
+    let dir_samples = arm_spacing
+        .map(|s| crate::spatial::morphology::direction_samples(&prepared, s, um_per_px, &opts.fft))
+        .unwrap_or_default();
     drop(prepared);
     warnings.extend(combine::disagreements(&outcomes, um_per_px));
-    let sdas = combine::combine(&outcomes, um_per_px, calibration.rel_uncertainty);
     warnings.extend(sdas.warnings.iter().cloned());
     // The local SDAS at the points asked for, from the same outcomes and
     // the same combination as the image's value.
-    let index = (!opts.at.is_empty() || !opts.along.is_empty())
-        .then(|| crate::spatial::Index::new(&outcomes, um_per_px));
-    let profiles = match &index {
-        None => vec![],
-        Some(index) => opts
-            .along
+    let wants_map = opts.map_dir.is_some() || opts.points;
+    let index = crate::spatial::Index::new(&outcomes, um_per_px);
+    let dims = (info.width, info.height);
+    let morphology = Some(crate::spatial::morphology::morphology(
+        &dir_samples,
+        arm_spacing,
+        um_per_px,
+        dims,
+    ));
+    let profiles: Vec<crate::spatial::Profile> = opts
+        .along
+        .iter()
+        .map(|spec| {
+            crate::spatial::along(
+                &index,
+                spec,
+                &outcomes,
+                um_per_px,
+                calibration.rel_uncertainty,
+                dims,
+                opts.fft.min_quality,
+            )
+        })
+        .collect();
+    let at: Vec<crate::spatial::AtResult> = opts
+        .at
+        .iter()
+        .map(|spec| {
+            crate::spatial::at(
+                &index,
+                spec,
+                &outcomes,
+                um_per_px,
+                calibration.rel_uncertainty,
+                dims,
+                opts.fft.min_quality,
+            )
+        })
+        .collect();
+    let map = wants_map.then(|| {
+        crate::spatial::map::map(
+            &index,
+            &outcomes,
+            um_per_px,
+            calibration.rel_uncertainty,
+            dims,
+            opts.fft.min_quality,
+        )
+    });
+    // Local cooling rates and solidification times, from the chosen law.
+    let local_times = |e: &Estimate| {
+        let settings = opts.interpret.as_ref()?;
+        e.value?;
+        settings.local(e.value, e.ci95).ok()
+    };
+    let profile_times: Vec<Vec<Option<crate::interpret::LocalTimes>>> = profiles
+        .iter()
+        .map(|p| p.bins.iter().map(|b| local_times(&b.estimate)).collect())
+        .collect();
+    let map_times: Vec<Option<crate::interpret::LocalTimes>> = match (&map, &opts.interpret) {
+        (Some(m), Some(_)) => m
+            .cells
             .iter()
-            .map(|spec| {
-                crate::spatial::along(
-                    index,
-                    spec,
-                    &outcomes,
-                    um_per_px,
-                    calibration.rel_uncertainty,
-                    (info.width, info.height),
-                    opts.fft.min_quality,
-                )
+            .map(|c| {
+                local_times(&Estimate {
+                    value: c.value,
+                    ci95: c.ci95,
+                    ..Estimate::none("")
+                })
+            })
+            .collect(),
+        _ => vec![],
+    };
+    let stem = overlay_name(path, &info.sha256, "png");
+    let stem = stem.trim_end_matches(".png");
+    let file_name = path
+        .file_name()
+        .map(|f| f.to_string_lossy().into_owned())
+        .unwrap_or_default();
+    let write_picture = |dir: &std::path::Path,
+                         name: String,
+                         draw: &dyn Fn() -> crate::Result<image::RgbImage>|
+     -> Result<PathBuf, String> {
+        let target = dir.join(name);
+        if opts.protected.is_protected(&target) {
+            return Err(format!("{} is an input of this run", target.display()));
+        }
+        let picture = draw().map_err(|e| e.to_string())?;
+        crate::plots::write_png(&target, &picture).map_err(|e| e.to_string())?;
+        Ok(target)
+    };
+    let profile_plots: Vec<Result<PathBuf, String>> = match &opts.plot_dir {
+        None => vec![],
+        Some(dir) => profiles
+            .iter()
+            .zip(&profile_times)
+            .enumerate()
+            .map(|(k, (p, times))| {
+                if let Some(r) = &p.reason {
+                    return Err(format!("no profile: {r}"));
+                }
+                let len = (p.to_um[0] - p.from_um[0]).hypot(p.to_um[1] - p.from_um[1]);
+                let step = if p.bins.is_empty() {
+                    p.bin_um
+                } else {
+                    len / p.bins.len() as f64
+                };
+                let sdas: Vec<crate::plots::BinPoint> = p
+                    .bins
+                    .iter()
+                    .map(|b| crate::plots::BinPoint {
+                        distance_um: b.distance_um,
+                        width_um: step,
+                        value: b.estimate.value.map(|v| v.0),
+                        ci95: b.estimate.ci95.map(|c| [c[0].0, c[1].0]),
+                    })
+                    .collect();
+                let tf: Vec<crate::plots::BinPoint> = p
+                    .bins
+                    .iter()
+                    .zip(times)
+                    .map(|(b, t)| {
+                        let q = t.as_ref().map(|t| &t.solidification_time_s);
+                        crate::plots::BinPoint {
+                            distance_um: b.distance_um,
+                            width_um: step,
+                            value: q.and_then(|q| q.value),
+                            ci95: q.and_then(|q| q.ci95),
+                        }
+                    })
+                    .collect();
+                let mut panels = vec![crate::plots::Panel {
+                    y_desc: "SDAS (um)",
+                    bins: &sdas,
+                }];
+                if opts.interpret.is_some() {
+                    panels.push(crate::plots::Panel {
+                        y_desc: "local solidification time (s)",
+                        bins: &tf,
+                    });
+                }
+                let title = format!(
+                    "{file_name}: SDAS along {} ({} bins)",
+                    p.spec.text,
+                    p.bins.len()
+                );
+                write_picture(dir, format!("{stem}-profile{}.png", k + 1), &|| {
+                    crate::plots::profile_picture(&title, len, &panels)
+                })
             })
             .collect(),
     };
-    let at = match &index {
-        None => vec![],
-        Some(index) => opts
-            .at
-            .iter()
-            .map(|spec| {
-                crate::spatial::at(
-                    index,
-                    spec,
-                    &outcomes,
-                    um_per_px,
-                    calibration.rel_uncertainty,
-                    (info.width, info.height),
-                    opts.fft.min_quality,
-                )
-            })
-            .collect(),
+    let map_pictures: Vec<(&'static str, Result<PathBuf, String>)> =
+        match (&opts.map_dir, &map, &overlay_base) {
+            (Some(dir), Some(m), Some(base)) => {
+                let mut out = vec![];
+                let sdas: Vec<Option<f64>> = m.cells.iter().map(|c| c.value.map(|v| v.0)).collect();
+                let title = format!(
+                    "{file_name}: local SDAS, cells of {:.0} um, {} of {} with a value",
+                    m.step_um,
+                    m.valued(),
+                    m.cells.len()
+                );
+                out.push((
+                    "sdas",
+                    match &m.reason {
+                        Some(r) => Err(format!("no map: {r}")),
+                        None => write_picture(dir, format!("{stem}-map-sdas.png"), &|| {
+                            crate::plots::map_picture(
+                                base,
+                                m,
+                                &sdas,
+                                "local SDAS (um)",
+                                &title,
+                                um_per_px.get(),
+                            )
+                        }),
+                    },
+                ));
+                if opts.interpret.is_some() {
+                    let tf: Vec<Option<f64>> = map_times
+                        .iter()
+                        .map(|t| t.as_ref().and_then(|t| t.solidification_time_s.value))
+                        .collect();
+                    let title = format!(
+                        "{file_name}: local solidification time, {} of {} cells with a value",
+                        tf.iter().flatten().count(),
+                        m.cells.len()
+                    );
+                    out.push((
+                        "solidification_time",
+                        match &m.reason {
+                            Some(r) => Err(format!("no map: {r}")),
+                            None => write_picture(dir, format!("{stem}-map-tf.png"), &|| {
+                                crate::plots::map_picture(
+                                    base,
+                                    m,
+                                    &tf,
+                                    "local solidification time (s)",
+                                    &title,
+                                    um_per_px.get(),
+                                )
+                            }),
+                        },
+                    ));
+                }
+                out
+            }
+            _ => vec![],
+        };
+    for (what, r) in profile_plots
+        .iter()
+        .map(|r| ("profile plot", r))
+        .chain(map_pictures.iter().map(|(_, r)| ("map", r)))
+    {
+        if let Err(e) = r {
+            warnings.push(Warning::new(
+                "pictures.not-written",
+                format!("{what} not written: {e}"),
+            ));
+        }
+    }
+    let locals: Vec<crate::spatial::Entry> = if opts.points {
+        index.entries().to_vec()
+    } else {
+        vec![]
     };
     warnings.extend(crate::interpret::plausibility::field_warning(
         image_width,
@@ -505,6 +747,13 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         interrupted: false,
         at,
         profiles,
+        profile_times,
+        profile_plots,
+        map,
+        map_times,
+        map_pictures,
+        locals,
+        morphology,
     }
 }
 

@@ -15,6 +15,9 @@ use crate::stats;
 use crate::units::{Micrometres, Pixels, UmPerPx};
 use kiddo::{KdTree, SquaredEuclidean};
 
+pub mod map;
+pub mod morphology;
+
 /// One local measurement in the index.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct Entry {
@@ -766,6 +769,18 @@ fn population(index: &Index, behind: &[usize], p: [f64; 2], radius: f64) -> Verd
         );
     }
     Verdict::One(pop)
+}
+
+/// Whether a local measurement may enter a local value of an image whose
+/// method outcomes are `outcomes` (see [`at`]).
+pub fn enters_local_values(e: &Entry, outcomes: &[Outcome], fft_min_quality: f64) -> bool {
+    let fft_valued = outcomes
+        .iter()
+        .any(|o| o.method == Method::Fft && o.value.is_some());
+    let valued = outcomes
+        .iter()
+        .any(|o| o.method == e.method && o.value.is_some());
+    valued && counts(e, fft_valued, fft_min_quality)
 }
 
 /// Whether a local measurement may enter a local value (see the notes in

@@ -173,6 +173,17 @@ fn the_schema_keeps_the_contracts_constraints() {
         "/$defs/image/properties/at",
         "/$defs/image/properties/profile",
         "/$defs/image/properties/interpretation",
+        // Absent without --map or --points, --correlation, or a plot
+        // written, so that a report without them reads as before.
+        "/$defs/image/properties/map",
+        // Absent for an image that could not be measured.
+        "/$defs/image/properties/morphology",
+        "/$defs/map/properties/cooling_rate_K_per_s",
+        "/$defs/map/properties/solidification_time_s",
+        "/$defs/map/properties/picture_solidification_time",
+        "/$defs/profile/properties/plot",
+        "/$defs/BinReport/properties/cooling_rate_K_per_s",
+        "/$defs/BinReport/properties/solidification_time_s",
     ];
     expected.sort();
     assert_eq!(optional, expected, "the fields a report may leave out");

@@ -103,6 +103,23 @@ pub(super) struct MeasureArgs {
     /// report (images[].profile).
     #[arg(long, value_name = "X0,Y0:X1,Y1[:BIN]", value_parser = armspace::spatial::parse_along, allow_hyphen_values = true)]
     along: Vec<armspace::spatial::AlongSpec>,
+    /// Write per image a map of the local SDAS over the micrograph (PNG,
+    /// and with --correlation a map of the local solidification time) into
+    /// this folder. Each cell's value comes from the local measurements
+    /// around its centre by the rules of --at; cells without support are
+    /// left uncoloured. The grid is in the report (images[].map).
+    #[arg(long, value_name = "DIR")]
+    map: Option<PathBuf>,
+    /// Folder for the plot of each --along profile (PNG); by default the
+    /// folder of --map, else of --overlay.
+    #[arg(long, value_name = "DIR", requires = "along")]
+    plots: Option<PathBuf>,
+    /// Also write every local measurement of every image to this CSV
+    /// (position, its own reading, the local SDAS of its map cell with the
+    /// interval, and with --correlation the local solidification time and
+    /// cooling rate), atomically.
+    #[arg(long, value_name = "FILE.csv", conflicts_with = "resume")]
+    points: Option<PathBuf>,
 }
 
 /// Width, px, of the pictures embedded in the HTML page: a page of A4 with
@@ -214,6 +231,9 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
         (&args.csv, &args.out, "--csv and --out"),
         (&args.html, &args.out, "--html and --out"),
         (&args.html, &args.csv, "--html and --csv"),
+        (&args.points, &args.out, "--points and --out"),
+        (&args.points, &args.csv, "--points and --csv"),
+        (&args.points, &args.html, "--points and --html"),
     ] {
         if let (Some(a), Some(b)) = (a, b) {
             if a == b {
@@ -267,6 +287,16 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
         spec,
         at: args.at.clone(),
         along: args.along.clone(),
+        map_dir: args.map.clone(),
+        plot_dir: if args.along.is_empty() {
+            None
+        } else {
+            args.plots
+                .clone()
+                .or_else(|| args.map.clone())
+                .or_else(|| args.overlay.clone())
+        },
+        points: args.points.is_some(),
     };
     let inputs = collect_inputs(&args.paths);
     if !inputs
@@ -300,6 +330,7 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
         (&args.out, "report"),
         (&args.csv, "CSV summary"),
         (&args.html, "HTML page"),
+        (&args.points, "point table"),
     ] {
         if let Some(path) = path {
             if let Err(e) = protected.check_output(path, role) {
@@ -342,6 +373,17 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
     }
     if let Err(code) = create_overlay_dir(args.overlay.as_deref()) {
         return code;
+    }
+    for (dir, what) in [(&args.map, "map"), (&opts.plot_dir, "plot")] {
+        if let Some(dir) = dir {
+            if let Err(e) = std::fs::create_dir_all(dir) {
+                say!(
+                    "armspace: {}: cannot create the {what} folder: {e}",
+                    dir.display()
+                );
+                return ExitCode::from(EXIT_FATAL);
+            }
+        }
     }
     let opts = MeasureOptions { protected, ..opts };
     let given: Vec<String> = args.paths.iter().map(|p| p.display().to_string()).collect();
@@ -509,6 +551,20 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
             }
         }
     }
+    if let Some(path) = &args.points {
+        let written = report::points_csv(&results, opts.fft.min_quality)
+            .map_err(|e| format!("{}: {e}", path.display()))
+            .and_then(|text| {
+                armspace::files::write_output(path, text.as_bytes()).map_err(|e| e.to_string())
+            });
+        match written {
+            Ok(()) => say!("point table written to {}", path.display()),
+            Err(e) => {
+                say!("armspace: {e}");
+                write_failed = true;
+            }
+        }
+    }
     if let Some(path) = &args.html {
         let mut pictures: std::collections::BTreeMap<String, Vec<u8>> = results
             .iter()
@@ -533,7 +589,33 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
                 pictures.insert(im.file.clone(), bytes);
             }
         }
-        let written = report::html::page(&rep, &pictures, path.parent())
+        // The maps and profile plots written beside the report, scaled for
+        // the page.
+        let mut figures = std::collections::BTreeMap::new();
+        for im in &rep.images {
+            let mut paths: Vec<String> = Vec::new();
+            if let Some(m) = &im.map {
+                paths.extend(m.picture_sdas.clone());
+                paths.extend(m.picture_solidification_time.clone());
+            }
+            for p in &im.profile {
+                paths.extend(p.plot.clone());
+            }
+            for p in paths {
+                let small = image::open(&p).ok().map(|pic| {
+                    armspace::overlay::fit_width(pic.to_rgb8(), Some(PAGE_PICTURE_WIDTH))
+                });
+                if let Some(Ok(bytes)) = small.map(|pic| {
+                    armspace::overlay::encode_jpeg_within(
+                        &pic,
+                        armspace::overlay::PAGE_PICTURE_BYTES,
+                    )
+                }) {
+                    figures.insert(p, bytes);
+                }
+            }
+        }
+        let written = report::html::page(&rep, &pictures, &figures, path.parent())
             .map_err(|e| format!("{}: {e}", path.display()))
             .and_then(|text| {
                 armspace::files::write_output(path, text.as_bytes()).map_err(|e| e.to_string())

@@ -688,6 +688,41 @@ impl Settings {
     }
 }
 
+impl Settings {
+    /// The cooling rate and solidification time of a local SDAS (a point,
+    /// a profile's bin, a map's cell): the chosen law only, without its
+    /// alternatives, which the image's interpretation already sets beside
+    /// it.
+    pub fn local(
+        &self,
+        sdas: Option<Micrometres>,
+        ci95: Option<[Micrometres; 2]>,
+    ) -> Result<LocalTimes> {
+        let i = interpret(
+            &self.correlation,
+            &Request {
+                sdas,
+                ci95,
+                composition: self.composition.clone(),
+                freezing_range: self.freezing_range,
+                extrapolate: self.extrapolate,
+            },
+        )?
+        .rounded();
+        Ok(LocalTimes {
+            cooling_rate_k_per_s: i.cooling_rate_k_per_s,
+            solidification_time_s: i.solidification_time_s,
+        })
+    }
+}
+
+/// The cooling rate and solidification time of a local SDAS.
+#[derive(Clone, Debug, PartialEq)]
+pub struct LocalTimes {
+    pub cooling_rate_k_per_s: Quantity,
+    pub solidification_time_s: Quantity,
+}
+
 /// The symbols of the 118 named chemical elements, by atomic number (IUPAC
 /// Periodic Table of the Elements, with the names of elements 113, 115, 117
 /// and 118 approved in 2016).

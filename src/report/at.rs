@@ -126,6 +126,12 @@ pub struct ProfileReport {
     pub reason: Option<String>,
     /// The bins, from the line's start.
     pub bins: Vec<BinReport>,
+    /// The plot of the profile (PNG: SDAS, and with --correlation the
+    /// local solidification time, against the distance along the line,
+    /// each bin's interval as a band), when one was written; absent
+    /// otherwise.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub plot: Option<String>,
 }
 
 /// One bin of a profile.
@@ -148,20 +154,40 @@ pub struct BinReport {
     pub reason: Option<String>,
     /// Each method's value in the bin (as for a point).
     pub per_method: Vec<AtMethodReport>,
+    /// With --correlation and a value: the bin's cooling rate from the
+    /// chosen law (no alternatives); else absent.
+    #[serde(
+        default,
+        rename = "cooling_rate_K_per_s",
+        skip_serializing_if = "Option::is_none"
+    )]
+    pub cooling_rate_k_per_s: Option<crate::interpret::Quantity>,
+    /// With --correlation and a value: the bin's local solidification
+    /// time from the chosen law; else absent.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub solidification_time_s: Option<crate::interpret::Quantity>,
 }
 
-/// The report entry of one profile.
-pub fn profile_report(p: &crate::spatial::Profile) -> ProfileReport {
+/// The report entry of one profile, with each bin's local times (with a
+/// correlation) and the plot's path when one was written.
+pub fn profile_report(
+    p: &crate::spatial::Profile,
+    times: Option<&[Option<crate::interpret::LocalTimes>]>,
+    plot: Option<&std::path::Path>,
+) -> ProfileReport {
     ProfileReport {
         given: p.spec.text.clone(),
         from_um: p.from_um.map(|v| round(v, 4)),
         to_um: p.to_um.map(|v| round(v, 4)),
         bin_um: round(p.bin_um, 4),
         reason: p.reason.clone(),
+        plot: plot.map(|p| p.display().to_string()),
         bins: p
             .bins
             .iter()
-            .map(|b| {
+            .enumerate()
+            .map(|(k, b)| {
+                let t = times.and_then(|t| t.get(k)).and_then(|t| t.as_ref());
                 let e = &b.estimate;
                 let digits = e
                     .ci95
@@ -179,6 +205,8 @@ pub fn profile_report(p: &crate::spatial::Profile) -> ProfileReport {
                     methods: e.methods.iter().map(|m| m.name()).collect(),
                     reason: e.reason.clone(),
                     per_method: b.methods.iter().map(method_report).collect(),
+                    cooling_rate_k_per_s: t.map(|t| t.cooling_rate_k_per_s.clone()),
+                    solidification_time_s: t.map(|t| t.solidification_time_s.clone()),
                 }
             })
             .collect(),

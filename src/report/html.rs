@@ -124,6 +124,9 @@ fn locals(image: &Value) -> Vec<(&'static str, Vec<f64>)> {
 /// interval and the limit marked; None when there is nothing to show.
 fn histogram(image: &Value) -> Option<String> {
     use plotters::prelude::*;
+    // plotters sets text only in fonts registered by name (its ab_glyph
+    // feature): the bundled one, once per process.
+    crate::plots::register_fonts();
     let sets = locals(image);
     let all: Vec<f64> = sets.iter().flat_map(|(_, v)| v.iter().copied()).collect();
     if all.len() < 3 {
@@ -267,13 +270,28 @@ fn histogram(image: &Value) -> Option<String> {
 }
 
 /// The page. `pictures` holds the JPEG copy of each image's picture by the
-/// image's `file` as the report names it; `page_dir` is the folder the page
-/// is written to (for links to full-size pictures written beside it).
+/// image's `file` as the report names it; `figures` the JPEG copies of the
+/// maps and profile plots written beside the report, by their paths as the
+/// report names them; `page_dir` is the folder the page is written to (for
+/// links to full-size pictures written beside it).
 pub fn page(
     report: &Report,
     pictures: &BTreeMap<String, Vec<u8>>,
+    figures: &BTreeMap<String, Vec<u8>>,
     page_dir: Option<&std::path::Path>,
 ) -> crate::Result<String> {
+    let figure = |path: &Value, caption: &str| -> String {
+        match path.as_str().and_then(|p| Some((p, figures.get(p)?))) {
+            Some((p, jpeg)) => format!(
+                "<figure><a href=\"{}\"><img class=\"picture\" alt=\"{}\" src=\"data:image/jpeg;base64,{}\"></a><figcaption>{}</figcaption></figure>",
+                esc(&picture_link(p, page_dir)),
+                esc(caption),
+                base64::engine::general_purpose::STANDARD.encode(jpeg),
+                esc(caption)
+            ),
+            None => String::new(),
+        }
+    };
     let r = serde_json::to_value(report).map_err(|e| crate::Error::Value {
         reason: format!("the report cannot be put on a page: {e}"),
     })?;
@@ -632,6 +650,27 @@ pub fn page(
                 }
                 h.push_str("</table>");
             }
+        }
+        if let Some(class) = im["morphology"]["class"].as_str() {
+            let dir = match im["morphology"]["growth_direction_deg"].as_f64() {
+                Some(d) => format!(", growth direction {d} deg"),
+                None => String::new(),
+            };
+            let _ = write!(h, "<p>Morphology: {}{dir}.</p>", esc(class));
+        }
+        h.push_str(&figure(
+            &im["map"]["picture_sdas"],
+            "Local SDAS over the micrograph (uncoloured: no value).",
+        ));
+        h.push_str(&figure(
+            &im["map"]["picture_solidification_time"],
+            "Local solidification time over the micrograph (uncoloured: no value).",
+        ));
+        for p in im["profile"].as_array().into_iter().flatten() {
+            h.push_str(&figure(
+                &p["plot"],
+                "SDAS along the line, each bin with its 95 % interval.",
+            ));
         }
         if let Some(ws) = im["warnings"].as_array().filter(|w| !w.is_empty()) {
             h.push_str("<p>Warnings:</p><ul>");

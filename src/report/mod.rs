@@ -13,12 +13,18 @@
 mod at;
 mod csv_rows;
 pub mod html;
+mod map;
+mod morphology;
 pub mod names;
 mod per_method;
+mod points;
 mod schema;
 pub use at::{at_report, profile_report, AtMethodReport, AtReport, BinReport, ProfileReport};
 pub use csv_rows::{csv_summary, CSV_COLUMNS};
+pub use map::{map_report, MapReason, MapReport};
+pub use morphology::{morphology_report, MorphologyReport, MorphologyThresholds};
 pub use per_method::*;
+pub use points::{points_csv, POINT_COLUMNS};
 pub use schema::json_schema;
 
 use crate::interpret::acceptance::{self, Acceptance, Decision, Spec};
@@ -225,6 +231,15 @@ pub struct ImageReport {
     /// the order given; absent without --along.
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub profile: Vec<ProfileReport>,
+    /// The map of local SDAS over the image (with --map or --points);
+    /// absent otherwise.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub map: Option<MapReport>,
+    /// Columnar, equiaxed or mixed, from the coherence of the arms'
+    /// directions over neighbourhoods (absent for an image that could not
+    /// be measured).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub morphology: Option<MorphologyReport>,
 }
 
 /// The calibration applied to the image.
@@ -650,7 +665,26 @@ pub fn image_report(r: &ImageResult, opts: &MeasureOptions) -> ImageReport {
             Some(c) => r.at.iter().map(|a| at_report(a, c.get())).collect(),
             None => vec![],
         },
-        profile: r.profiles.iter().map(profile_report).collect(),
+        profile: r
+            .profiles
+            .iter()
+            .enumerate()
+            .map(|(k, p)| {
+                profile_report(
+                    p,
+                    r.profile_times.get(k).map(|t| t.as_slice()),
+                    r.profile_plots
+                        .get(k)
+                        .and_then(|p| p.as_ref().ok())
+                        .map(|p| p.as_path()),
+                )
+            })
+            .collect(),
+        map: r
+            .map
+            .as_ref()
+            .map(|m| map_report(m, &r.map_times, &r.map_pictures)),
+        morphology: r.morphology.as_ref().map(morphology_report),
     }
 }
 
