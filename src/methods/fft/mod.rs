@@ -44,6 +44,7 @@
 
 mod ladder;
 mod peaks;
+mod radial;
 
 use crate::blocks::spectrum::{hann_peak_offset, smooth_sizes, SpectrumAnalyser};
 use crate::preprocess::Prepared;
@@ -260,6 +261,12 @@ pub fn measure(img: &Prepared, params: &FftParams) -> FftOutcome {
         .collect();
     let coarse_n = ladder.last().map_or(largest, |s| s.n);
     let Some(coarse_period) = resolve_ladder(&ladder, &scales, params) else {
+        // No period reproduced by the tiles' directional peaks: the arms may
+        // repeat along several directions in one tile (equiaxed grains),
+        // which the radial spectrum reads (see `radial`).
+        if let Some(out) = radial::measure_radial(img, &sizes, params) {
+            return out;
+        }
         let analysed = ladder.iter().map(|s| s.n_tiles).sum();
         return FftOutcome::none(
             "no reliable periodicity: no spectral period is reproduced by the tiles across scales"
