@@ -209,8 +209,12 @@ fn draw_annotations(out: &mut RgbImage, annotations: &[Annotation], width: u32) 
 fn draw_fft(out: &mut RgbImage, f: &FftOutcome, fft_min_quality: f64, width: u32) {
     let cap = 0.8 * f.window_px as f64;
     for t in &f.tiles {
-        let reliable =
-            t.spacing_px.is_finite() && t.spacing_px > 0.0 && t.quality >= fft_min_quality;
+        // A used tile is reliable whatever its quality figure says (a tile
+        // read from its ring, methods::fft::radial, has a quality of
+        // another scale).
+        let reliable = t.spacing_px.is_finite()
+            && t.spacing_px > 0.0
+            && (t.used || t.quality >= fft_min_quality);
         if !reliable {
             let r = 2 * width as i32 + 1;
             for g in 0..width as i32 {
