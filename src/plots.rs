@@ -364,24 +364,7 @@ pub fn map_picture(
 /// sixth of a 4 MP image's whole measuring time for its three pictures
 /// (perf, December 2026), for files a few per cent smaller.
 pub fn write_png(path: &std::path::Path, img: &RgbImage) -> crate::Result<()> {
-    let encode = || -> Result<Vec<u8>, png::EncodingError> {
-        let mut buf = Vec::new();
-        let mut enc = png::Encoder::new(&mut buf, img.width(), img.height());
-        enc.set_color(png::ColorType::Rgb);
-        enc.set_depth(png::BitDepth::Eight);
-        enc.set_compression(png::Compression::Fast);
-        let (key, value) = crate::files::OWN_PICTURE_TEXT;
-        enc.add_text_chunk(key.to_string(), value.to_string())?;
-        let mut w = enc.write_header()?;
-        w.write_image_data(img.as_raw())?;
-        w.finish()?;
-        Ok(buf)
-    };
-    let bytes = encode().map_err(|e| crate::Error::Write {
-        path: path.to_path_buf(),
-        source: std::io::Error::other(e.to_string()),
-    })?;
-    crate::files::write_output(path, &bytes)
+    crate::overlay::write_png_with(path, img, png::Compression::Fast)
 }
 
 /// The colour of a value on the maps' scale (viridis between `lo` and

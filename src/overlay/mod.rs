@@ -366,11 +366,17 @@ pub fn encode_jpeg_within(img: &RgbImage, max_bytes: usize) -> crate::Result<Vec
 /// Encodes a PNG in memory, marked as this tool's picture
 /// ([`crate::files::OWN_PICTURE_TEXT`]), and writes it atomically.
 pub fn write_png(path: &Path, img: &RgbImage) -> crate::Result<()> {
+    write_png_with(path, img, png::Compression::default())
+}
+
+/// [`write_png`] at the given deflate level (the plots use the fast one).
+pub fn write_png_with(path: &Path, img: &RgbImage, level: png::Compression) -> crate::Result<()> {
     let encode = || -> Result<Vec<u8>, png::EncodingError> {
         let mut buf = Vec::new();
         let mut enc = png::Encoder::new(&mut buf, img.width(), img.height());
         enc.set_color(png::ColorType::Rgb);
         enc.set_depth(png::BitDepth::Eight);
+        enc.set_compression(level);
         let (key, value) = crate::files::OWN_PICTURE_TEXT;
         enc.add_text_chunk(key.to_string(), value.to_string())?;
         let mut w = enc.write_header()?;
