@@ -30,7 +30,7 @@ fn method_values(image: &Value) -> Vec<(String, Valued)> {
         .as_object()
         .map(|m| {
             m.iter()
-                .map(|(k, v)| (k.clone(), (v["value"].as_f64(), interval(&v["ci95"]))))
+                .map(|(k, v)| (k.clone(), (own_figure(v), interval(&v["ci95"]))))
                 .collect()
         })
         .unwrap_or_default();
@@ -40,6 +40,20 @@ fn method_values(image: &Value) -> Vec<(String, Valued)> {
         (sdas["value"].as_f64(), interval(&sdas["ci95"])),
     ));
     out
+}
+
+/// A method's own reading: its value, or, when the combination did not
+/// use it (uncorroborated, disagreeing or left out; the reason then starts
+/// with "not used"), the figure the report keeps as indicative. Figures
+/// withheld for want of an interval are not readings.
+fn own_figure(method: &Value) -> Option<f64> {
+    method["value"].as_f64().or_else(|| {
+        method["reason"]
+            .as_str()
+            .is_some_and(|r| r.starts_with("not used"))
+            .then(|| method["indicative"].as_f64())
+            .flatten()
+    })
 }
 
 fn read_json(path: &Path) -> Result<Value, String> {

@@ -651,6 +651,9 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         }
         a
     });
+    // From here on the methods are shown, not used: a value that did not
+    // enter the image's value is shown as an indicative figure.
+    let outcomes = combine::withhold_unused(outcomes, &sdas);
     // The picture is drawn last, so that its panel can state the decision;
     // once for each width it is shown at (its strokes are set for that
     // width), one copy at a time.

@@ -110,17 +110,17 @@ fn lines(c: &Caption) -> Vec<String> {
         .outcomes
         .iter()
         .map(|o| match o.value {
-            Some(v) => format!(
-                "{} {} µm{}",
-                o.method.name(),
-                fmt_um(c.um_per_px.to_um(v).0),
-                if c.sdas.left_out.iter().any(|(m, _)| *m == o.method) {
-                    " (left out)"
-                } else {
-                    ""
-                }
-            ),
-            None => format!("{} none", o.method.name()),
+            // Values left out of the image's value are indicative by now
+            // (`combine::withhold_unused`).
+            Some(v) => format!("{} {} µm", o.method.name(), fmt_um(c.um_per_px.to_um(v).0)),
+            None => match o.indicative {
+                Some(v) => format!(
+                    "{} ({} µm, not used)",
+                    o.method.name(),
+                    fmt_um(c.um_per_px.to_um(v).0)
+                ),
+                None => format!("{} none", o.method.name()),
+            },
         })
         .collect();
     if !per.is_empty() {
