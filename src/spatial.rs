@@ -465,6 +465,9 @@ fn evaluate(
             .map(|(_, n)| n)
             .sum();
     }
+    // As for the image: a local reading that did not enter the local value
+    // is not shown as a value (the reason keeps the figure).
+    let local = combine::withhold_unused(local, &estimate);
     let parts = local
         .iter()
         .zip(&n_effs)
