@@ -156,6 +156,7 @@ fn the_schema_keeps_the_contracts_constraints() {
         "/$defs/Parameters/properties/along",
         "/$defs/Parameters/properties/at",
         "/$defs/Parameters/properties/interpretation",
+        "/$defs/Parameters/properties/shard",
         "/$defs/Parameters/properties/spec",
         "/$defs/Range/properties/min_exclusive",
         "/$defs/Range/properties/note",

@@ -120,6 +120,28 @@ pub(super) struct MeasureArgs {
     /// cooling rate), atomically.
     #[arg(long, value_name = "FILE.csv", conflicts_with = "resume")]
     points: Option<PathBuf>,
+    /// Measure only part K of N of the batch (1 <= K <= N): of the images
+    /// in input order, the K-th of every N. Run the N parts as separate
+    /// jobs (on one machine or several), each with its own --out, then
+    /// join their reports with `armspace merge`.
+    #[arg(long, value_name = "K/N", value_parser = parse_shard)]
+    shard: Option<(usize, usize)>,
+}
+
+/// `K/N` with 1 <= K <= N.
+fn parse_shard(s: &str) -> Result<(usize, usize), String> {
+    let parsed = s.split_once('/').and_then(|(k, n)| {
+        Some((
+            k.trim().parse::<usize>().ok()?,
+            n.trim().parse::<usize>().ok()?,
+        ))
+    });
+    match parsed {
+        Some((k, n)) if k >= 1 && k <= n => Ok((k, n)),
+        _ => Err(format!(
+            "'{s}' is not a part K/N of a batch with 1 <= K <= N (for example 2/8)"
+        )),
+    }
 }
 
 /// Width, px, of the pictures embedded in the HTML page: a page of A4 with
@@ -307,15 +329,49 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
         return ExitCode::from(EXIT_NOT_MEASURED);
     }
     if let Err(e) = points_in_some_image(&args.at, &inputs, args.calibration.um_per_px) {
-        eprintln!("armspace: {e}");
+        say!("armspace: {e}");
         return ExitCode::from(EXIT_USAGE);
     }
+    // One part of the batch: the K-th of every N images in input order; the
+    // files passed over are listed by part 1 only, so that the joined
+    // report lists each once.
+    let batch_images = inputs
+        .iter()
+        .filter(|i| !matches!(i, armspace::load::Input::Skipped { .. }))
+        .count();
+    // Every image of the batch is protected from the outputs, also those
+    // of the other parts.
+    let batch_paths: Vec<PathBuf> = inputs
+        .iter()
+        .filter_map(|i| match i {
+            armspace::load::Input::Image(p) => Some(p.clone()),
+            _ => None,
+        })
+        .collect();
+    let inputs: Vec<armspace::load::Input> = match args.shard {
+        None => inputs,
+        Some((k, n)) => {
+            let mut i = 0;
+            inputs
+                .into_iter()
+                .filter(|input| match input {
+                    armspace::load::Input::Skipped { .. } => k == 1,
+                    _ => {
+                        i += 1;
+                        report::merge::in_part(i - 1, k, n)
+                    }
+                })
+                .collect()
+        }
+    };
+    let shard = args.shard.map(|(index, count)| report::ShardParameters {
+        index,
+        count,
+        batch_images,
+    });
     // Every output is checked before the first image is measured: none may
     // replace an input (after resolving links), and each must be writable.
-    let mut protected = armspace::files::Protected::new(inputs.iter().filter_map(|i| match i {
-        armspace::load::Input::Image(p) => Some(p.as_path()),
-        _ => None,
-    }));
+    let mut protected = armspace::files::Protected::new(batch_paths.iter().map(|p| p.as_path()));
     for p in [
         args.spec.as_deref(),
         args.calibration.profiles.as_deref(),
@@ -410,7 +466,15 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
         },
         None => None,
     };
-    let fingerprint = armspace::journal::fingerprint(&given, &opts);
+    // A part's journal is its own: the part is in the fingerprint.
+    let fingerprint = armspace::journal::fingerprint(
+        &given
+            .iter()
+            .cloned()
+            .chain(args.shard.map(|(k, n)| format!("--shard {k}/{n}")))
+            .collect::<Vec<_>>(),
+        &opts,
+    );
     // With --resume, the images the journal holds and that are unchanged are
     // taken over; the rest are measured.
     let taken: Vec<Option<report::ImageReport>> = match (&journal_path, args.resume) {
@@ -515,42 +579,18 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
                 .map(|r| report::BatchImage::measured(r, &opts)),
         })
         .collect();
-    let rep = report::assemble(&given, &opts, batch, &skipped, report::now_utc());
-    let json = report::to_json(&rep);
-    for s in &rep.skipped {
-        say!("skipped  {}: {}", s.file, s.reason);
-    }
-    // The report first, then the CSV; one failing never costs the other.
-    let mut write_failed = false;
-    match &args.out {
-        Some(path) => match armspace::files::write_output(path, json.as_bytes()) {
-            Ok(()) => say!("report written to {}", path.display()),
-            Err(e) => {
-                say!("armspace: {e}");
-                write_failed = true;
-            }
-        },
-        None => {
-            if let Err(e) = armspace::files::write_stdout(&json) {
-                say!("armspace: cannot write the report to standard output: {e}");
-                write_failed = true;
-            }
-        }
-    }
-    if let Some(path) = &args.csv {
-        let written = report::csv_summary(&rep)
-            .map_err(|e| format!("{}: {e}", path.display()))
-            .and_then(|text| {
-                armspace::files::write_output(path, text.as_bytes()).map_err(|e| e.to_string())
-            });
-        match written {
-            Ok(()) => say!("CSV summary written to {}", path.display()),
-            Err(e) => {
-                say!("armspace: {e}");
-                write_failed = true;
-            }
-        }
-    }
+    let mut rep = report::assemble(&given, &opts, batch, &skipped, report::now_utc());
+    rep.parameters.shard = shard;
+    let pictures: std::collections::BTreeMap<String, Vec<u8>> = results
+        .iter()
+        .filter_map(|r| Some((r.file.display().to_string(), r.thumbnail.clone()?)))
+        .collect();
+    let outputs = Outputs {
+        out: args.out.as_deref(),
+        csv: args.csv.as_deref(),
+        html: args.html.as_deref(),
+    };
+    let mut write_failed = write_outputs(&rep, &outputs, pictures);
     if let Some(path) = &args.points {
         let written = report::points_csv(&results, opts.fft.min_quality)
             .map_err(|e| format!("{}: {e}", path.display()))
@@ -565,14 +605,94 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
             }
         }
     }
-    if let Some(path) = &args.html {
-        let mut pictures: std::collections::BTreeMap<String, Vec<u8>> = results
-            .iter()
-            .filter_map(|r| Some((r.file.display().to_string(), r.thumbnail.clone()?)))
-            .collect();
-        // Images taken over from the journal (--resume) were not drawn in
-        // this run: their pictures written then, when still there, are
-        // scaled for the page.
+    for line in armspace::console::batch_lines(&rep) {
+        say!("{line}");
+    }
+    // The journal goes once the report (and CSV) are written whole; a
+    // partial report or a failed write keeps it for --resume.
+    if let Some(journal) = journal {
+        if write_failed || rep.summary.partial {
+            say!(
+                "armspace: the journal {} keeps the images finished; rerun with the same arguments and --resume to measure only the rest",
+                journal.path().display()
+            );
+        } else if let Err(e) = journal.remove() {
+            say!(
+                "armspace: warning: the report is whole, but its journal could not be removed: {e}"
+            );
+        }
+    }
+    if write_failed {
+        return ExitCode::from(EXIT_FATAL);
+    }
+    exit_status(&rep)
+}
+
+/// The exit status of a batch's report (see the command's help).
+pub(super) fn exit_status(rep: &report::Report) -> ExitCode {
+    ExitCode::from(match report::outcome(rep) {
+        report::Outcome::Ok => EXIT_OK,
+        report::Outcome::LimitFailed => EXIT_LIMIT_FAILED,
+        report::Outcome::NotMeasured => EXIT_NOT_MEASURED,
+        report::Outcome::Indeterminate => EXIT_INDETERMINATE,
+    })
+}
+
+/// Where a batch's report, CSV and page go.
+pub(super) struct Outputs<'a> {
+    pub out: Option<&'a std::path::Path>,
+    pub csv: Option<&'a std::path::Path>,
+    pub html: Option<&'a std::path::Path>,
+}
+
+/// Writes the report (to --out or stdout), the CSV and the page, each
+/// atomically, one failing never costing the others; true when one failed.
+/// `pictures` holds the page's copies drawn in this run; an image without
+/// one gets its written picture scaled for the page, when it is there.
+pub(super) fn write_outputs(
+    rep: &report::Report,
+    outputs: &Outputs,
+    mut pictures: std::collections::BTreeMap<String, Vec<u8>>,
+) -> bool {
+    let json = report::to_json(rep);
+    for s in &rep.skipped {
+        say!("skipped  {}: {}", s.file, s.reason);
+    }
+    // The report first, then the CSV; one failing never costs the other.
+    let mut write_failed = false;
+    match outputs.out {
+        Some(path) => match armspace::files::write_output(path, json.as_bytes()) {
+            Ok(()) => say!("report written to {}", path.display()),
+            Err(e) => {
+                say!("armspace: {e}");
+                write_failed = true;
+            }
+        },
+        None => {
+            if let Err(e) = armspace::files::write_stdout(&json) {
+                say!("armspace: cannot write the report to standard output: {e}");
+                write_failed = true;
+            }
+        }
+    }
+    if let Some(path) = outputs.csv {
+        let written = report::csv_summary(rep)
+            .map_err(|e| format!("{}: {e}", path.display()))
+            .and_then(|text| {
+                armspace::files::write_output(path, text.as_bytes()).map_err(|e| e.to_string())
+            });
+        match written {
+            Ok(()) => say!("CSV summary written to {}", path.display()),
+            Err(e) => {
+                say!("armspace: {e}");
+                write_failed = true;
+            }
+        }
+    }
+    if let Some(path) = outputs.html {
+        // Images not drawn in this run (taken over from a journal, or
+        // joined from the parts of a batch): their pictures written then,
+        // when still there, are scaled for the page.
         for im in &rep.images {
             if pictures.contains_key(&im.file) {
                 continue;
@@ -615,7 +735,7 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
                 }
             }
         }
-        let written = report::html::page(&rep, &pictures, &figures, path.parent())
+        let written = report::html::page(rep, &pictures, &figures, path.parent())
             .map_err(|e| format!("{}: {e}", path.display()))
             .and_then(|text| {
                 armspace::files::write_output(path, text.as_bytes()).map_err(|e| e.to_string())
@@ -628,32 +748,7 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
             }
         }
     }
-    for line in armspace::console::batch_lines(&rep) {
-        say!("{line}");
-    }
-    // The journal goes once the report (and CSV) are written whole; a
-    // partial report or a failed write keeps it for --resume.
-    if let Some(journal) = journal {
-        if write_failed || rep.summary.partial {
-            say!(
-                "armspace: the journal {} keeps the images finished; rerun with the same arguments and --resume to measure only the rest",
-                journal.path().display()
-            );
-        } else if let Err(e) = journal.remove() {
-            say!(
-                "armspace: warning: the report is whole, but its journal could not be removed: {e}"
-            );
-        }
-    }
-    if write_failed {
-        return ExitCode::from(EXIT_FATAL);
-    }
-    ExitCode::from(match report::outcome(&rep) {
-        report::Outcome::Ok => EXIT_OK,
-        report::Outcome::LimitFailed => EXIT_LIMIT_FAILED,
-        report::Outcome::NotMeasured => EXIT_NOT_MEASURED,
-        report::Outcome::Indeterminate => EXIT_INDETERMINATE,
-    })
+    write_failed
 }
 
 /// A point of `--at` that lies outside every image is a mistake in the

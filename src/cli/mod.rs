@@ -14,6 +14,7 @@ macro_rules! say {
 mod calibrate;
 mod interpret;
 mod measure;
+mod merge;
 mod stats;
 #[cfg(feature = "synth")]
 mod synth;
@@ -71,6 +72,10 @@ enum Command {
         #[arg(trailing_var_arg = true, allow_hyphen_values = true)]
         rest: Vec<String>,
     },
+    /// Join the reports of the parts of a batch (measure --shard K/N) into
+    /// the batch's report, CSV and HTML page, as one run would have written
+    /// them.
+    Merge(merge::MergeArgs),
     /// List the SDAS correlations (built-in and from --correlations) with source, status and validity.
     Correlations(CorrelationsArgs),
     /// Cooling rate and solidification time from one SDAS value, as JSON.
@@ -100,6 +105,7 @@ pub fn run() -> ExitCode {
             );
             ExitCode::from(EXIT_USAGE)
         }
+        Command::Merge(args) => merge::run(args),
         Command::Correlations(args) => interpret::run_correlations(args),
         Command::Interpret(args) => interpret::run_interpret(args),
     }

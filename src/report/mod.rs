@@ -14,6 +14,7 @@ mod at;
 mod csv_rows;
 pub mod html;
 mod map;
+pub mod merge;
 mod morphology;
 pub mod names;
 mod per_method;
@@ -81,7 +82,7 @@ pub struct Tool {
 }
 
 /// Everything needed to repeat the run.
-#[derive(Serialize, JsonSchema, Debug)]
+#[derive(Serialize, Deserialize, JsonSchema, Debug)]
 pub struct Parameters {
     /// The inputs (files and folders) as given.
     pub inputs: Vec<String>,
@@ -97,6 +98,7 @@ pub struct Parameters {
     pub scale_bar_rel_uncertainty: Option<f64>,
     /// The methods asked for, in the order they run.
     #[schemars(schema_with = "schema::method_names")]
+    #[serde(deserialize_with = "names::names")]
     pub methods: Vec<&'static str>,
     /// Images larger than this many megapixels are refused before decoding.
     #[schemars(extend("exclusiveMinimum" = 0))]
@@ -113,15 +115,34 @@ pub struct Parameters {
     #[schemars(with = "InterpretationParameters")]
     pub interpretation: Option<InterpretationParameters>,
     /// The points of --at as given, in order; absent without it.
-    #[serde(skip_serializing_if = "Vec::is_empty")]
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub at: Vec<String>,
     /// The lines of --along as given, in order; absent without it.
-    #[serde(skip_serializing_if = "Vec::is_empty")]
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub along: Vec<String>,
+    /// --shard: this report holds one part of a batch split across runs
+    /// (`armspace merge` joins the parts); absent in a whole batch's report.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub shard: Option<ShardParameters>,
+}
+
+/// Which part of a batch a report holds (`measure --shard K/N`): the
+/// batch's images in input order, the K-th of every N (image i, counted
+/// from 0, goes to part i mod N + 1).
+#[derive(Serialize, Deserialize, JsonSchema, Debug, Clone, Copy, PartialEq, Eq)]
+pub struct ShardParameters {
+    /// K, from 1.
+    #[schemars(range(min = 1))]
+    pub index: usize,
+    /// N.
+    #[schemars(range(min = 1))]
+    pub count: usize,
+    /// The images of the whole batch (files passed over not counted).
+    pub batch_images: usize,
 }
 
 /// The interpretation settings (--correlation).
-#[derive(Serialize, JsonSchema, Debug)]
+#[derive(Serialize, Deserialize, JsonSchema, Debug)]
 pub struct InterpretationParameters {
     /// The correlation's id.
     pub correlation: String,
@@ -135,11 +156,12 @@ pub struct InterpretationParameters {
     pub extrapolate: bool,
 }
 
-#[derive(Serialize, JsonSchema, Debug)]
+#[derive(Serialize, Deserialize, JsonSchema, Debug)]
 pub struct InterceptParameters {
     /// "centre-to-centre" (L/(n-1)) or "length-over-count" (L/n).
     #[schemars(schema_with = "schema::convention")]
-    pub convention: &'static str,
+    #[serde(deserialize_with = "names::name")]
+    pub convention: names::Name,
     /// The relative accuracy (%RA) the lines-for-target counts aim at.
     #[schemars(extend("exclusiveMinimum" = 0))]
     pub target_rel_accuracy_pct: f64,
@@ -152,7 +174,7 @@ pub fn convention_name(c: Convention) -> &'static str {
     }
 }
 
-#[derive(Serialize, JsonSchema, Debug)]
+#[derive(Serialize, Deserialize, JsonSchema, Debug)]
 pub struct ProfileParameters {
     pub name: String,
     #[schemars(extend("exclusiveMinimum" = 0))]
@@ -161,13 +183,13 @@ pub struct ProfileParameters {
     pub rel_uncertainty: Option<f64>,
 }
 
-#[derive(Serialize, JsonSchema, Debug)]
+#[derive(Serialize, Deserialize, JsonSchema, Debug)]
 pub struct PreprocessParameters {
     /// null: chosen per image from its size (reported per image in methods.fft).
     pub background_sigma_px: Option<f64>,
 }
 
-#[derive(Serialize, JsonSchema, Debug)]
+#[derive(Serialize, Deserialize, JsonSchema, Debug)]
 pub struct FftParameters {
     pub min_period_px: f64,
     pub periods_per_tile: f64,
@@ -375,7 +397,7 @@ pub struct LeftOutReport {
 
 /// A file passed over in a folder (not an image by its extension, one of
 /// the tool's own pictures, ...), with the reason.
-#[derive(Serialize, JsonSchema, Debug)]
+#[derive(Serialize, Deserialize, JsonSchema, Debug)]
 pub struct SkippedReport {
     pub file: String,
     pub reason: String,
@@ -749,6 +771,27 @@ pub fn assemble(
     skipped: &[Skipped],
     created_utc: String,
 ) -> Report {
+    let skipped = skipped
+        .iter()
+        .map(|s| SkippedReport {
+            file: s.file.display().to_string(),
+            reason: s.reason.clone(),
+        })
+        .collect();
+    assemble_from(parameters(inputs, opts), batch, skipped, created_utc)
+}
+
+/// Assembles the report of a batch from its parameters, its images in
+/// input order and the files passed over: the summary and the spec's
+/// verdicts are computed here, from the images' entries alone (so that
+/// the parts of a batch measured apart give the same report when joined,
+/// see [`merge`]).
+pub fn assemble_from(
+    parameters: Parameters,
+    batch: Vec<BatchImage>,
+    skipped: Vec<SkippedReport>,
+    created_utc: String,
+) -> Report {
     let interrupted = batch.iter().filter(|b| b.interrupted).count();
     let failed = batch.iter().filter(|b| b.report.error.is_some()).count() - interrupted;
     let measured = batch.iter().filter(|b| b.has_value()).count();
@@ -768,7 +811,7 @@ pub fn assemble(
         sdas_um_min: values.iter().copied().reduce(f64::min),
         sdas_um_median: crate::stats::median(&values).map(|v| round(v, 4)),
         sdas_um_max: values.iter().copied().reduce(f64::max),
-        acceptance: opts
+        acceptance: parameters
             .spec
             .as_ref()
             .map(|spec| acceptance_summary(spec, &images)),
@@ -781,15 +824,9 @@ pub fn assemble(
         },
         created_utc,
         caution: CAUTION,
-        parameters: parameters(inputs, opts),
+        parameters,
         images,
-        skipped: skipped
-            .iter()
-            .map(|s| SkippedReport {
-                file: s.file.display().to_string(),
-                reason: s.reason.clone(),
-            })
-            .collect(),
+        skipped,
         summary,
     }
 }
@@ -835,6 +872,7 @@ pub fn parameters(inputs: &[String], opts: &MeasureOptions) -> Parameters {
         }),
         at: opts.at.iter().map(|a| a.text.clone()).collect(),
         along: opts.along.iter().map(|a| a.text.clone()).collect(),
+        shard: None,
     }
 }
 
