@@ -244,6 +244,10 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         .map(|m| Warning::new("load.note", m))
         .collect();
     let detected = scale_bar::detect(&loaded.image);
+    // Resolution tags that cannot calibrate (no unit, absurd values) matter
+    // only when no other source does: they are then named in the image's
+    // error, and otherwise not raised (they bear on no number reported).
+    let mut metadata_unused = None;
     let metadata =
         loaded
             .resolution
@@ -257,10 +261,7 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
                     Some(v)
                 }
                 Err(note) => {
-                    warnings.push(Warning::new(
-                        "calibration.metadata-unused",
-                        format!("TIFF resolution tags not used: {note}"),
-                    ));
+                    metadata_unused = Some(note);
                     None
                 }
             });
@@ -270,6 +271,10 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
             c
         }
         Err(e) => {
+            let e = match metadata_unused {
+                Some(note) => format!("{e}: {note}"),
+                None => e.to_string(),
+            };
             let mut r =
                 ImageResult::failed(path.to_path_buf(), format!("{}: {e}", path.display()), opts);
             r.info = Some(info);

@@ -558,6 +558,17 @@ fn the_csv_agrees_with_the_json_and_parallel_runs_agree() {
     assert!(csv_text.starts_with("file,"), "the header is the first row");
     let rep: Value = serde_json::from_str(json_text).unwrap();
     let (header, rows) = read_csv(csv_text);
+    // A reader that is told nothing and works the dialect out from the
+    // bytes, as spreadsheet imports do (csv-nose, the Table Uniformity
+    // Method of W. Garcia, Data Science 7 (2024) 55-72): it must find the
+    // comma, the header on row 1 and every column.
+    let sniffed = csv_nose::Sniffer::new()
+        .sniff_bytes(csv_text.as_bytes())
+        .expect("the dialect is found");
+    assert_eq!(sniffed.dialect.delimiter, b',');
+    assert!(sniffed.dialect.header.has_header_row);
+    assert_eq!(sniffed.num_fields, header.len());
+    assert_eq!(sniffed.fields, header);
     let col = |name: &str| header.iter().position(|h| h == name).unwrap();
     for row in &rows {
         assert!(row[col("caution")].contains("qualified personnel"));
