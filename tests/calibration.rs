@@ -347,10 +347,25 @@ fn tiff_resolution_tags_from_an_outside_writer() {
     ]);
     let rep: serde_json::Value = serde_json::from_str(&run.stdout).unwrap();
     let im = &rep["images"][0];
-    assert!(im["error"].as_str().unwrap().contains("no calibration"));
-    assert!(im["warnings"]
+    // The error says why the tags did not calibrate.
+    let error = im["error"].as_str().unwrap();
+    assert!(error.contains("no calibration"), "{error}");
+    assert!(error.contains("screen or print"), "{error}");
+    // With a calibration given, the unusable tags bear on no number and
+    // are not raised.
+    let run = armspace(&[
+        "measure",
+        &path_str(&repo_file("fixtures/calibration/res_72dpi.tif")),
+        "--um-per-px",
+        "1",
+    ]);
+    let rep: serde_json::Value = serde_json::from_str(&run.stdout).unwrap();
+    let im = &rep["images"][0];
+    assert!(im["error"].is_null(), "{im}");
+    assert!(!run.stderr.contains("resolution tags"), "{}", run.stderr);
+    assert!(!im["warning_codes"]
         .as_array()
         .unwrap()
         .iter()
-        .any(|w| w.as_str().unwrap().contains("screen or print")));
+        .any(|c| c.as_str().unwrap().starts_with("calibration.metadata")));
 }
