@@ -80,6 +80,36 @@ fn missing(path: &Path) -> Error {
     }
 }
 
+/// A path as the report and the terminal show it: as it is when it is
+/// valid UTF-8; otherwise each byte that is not part of valid UTF-8 written
+/// as `\xNN` (a file name on Unix is any bytes), so that two names that
+/// differ only there stay two names, and the name can be found again.
+pub fn path_text(path: &Path) -> String {
+    #[cfg(unix)]
+    {
+        use std::os::unix::ffi::OsStrExt;
+        let bytes = path.as_os_str().as_bytes();
+        let mut out = String::with_capacity(bytes.len());
+        for chunk in bytes.utf8_chunks() {
+            out.push_str(chunk.valid());
+            for b in chunk.invalid() {
+                out.push_str(&format!("\\x{b:02X}"));
+            }
+        }
+        out
+    }
+    #[cfg(not(unix))]
+    {
+        path.display().to_string()
+    }
+}
+
+/// Whether the path is not valid UTF-8 (and is shown with escapes, see
+/// [`path_text`]).
+pub fn path_is_not_utf8(path: &Path) -> bool {
+    path.to_str().is_none()
+}
+
 /// Reads a text input (UTF-8) of at most [`MAX_TEXT_BYTES`], refusing special
 /// files and folders with a message naming the file; `what` says what the
 /// file was meant to be ("specification", "profile file" ...).

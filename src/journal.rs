@@ -200,7 +200,7 @@ impl Earlier {
 }
 
 fn key(path: &Path) -> String {
-    path.display().to_string()
+    files::path_text(path)
 }
 
 /// Reads the journal at `path` for a resumed run: None when there is none;

@@ -243,6 +243,15 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         .into_iter()
         .map(|m| Warning::new("load.note", m))
         .collect();
+    if crate::files::path_is_not_utf8(path) {
+        warnings.push(Warning::new(
+            "load.name-not-unicode",
+            format!(
+                "the file's name is not valid UTF-8: it is shown as {}, each byte that is not UTF-8 written as \\xNN",
+                crate::files::path_text(path)
+            ),
+        ));
+    }
     let detected = scale_bar::detect(&loaded.image);
     // Resolution tags that cannot calibrate (no unit, absurd values) matter
     // only when no other source does: they are then named in the image's
@@ -674,7 +683,7 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
             )
         })
     };
-    let file = path.display().to_string();
+    let file = crate::files::path_text(path);
     let caption = crate::overlay::Caption {
         file: &file,
         sdas: &sdas,

@@ -583,7 +583,7 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
     rep.parameters.shard = shard;
     let pictures: std::collections::BTreeMap<String, Vec<u8>> = results
         .iter()
-        .filter_map(|r| Some((r.file.display().to_string(), r.thumbnail.clone()?)))
+        .filter_map(|r| Some((armspace::files::path_text(&r.file), r.thumbnail.clone()?)))
         .collect();
     let outputs = Outputs {
         out: args.out.as_deref(),

@@ -612,7 +612,7 @@ pub struct AnnotationReport {
 pub fn image_report(r: &ImageResult, opts: &MeasureOptions) -> ImageReport {
     let cal = r.calibration.as_ref().map(|c| c.um_per_px);
     ImageReport {
-        file: r.file.display().to_string(),
+        file: crate::files::path_text(&r.file),
         sha256: r.info.as_ref().map(|i| i.sha256.clone()),
         width: r.info.as_ref().map(|i| i.width),
         height: r.info.as_ref().map(|i| i.height),
@@ -673,7 +673,7 @@ pub fn image_report(r: &ImageResult, opts: &MeasureOptions) -> ImageReport {
         warnings: r.warnings.iter().map(|w| w.message.clone()).collect(),
         warning_codes: r.warnings.iter().map(|w| w.code).collect(),
         error: r.error.clone(),
-        overlay: r.overlay.as_ref().map(|p| p.display().to_string()),
+        overlay: r.overlay.as_deref().map(crate::files::path_text),
         interpretation: match &r.interpretation {
             Some(Ok(i)) => Some(i.rounded()),
             _ => None,
@@ -774,7 +774,7 @@ pub fn assemble(
     let skipped = skipped
         .iter()
         .map(|s| SkippedReport {
-            file: s.file.display().to_string(),
+            file: crate::files::path_text(&s.file),
             reason: s.reason.clone(),
         })
         .collect();

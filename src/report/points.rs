@@ -53,7 +53,7 @@ pub fn points_csv(results: &[ImageResult], fft_min_quality: f64) -> crate::Resul
         let Some(cal) = r.calibration.as_ref().map(|c| c.um_per_px) else {
             continue;
         };
-        let file = r.file.display().to_string();
+        let file = crate::files::path_text(&r.file);
         for e in &r.locals {
             let cell_k = r
                 .map
