@@ -542,6 +542,11 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
             (Some(dir), Some(m), Some(base)) => {
                 let mut out = vec![];
                 let sdas: Vec<Option<f64>> = m.cells.iter().map(|c| c.value.map(|v| v.0)).collect();
+                let sdas_ci: Vec<Option<[f64; 2]>> = m
+                    .cells
+                    .iter()
+                    .map(|c| c.ci95.map(|[a, b]| [a.0, b.0]))
+                    .collect();
                 let title = format!(
                     "{file_name}: local SDAS, cells of {:.0} um, {} of {} with a value",
                     m.step_um,
@@ -557,6 +562,7 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
                                 base,
                                 m,
                                 &sdas,
+                                &sdas_ci,
                                 "local SDAS (um)",
                                 &title,
                                 um_per_px.get(),
@@ -568,6 +574,10 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
                     let tf: Vec<Option<f64>> = map_times
                         .iter()
                         .map(|t| t.as_ref().and_then(|t| t.solidification_time_s.value))
+                        .collect();
+                    let tf_ci: Vec<Option<[f64; 2]>> = map_times
+                        .iter()
+                        .map(|t| t.as_ref().and_then(|t| t.solidification_time_s.ci95))
                         .collect();
                     let title = format!(
                         "{file_name}: local solidification time, {} of {} cells with a value",
@@ -583,6 +593,7 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
                                     base,
                                     m,
                                     &tf,
+                                    &tf_ci,
                                     "local solidification time (s)",
                                     &title,
                                     um_per_px.get(),

@@ -165,6 +165,44 @@ pub fn profile_picture(title: &str, length_um: f64, panels: &[Panel]) -> crate::
     RgbImage::from_raw(w, h, buf).ok_or_else(|| draw_err("buffer of the wrong size"))
 }
 
+/// The values the colour scale spans: from the smallest to the largest
+/// value, widened about their middle to at least `typical_width` (the
+/// cells' median 95 % interval width), so that cells whose values their
+/// own intervals cannot tell apart are not drawn in colours from opposite
+/// ends of the scale; without intervals, to at least 10 % of the middle.
+pub fn colour_range(values: &[f64], typical_width: Option<f64>) -> Option<(f64, f64)> {
+    let lo = values.iter().copied().fold(f64::INFINITY, f64::min);
+    let hi = values.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    if !(lo.is_finite() && hi.is_finite()) {
+        return None;
+    }
+    let mid = 0.5 * (lo + hi);
+    let least = typical_width
+        .filter(|w| w.is_finite() && *w > 0.0)
+        .unwrap_or(0.1 * mid.abs().max(1e-12));
+    if hi - lo >= least {
+        Some((lo, hi))
+    } else {
+        Some((mid - 0.5 * least, mid + 0.5 * least))
+    }
+}
+
+/// Tick labels with as many decimals as the span needs (three to four
+/// significant steps), so that no label carries digits the scale cannot
+/// show.
+fn tick_label(v: f64, span: f64) -> String {
+    let decimals = if span >= 20.0 {
+        0
+    } else if span >= 2.0 {
+        1
+    } else if span >= 0.2 {
+        2
+    } else {
+        3
+    };
+    format!("{v:.decimals$}")
+}
+
 /// Opacity of a map's colour over the micrograph: 0.6, the colour read
 /// against the colour bar while the structure still shows through.
 const MAP_ALPHA: f32 = 0.6;
@@ -181,6 +219,7 @@ pub fn map_picture(
     base: &GrayImage,
     map: &Map,
     values: &[Option<f64>],
+    intervals: &[Option<[f64; 2]>],
     quantity: &str,
     title: &str,
     um_per_px: f64,
@@ -202,17 +241,13 @@ pub fn map_picture(
         .copied()
         .filter(|v| v.is_finite())
         .collect();
-    let range = {
-        let lo = valued.iter().copied().fold(f64::INFINITY, f64::min);
-        let hi = valued.iter().copied().fold(f64::NEG_INFINITY, f64::max);
-        if valued.is_empty() {
-            None
-        } else if hi > lo {
-            Some((lo, hi))
-        } else {
-            Some((0.95 * lo, 1.05 * hi.max(1e-12)))
-        }
-    };
+    let widths: Vec<f64> = intervals
+        .iter()
+        .flatten()
+        .map(|[a, b]| b - a)
+        .filter(|w| w.is_finite() && *w > 0.0)
+        .collect();
+    let range = colour_range(&valued, crate::stats::median(&widths));
     let mut buf = vec![255u8; (w * h * 3) as usize];
     let plot;
     {
@@ -243,6 +278,8 @@ pub fn map_picture(
             .disable_mesh()
             .x_desc("x from the image's left edge (um)")
             .y_desc("y from the top edge (um)")
+            .x_label_formatter(&|v| tick_label(*v, w_um))
+            .y_label_formatter(&|v| tick_label(*v, h_um))
             .label_style(("sans-serif", 13))
             .draw()
             .map_err(draw_err)?;
@@ -255,9 +292,12 @@ pub fn map_picture(
             .build_cartesian_2d(0.0..1.0, range.map_or(0.0..1.0, |(a, b)| a..b))
             .map_err(draw_err)?;
         let mut mesh = bar_chart.configure_mesh();
+        let span = range.map_or(1.0, |(a, b)| b - a);
+        let bar_label = |v: &f64| tick_label(*v, span);
         mesh.disable_mesh()
             .disable_x_axis()
             .y_desc(quantity)
+            .y_label_formatter(&bar_label)
             .label_style(("sans-serif", 13));
         if range.is_none() {
             mesh.disable_y_axis();
@@ -417,6 +457,19 @@ mod tests {
         // Text was set (dark pixels other than the axes' lines).
         let dark = img.pixels().filter(|p| p.0.iter().all(|&c| c < 80)).count();
         assert!(dark > 500, "{dark}");
+    }
+
+    #[test]
+    fn the_colour_scale_never_separates_values_their_intervals_cannot() {
+        // Two cells 1.6 um apart with 95 % intervals 8 um wide are drawn
+        // on a scale 8 um wide about their middle; cells farther apart than
+        // the intervals keep the scale of their own range.
+        let (lo, hi) = colour_range(&[27.7, 29.3], Some(8.0)).unwrap();
+        assert!((lo - 24.5).abs() < 1e-12 && (hi - 32.5).abs() < 1e-12);
+        assert_eq!(colour_range(&[20.0, 40.0], Some(8.0)), Some((20.0, 40.0)));
+        let (lo, hi) = colour_range(&[30.0, 30.0], None).unwrap();
+        assert!((lo - 28.5).abs() < 1e-12 && (hi - 31.5).abs() < 1e-12);
+        assert_eq!(colour_range(&[], Some(1.0)), None);
     }
 
     #[test]
