@@ -701,6 +701,7 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
         outcomes: &outcomes,
         um_per_px,
         calibration_source: calibration.source.name(),
+        morphology: morphology.as_ref(),
         acceptance: acceptance.as_ref(),
     };
     // The page's copy is scaled before its panel is set, so that the panel's

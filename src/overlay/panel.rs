@@ -25,6 +25,33 @@ pub struct Caption<'a> {
     pub calibration_source: &'a str,
     /// The decision against a limit, when a spec was given.
     pub acceptance: Option<&'a crate::interpret::acceptance::Acceptance>,
+    /// Columnar, equiaxed or mixed, with the growth direction, when read.
+    pub morphology: Option<&'a crate::spatial::morphology::Morphology>,
+}
+
+/// The morphology in one line: the class with its evidence, or why there
+/// is none.
+fn morphology_line(m: &crate::spatial::morphology::Morphology) -> String {
+    let evidence = format!(
+        "{} aligned, {} crossed of {} neighbourhoods{}",
+        m.aligned,
+        m.crossed,
+        m.cells.len(),
+        m.anisotropy
+            .map(|a| format!(", anisotropy {a:.2}"))
+            .unwrap_or_default()
+    );
+    match m.class {
+        Some(class) => {
+            let growth = match (m.growth_dir_deg, m.growth_spread_deg) {
+                (Some(d), Some(s)) => format!(", growth axis {d:.0}° ccw from x (spread {s:.0}°)"),
+                (Some(d), None) => format!(", growth axis {d:.0}° ccw from x"),
+                _ => String::new(),
+            };
+            format!("Morphology: {}{growth} ({evidence})", class.name())
+        }
+        None => format!("Morphology: not decided ({evidence})"),
+    }
 }
 
 /// The caution every page of the tool carries.
@@ -157,6 +184,9 @@ fn lines(c: &Caption) -> Vec<String> {
             None => format!("NOT ASSESSED{zone}: {}", a.reason),
         });
     }
+    if let Some(m) = c.morphology {
+        out.push(morphology_line(m));
+    }
     out.push(format!(
         "Calibration {} µm/px ({})",
         fmt_um(c.um_per_px.get()),
@@ -176,7 +206,27 @@ pub fn with_panel(picture: RgbImage, c: &Caption) -> RgbImage {
     let scale = PxScale::from(size);
     let line_h = (1.35 * size).ceil() as u32;
     let pad = (0.6 * size).ceil() as u32;
-    let mut text = lines(c);
+    // Each line of text, and the caution, wrapped to the width at word
+    // boundaries (a word longer than the width, such as a long path, stays
+    // whole on its own line).
+    let wrap = |line: &str| -> Vec<String> {
+        let mut rows = vec![String::new()];
+        for word in line.split(' ') {
+            let last = rows.last().cloned().unwrap_or_default();
+            let trial = if last.is_empty() {
+                word.to_string()
+            } else {
+                format!("{last} {word}")
+            };
+            if text_size(scale, &font, &trial).0 + 2 * pad > w && !last.is_empty() {
+                rows.push(word.to_string());
+            } else if let Some(l) = rows.last_mut() {
+                *l = trial;
+            }
+        }
+        rows
+    };
+    let mut text: Vec<String> = lines(c).iter().flat_map(|l| wrap(l)).collect();
     // The legend, as swatch + words, wrapped to the picture's width.
     let swatch = size.ceil() as u32;
     let mut legend_rows: Vec<Vec<(Rgb<u8>, &str)>> = vec![Vec::new()];
@@ -193,21 +243,7 @@ pub fn with_panel(picture: RgbImage, c: &Caption) -> RgbImage {
         }
         x += item;
     }
-    // The caution, wrapped to the width at word boundaries.
-    let mut caution = vec![String::new()];
-    for word in CAUTION.split(' ') {
-        let last = caution.last().cloned().unwrap_or_default();
-        let trial = if last.is_empty() {
-            word.to_string()
-        } else {
-            format!("{last} {word}")
-        };
-        if text_size(scale, &font, &trial).0 + 2 * pad > w && !last.is_empty() {
-            caution.push(word.to_string());
-        } else if let Some(l) = caution.last_mut() {
-            *l = trial;
-        }
-    }
+    let caution = wrap(CAUTION);
     let scale_row = 1u32;
     let rows = text.len() as u32 + legend_rows.len() as u32 + caution.len() as u32 + scale_row;
     let panel_h = rows * line_h + 2 * pad;
@@ -293,6 +329,38 @@ fn no_value_band(out: &mut RgbImage, w: u32, h: u32, font: &FontRef) {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn the_panel_states_the_morphology_and_its_evidence() {
+        use crate::spatial::morphology::{Class, Morphology};
+        let mut m = Morphology {
+            class: Some(Class::Columnar),
+            reason: None,
+            samples: 40,
+            spacing_um: 28.0,
+            anisotropy: Some(0.99),
+            step_um: 280.0,
+            radius_um: 280.0,
+            columns: 3,
+            rows: 3,
+            cells: vec![],
+            aligned: 6,
+            crossed: 0,
+            growth_dir_deg: Some(115.2),
+            growth_spread_deg: Some(3.6),
+            aligned_agreement: Some(0.99),
+            whole_image: false,
+        };
+        let line = morphology_line(&m);
+        assert!(
+            line.starts_with("Morphology: columnar, growth axis 115° ccw from x (spread 4°)"),
+            "{line}"
+        );
+        assert!(line.contains("6 aligned, 0 crossed"), "{line}");
+        m.class = None;
+        m.growth_dir_deg = None;
+        assert!(morphology_line(&m).starts_with("Morphology: not decided"));
+    }
 
     #[test]
     fn scale_lengths_are_one_two_or_five_times_a_power_of_ten() {
