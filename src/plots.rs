@@ -35,6 +35,28 @@ pub fn register_fonts() {
     });
 }
 
+/// The picture's title at `title_y` and the caution at the foot of a
+/// picture `h` pixels high.
+fn frame_text(
+    root: &DrawingArea<BitMapBackend, plotters::coord::Shift>,
+    title: &str,
+    title_y: i32,
+    h: u32,
+) -> crate::Result<()> {
+    root.draw(&Text::new(
+        title.to_string(),
+        (12, title_y),
+        ("sans-serif", 17).into_font(),
+    ))
+    .map_err(draw_err)?;
+    root.draw(&Text::new(
+        CAUTION,
+        (12, h as i32 - 18),
+        ("sans-serif", 12).into_font(),
+    ))
+    .map_err(draw_err)
+}
+
 fn draw_err(e: impl std::fmt::Display) -> crate::Error {
     crate::Error::Value {
         reason: format!("the plot could not be drawn: {e}"),
@@ -73,18 +95,7 @@ pub fn profile_picture(title: &str, length_um: f64, panels: &[Panel]) -> crate::
     let mut buf = vec![255u8; (w * h * 3) as usize];
     {
         let root = BitMapBackend::with_buffer(&mut buf, (w, h)).into_drawing_area();
-        root.draw(&Text::new(
-            title.to_string(),
-            (12, 10),
-            ("sans-serif", 17).into_font(),
-        ))
-        .map_err(draw_err)?;
-        root.draw(&Text::new(
-            CAUTION,
-            (12, h as i32 - 18),
-            ("sans-serif", 12).into_font(),
-        ))
-        .map_err(draw_err)?;
+        frame_text(&root, title, 10, h)?;
         let body = root.margin(40, 24, 0, 0);
         let areas = body.split_evenly((panels.len().max(1), 1));
         for (area, panel) in areas.iter().zip(panels) {
@@ -252,18 +263,7 @@ pub fn map_picture(
     let plot;
     {
         let root = BitMapBackend::with_buffer(&mut buf, (w, h)).into_drawing_area();
-        root.draw(&Text::new(
-            title.to_string(),
-            (12, 12),
-            ("sans-serif", 17).into_font(),
-        ))
-        .map_err(draw_err)?;
-        root.draw(&Text::new(
-            CAUTION,
-            (12, h as i32 - 18),
-            ("sans-serif", 12).into_font(),
-        ))
-        .map_err(draw_err)?;
+        frame_text(&root, title, 12, h)?;
         let body = root.margin(0, foot, 0, 0);
         let (main, bar) = body.split_horizontally(left + pw + right_gap);
         let mut chart = ChartBuilder::on(&main)
