@@ -99,6 +99,7 @@ fn precedence_manual_profile_bar_metadata() {
             length: Micrometres(100.0),
             rel_uncertainty: 0.0,
         }),
+        read_label: false,
         trust: None,
     };
     let (c, w) = resolve(&full, Some(&found), Some(um(0.5))).unwrap();
@@ -140,6 +141,7 @@ fn disagreement_over_two_percent_is_a_warning() {
             length: Micrometres(100.0),
             rel_uncertainty: 0.0,
         }),
+        read_label: false,
         trust: None,
     };
     let (c, w) = resolve(&req, Some(&found), None).unwrap();

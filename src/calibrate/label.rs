@@ -1,0 +1,925 @@
+//! Reading the length printed beside a scale bar ("50 µm", "0,5 mm",
+//! "200nm"), so that `--scale-bar auto` calibrates from the image alone.
+//!
+//! A wrong reading is worse than none (a confident wrong calibration scales
+//! every result by a factor), so the reader is strict and says why it gives
+//! no reading:
+//!
+//! 1. **Where.** The text is looked for around the bar found by
+//!    `scale_bar::detect`: above or below it (overlapping its columns), or
+//!    beside it (overlapping its rows), within a few letter heights and bar
+//!    thicknesses; labels are printed next to their bar (common practice,
+//!    no single source).
+//! 2. **Ink.** The label is printed in the bar's ink (the same drawing
+//!    step writes both; common practice, no single source). A pixel is ink
+//!    when it lies at least half-way from the bar's surround to the bar's
+//!    own level, and, in a second pass, 70 % of the way (which separates
+//!    text from structure of a grey near the surround's): the two passes
+//!    must not read two different lengths.
+//! 3. **Line.** Connected components of the ink, cut free from the bar and
+//!    anything touching it (its ticks), are grouped into a line: glyphs of
+//!    similar height overlapping in rows, at most one letter height apart
+//!    (a word space is about half a letter height; common practice). Small
+//!    components between them on the baseline (a decimal point or comma)
+//!    join the line. The line's frame is its digits' top and baseline.
+//! 4. **Glyphs.** Each glyph, cut out by its own component (so that
+//!    neighbours and structure do not enter), is sampled in the line's
+//!    frame (scaled by the digit height, so its size and height on the line
+//!    count) and compared by zero-mean normalised cross-correlation with
+//!    templates of `0-9 . , n u µ m` rendered at run time from the bundled
+//!    DejaVu Sans at the line's own height (`ab_glyph`), shifted by up to a
+//!    cell. Its reading is the best match; its confidence is how far the
+//!    best beats the best of any other meaning (`glyph_confidence`).
+//! 5. **Grammar.** The glyphs must read NUMBER [space] UNIT exactly:
+//!    digits, at most one decimal point or comma followed by digits, and
+//!    one of nm, um, µm, mm. Anything else (more text, a letter that is no
+//!    unit, a glyph that matches nothing) is no reading, with the reason. A
+//!    separator followed by exactly three digits after a non-zero integer
+//!    part ("1,000 µm", "2.500 mm") is a thousands separator in some
+//!    countries and a decimal one in others: no reading.
+//! 6. **Plausibility.** The calibration the reading gives must put the
+//!    image's width within [`FIELD_WIDTH_RANGE_UM`].
+//!
+//! The label's confidence is that of its least certain glyph; under
+//! [`MIN_CONFIDENCE`] the image has no reading.
+
+use super::scale_bar::{Polarity, ScaleBar};
+use crate::blocks::components::label_runs;
+use crate::load::GrayImage;
+use crate::units::Micrometres;
+use ab_glyph::{point, Font, FontRef, PxScale};
+use schemars::JsonSchema;
+use serde::{Deserialize, Serialize};
+
+static DEJAVU_SANS: &[u8] = include_bytes!("../../assets/fonts/DejaVuSans.ttf");
+
+/// The range of field-of-view widths of optical and scanning electron
+/// micrographs of cast structures, in um: from about 10 um (several
+/// thousand times) to about 100 mm (a macro-etched section photographed
+/// whole). Common practice, no single source.
+pub const FIELD_WIDTH_RANGE_UM: [f64; 2] = [10.0, 100_000.0];
+
+/// Least label confidence for a reading to be used (see
+/// `glyph_confidence`): the best match must close at least a third of the
+/// gap between the runner-up of another meaning and a perfect match. With
+/// less, the glyph is nearly as much like another character as like the
+/// one it is read as, and a wrong length is the worse outcome.
+pub const MIN_CONFIDENCE: f64 = 1.0 / 3.0;
+
+/// Least correlation of a glyph with its best template: at 0.7 the
+/// template accounts for about half of the glyph's variance (r^2 = 0.49);
+/// a glyph less like any character than that is not read.
+const MIN_MATCH: f64 = 0.7;
+
+/// Digit heights read, px: the issue asks for 8 to 40 px; a little is
+/// allowed either side for anti-aliasing, which adds up to a pixel at top
+/// and bottom.
+const MIN_HEIGHT_PX: usize = 7;
+const MAX_HEIGHT_PX: usize = 44;
+
+/// Shares of the way from the bar's surround to its ink at which the text
+/// is cut (see the module notes).
+const INK_FRACTIONS: [f32; 2] = [0.5, 0.7];
+
+/// Grid the glyphs are compared on, in digit heights: from 0.2 above the
+/// digits' top to 0.35 below the baseline (descenders of µ and the comma),
+/// 0.8 either side of the glyph's centre (the widest glyph, m, is about
+/// 1.1 digit heights wide), in cells of 1/12 of the height (a stroke of a
+/// regular face is about 0.13 of the digit height wide, so one to two
+/// cells).
+const GRID_UP: f64 = 0.2;
+const GRID_DOWN: f64 = 0.35;
+const GRID_HALF_W: f64 = 0.8;
+const CELLS_PER_H: f64 = 12.0;
+
+/// A label read beside the bar.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, JsonSchema)]
+pub struct Label {
+    /// The text as read, e.g. "50 µm" (a space where the glyphs leave one).
+    pub text: String,
+    /// The length it states, um.
+    pub length_um: f64,
+    /// 0 to 1: the least certain glyph's confidence (`MIN_CONFIDENCE` is
+    /// the least used).
+    pub confidence: f64,
+    /// The text's box, [x0, y0, x1, y1], inclusive pixel indices.
+    pub rect: [u32; 4],
+    /// Height of its digits, px.
+    pub height_px: f64,
+}
+
+impl Label {
+    pub fn length(&self) -> Micrometres {
+        Micrometres(self.length_um)
+    }
+}
+
+/// What a glyph means.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+enum Meaning {
+    Digit(u8),
+    Separator,
+    Nano,
+    Micro,
+    Milli,
+}
+
+/// The characters read and what each means (`u` and `µ` both mean micro;
+/// `.` and `,` both mark the decimal).
+const CHARS: [(char, Meaning); 16] = [
+    ('0', Meaning::Digit(0)),
+    ('1', Meaning::Digit(1)),
+    ('2', Meaning::Digit(2)),
+    ('3', Meaning::Digit(3)),
+    ('4', Meaning::Digit(4)),
+    ('5', Meaning::Digit(5)),
+    ('6', Meaning::Digit(6)),
+    ('7', Meaning::Digit(7)),
+    ('8', Meaning::Digit(8)),
+    ('9', Meaning::Digit(9)),
+    ('.', Meaning::Separator),
+    (',', Meaning::Separator),
+    ('n', Meaning::Nano),
+    ('u', Meaning::Micro),
+    ('\u{00b5}', Meaning::Micro),
+    ('m', Meaning::Milli),
+];
+
+/// A connected component of ink: its box (inclusive, image coordinates)
+/// and its pixels' runs (row, first column, one past the last).
+#[derive(Clone, Debug)]
+struct Comp {
+    x0: usize,
+    y0: usize,
+    x1: usize,
+    y1: usize,
+    runs: Vec<(usize, usize, usize)>,
+}
+
+impl Comp {
+    fn h(&self) -> usize {
+        self.y1 + 1 - self.y0
+    }
+    fn w(&self) -> usize {
+        self.x1 + 1 - self.x0
+    }
+    fn merge(&mut self, o: &Comp) {
+        self.x0 = self.x0.min(o.x0);
+        self.y0 = self.y0.min(o.y0);
+        self.x1 = self.x1.max(o.x1);
+        self.y1 = self.y1.max(o.y1);
+        self.runs.extend_from_slice(&o.runs);
+    }
+}
+
+/// A glyph's image in the line's frame: coverage 0..1 on the grid, and
+/// its ink box in digit heights.
+struct Sampled {
+    grid: Vec<f32>,
+    w_h: f64,
+    h_h: f64,
+}
+
+/// The frame of a line: its digits' top (the first row of ink) and its
+/// baseline (one past the last row of the digits' ink), px.
+#[derive(Clone, Copy, Debug)]
+struct Frame {
+    top: f64,
+    base: f64,
+}
+
+impl Frame {
+    fn height(&self) -> f64 {
+        self.base - self.top
+    }
+}
+
+fn grid_dims() -> (usize, usize) {
+    let rows = ((1.0 + GRID_UP + GRID_DOWN) * CELLS_PER_H).round() as usize;
+    let cols = (2.0 * GRID_HALF_W * CELLS_PER_H).round() as usize;
+    (rows, cols)
+}
+
+/// Samples coverage `cov(x, y)` (pixel indices, 0 outside) on the grid of
+/// `frame` centred on `cx`: each cell the mean of 3 x 3 points.
+fn sample(cov: &dyn Fn(i64, i64) -> f32, frame: Frame, cx: f64) -> Vec<f32> {
+    let (rows, cols) = grid_dims();
+    let h = frame.height();
+    let s = h / CELLS_PER_H;
+    let (ya, xa) = (frame.top - GRID_UP * h, cx - GRID_HALF_W * h);
+    let mut g = vec![0.0f32; rows * cols];
+    for r in 0..rows {
+        for c in 0..cols {
+            let mut acc = 0.0f32;
+            for j in 0..3 {
+                for i in 0..3 {
+                    let y = ya + (r as f64 + (j as f64 + 0.5) / 3.0) * s;
+                    let x = xa + (c as f64 + (i as f64 + 0.5) / 3.0) * s;
+                    acc += cov(x.floor() as i64, y.floor() as i64);
+                }
+            }
+            g[r * cols + c] = acc / 9.0;
+        }
+    }
+    g
+}
+
+/// Zero-mean normalised cross-correlation of a glyph with a template,
+/// the best over shifts of the template by up to a cell each way (the
+/// frame and centre are located to about a pixel).
+fn zncc(g: &[f32], t: &[f32]) -> f64 {
+    let (rows, cols) = grid_dims();
+    let mut best = -1.0f64;
+    for dy in -1i64..=1 {
+        for dx in -1i64..=1 {
+            let tv = |r: usize, c: usize| -> f64 {
+                let (rr, cc) = (r as i64 + dy, c as i64 + dx);
+                if rr < 0 || cc < 0 || rr >= rows as i64 || cc >= cols as i64 {
+                    0.0
+                } else {
+                    t[rr as usize * cols + cc as usize] as f64
+                }
+            };
+            let n = (rows * cols) as f64;
+            let (mut sg, mut st) = (0.0, 0.0);
+            for r in 0..rows {
+                for c in 0..cols {
+                    sg += g[r * cols + c] as f64;
+                    st += tv(r, c);
+                }
+            }
+            let (mg, mt) = (sg / n, st / n);
+            let (mut sgt, mut sgg, mut stt) = (0.0, 0.0, 0.0);
+            for r in 0..rows {
+                for c in 0..cols {
+                    let a = g[r * cols + c] as f64 - mg;
+                    let b = tv(r, c) - mt;
+                    sgt += a * b;
+                    sgg += a * a;
+                    stt += b * b;
+                }
+            }
+            if sgg > 0.0 && stt > 0.0 {
+                best = best.max(sgt / (sgg * stt).sqrt());
+            }
+        }
+    }
+    best
+}
+
+/// Templates of the characters at one digit height.
+struct Templates {
+    glyphs: Vec<(char, Meaning, Sampled)>,
+}
+
+/// A character rendered alone: its coverage (row-major, `w` wide) and
+/// where the baseline row boundary lies.
+struct Rendered {
+    cov: Vec<f32>,
+    w: usize,
+    h: usize,
+}
+
+fn render_char(font: &FontRef, c: char, px: f32) -> Option<Rendered> {
+    let pad = 4.0;
+    let size = (px * 2.0).ceil() as usize + 8;
+    let base = px * 1.2 + pad;
+    let glyph = font
+        .glyph_id(c)
+        .with_scale_and_position(PxScale::from(px), point(pad, base));
+    let og = font.outline_glyph(glyph)?;
+    let b = og.px_bounds();
+    let (w, h) = (size, (base + px).ceil() as usize + 4);
+    let mut cov = vec![0.0f32; w * h];
+    let (ox, oy) = (b.min.x as i64, b.min.y as i64);
+    og.draw(|x, y, v| {
+        let (xx, yy) = (ox + x as i64, oy + y as i64);
+        if xx >= 0 && yy >= 0 && (xx as usize) < w && (yy as usize) < h {
+            cov[yy as usize * w + xx as usize] = v.clamp(0.0, 1.0);
+        }
+    });
+    Some(Rendered { cov, w, h })
+}
+
+/// Ink box of a rendered character (coverage at least `cut`), inclusive.
+fn ink_box(r: &Rendered, cut: f32) -> Option<[usize; 4]> {
+    let mut b: Option<[usize; 4]> = None;
+    for y in 0..r.h {
+        for x in 0..r.w {
+            if r.cov[y * r.w + x] >= cut {
+                b = Some(match b {
+                    None => [x, y, x, y],
+                    Some([a, c, d, e]) => [a.min(x), c.min(y), d.max(x), e.max(y)],
+                });
+            }
+        }
+    }
+    b
+}
+
+impl Templates {
+    /// The characters rendered so that their digits are `height` px high
+    /// when cut at half coverage (as the glyphs read are cut at half the
+    /// way to the ink), sampled in their own frame.
+    fn at(height: f64) -> Option<Templates> {
+        let font = FontRef::try_from_slice(DEJAVU_SANS).ok()?;
+        let digit_height = |px: f32| -> Option<f64> {
+            let (mut top, mut bottoms) = (usize::MAX, Vec::new());
+            for d in '0'..='9' {
+                let r = render_char(&font, d, px)?;
+                let b = ink_box(&r, 0.5)?;
+                top = top.min(b[1]);
+                bottoms.push(b[3]);
+            }
+            bottoms.sort_unstable();
+            Some((bottoms[(bottoms.len() - 1) / 2] + 1 - top) as f64)
+        };
+        let reference = 100.0f32;
+        let px = reference * (height / digit_height(reference)?) as f32;
+        // The frame of the digits at this size, measured as the glyphs'.
+        let mut top = usize::MAX;
+        let mut bottoms = Vec::new();
+        for d in '0'..='9' {
+            let r = render_char(&font, d, px)?;
+            let b = ink_box(&r, 0.5)?;
+            top = top.min(b[1]);
+            bottoms.push(b[3]);
+        }
+        bottoms.sort_unstable();
+        let frame = Frame {
+            top: top as f64,
+            base: (bottoms[(bottoms.len() - 1) / 2] + 1) as f64,
+        };
+        let mut glyphs = Vec::new();
+        for (c, m) in CHARS {
+            let r = render_char(&font, c, px)?;
+            let b = ink_box(&r, 0.5)?;
+            let cx = (b[0] + b[2] + 1) as f64 / 2.0;
+            let cov = |x: i64, y: i64| -> f32 {
+                if x < 0 || y < 0 || x as usize >= r.w || y as usize >= r.h {
+                    0.0
+                } else {
+                    r.cov[y as usize * r.w + x as usize]
+                }
+            };
+            let h = frame.height();
+            glyphs.push((
+                c,
+                m,
+                Sampled {
+                    grid: sample(&cov, frame, cx),
+                    w_h: (b[2] + 1 - b[0]) as f64 / h,
+                    h_h: (b[3] + 1 - b[1]) as f64 / h,
+                },
+            ));
+        }
+        Some(Templates { glyphs })
+    }
+}
+
+/// One glyph's reading: the character, its meaning, the best correlation
+/// and the best correlation with a character of another meaning.
+#[derive(Clone, Copy, Debug)]
+struct GlyphRead {
+    c: char,
+    meaning: Meaning,
+    best: f64,
+    other: f64,
+    /// Whether its ink box is the template's size (see `classify`).
+    size_ok: bool,
+}
+
+/// A glyph's confidence: the share of the gap from the best match of
+/// another meaning up to a perfect match that its own best match closes,
+/// `(best - other) / (1 - other)`; 0 when the best match is under
+/// `MIN_MATCH` or its size is not the character's. 1 for a glyph that is
+/// exactly its template; 0 for one as much like two meanings.
+fn glyph_confidence(g: &GlyphRead) -> f64 {
+    if g.best < MIN_MATCH || !g.size_ok {
+        return 0.0;
+    }
+    ((g.best - g.other) / (1.0 - g.other).max(1e-9)).clamp(0.0, 1.0)
+}
+
+fn classify(s: &Sampled, t: &Templates) -> GlyphRead {
+    let scores: Vec<f64> = t
+        .glyphs
+        .iter()
+        .map(|(_, _, tg)| zncc(&s.grid, &tg.grid))
+        .collect();
+    let (bi, &best) = scores
+        .iter()
+        .enumerate()
+        .max_by(|a, b| a.1.total_cmp(b.1))
+        .expect("templates are not empty");
+    let (c, meaning, tg) = &t.glyphs[bi];
+    let other = scores
+        .iter()
+        .zip(&t.glyphs)
+        .filter(|(_, (_, m, _))| m != meaning)
+        .map(|(s, _)| *s)
+        .fold(-1.0, f64::max);
+    // Size: the ink box within a quarter of the digit height (and half its
+    // own size, for the dot and comma) of the character's, in each
+    // direction. Faces differ in proportions by less than that (common
+    // practice, no single source); a speck or a blob of another size is no
+    // such character.
+    let close = |a: f64, b: f64| (a - b).abs() <= 0.25_f64.max(0.5 * b);
+    let size_ok = close(s.w_h, tg.w_h) && close(s.h_h, tg.h_h);
+    GlyphRead {
+        c: *c,
+        meaning: *meaning,
+        best,
+        other,
+        size_ok,
+    }
+}
+
+/// Components of the predicate within `rect` (inclusive, image
+/// coordinates).
+fn components(img: &GrayImage, rect: [usize; 4], is_ink: &dyn Fn(f32) -> bool) -> Vec<Comp> {
+    let [x0, y0, x1, y1] = rect;
+    let (w, h) = (x1 + 1 - x0, y1 + 1 - y0);
+    let runs = label_runs(w, h, |x, y| is_ink(img.get(x0 + x, y0 + y)));
+    let mut index = std::collections::HashMap::new();
+    let mut comps: Vec<Comp> = Vec::new();
+    for (k, &(y, a, b)) in runs.runs.iter().enumerate() {
+        let root = runs.root[k];
+        let i = *index.entry(root).or_insert_with(|| {
+            comps.push(Comp {
+                x0: usize::MAX,
+                y0: usize::MAX,
+                x1: 0,
+                y1: 0,
+                runs: Vec::new(),
+            });
+            comps.len() - 1
+        });
+        let c = &mut comps[i];
+        let (yy, aa, bb) = (y0 + y, x0 + a, x0 + b);
+        c.x0 = c.x0.min(aa);
+        c.x1 = c.x1.max(bb - 1);
+        c.y0 = c.y0.min(yy);
+        c.y1 = c.y1.max(yy);
+        c.runs.push((yy, aa, bb));
+    }
+    comps
+}
+
+/// Samples a component's glyph: coverage of the ink (0 at the surround, 1
+/// at the ink level) within the component's pixels grown by one (its
+/// anti-aliased rim), 0 elsewhere.
+fn sample_comp(img: &GrayImage, c: &Comp, frame: Frame, ink: f32, surround: f32) -> Sampled {
+    let (bx0, by0) = (c.x0 as i64 - 1, c.y0 as i64 - 1);
+    let (bw, bh) = (c.w() + 2, c.h() + 2);
+    let mut own = vec![false; bw * bh];
+    for &(y, a, b) in &c.runs {
+        let yy = (y as i64 - by0) as usize;
+        for x in a..b {
+            own[yy * bw + (x as i64 - bx0) as usize] = true;
+        }
+    }
+    let grown: Vec<bool> = (0..bw * bh)
+        .map(|i| {
+            let (x, y) = ((i % bw) as i64, (i / bw) as i64);
+            (-1..=1).any(|dy| {
+                (-1..=1).any(|dx| {
+                    let (xx, yy) = (x + dx, y + dy);
+                    xx >= 0
+                        && yy >= 0
+                        && (xx as usize) < bw
+                        && (yy as usize) < bh
+                        && own[yy as usize * bw + xx as usize]
+                })
+            })
+        })
+        .collect();
+    let span = ink - surround;
+    let cov = |x: i64, y: i64| -> f32 {
+        let (lx, ly) = (x - bx0, y - by0);
+        if lx < 0 || ly < 0 || lx as usize >= bw || ly as usize >= bh {
+            return 0.0;
+        }
+        if !grown[ly as usize * bw + lx as usize] {
+            return 0.0;
+        }
+        if x < 0 || y < 0 || x as usize >= img.width || y as usize >= img.height {
+            return 0.0;
+        }
+        ((img.get(x as usize, y as usize) - surround) / span).clamp(0.0, 1.0)
+    };
+    let h = frame.height();
+    Sampled {
+        grid: sample(&cov, frame, (c.x0 + c.x1 + 1) as f64 / 2.0),
+        w_h: c.w() as f64 / h,
+        h_h: c.h() as f64 / h,
+    }
+}
+
+/// A line of glyphs near the bar and its frame.
+struct Line {
+    glyphs: Vec<Comp>,
+    frame: Frame,
+    rect: [usize; 4],
+}
+
+/// Groups components into lines of text near the bar (module notes, 3).
+fn lines_near(comps: &[Comp], bar: &ScaleBar) -> Vec<Line> {
+    let tall: Vec<usize> = (0..comps.len())
+        .filter(|&i| {
+            (6..=MAX_HEIGHT_PX).contains(&comps[i].h()) && comps[i].w() <= 2 * MAX_HEIGHT_PX
+        })
+        .collect();
+    let mut parent: Vec<usize> = (0..tall.len()).collect();
+    fn find(p: &mut [usize], mut i: usize) -> usize {
+        while p[i] != i {
+            p[i] = p[p[i]];
+            i = p[i];
+        }
+        i
+    }
+    for a in 0..tall.len() {
+        for b in a + 1..tall.len() {
+            let (p, q) = (&comps[tall[a]], &comps[tall[b]]);
+            let (hp, hq) = (p.h() as f64, q.h() as f64);
+            let (hmax, hmin) = (hp.max(hq), hp.min(hq));
+            if hmin < 0.5 * hmax {
+                continue;
+            }
+            let overlap = p.y1.min(q.y1) as f64 - p.y0.max(q.y0) as f64 + 1.0;
+            if overlap < 0.6 * hmin {
+                continue;
+            }
+            let gap = p.x0.max(q.x0) as f64 - p.x1.min(q.x1) as f64 - 1.0;
+            if gap < -0.15 * hmax || gap > hmax {
+                continue;
+            }
+            let (ra, rb) = (find(&mut parent, a), find(&mut parent, b));
+            if ra != rb {
+                parent[ra.max(rb)] = ra.min(rb);
+            }
+        }
+    }
+    let mut groups: std::collections::BTreeMap<usize, Vec<usize>> = Default::default();
+    for (k, &i) in tall.iter().enumerate() {
+        let r = find(&mut parent, k);
+        groups.entry(r).or_default().push(i);
+    }
+    let t = bar.thickness_px as f64;
+    let mut lines = Vec::new();
+    for members in groups.into_values() {
+        // A label has at least a digit and a two-letter unit.
+        if members.len() < 3 {
+            continue;
+        }
+        let top = members.iter().map(|&i| comps[i].y0).min().unwrap_or(0);
+        let mut bottoms: Vec<usize> = members.iter().map(|&i| comps[i].y1).collect();
+        bottoms.sort_unstable();
+        let base = bottoms[(bottoms.len() - 1) / 2] + 1;
+        if base <= top {
+            continue;
+        }
+        let frame = Frame {
+            top: top as f64,
+            base: base as f64,
+        };
+        let hh = frame.height();
+        if hh < MIN_HEIGHT_PX as f64 || hh > MAX_HEIGHT_PX as f64 {
+            continue;
+        }
+        let lx0 = members.iter().map(|&i| comps[i].x0).min().unwrap_or(0);
+        let lx1 = members.iter().map(|&i| comps[i].x1).max().unwrap_or(0);
+        let ly1 = members.iter().map(|&i| comps[i].y1).max().unwrap_or(0);
+        // Beside the bar: above or below it over its columns, within one
+        // and a half letter heights plus two bar thicknesses (room for end
+        // ticks, which reach about a thickness beyond the bar); or level
+        // with it to a side, within two letter heights.
+        let (bx0, by0, bx1, by1) = (bar.x0 as f64, bar.y0 as f64, bar.x1 as f64, bar.y1 as f64);
+        let reach = 1.5 * hh + 2.0 * t + 4.0;
+        let over_cols = (lx1 as f64) >= bx0 - hh && (lx0 as f64) <= bx1 + hh;
+        let above = over_cols && ly1 as f64 <= by0 - 1.0 && by0 - ly1 as f64 - 1.0 <= reach;
+        let below = over_cols && top as f64 >= by1 + 1.0 && top as f64 - by1 - 1.0 <= reach;
+        let over_rows = (ly1 as f64) >= by0 - hh && (top as f64) <= by1 + hh;
+        let side_gap = if (lx0 as f64) > bx1 {
+            lx0 as f64 - bx1 - 1.0
+        } else if (lx1 as f64) < bx0 {
+            bx0 - lx1 as f64 - 1.0
+        } else {
+            f64::INFINITY
+        };
+        let beside = over_rows && side_gap <= 2.0 * hh + 4.0;
+        if !(above || below || beside) {
+            continue;
+        }
+        // Small components on the baseline between the line's glyphs: a
+        // decimal point or comma.
+        let mut glyphs: Vec<Comp> = members.iter().map(|&i| comps[i].clone()).collect();
+        for c in comps {
+            let cx = (c.x0 + c.x1) as f64 / 2.0;
+            if (c.h() as f64) < 0.6 * hh
+                && cx > lx0 as f64
+                && cx < lx1 as f64
+                && c.y0 as f64 >= frame.top + 0.4 * hh
+                && (c.y1 as f64) < frame.base + 0.45 * hh
+                && !members.iter().any(|&i| {
+                    let m = &comps[i];
+                    m.x0 == c.x0 && m.y0 == c.y0 && m.x1 == c.x1 && m.y1 == c.y1
+                })
+            {
+                glyphs.push(c.clone());
+            }
+        }
+        glyphs.sort_by_key(|c| (c.x0, c.y0));
+        // Pieces of one glyph (a stroke broken at the cut) overlap in
+        // columns: joined.
+        let mut merged: Vec<Comp> = Vec::new();
+        for g in glyphs {
+            if let Some(last) = merged.last_mut() {
+                let ov = last.x1.min(g.x1) as f64 - last.x0.max(g.x0) as f64 + 1.0;
+                if ov >= 0.6 * last.w().min(g.w()) as f64 {
+                    last.merge(&g);
+                    continue;
+                }
+            }
+            merged.push(g);
+        }
+        let rect = [
+            merged.iter().map(|c| c.x0).min().unwrap_or(0),
+            merged.iter().map(|c| c.y0).min().unwrap_or(0),
+            merged.iter().map(|c| c.x1).max().unwrap_or(0),
+            merged.iter().map(|c| c.y1).max().unwrap_or(0),
+        ];
+        lines.push(Line {
+            glyphs: merged,
+            frame,
+            rect,
+        });
+    }
+    lines
+}
+
+/// The length a sequence of meanings states, or why it states none.
+fn parse(reads: &[(GlyphRead, f64)]) -> Result<f64, String> {
+    let m: Vec<Meaning> = reads.iter().map(|(g, _)| g.meaning).collect();
+    let n = m.len();
+    if n < 3 {
+        return Err("too few characters for a number and a unit".into());
+    }
+    let unit = match (m[n - 2], m[n - 1]) {
+        (Meaning::Nano, Meaning::Milli) => 1e-3,
+        (Meaning::Micro, Meaning::Milli) => 1.0,
+        (Meaning::Milli, Meaning::Milli) => 1e3,
+        _ => return Err("it does not end in a unit (nm, um, µm or mm)".into()),
+    };
+    let num = &m[..n - 2];
+    let mut int = String::new();
+    let mut frac: Option<String> = None;
+    for (k, x) in num.iter().enumerate() {
+        match x {
+            Meaning::Digit(d) => match frac.as_mut() {
+                Some(f) => f.push(char::from(b'0' + d)),
+                None => int.push(char::from(b'0' + d)),
+            },
+            Meaning::Separator if frac.is_none() && !int.is_empty() && k + 1 < num.len() => {
+                frac = Some(String::new())
+            }
+            _ => return Err("its number is not digits with at most one decimal mark".into()),
+        }
+    }
+    if int.is_empty() || frac.as_ref().is_some_and(|f| f.is_empty()) {
+        return Err("it has no number before the unit".into());
+    }
+    if int.len() > 1 && int.starts_with('0') {
+        return Err(format!("'{int}' is no way of writing a length"));
+    }
+    if let Some(f) = &frac {
+        if f.len() == 3 && int != "0" {
+            return Err(format!(
+                "'{int}?{f}' could be read with a thousands separator or a decimal mark"
+            ));
+        }
+    }
+    let text = match &frac {
+        Some(f) => format!("{int}.{f}"),
+        None => int,
+    };
+    let v: f64 = text
+        .parse()
+        .map_err(|_| format!("'{text}' is not a number"))?;
+    if !(v > 0.0 && v.is_finite()) {
+        return Err("it states no positive length".into());
+    }
+    Ok(v * unit)
+}
+
+/// One line's reading: its text, length and confidence, or why not.
+struct Attempt {
+    text: String,
+    result: Result<f64, String>,
+    confidence: f64,
+    rect: [usize; 4],
+    height: f64,
+}
+
+fn read_line(img: &GrayImage, line: &Line, ink: f32, surround: f32) -> Attempt {
+    let hh = line.frame.height();
+    let rect = line.rect;
+    let fail = |text: String, why: String, confidence: f64| Attempt {
+        text,
+        result: Err(why),
+        confidence,
+        rect,
+        height: hh,
+    };
+    let Some(t) = Templates::at(hh) else {
+        return fail(
+            String::new(),
+            "the glyph templates could not be drawn".into(),
+            0.0,
+        );
+    };
+    let reads: Vec<(GlyphRead, f64)> = line
+        .glyphs
+        .iter()
+        .map(|c| {
+            let g = classify(&sample_comp(img, c, line.frame, ink, surround), &t);
+            (g, glyph_confidence(&g))
+        })
+        .collect();
+    // The text, with a space where the gap between glyphs is wider than a
+    // third of the digit height (side bearings of neighbouring letters
+    // leave about 0.15, a word space about 0.5; common practice).
+    let mut text = String::new();
+    for (k, (g, conf)) in reads.iter().enumerate() {
+        if k > 0 && (line.glyphs[k].x0 as f64 - line.glyphs[k - 1].x1 as f64 - 1.0) > hh / 3.0 {
+            text.push(' ');
+        }
+        text.push(if *conf > 0.0 { g.c } else { '?' });
+    }
+    let confidence = reads.iter().map(|(_, c)| *c).fold(1.0, f64::min);
+    if let Some(k) = reads.iter().position(|(_, c)| *c < MIN_CONFIDENCE) {
+        return fail(
+            text.clone(),
+            format!(
+                "character {} of '{text}' is not clearly any of 0-9 . , n u µ m (confidence {:.2}, {:.2} needed)",
+                k + 1,
+                reads[k].1,
+                MIN_CONFIDENCE
+            ),
+            confidence,
+        );
+    }
+    // No space inside the number: a gap of a word space between digits
+    // is two texts side by side.
+    let n = reads.len();
+    for k in 1..n.saturating_sub(2) {
+        let gap = line.glyphs[k].x0 as f64 - line.glyphs[k - 1].x1 as f64 - 1.0;
+        if gap > hh / 3.0 {
+            return fail(
+                text.clone(),
+                format!("'{text}' has a space inside its number"),
+                confidence,
+            );
+        }
+    }
+    match parse(&reads) {
+        Ok(um) => Attempt {
+            text,
+            result: Ok(um),
+            confidence,
+            rect,
+            height: hh,
+        },
+        Err(why) => fail(text.clone(), format!("'{text}': {why}"), confidence),
+    }
+}
+
+/// Reads the label beside `bar`, or says why it gives no reading.
+pub fn read(img: &GrayImage, bar: &ScaleBar) -> Result<Label, String> {
+    let (w, h) = (img.width, img.height);
+    let (x0, y0, x1, y1) = (
+        bar.x0 as usize,
+        bar.y0 as usize,
+        bar.x1 as usize,
+        bar.y1 as usize,
+    );
+    if x1 >= w || y1 >= h || x0 > x1 || y0 > y1 {
+        return Err("the bar lies outside the image".into());
+    }
+    // The bar's ink (its interior's median) and its surround (the median of
+    // the rows three pixels above and below it, past the blur of its edges).
+    let interior: Vec<f32> = (y0..=y1)
+        .flat_map(|y| img.row(y)[x0..=x1].iter().copied())
+        .collect();
+    let surround_px: Vec<f32> = [y0.checked_sub(3), Some(y1 + 3)]
+        .into_iter()
+        .flatten()
+        .filter(|&y| y < h)
+        .flat_map(|y| img.row(y)[x0..=x1].iter().copied())
+        .collect();
+    let (Some(ink), Some(surround)) = (median(interior), median(surround_px)) else {
+        return Err("the bar has no pixels to take its ink from".into());
+    };
+    let dark = bar.polarity == Polarity::DarkOnLight;
+    if (surround - ink).abs() < 0.05 || (dark && ink > surround) || (!dark && ink < surround) {
+        return Err("the bar's ink hardly differs from its surround".into());
+    }
+    // The search rectangle: room above and below for a line of the
+    // largest height read at the farthest distance allowed (see
+    // `lines_near`), and to the sides for 8 characters of that height
+    // (each at most 0.9 of it wide) with its gap.
+    let t = bar.thickness_px as usize;
+    let reach_v = (2.5 * MAX_HEIGHT_PX as f64) as usize + 2 * t + 8;
+    let reach_h = 10 * MAX_HEIGHT_PX;
+    let rect = [
+        x0.saturating_sub(reach_h),
+        y0.saturating_sub(reach_v),
+        (x1 + reach_h).min(w - 1),
+        (y1 + reach_v).min(h - 1),
+    ];
+    let mut readings: Vec<Attempt> = Vec::new();
+    let mut failures: Vec<Attempt> = Vec::new();
+    for f in INK_FRACTIONS {
+        let cut = surround + f * (ink - surround);
+        let is_ink = |v: f32| if dark { v <= cut } else { v >= cut };
+        let comps: Vec<Comp> = components(img, rect, &is_ink)
+            .into_iter()
+            .filter(|c| {
+                // Cut off by the search rectangle, or touching the bar
+                // (the bar itself, its ticks, structure joined to it): no
+                // glyph of its label.
+                let cut_off = c.x0 == rect[0] && rect[0] > 0
+                    || c.y0 == rect[1] && rect[1] > 0
+                    || c.x1 == rect[2] && rect[2] + 1 < w
+                    || c.y1 == rect[3] && rect[3] + 1 < h;
+                let touches_bar =
+                    c.x0 <= x1 + 1 && c.x1 + 1 >= x0 && c.y0 <= y1 + 1 && c.y1 + 1 >= y0;
+                !cut_off && !touches_bar
+            })
+            .collect();
+        for line in lines_near(&comps, bar) {
+            let a = read_line(img, &line, ink, surround);
+            if a.result.is_ok() {
+                readings.push(a);
+            } else {
+                failures.push(a);
+            }
+        }
+    }
+    let Some(best) = readings
+        .iter()
+        .max_by(|a, b| a.confidence.total_cmp(&b.confidence))
+    else {
+        return Err(
+            match failures
+                .iter()
+                .max_by(|a, b| a.confidence.total_cmp(&b.confidence))
+            {
+                Some(a) => format!(
+                    "the text beside the bar gives no length: {}",
+                    a.result.as_ref().err().cloned().unwrap_or_default()
+                ),
+                None => "no line of text found beside the bar".into(),
+            },
+        );
+    };
+    let length = *best.result.as_ref().expect("a reading");
+    if let Some(other) = readings.iter().find(|a| {
+        a.result
+            .as_ref()
+            .is_ok_and(|v| (v / length - 1.0).abs() > 1e-9)
+    }) {
+        return Err(format!(
+            "the text beside the bar reads two ways ('{}' and '{}')",
+            best.text, other.text
+        ));
+    }
+    // Plausibility: the field of view this calibration gives.
+    let um_per_px = length / bar.length_px;
+    let field = um_per_px * w as f64;
+    let [lo, hi] = FIELD_WIDTH_RANGE_UM;
+    if !(lo..=hi).contains(&field) {
+        return Err(format!(
+            "the label reads '{}', which makes the image {:.4} mm wide, outside the {} um to {} mm of micrographs",
+            best.text,
+            field / 1000.0,
+            lo,
+            hi / 1000.0
+        ));
+    }
+    let u = |v: usize| v as u32;
+    Ok(Label {
+        text: best.text.clone(),
+        length_um: length,
+        confidence: (best.confidence * 1000.0).round() / 1000.0,
+        rect: best.rect.map(u),
+        height_px: best.height,
+    })
+}
+
+fn median(mut v: Vec<f32>) -> Option<f32> {
+    crate::stats::median_in_place(&mut v).map(|m| m as f32)
+}
+
+#[cfg(test)]
+mod tests;
