@@ -12,10 +12,11 @@
 //!    no single source).
 //! 2. **Ink.** The label is printed in the bar's ink (the same drawing
 //!    step writes both; common practice, no single source). A pixel is ink
-//!    when it lies at least half-way from the bar's surround to the bar's
-//!    own level, and, in a second pass, 70 % of the way (which separates
-//!    text from structure of a grey near the surround's): the two passes
-//!    must not read two different lengths.
+//!    when it lies at least 30 % of the way from the bar's surround to the
+//!    bar's own level (which keeps the thin, blurred arches of a small m
+//!    joined to its stems), and, in further passes, half-way and 70 % of the
+//!    way (which separate text from structure of a grey near the
+//!    surround's): the passes must not read two different lengths.
 //! 3. **Line.** Connected components of the ink, cut free from the bar and
 //!    anything touching it (its ticks), are grouped into a line: glyphs of
 //!    similar height overlapping in rows, at most one letter height apart
@@ -79,7 +80,7 @@ const MAX_HEIGHT_PX: usize = 44;
 
 /// Shares of the way from the bar's surround to its ink at which the text
 /// is cut (see the module notes).
-const INK_FRACTIONS: [f32; 2] = [0.5, 0.7];
+const INK_FRACTIONS: [f32; 3] = [0.3, 0.5, 0.7];
 
 /// Grid the glyphs are compared on, in digit heights: from 0.2 above the
 /// digits' top to 0.35 below the baseline (descenders of µ and the comma),
@@ -88,6 +89,13 @@ const INK_FRACTIONS: [f32; 2] = [0.5, 0.7];
 /// regular face is about 0.13 of the digit height wide, so one to two
 /// cells).
 const GRID_UP: f64 = 0.2;
+/// A gap wider than this many digit heights is a word space (see
+/// `read_line`).
+const SPACE: f64 = 0.45;
+/// Coverage under which a column of a line is a gap between glyphs (see
+/// `column_segments`): a quarter of the way to the ink, the least that
+/// anti-aliasing of a stroke's edge leaves within a pixel of it.
+const GAP_COVERAGE: f32 = 0.25;
 const GRID_DOWN: f64 = 0.35;
 const GRID_HALF_W: f64 = 0.8;
 const CELLS_PER_H: f64 = 12.0;
@@ -201,12 +209,14 @@ fn grid_dims() -> (usize, usize) {
 }
 
 /// Samples coverage `cov(x, y)` (pixel indices, 0 outside) on the grid of
-/// `frame` centred on `cx`: each cell the mean of 3 x 3 points.
-fn sample(cov: &dyn Fn(i64, i64) -> f32, frame: Frame, cx: f64) -> Vec<f32> {
+/// `frame` centred on `cx`, its columns `stretch` times as wide as its
+/// rows are high: each cell the mean of 3 x 3 points.
+fn sample(cov: &dyn Fn(i64, i64) -> f32, frame: Frame, cx: f64, stretch: f64) -> Vec<f32> {
     let (rows, cols) = grid_dims();
     let h = frame.height();
     let s = h / CELLS_PER_H;
-    let (ya, xa) = (frame.top - GRID_UP * h, cx - GRID_HALF_W * h);
+    let sx = s * stretch;
+    let (ya, xa) = (frame.top - GRID_UP * h, cx - GRID_HALF_W * h * stretch);
     let mut g = vec![0.0f32; rows * cols];
     for r in 0..rows {
         for c in 0..cols {
@@ -214,7 +224,7 @@ fn sample(cov: &dyn Fn(i64, i64) -> f32, frame: Frame, cx: f64) -> Vec<f32> {
             for j in 0..3 {
                 for i in 0..3 {
                     let y = ya + (r as f64 + (j as f64 + 0.5) / 3.0) * s;
-                    let x = xa + (c as f64 + (i as f64 + 0.5) / 3.0) * s;
+                    let x = xa + (c as f64 + (i as f64 + 0.5) / 3.0) * sx;
                     acc += cov(x.floor() as i64, y.floor() as i64);
                 }
             }
@@ -367,7 +377,7 @@ impl Templates {
                 c,
                 m,
                 Sampled {
-                    grid: sample(&cov, frame, cx),
+                    grid: sample(&cov, frame, cx, 1.0),
                     w_h: (b[2] + 1 - b[0]) as f64 / h,
                     h_h: (b[3] + 1 - b[1]) as f64 / h,
                 },
@@ -401,31 +411,45 @@ fn glyph_confidence(g: &GlyphRead) -> f64 {
     ((g.best - g.other) / (1.0 - g.other).max(1e-9)).clamp(0.0, 1.0)
 }
 
-fn classify(s: &Sampled, t: &Templates) -> GlyphRead {
-    let scores: Vec<f64> = t
+/// Reads a glyph: `sample(stretch)` samples it with its columns
+/// `stretch` times as wide (see `sample`), `w_h` and `h_h` are its ink box
+/// in digit heights. Each template is compared with the glyph stretched
+/// to the template's width: faces differ most in their widths (condensed,
+/// regular and wide cuts of one design; common practice, no single source),
+/// far less in their shapes. The width itself must agree within a factor
+/// of 1.6 either way (a condensed cut is about 0.8 of the regular width, a
+/// wide one about 1.2; common practice, no single source), and the height
+/// within a quarter of the digit height (or half the character's own
+/// height, for the dot and comma): a speck or a blob of another size is no
+/// such character.
+fn classify(sample: &dyn Fn(f64) -> Vec<f32>, w_h: f64, h_h: f64, t: &Templates) -> GlyphRead {
+    const WIDTH_FACTOR: f64 = 1.6;
+    let scores: Vec<(f64, bool)> = t
         .glyphs
         .iter()
-        .map(|(_, _, tg)| zncc(&s.grid, &tg.grid))
+        .map(|(_, _, tg)| {
+            let ratio = w_h / tg.w_h.max(1e-9);
+            let width_ok = (1.0 / WIDTH_FACTOR..=WIDTH_FACTOR).contains(&ratio)
+                || (w_h - tg.w_h).abs() <= 0.15;
+            let height_ok = (h_h - tg.h_h).abs() <= 0.25_f64.max(0.5 * tg.h_h);
+            if !(width_ok && height_ok) {
+                return (-1.0, false);
+            }
+            (zncc(&sample(ratio), &tg.grid), true)
+        })
         .collect();
-    let (bi, &best) = scores
+    let (bi, &(best, size_ok)) = scores
         .iter()
         .enumerate()
-        .max_by(|a, b| a.1.total_cmp(b.1))
+        .max_by(|a, b| a.1 .0.total_cmp(&b.1 .0))
         .expect("templates are not empty");
-    let (c, meaning, tg) = &t.glyphs[bi];
+    let (c, meaning, _) = &t.glyphs[bi];
     let other = scores
         .iter()
         .zip(&t.glyphs)
         .filter(|(_, (_, m, _))| m != meaning)
-        .map(|(s, _)| *s)
+        .map(|(s, _)| s.0)
         .fold(-1.0, f64::max);
-    // Size: the ink box within a quarter of the digit height (and half its
-    // own size, for the dot and comma) of the character's, in each
-    // direction. Faces differ in proportions by less than that (common
-    // practice, no single source); a speck or a blob of another size is no
-    // such character.
-    let close = |a: f64, b: f64| (a - b).abs() <= 0.25_f64.max(0.5 * b);
-    let size_ok = close(s.w_h, tg.w_h) && close(s.h_h, tg.h_h);
     GlyphRead {
         c: *c,
         meaning: *meaning,
@@ -466,10 +490,17 @@ fn components(img: &GrayImage, rect: [usize; 4], is_ink: &dyn Fn(f32) -> bool) -
     comps
 }
 
-/// Samples a component's glyph: coverage of the ink (0 at the surround, 1
-/// at the ink level) within the component's pixels grown by one (its
-/// anti-aliased rim), 0 elsewhere.
-fn sample_comp(img: &GrayImage, c: &Comp, frame: Frame, ink: f32, surround: f32) -> Sampled {
+/// Reads a component's glyph, sampled as coverage of the ink (0 at the
+/// surround, 1 at the ink level) within the component's pixels grown by one
+/// (its anti-aliased rim), 0 elsewhere.
+fn read_comp(
+    img: &GrayImage,
+    c: &Comp,
+    frame: Frame,
+    ink: f32,
+    surround: f32,
+    t: &Templates,
+) -> GlyphRead {
     let (bx0, by0) = (c.x0 as i64 - 1, c.y0 as i64 - 1);
     let (bw, bh) = (c.w() + 2, c.h() + 2);
     let mut own = vec![false; bw * bh];
@@ -479,21 +510,7 @@ fn sample_comp(img: &GrayImage, c: &Comp, frame: Frame, ink: f32, surround: f32)
             own[yy * bw + (x as i64 - bx0) as usize] = true;
         }
     }
-    let grown: Vec<bool> = (0..bw * bh)
-        .map(|i| {
-            let (x, y) = ((i % bw) as i64, (i / bw) as i64);
-            (-1..=1).any(|dy| {
-                (-1..=1).any(|dx| {
-                    let (xx, yy) = (x + dx, y + dy);
-                    xx >= 0
-                        && yy >= 0
-                        && (xx as usize) < bw
-                        && (yy as usize) < bh
-                        && own[yy as usize * bw + xx as usize]
-                })
-            })
-        })
-        .collect();
+    let grown = grow(&own, bw, bh);
     let span = ink - surround;
     let cov = |x: i64, y: i64| -> f32 {
         let (lx, ly) = (x - bx0, y - by0);
@@ -509,11 +526,9 @@ fn sample_comp(img: &GrayImage, c: &Comp, frame: Frame, ink: f32, surround: f32)
         ((img.get(x as usize, y as usize) - surround) / span).clamp(0.0, 1.0)
     };
     let h = frame.height();
-    Sampled {
-        grid: sample(&cov, frame, (c.x0 + c.x1 + 1) as f64 / 2.0),
-        w_h: c.w() as f64 / h,
-        h_h: c.h() as f64 / h,
-    }
+    let cx = (c.x0 + c.x1 + 1) as f64 / 2.0;
+    let sampled = |stretch: f64| sample(&cov, frame, cx, stretch);
+    classify(&sampled, c.w() as f64 / h, c.h() as f64 / h, t)
 }
 
 /// A line of glyphs near the bar and its frame.
@@ -721,77 +736,230 @@ struct Attempt {
     height: f64,
 }
 
-fn read_line(img: &GrayImage, line: &Line, ink: f32, surround: f32) -> Attempt {
+/// The glyphs of a line cut at the columns its ink leaves empty: a second
+/// segmentation beside the components, for small text whose thin strokes
+/// (the arches of an m, the bowl of a µ) break at any cut while the gaps
+/// between letters stay light. The ink is the coverage (0 at the surround,
+/// 1 at the ink) within the line's components grown by a pixel; a column
+/// whose ink stays under [`GAP_COVERAGE`] is a gap.
+fn column_segments(img: &GrayImage, line: &Line, ink: f32, surround: f32) -> Vec<Comp> {
+    let [rx0, ry0, rx1, ry1] = line.rect;
+    let (bx0, by0) = (rx0.saturating_sub(1), ry0.saturating_sub(1));
+    let (bx1, by1) = ((rx1 + 1).min(img.width - 1), (ry1 + 1).min(img.height - 1));
+    let (bw, bh) = (bx1 + 1 - bx0, by1 + 1 - by0);
+    let mut own = vec![false; bw * bh];
+    for c in &line.glyphs {
+        for &(y, a, b) in &c.runs {
+            for x in a..b {
+                own[(y - by0) * bw + (x - bx0)] = true;
+            }
+        }
+    }
+    let grown = grow(&own, bw, bh);
+    let span = ink - surround;
+    let cov = |x: usize, y: usize| ((img.get(bx0 + x, by0 + y) - surround) / span).clamp(0.0, 1.0);
+    let inked = |x: usize, y: usize| grown[y * bw + x] && cov(x, y) >= GAP_COVERAGE;
+    let column_inked = |x: usize| (0..bh).any(|y| inked(x, y));
+    let mut out = Vec::new();
+    let mut x = 0;
+    while x < bw {
+        if !column_inked(x) {
+            x += 1;
+            continue;
+        }
+        let start = x;
+        while x < bw && column_inked(x) {
+            x += 1;
+        }
+        let mut c = Comp {
+            x0: usize::MAX,
+            y0: usize::MAX,
+            x1: 0,
+            y1: 0,
+            runs: Vec::new(),
+        };
+        for y in 0..bh {
+            let mut xx = start;
+            while xx < x {
+                if !inked(xx, y) {
+                    xx += 1;
+                    continue;
+                }
+                let a = xx;
+                while xx < x && inked(xx, y) {
+                    xx += 1;
+                }
+                c.runs.push((by0 + y, bx0 + a, bx0 + xx));
+                c.x0 = c.x0.min(bx0 + a);
+                c.x1 = c.x1.max(bx0 + xx - 1);
+                c.y0 = c.y0.min(by0 + y);
+                c.y1 = c.y1.max(by0 + y);
+            }
+        }
+        if !c.runs.is_empty() {
+            out.push(c);
+        }
+    }
+    out
+}
+
+/// A mask grown by one pixel (8-neighbourhood).
+fn grow(own: &[bool], bw: usize, bh: usize) -> Vec<bool> {
+    (0..bw * bh)
+        .map(|i| {
+            let (x, y) = ((i % bw) as i64, (i / bw) as i64);
+            (-1..=1).any(|dy| {
+                (-1..=1).any(|dx| {
+                    let (xx, yy) = (x + dx, y + dy);
+                    xx >= 0
+                        && yy >= 0
+                        && (xx as usize) < bw
+                        && (yy as usize) < bh
+                        && own[yy as usize * bw + xx as usize]
+                })
+            })
+        })
+        .collect()
+}
+
+/// Reads a line both as its components and as its column segments.
+fn read_line(img: &GrayImage, line: &Line, ink: f32, surround: f32) -> Vec<Attempt> {
     let hh = line.frame.height();
-    let rect = line.rect;
-    let fail = |text: String, why: String, confidence: f64| Attempt {
-        text,
-        result: Err(why),
-        confidence,
-        rect,
-        height: hh,
-    };
     let Some(t) = Templates::at(hh) else {
-        return fail(
-            String::new(),
-            "the glyph templates could not be drawn".into(),
-            0.0,
-        );
+        return vec![Attempt {
+            text: String::new(),
+            result: Err("the glyph templates could not be drawn".into()),
+            confidence: 0.0,
+            rect: line.rect,
+            height: hh,
+        }];
     };
-    let reads: Vec<(GlyphRead, f64)> = line
-        .glyphs
+    let mut out = read_glyphs(img, &line.glyphs, line, ink, surround, &t);
+    let segments = column_segments(img, line, ink, surround);
+    let same = segments.len() == line.glyphs.len()
+        && segments
+            .iter()
+            .zip(&line.glyphs)
+            .all(|(a, b)| a.x0 == b.x0 && a.x1 == b.x1);
+    if !same {
+        out.extend(read_glyphs(img, &segments, line, ink, surround, &t));
+    }
+    out
+}
+
+/// Reads a sequence of glyphs of a line: the text, and each stretch of it
+/// that could be a label with its reading or why it is none.
+///
+/// The line is split into words at gaps wider than [`SPACE`] digit
+/// heights. A label is one word (NUMBER UNIT) or a number and a unit as two
+/// words; other words on the line (other text, or structure that joined
+/// the line) are not read. A word just before the label must end in a
+/// letter read with confidence: a digit, a mark or a glyph not read there
+/// could be part of the label's number.
+fn read_glyphs(
+    img: &GrayImage,
+    glyphs: &[Comp],
+    line: &Line,
+    ink: f32,
+    surround: f32,
+    t: &Templates,
+) -> Vec<Attempt> {
+    let hh = line.frame.height();
+    let reads: Vec<(GlyphRead, f64)> = glyphs
         .iter()
         .map(|c| {
-            let g = classify(&sample_comp(img, c, line.frame, ink, surround), &t);
+            let g = read_comp(img, c, line.frame, ink, surround, t);
             (g, glyph_confidence(&g))
         })
         .collect();
-    // The text, with a space where the gap between glyphs is wider than a
-    // third of the digit height (side bearings of neighbouring letters
-    // leave about 0.15, a word space about 0.5; common practice).
-    let mut text = String::new();
-    for (k, (g, conf)) in reads.iter().enumerate() {
-        if k > 0 && (line.glyphs[k].x0 as f64 - line.glyphs[k - 1].x1 as f64 - 1.0) > hh / 3.0 {
-            text.push(' ');
-        }
-        text.push(if *conf > 0.0 { g.c } else { '?' });
-    }
-    let confidence = reads.iter().map(|(_, c)| *c).fold(1.0, f64::min);
-    if let Some(k) = reads.iter().position(|(_, c)| *c < MIN_CONFIDENCE) {
-        return fail(
-            text.clone(),
-            format!(
-                "character {} of '{text}' is not clearly any of 0-9 . , n u µ m (confidence {:.2}, {:.2} needed)",
-                k + 1,
-                reads[k].1,
-                MIN_CONFIDENCE
-            ),
-            confidence,
-        );
-    }
-    // No space inside the number: a gap of a word space between digits
-    // is two texts side by side.
     let n = reads.len();
-    for k in 1..n.saturating_sub(2) {
-        let gap = line.glyphs[k].x0 as f64 - line.glyphs[k - 1].x1 as f64 - 1.0;
-        if gap > hh / 3.0 {
-            return fail(
-                text.clone(),
-                format!("'{text}' has a space inside its number"),
-                confidence,
+    // Words: split at gaps wider than SPACE digit heights.
+    let mut words: Vec<std::ops::Range<usize>> = Vec::new();
+    let mut start = 0;
+    for k in 1..=n {
+        if k == n || (glyphs[k].x0 as f64 - glyphs[k - 1].x1 as f64 - 1.0) > SPACE * hh {
+            words.push(start..k);
+            start = k;
+        }
+    }
+    let show = |r: std::ops::Range<usize>| -> String {
+        let mut s = String::new();
+        for k in r.clone() {
+            if k > r.start && words.iter().any(|w| w.start == k) {
+                s.push(' ');
+            }
+            let (g, c) = &reads[k];
+            s.push(if *c > 0.0 { g.c } else { '?' });
+        }
+        s
+    };
+    let whole = show(0..n);
+    if std::env::var_os("ARMSPACE_LABEL_DEBUG").is_some() {
+        eprintln!("line {:?} h {hh:.1} '{whole}'", line.rect);
+        for ((g, c), comp) in reads.iter().zip(glyphs) {
+            eprintln!(
+                "  {} best {:.3} other {:.3} size {} conf {:.2} box {}x{}",
+                g.c,
+                g.best,
+                g.other,
+                g.size_ok,
+                c,
+                comp.w(),
+                comp.h()
             );
         }
     }
-    match parse(&reads) {
-        Ok(um) => Attempt {
-            text,
-            result: Ok(um),
-            confidence,
-            rect,
-            height: hh,
-        },
-        Err(why) => fail(text.clone(), format!("'{text}': {why}"), confidence),
+    let is_letter = |k: usize| {
+        let (g, c) = &reads[k];
+        *c >= MIN_CONFIDENCE && matches!(g.meaning, Meaning::Nano | Meaning::Micro | Meaning::Milli)
+    };
+    let mut out = Vec::new();
+    for i in 0..words.len() {
+        let mut spans = vec![words[i].clone()];
+        if i + 1 < words.len() && words[i + 1].len() == 2 {
+            spans.push(words[i].start..words[i + 1].end);
+        }
+        for span in spans {
+            let text = show(span.clone());
+            let confidence = reads[span.clone()]
+                .iter()
+                .map(|(_, c)| *c)
+                .fold(1.0, f64::min);
+            let bx = [
+                glyphs[span.clone()].iter().map(|c| c.x0).min().unwrap_or(0),
+                glyphs[span.clone()].iter().map(|c| c.y0).min().unwrap_or(0),
+                glyphs[span.clone()].iter().map(|c| c.x1).max().unwrap_or(0),
+                glyphs[span.clone()].iter().map(|c| c.y1).max().unwrap_or(0),
+            ];
+            let attempt = |result: Result<f64, String>| Attempt {
+                text: text.clone(),
+                result,
+                confidence,
+                rect: bx,
+                height: hh,
+            };
+            if let Some(k) = span.clone().find(|&k| reads[k].1 < MIN_CONFIDENCE) {
+                out.push(attempt(Err(format!(
+                    "in '{whole}', character {} of '{text}' is not clearly any of 0-9 . , n u µ m (confidence {:.2}, {:.2} needed)",
+                    k - span.start + 1,
+                    reads[k].1,
+                    MIN_CONFIDENCE
+                ))));
+                continue;
+            }
+            if i > 0 && !is_letter(words[i - 1].end - 1) {
+                out.push(attempt(Err(format!(
+                    "in '{whole}', the text before '{text}' could belong to its number"
+                ))));
+                continue;
+            }
+            match parse(&reads[span.clone()]) {
+                Ok(um) => out.push(attempt(Ok(um))),
+                Err(why) => out.push(attempt(Err(format!("'{text}': {why}")))),
+            }
+        }
     }
+    out
 }
 
 /// Reads the label beside `bar`, or says why it gives no reading.
@@ -858,11 +1026,12 @@ pub fn read(img: &GrayImage, bar: &ScaleBar) -> Result<Label, String> {
             })
             .collect();
         for line in lines_near(&comps, bar) {
-            let a = read_line(img, &line, ink, surround);
-            if a.result.is_ok() {
-                readings.push(a);
-            } else {
-                failures.push(a);
+            for a in read_line(img, &line, ink, surround) {
+                if a.result.is_ok() {
+                    readings.push(a);
+                } else {
+                    failures.push(a);
+                }
             }
         }
     }

@@ -73,12 +73,8 @@ fn templates_read_themselves() {
     for h in [8.0, 13.0, 24.0, 40.0] {
         let t = Templates::at(h).expect("templates");
         for (c, m, s) in &t.glyphs {
-            let s2 = Sampled {
-                grid: s.grid.clone(),
-                w_h: s.w_h,
-                h_h: s.h_h,
-            };
-            let r = classify(&s2, &t);
+            let grid = |_: f64| s.grid.clone();
+            let r = classify(&grid, s.w_h, s.h_h, &t);
             assert_eq!(r.meaning, *m, "{c} at {h} px");
         }
     }
