@@ -290,16 +290,27 @@ struct Rendered {
     h: usize,
 }
 
-fn render_char(font: &FontRef, c: char, px: f32) -> Option<Rendered> {
-    let pad = 4.0;
-    let size = (px * 2.0).ceil() as usize + 8;
-    let base = px * 1.2 + pad;
+/// Supersampling of the templates' rendering: outlines are drawn at 4
+/// times the size and box-averaged down, so that they can be emboldened to
+/// a quarter of a pixel.
+const SUPER: usize = 4;
+
+/// `c` rendered at `px` (ab_glyph's scale), its strokes thickened by
+/// `bold` px on each side (a grey dilation of the supersampled coverage by
+/// a square of that half-width: a bold cut of a face is, to first order,
+/// its regular cut with every stroke widened; common practice, no single
+/// source).
+fn render_char(font: &FontRef, c: char, px: f32, bold: f32) -> Option<Rendered> {
+    let sp = px * SUPER as f32;
+    let pad = (4.0 + 2.0 * bold) * SUPER as f32;
+    let base = sp * 1.2 + pad;
     let glyph = font
         .glyph_id(c)
-        .with_scale_and_position(PxScale::from(px), point(pad, base));
+        .with_scale_and_position(PxScale::from(sp), point(pad, base));
     let og = font.outline_glyph(glyph)?;
     let b = og.px_bounds();
-    let (w, h) = (size, (base + px).ceil() as usize + 4);
+    let round_up = |v: f32| (v.ceil() as usize).div_ceil(SUPER) * SUPER;
+    let (w, h) = (round_up(b.max.x + pad + 1.0), round_up(base + sp + pad));
     let mut cov = vec![0.0f32; w * h];
     let (ox, oy) = (b.min.x as i64, b.min.y as i64);
     og.draw(|x, y, v| {
@@ -308,7 +319,67 @@ fn render_char(font: &FontRef, c: char, px: f32) -> Option<Rendered> {
             cov[yy as usize * w + xx as usize] = v.clamp(0.0, 1.0);
         }
     });
-    Some(Rendered { cov, w, h })
+    let r = (bold * SUPER as f32).round() as usize;
+    if r > 0 {
+        cov = max_filter(&cov, w, h, r);
+    }
+    let (dw, dh) = (w / SUPER, h / SUPER);
+    let mut down = vec![0.0f32; dw * dh];
+    for y in 0..dh {
+        for x in 0..dw {
+            let mut acc = 0.0;
+            for j in 0..SUPER {
+                for i in 0..SUPER {
+                    acc += cov[(y * SUPER + j) * w + x * SUPER + i];
+                }
+            }
+            down[y * dw + x] = acc / (SUPER * SUPER) as f32;
+        }
+    }
+    Some(Rendered {
+        cov: down,
+        w: dw,
+        h: dh,
+    })
+}
+
+/// Grey dilation by a square of half-width `r` (rows, then columns).
+fn max_filter(v: &[f32], w: usize, h: usize, r: usize) -> Vec<f32> {
+    let mut tmp = vec![0.0f32; w * h];
+    for y in 0..h {
+        for x in 0..w {
+            let (a, b) = (x.saturating_sub(r), (x + r).min(w - 1));
+            tmp[y * w + x] = v[y * w + a..=y * w + b].iter().copied().fold(0.0, f32::max);
+        }
+    }
+    let mut out = vec![0.0f32; w * h];
+    for y in 0..h {
+        let (a, b) = (y.saturating_sub(r), (y + r).min(h - 1));
+        for x in 0..w {
+            out[y * w + x] = (a..=b).map(|yy| tmp[yy * w + x]).fold(0.0, f32::max);
+        }
+    }
+    out
+}
+
+/// Mean stroke width of glyphs, px: twice the ink (the sum of coverage)
+/// over the length of the outline (the edges between pixels at least half
+/// covered and the others); for a long stroke of width s, area s L over an
+/// outline of 2 L. Measured the same way on the templates and the glyphs
+/// read, so that the pixel outline's own bias cancels.
+fn stroke_width(cov: &dyn Fn(i64, i64) -> f32, boxes: &[[i64; 4]]) -> Option<f64> {
+    let (mut area, mut edges) = (0.0f64, 0usize);
+    for &[x0, y0, x1, y1] in boxes {
+        for y in y0 - 1..=y1 + 1 {
+            for x in x0 - 1..=x1 + 1 {
+                area += cov(x, y) as f64;
+                let on = cov(x, y) >= 0.5;
+                edges += usize::from(on != (cov(x + 1, y) >= 0.5));
+                edges += usize::from(on != (cov(x, y + 1) >= 0.5));
+            }
+        }
+    }
+    (edges > 0).then(|| 2.0 * area / edges as f64)
 }
 
 /// Ink box of a rendered character (coverage at least `cut`), inclusive.
@@ -330,48 +401,56 @@ fn ink_box(r: &Rendered, cut: f32) -> Option<[usize; 4]> {
 impl Templates {
     /// The characters rendered so that their digits are `height` px high
     /// when cut at half coverage (as the glyphs read are cut at half the
-    /// way to the ink), sampled in their own frame.
-    fn at(height: f64) -> Option<Templates> {
+    /// way to the ink), sampled in their own frame; when `stroke` (the
+    /// glyphs' stroke width, px, see `stroke_width`) is more than 15 % over
+    /// the face's at that height, emboldened to it (a bold label), by at
+    /// most 0.15 of the height (the heaviest weights of common faces; common
+    /// practice, no single source).
+    fn at(height: f64, stroke: Option<f64>) -> Option<Templates> {
         let font = FontRef::try_from_slice(DEJAVU_SANS).ok()?;
-        let digit_height = |px: f32| -> Option<f64> {
+        let digits = |px: f32, bold: f32| -> Option<(Frame, f64)> {
             let (mut top, mut bottoms) = (usize::MAX, Vec::new());
+            let mut widths = Vec::new();
             for d in '0'..='9' {
-                let r = render_char(&font, d, px)?;
+                let r = render_char(&font, d, px, bold)?;
                 let b = ink_box(&r, 0.5)?;
                 top = top.min(b[1]);
                 bottoms.push(b[3]);
+                let cov = |x: i64, y: i64| -> f32 { at(&r, x, y) };
+                let bx = [b[0] as i64, b[1] as i64, b[2] as i64, b[3] as i64];
+                widths.push(stroke_width(&cov, &[bx])?);
             }
             bottoms.sort_unstable();
-            Some((bottoms[(bottoms.len() - 1) / 2] + 1 - top) as f64)
+            let frame = Frame {
+                top: top as f64,
+                base: (bottoms[(bottoms.len() - 1) / 2] + 1) as f64,
+            };
+            Some((frame, widths.iter().sum::<f64>() / widths.len() as f64))
         };
         let reference = 100.0f32;
-        let px = reference * (height / digit_height(reference)?) as f32;
-        // The frame of the digits at this size, measured as the glyphs'.
-        let mut top = usize::MAX;
-        let mut bottoms = Vec::new();
-        for d in '0'..='9' {
-            let r = render_char(&font, d, px)?;
-            let b = ink_box(&r, 0.5)?;
-            top = top.min(b[1]);
-            bottoms.push(b[3]);
-        }
-        bottoms.sort_unstable();
-        let frame = Frame {
-            top: top as f64,
-            base: (bottoms[(bottoms.len() - 1) / 2] + 1) as f64,
+        let (f0, _) = digits(reference, 0.0)?;
+        let px = reference * (height / f0.height()) as f32;
+        let (_, own_stroke) = digits(px, 0.0)?;
+        let bold = match stroke {
+            Some(s) if s > 1.15 * own_stroke => ((s - own_stroke) / 2.0).min(0.15 * height),
+            _ => 0.0,
         };
+        // Emboldened, the digits grow by the bold on each side: drawn
+        // smaller by as much.
+        let px = if bold > 0.0 {
+            let (f1, _) = digits(px, bold as f32)?;
+            px * (height / f1.height()) as f32
+        } else {
+            px
+        };
+        let bold = bold as f32;
+        let (frame, _) = digits(px, bold)?;
         let mut glyphs = Vec::new();
         for (c, m) in CHARS {
-            let r = render_char(&font, c, px)?;
+            let r = render_char(&font, c, px, bold)?;
             let b = ink_box(&r, 0.5)?;
             let cx = (b[0] + b[2] + 1) as f64 / 2.0;
-            let cov = |x: i64, y: i64| -> f32 {
-                if x < 0 || y < 0 || x as usize >= r.w || y as usize >= r.h {
-                    0.0
-                } else {
-                    r.cov[y as usize * r.w + x as usize]
-                }
-            };
+            let cov = |x: i64, y: i64| -> f32 { at(&r, x, y) };
             let h = frame.height();
             glyphs.push((
                 c,
@@ -387,6 +466,15 @@ impl Templates {
     }
 }
 
+/// Coverage of a rendered character at (x, y), 0 outside.
+fn at(r: &Rendered, x: i64, y: i64) -> f32 {
+    if x < 0 || y < 0 || x as usize >= r.w || y as usize >= r.h {
+        0.0
+    } else {
+        r.cov[y as usize * r.w + x as usize]
+    }
+}
+
 /// One glyph's reading: the character, its meaning, the best correlation
 /// and the best correlation with a character of another meaning.
 #[derive(Clone, Copy, Debug)]
@@ -395,6 +483,8 @@ struct GlyphRead {
     meaning: Meaning,
     best: f64,
     other: f64,
+    /// The character of that other meaning.
+    other_c: char,
     /// Whether its ink box is the template's size (see `classify`).
     size_ok: bool,
 }
@@ -444,17 +534,18 @@ fn classify(sample: &dyn Fn(f64) -> Vec<f32>, w_h: f64, h_h: f64, t: &Templates)
         .max_by(|a, b| a.1 .0.total_cmp(&b.1 .0))
         .expect("templates are not empty");
     let (c, meaning, _) = &t.glyphs[bi];
-    let other = scores
+    let (other, other_c) = scores
         .iter()
         .zip(&t.glyphs)
         .filter(|(_, (_, m, _))| m != meaning)
-        .map(|(s, _)| s.0)
-        .fold(-1.0, f64::max);
+        .map(|(s, (k, _, _))| (s.0, *k))
+        .fold((-1.0, ' '), |a, b| if b.0 > a.0 { b } else { a });
     GlyphRead {
         c: *c,
         meaning: *meaning,
         best,
         other,
+        other_c,
         size_ok,
     }
 }
@@ -825,7 +916,24 @@ fn grow(own: &[bool], bw: usize, bh: usize) -> Vec<bool> {
 /// Reads a line both as its components and as its column segments.
 fn read_line(img: &GrayImage, line: &Line, ink: f32, surround: f32) -> Vec<Attempt> {
     let hh = line.frame.height();
-    let Some(t) = Templates::at(hh) else {
+    let span = ink - surround;
+    let cov = |x: i64, y: i64| -> f32 {
+        if x < 0 || y < 0 || x as usize >= img.width || y as usize >= img.height {
+            0.0
+        } else {
+            ((img.get(x as usize, y as usize) - surround) / span).clamp(0.0, 1.0)
+        }
+    };
+    // The stroke width of the line's digit-high glyphs (the small ones,
+    // points and commas, are mostly outline).
+    let boxes: Vec<[i64; 4]> = line
+        .glyphs
+        .iter()
+        .filter(|c| c.h() as f64 >= 0.6 * hh)
+        .map(|c| [c.x0 as i64, c.y0 as i64, c.x1 as i64, c.y1 as i64])
+        .collect();
+    let stroke = stroke_width(&cov, &boxes);
+    let Some(t) = Templates::at(hh, stroke) else {
         return vec![Attempt {
             text: String::new(),
             result: Err("the glyph templates could not be drawn".into()),
@@ -898,10 +1006,11 @@ fn read_glyphs(
         eprintln!("line {:?} h {hh:.1} '{whole}'", line.rect);
         for ((g, c), comp) in reads.iter().zip(glyphs) {
             eprintln!(
-                "  {} best {:.3} other {:.3} size {} conf {:.2} box {}x{}",
+                "  {} best {:.3} other {:.3} ({}) size {} conf {:.2} box {}x{}",
                 g.c,
                 g.best,
                 g.other,
+                g.other_c,
                 g.size_ok,
                 c,
                 comp.w(),

@@ -15,6 +15,7 @@ fn reads(chars: &str) -> Vec<(GlyphRead, f64)> {
                     meaning,
                     best: 1.0,
                     other: 0.0,
+                    other_c: ' ',
                     size_ok: true,
                 },
                 1.0,
@@ -58,6 +59,7 @@ fn confidence_is_the_share_of_the_gap_closed() {
         meaning: Meaning::Digit(5),
         best,
         other,
+        other_c: '8',
         size_ok,
     };
     assert!((glyph_confidence(&g(1.0, 0.5, true)) - 1.0).abs() < 1e-12);
@@ -71,7 +73,7 @@ fn templates_read_themselves() {
     // Each template, sampled as a glyph, is read as its own meaning: the
     // reader's least requirement.
     for h in [8.0, 13.0, 24.0, 40.0] {
-        let t = Templates::at(h).expect("templates");
+        let t = Templates::at(h, None).expect("templates");
         for (c, m, s) in &t.glyphs {
             let grid = |_: f64| s.grid.clone();
             let r = classify(&grid, s.w_h, s.h_h, &t);
