@@ -177,6 +177,9 @@ enum Side {
 
 struct Case {
     what: String,
+    /// Face name and whether the label stands on a backing box.
+    face: String,
+    boxed: bool,
     image: GrayImage,
     truth_um: f64,
 }
@@ -308,11 +311,15 @@ fn case(seed: u64, i: u64, faces: &[(String, Vec<u8>)]) -> Option<Case> {
         ),
         image: g,
         truth_um: um,
+        face: face_name.clone(),
+        boxed,
     })
 }
 
 #[derive(Default)]
 struct Tally {
+    /// (face, boxed) -> (labelled, read right).
+    by: std::collections::BTreeMap<(String, bool), (usize, usize)>,
     labelled: usize,
     bar_missed: usize,
     right: usize,
@@ -335,8 +342,13 @@ fn run(seed: u64, n: u64, faces: &[(String, Vec<u8>)]) -> Tally {
             }
         };
         t.labelled += 1;
+        let by = t.by.entry((c.face.clone(), c.boxed)).or_default();
+        by.0 += 1;
         match label::read(&c.image, &bar) {
-            Ok(l) if (l.length_um / c.truth_um - 1.0).abs() < 1e-9 => t.right += 1,
+            Ok(l) if (l.length_um / c.truth_um - 1.0).abs() < 1e-9 => {
+                t.right += 1;
+                by.1 += 1;
+            }
             Ok(l) => t.wrong.push(format!(
                 "{}: read '{}' = {} um (confidence {})",
                 c.what, l.text, l.length_um, l.confidence
@@ -365,8 +377,14 @@ fn sweep() {
         faces.iter().map(|f| &f.0).collect::<Vec<_>>()
     );
     let (mut lab, mut right, mut wrong, mut missed) = (0, 0, 0, 0);
+    let mut by: std::collections::BTreeMap<(String, bool), (usize, usize)> = Default::default();
     for &seed in &seeds {
         let t = run(seed, n, &faces);
+        for (k, v) in &t.by {
+            let e = by.entry(k.clone()).or_default();
+            e.0 += v.0;
+            e.1 += v.1;
+        }
         eprintln!(
             "seed {seed}: {} labelled bars found, {} read right, {} wrong, {} bars not found",
             t.labelled,
@@ -384,6 +402,10 @@ fn sweep() {
         right += t.right;
         wrong += t.wrong.len();
         missed += t.bar_missed;
+    }
+    for ((face, boxed), (n, r)) in &by {
+        let on = if *boxed { "on a box" } else { "on the field" };
+        eprintln!("  {face}, {on}: {r}/{n} read right");
     }
     eprintln!(
         "all seeds {seeds:?}: {right}/{lab} read right, {wrong} wrong, {missed} bars not found"

@@ -96,6 +96,12 @@ const SPACE: f64 = 0.45;
 /// `column_segments`): a quarter of the way to the ink, the least that
 /// anti-aliasing of a stroke's edge leaves within a pixel of it.
 const GAP_COVERAGE: f32 = 0.25;
+/// Depth of a valley between two glyphs blurred together (see `valleys`):
+/// a column holding at most 0.6 of the ink of the strokes on either side.
+/// Two blurred edges of strokes a pixel apart give about half the ink of a
+/// stroke (a Gaussian edge is at half height at the edge); a stroke itself
+/// gives nearly all of it.
+const VALLEY: f32 = 0.6;
 const GRID_DOWN: f64 = 0.35;
 const GRID_HALF_W: f64 = 0.8;
 const CELLS_PER_H: f64 = 12.0;
@@ -239,34 +245,40 @@ fn sample(cov: &dyn Fn(i64, i64) -> f32, frame: Frame, cx: f64, stretch: f64) ->
 /// frame and centre are located to about a pixel).
 fn zncc(g: &[f32], t: &[f32]) -> f64 {
     let (rows, cols) = grid_dims();
+    let channels = g.len() / (rows * cols);
     let mut best = -1.0f64;
     for dy in -1i64..=1 {
         for dx in -1i64..=1 {
-            let tv = |r: usize, c: usize| -> f64 {
+            let tv = |k: usize, r: usize, c: usize| -> f64 {
                 let (rr, cc) = (r as i64 + dy, c as i64 + dx);
                 if rr < 0 || cc < 0 || rr >= rows as i64 || cc >= cols as i64 {
                     0.0
                 } else {
-                    t[rr as usize * cols + cc as usize] as f64
+                    t[(k * rows + rr as usize) * cols + cc as usize] as f64
                 }
             };
-            let n = (rows * cols) as f64;
+            let gv = |k: usize, r: usize, c: usize| g[(k * rows + r) * cols + c] as f64;
+            let n = (channels * rows * cols) as f64;
             let (mut sg, mut st) = (0.0, 0.0);
-            for r in 0..rows {
-                for c in 0..cols {
-                    sg += g[r * cols + c] as f64;
-                    st += tv(r, c);
+            for k in 0..channels {
+                for r in 0..rows {
+                    for c in 0..cols {
+                        sg += gv(k, r, c);
+                        st += tv(k, r, c);
+                    }
                 }
             }
             let (mg, mt) = (sg / n, st / n);
             let (mut sgt, mut sgg, mut stt) = (0.0, 0.0, 0.0);
-            for r in 0..rows {
-                for c in 0..cols {
-                    let a = g[r * cols + c] as f64 - mg;
-                    let b = tv(r, c) - mt;
-                    sgt += a * b;
-                    sgg += a * a;
-                    stt += b * b;
+            for k in 0..channels {
+                for r in 0..rows {
+                    for c in 0..cols {
+                        let a = gv(k, r, c) - mg;
+                        let b = tv(k, r, c) - mt;
+                        sgt += a * b;
+                        sgg += a * a;
+                        stt += b * b;
+                    }
                 }
             }
             if sgg > 0.0 && stt > 0.0 {
@@ -275,6 +287,72 @@ fn zncc(g: &[f32], t: &[f32]) -> f64 {
         }
     }
     best
+}
+
+/// The holes of a glyph: the pixels of a `w` x `h` box (its ink box with
+/// a margin of one) that are not ink and cannot be reached from the box's
+/// border through other such pixels (4-connectivity). Holes tell apart
+/// what the outline alone hardly does at small sizes and in bold cuts: the
+/// one tall counter of 0, the two of 8, the upper one of 9 and the lower
+/// one of 6 (common practice in character recognition, no single source).
+fn holes(w: usize, h: usize, ink: &dyn Fn(usize, usize) -> bool) -> Vec<bool> {
+    let mut outside = vec![false; w * h];
+    let mut stack: Vec<(usize, usize)> = Vec::new();
+    for x in 0..w {
+        stack.push((x, 0));
+        stack.push((x, h - 1));
+    }
+    for y in 0..h {
+        stack.push((0, y));
+        stack.push((w - 1, y));
+    }
+    while let Some((x, y)) = stack.pop() {
+        if outside[y * w + x] || ink(x, y) {
+            continue;
+        }
+        outside[y * w + x] = true;
+        if x > 0 {
+            stack.push((x - 1, y));
+        }
+        if x + 1 < w {
+            stack.push((x + 1, y));
+        }
+        if y > 0 {
+            stack.push((x, y - 1));
+        }
+        if y + 1 < h {
+            stack.push((x, y + 1));
+        }
+    }
+    (0..w * h)
+        .map(|i| !outside[i] && !ink(i % w, i / w))
+        .collect()
+}
+
+/// A glyph's two channels on the grid: its ink, and its holes (1 in a
+/// hole, see `holes`), one after the other.
+fn two_channels(
+    cov: &dyn Fn(i64, i64) -> f32,
+    bbox: [i64; 4],
+    frame: Frame,
+    cx: f64,
+    stretch: f64,
+) -> Vec<f32> {
+    let [x0, y0, x1, y1] = bbox;
+    let (ox, oy) = (x0 - 1, y0 - 1);
+    let (w, h) = ((x1 - x0 + 3) as usize, (y1 - y0 + 3) as usize);
+    let hole = holes(w, h, &|x, y| cov(ox + x as i64, oy + y as i64) >= 0.5);
+    let hole_cov = |x: i64, y: i64| -> f32 {
+        let (lx, ly) = (x - ox, y - oy);
+        if lx < 0 || ly < 0 || lx as usize >= w || ly as usize >= h {
+            0.0
+        } else {
+            f32::from(u8::from(hole[ly as usize * w + lx as usize]))
+        }
+    };
+    let mut g = sample(cov, frame, cx, stretch);
+    g.extend(sample(&hole_cov, frame, cx, stretch));
+    g
 }
 
 /// Templates of the characters at one digit height.
@@ -452,11 +530,12 @@ impl Templates {
             let cx = (b[0] + b[2] + 1) as f64 / 2.0;
             let cov = |x: i64, y: i64| -> f32 { at(&r, x, y) };
             let h = frame.height();
+            let bbox = [b[0] as i64, b[1] as i64, b[2] as i64, b[3] as i64];
             glyphs.push((
                 c,
                 m,
                 Sampled {
-                    grid: sample(&cov, frame, cx, 1.0),
+                    grid: two_channels(&cov, bbox, frame, cx, 1.0),
                     w_h: (b[2] + 1 - b[0]) as f64 / h,
                     h_h: (b[3] + 1 - b[1]) as f64 / h,
                 },
@@ -487,15 +566,19 @@ struct GlyphRead {
     other_c: char,
     /// Whether its ink box is the template's size (see `classify`).
     size_ok: bool,
+    /// Whether its ink alone and its ink with its holes read the same
+    /// meaning (see `read_comp`).
+    agree: bool,
 }
 
 /// A glyph's confidence: the share of the gap from the best match of
 /// another meaning up to a perfect match that its own best match closes,
 /// `(best - other) / (1 - other)`; 0 when the best match is under
-/// `MIN_MATCH` or its size is not the character's. 1 for a glyph that is
+/// `MIN_MATCH`, its size is not the character's or its two views disagree
+/// (`read_comp`). 1 for a glyph that is
 /// exactly its template; 0 for one as much like two meanings.
 fn glyph_confidence(g: &GlyphRead) -> f64 {
-    if g.best < MIN_MATCH || !g.size_ok {
+    if g.best < MIN_MATCH || !g.size_ok || !g.agree {
         return 0.0;
     }
     ((g.best - g.other) / (1.0 - g.other).max(1e-9)).clamp(0.0, 1.0)
@@ -512,8 +595,15 @@ fn glyph_confidence(g: &GlyphRead) -> f64 {
 /// within a quarter of the digit height (or half the character's own
 /// height, for the dot and comma): a speck or a blob of another size is no
 /// such character.
-fn classify(sample: &dyn Fn(f64) -> Vec<f32>, w_h: f64, h_h: f64, t: &Templates) -> GlyphRead {
+fn classify(
+    sample: &dyn Fn(f64) -> Vec<f32>,
+    w_h: f64,
+    h_h: f64,
+    t: &Templates,
+    ink_only: bool,
+) -> GlyphRead {
     const WIDTH_FACTOR: f64 = 1.6;
+    let half = grid_dims().0 * grid_dims().1;
     let scores: Vec<(f64, bool)> = t
         .glyphs
         .iter()
@@ -525,7 +615,13 @@ fn classify(sample: &dyn Fn(f64) -> Vec<f32>, w_h: f64, h_h: f64, t: &Templates)
             if !(width_ok && height_ok) {
                 return (-1.0, false);
             }
-            (zncc(&sample(ratio), &tg.grid), true)
+            let g = sample(ratio);
+            let score = if ink_only {
+                zncc(&g[..half], &tg.grid[..half])
+            } else {
+                zncc(&g, &tg.grid)
+            };
+            (score, true)
         })
         .collect();
     let (bi, &(best, size_ok)) = scores
@@ -547,6 +643,7 @@ fn classify(sample: &dyn Fn(f64) -> Vec<f32>, w_h: f64, h_h: f64, t: &Templates)
         other,
         other_c,
         size_ok,
+        agree: true,
     }
 }
 
@@ -618,8 +715,25 @@ fn read_comp(
     };
     let h = frame.height();
     let cx = (c.x0 + c.x1 + 1) as f64 / 2.0;
-    let sampled = |stretch: f64| sample(&cov, frame, cx, stretch);
-    classify(&sampled, c.w() as f64 / h, c.h() as f64 / h, t)
+    let bbox = [c.x0 as i64, c.y0 as i64, c.x1 as i64, c.y1 as i64];
+    let sampled = |stretch: f64| two_channels(&cov, bbox, frame, cx, stretch);
+    // Two views: the ink alone, and the ink with the holes (which small or
+    // blurred glyphs may have lost). They must read the same meaning; the
+    // more confident gives the reading.
+    let (w_h, h_h) = (c.w() as f64 / h, c.h() as f64 / h);
+    let ink = classify(&sampled, w_h, h_h, t, true);
+    let both = classify(&sampled, w_h, h_h, t, false);
+    if ink.meaning != both.meaning {
+        return GlyphRead {
+            agree: false,
+            ..both
+        };
+    }
+    if glyph_confidence(&ink) > glyph_confidence(&both) {
+        ink
+    } else {
+        both
+    }
 }
 
 /// A line of glyphs near the bar and its frame.
@@ -674,8 +788,13 @@ fn lines_near(comps: &[Comp], bar: &ScaleBar) -> Vec<Line> {
     let t = bar.thickness_px as f64;
     let mut lines = Vec::new();
     for members in groups.into_values() {
-        // A label has at least a digit and a two-letter unit.
-        if members.len() < 3 {
+        // A label has at least a digit and a two-letter unit, over two digit
+        // heights wide; small blurred text may join its letters into one or
+        // two components, which the column segmentation cuts apart.
+        let width = members.iter().map(|&i| comps[i].x1).max().unwrap_or(0) + 1
+            - members.iter().map(|&i| comps[i].x0).min().unwrap_or(0);
+        let tallest = members.iter().map(|&i| comps[i].h()).max().unwrap_or(0);
+        if (width as f64) < 1.5 * tallest as f64 {
             continue;
         }
         let top = members.iter().map(|&i| comps[i].y0).min().unwrap_or(0);
@@ -833,7 +952,13 @@ struct Attempt {
 /// between letters stay light. The ink is the coverage (0 at the surround,
 /// 1 at the ink) within the line's components grown by a pixel; a column
 /// whose ink stays under [`GAP_COVERAGE`] is a gap.
-fn column_segments(img: &GrayImage, line: &Line, ink: f32, surround: f32) -> Vec<Comp> {
+fn column_segments(
+    img: &GrayImage,
+    line: &Line,
+    ink: f32,
+    surround: f32,
+    at_valleys: bool,
+) -> Vec<Comp> {
     let [rx0, ry0, rx1, ry1] = line.rect;
     let (bx0, by0) = (rx0.saturating_sub(1), ry0.saturating_sub(1));
     let (bx1, by1) = ((rx1 + 1).min(img.width - 1), (ry1 + 1).min(img.height - 1));
@@ -850,18 +975,42 @@ fn column_segments(img: &GrayImage, line: &Line, ink: f32, surround: f32) -> Vec
     let span = ink - surround;
     let cov = |x: usize, y: usize| ((img.get(bx0 + x, by0 + y) - surround) / span).clamp(0.0, 1.0);
     let inked = |x: usize, y: usize| grown[y * bw + x] && cov(x, y) >= GAP_COVERAGE;
-    let column_inked = |x: usize| (0..bh).any(|y| inked(x, y));
-    let mut out = Vec::new();
+    // Each column's greatest coverage; the runs of inked columns, each
+    // cut again at its valleys.
+    let colmax: Vec<f32> = (0..bw)
+        .map(|x| {
+            (0..bh)
+                .filter(|&y| grown[y * bw + x])
+                .map(|y| cov(x, y))
+                .fold(0.0, f32::max)
+        })
+        .collect();
+    let mut cuts: Vec<(usize, usize)> = Vec::new();
     let mut x = 0;
     while x < bw {
-        if !column_inked(x) {
+        if colmax[x] < GAP_COVERAGE {
             x += 1;
             continue;
         }
         let start = x;
-        while x < bw && column_inked(x) {
+        while x < bw && colmax[x] >= GAP_COVERAGE {
             x += 1;
         }
+        let mut from = start;
+        let cut_at = if at_valleys {
+            valleys(&colmax[start..x])
+        } else {
+            Vec::new()
+        };
+        for v in cut_at {
+            cuts.push((from, start + v));
+            from = start + v + 1;
+        }
+        cuts.push((from, x));
+    }
+    let mut out = Vec::new();
+    for (start, end) in cuts {
+        let x = end;
         let mut c = Comp {
             x0: usize::MAX,
             y0: usize::MAX,
@@ -894,6 +1043,30 @@ fn column_segments(img: &GrayImage, line: &Line, ink: f32, surround: f32) -> Vec
     out
 }
 
+/// Columns of a profile of greatest coverage that separate two glyphs
+/// blurred together: local minima at most [`VALLEY`] of the smaller of
+/// the highest columns on either side. Within a glyph of the label's
+/// characters every column crosses a stroke (the arches of m and n, the
+/// bowls of 0 and µ), so its greatest coverage stays near the strokes';
+/// between two glyphs a column holds only their blurred edges.
+fn valleys(p: &[f32]) -> Vec<usize> {
+    let n = p.len();
+    let mut out = Vec::new();
+    let mut last = 0;
+    for i in 1..n.saturating_sub(1) {
+        if !(p[i] <= p[i - 1] && p[i] <= p[i + 1]) {
+            continue;
+        }
+        let left = p[last..i].iter().copied().fold(0.0, f32::max);
+        let right = p[i + 1..].iter().copied().fold(0.0, f32::max);
+        if p[i] <= VALLEY * left.min(right) {
+            out.push(i);
+            last = i + 1;
+        }
+    }
+    out
+}
+
 /// A mask grown by one pixel (8-neighbourhood).
 fn grow(own: &[bool], bw: usize, bh: usize) -> Vec<bool> {
     (0..bw * bh)
@@ -913,7 +1086,10 @@ fn grow(own: &[bool], bw: usize, bh: usize) -> Vec<bool> {
         .collect()
 }
 
-/// Reads a line both as its components and as its column segments.
+/// Reads a line as its components, as its column segments, and as its
+/// column segments cut again at valleys (each segmentation fails on some
+/// text: components break thin strokes, plain column gaps miss letters
+/// blurred together, valleys cut the faint arches of a small m).
 fn read_line(img: &GrayImage, line: &Line, ink: f32, surround: f32) -> Vec<Attempt> {
     let hh = line.frame.height();
     let span = ink - surround;
@@ -943,14 +1119,15 @@ fn read_line(img: &GrayImage, line: &Line, ink: f32, surround: f32) -> Vec<Attem
         }];
     };
     let mut out = read_glyphs(img, &line.glyphs, line, ink, surround, &t);
-    let segments = column_segments(img, line, ink, surround);
-    let same = segments.len() == line.glyphs.len()
-        && segments
-            .iter()
-            .zip(&line.glyphs)
-            .all(|(a, b)| a.x0 == b.x0 && a.x1 == b.x1);
-    if !same {
-        out.extend(read_glyphs(img, &segments, line, ink, surround, &t));
+    let mut seen: Vec<Vec<(usize, usize)>> =
+        vec![line.glyphs.iter().map(|c| (c.x0, c.x1)).collect()];
+    for at_valleys in [false, true] {
+        let segments = column_segments(img, line, ink, surround, at_valleys);
+        let key: Vec<(usize, usize)> = segments.iter().map(|c| (c.x0, c.x1)).collect();
+        if !seen.contains(&key) {
+            out.extend(read_glyphs(img, &segments, line, ink, surround, &t));
+            seen.push(key);
+        }
     }
     out
 }
@@ -1134,6 +1311,18 @@ pub fn read(img: &GrayImage, bar: &ScaleBar) -> Result<Label, String> {
                 !cut_off && !touches_bar
             })
             .collect();
+        if std::env::var_os("ARMSPACE_LABEL_DEBUG").is_some() {
+            eprintln!(
+                "cut {cut:.3} (ink {ink:.3}, surround {surround:.3}): {} components",
+                comps.len()
+            );
+            for c in comps
+                .iter()
+                .filter(|c| c.y0 > y1 && c.y0 < y1 + 40 && c.x0 >= x0 && c.x1 <= x1)
+            {
+                eprintln!("  comp {}..{} x {}..{}", c.x0, c.x1, c.y0, c.y1);
+            }
+        }
         for line in lines_near(&comps, bar) {
             for a in read_line(img, &line, ink, surround) {
                 if a.result.is_ok() {

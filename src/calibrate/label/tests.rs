@@ -17,6 +17,7 @@ fn reads(chars: &str) -> Vec<(GlyphRead, f64)> {
                     other: 0.0,
                     other_c: ' ',
                     size_ok: true,
+                    agree: true,
                 },
                 1.0,
             )
@@ -61,6 +62,7 @@ fn confidence_is_the_share_of_the_gap_closed() {
         other,
         other_c: '8',
         size_ok,
+        agree: true,
     };
     assert!((glyph_confidence(&g(1.0, 0.5, true)) - 1.0).abs() < 1e-12);
     assert!((glyph_confidence(&g(0.8, 0.6, true)) - 0.5).abs() < 1e-12);
@@ -76,7 +78,7 @@ fn templates_read_themselves() {
         let t = Templates::at(h, None).expect("templates");
         for (c, m, s) in &t.glyphs {
             let grid = |_: f64| s.grid.clone();
-            let r = classify(&grid, s.w_h, s.h_h, &t);
+            let r = classify(&grid, s.w_h, s.h_h, &t, false);
             assert_eq!(r.meaning, *m, "{c} at {h} px");
         }
     }
