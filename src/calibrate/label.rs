@@ -14,9 +14,10 @@
 //!    step writes both; common practice, no single source). A pixel is ink
 //!    when it lies at least 30 % of the way from the bar's surround to the
 //!    bar's own level (which keeps the thin, blurred arches of a small m
-//!    joined to its stems), and, in further passes, half-way and 70 % of the
-//!    way (which separate text from structure of a grey near the
-//!    surround's): the passes must not read two different lengths.
+//!    joined to its stems), and, in further passes, half-way, 70 % and 85 %
+//!    of the way (which separate text printed in its flat ink from
+//!    structure whose grey comes near the ink's): the passes must not read
+//!    two different lengths.
 //! 3. **Line.** Connected components of the ink, cut free from the bar and
 //!    anything touching it (its ticks), are grouped into a line: glyphs of
 //!    similar height overlapping in rows, at most one letter height apart
@@ -80,7 +81,7 @@ const MAX_HEIGHT_PX: usize = 44;
 
 /// Shares of the way from the bar's surround to its ink at which the text
 /// is cut (see the module notes).
-const INK_FRACTIONS: [f32; 3] = [0.3, 0.5, 0.7];
+const INK_FRACTIONS: [f32; 4] = [0.3, 0.5, 0.7, 0.85];
 
 /// Grid the glyphs are compared on, in digit heights: from 0.2 above the
 /// digits' top to 0.35 below the baseline (descenders of µ and the comma),
@@ -741,6 +742,10 @@ struct Line {
     glyphs: Vec<Comp>,
     frame: Frame,
     rect: [usize; 4],
+    /// Whether ink that is not on the line lies within a word space before
+    /// its first glyph, level with it: a digit or mark there (missed by
+    /// the grouping) could belong to the number.
+    crowded_left: bool,
 }
 
 /// Groups components into lines of text near the bar (module notes, 3).
@@ -874,10 +879,20 @@ fn lines_near(comps: &[Comp], bar: &ScaleBar) -> Vec<Line> {
             merged.iter().map(|c| c.x1).max().unwrap_or(0),
             merged.iter().map(|c| c.y1).max().unwrap_or(0),
         ];
+        let first = merged.first().map_or(rect[0], |c| c.x0);
+        let reach = (SPACE * hh).ceil() as usize + 1;
+        let crowded_left = comps.iter().any(|c| {
+            c.x1 < first
+                && c.x1 + reach >= first
+                && (c.y1 as f64) >= frame.top
+                && (c.y0 as f64) < frame.base
+                && !merged.iter().any(|g| g.runs.contains(&c.runs[0]))
+        });
         lines.push(Line {
             glyphs: merged,
             frame,
             rect,
+            crowded_left,
         });
     }
     lines
@@ -1140,7 +1155,8 @@ fn read_line(img: &GrayImage, line: &Line, ink: f32, surround: f32) -> Vec<Attem
 /// words; other words on the line (other text, or structure that joined
 /// the line) are not read. A word just before the label must end in a
 /// letter read with confidence: a digit, a mark or a glyph not read there
-/// could be part of the label's number.
+/// could be part of the label's number; so could ink off the line just
+/// before its first word (`Line::crowded_left`).
 fn read_glyphs(
     img: &GrayImage,
     glyphs: &[Comp],
@@ -1230,6 +1246,12 @@ fn read_glyphs(
                     k - span.start + 1,
                     reads[k].1,
                     MIN_CONFIDENCE
+                ))));
+                continue;
+            }
+            if i == 0 && line.crowded_left && span.start == 0 && glyphs[0].x0 == line.rect[0] {
+                out.push(attempt(Err(format!(
+                    "in '{whole}', ink just before '{text}' could belong to its number"
                 ))));
                 continue;
             }
