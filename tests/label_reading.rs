@@ -76,6 +76,19 @@ fn draw_ttf(
     digit_px: f64,
     ink: f32,
 ) -> [i64; 4] {
+    draw_ttf_inks(g, font_bytes, text, x, base, digit_px, &|_| ink)
+}
+
+/// `draw_ttf` with an ink for each character (by index).
+fn draw_ttf_inks(
+    g: &mut GrayImage,
+    font_bytes: &[u8],
+    text: &str,
+    x: f64,
+    base: f64,
+    digit_px: f64,
+    ink_of: &dyn Fn(usize) -> f32,
+) -> [i64; 4] {
     let font = FontRef::try_from_slice(font_bytes).expect("a font");
     let zero = font.outline(font.glyph_id('0')).expect("a zero");
     let digit_units = (zero.bounds.max.y - zero.bounds.min.y).abs() as f64;
@@ -84,7 +97,8 @@ fn draw_ttf(
     let mut pen = x as f32;
     let mut prev = None;
     let mut bx = [i64::MAX, i64::MAX, i64::MIN, i64::MIN];
-    for c in text.chars() {
+    for (k, c) in text.chars().enumerate() {
+        let ink = ink_of(k);
         let id = font.glyph_id(c);
         if let Some(p) = prev {
             pen += scaled.kern(p, id);
@@ -544,4 +558,198 @@ fn debug_plain() {
     image::imageops::resize(&c, 800, 320, image::imageops::FilterType::Nearest)
         .save("/tmp/plain.png")
         .unwrap();
+}
+
+/// The synth's own labels, drawn with its stroke font (boxy digits, a
+/// slashed zero: no common face): whatever is read must be right; most
+/// are expected to give no reading.
+#[test]
+fn stroke_font_labels_are_never_misread() {
+    let (mut n, mut right, mut wrong) = (0, 0, Vec::new());
+    for i in 0..16u64 {
+        let r = |k: u64| u01(15_301, i, k);
+        let um = [10.0, 20.0, 50.0, 100.0, 200.0][(r(2) * 5.0) as usize % 5];
+        let um_per_px = um / (100.0 + r(1) * 200.0);
+        let mut bar = ScaleBarSpec::plain(
+            um,
+            3 + (r(3) * 6.0) as u32,
+            if r(4) < 0.5 {
+                Polarity::DarkOnLight
+            } else {
+                Polarity::LightOnDark
+            },
+            Corner::BottomRight,
+            r(5) < 0.5,
+        );
+        bar.label = Some(if r(6) < 0.5 {
+            armspace::synth::LabelSide::Above
+        } else {
+            armspace::synth::LabelSide::Below
+        });
+        let spec = FieldSpec {
+            width: 640,
+            height: 480,
+            morphology: Morphology::Columnar,
+            style: Style::Etched,
+            sdas_px: 10.0,
+            um_per_px,
+            primary_angle_deg: 30.0,
+            primary_spacing_px: 40.0,
+            spacing_jitter: 0.1,
+            missing_arm_fraction: 0.0,
+            invert: false,
+            noise_sd: 0.01,
+            blur_sigma_px: 0.8,
+            illumination: 0.05,
+            scale_bar: Some(bar),
+            gradient: None,
+            seed: mix(15_301, i),
+        };
+        let Ok((img, _)) = render(&spec) else {
+            continue;
+        };
+        let g = gray(&img);
+        let Ok(b) = detect(&g) else { continue };
+        n += 1;
+        match label::read(&g, &b) {
+            Ok(l) if (l.length_um / um - 1.0).abs() < 1e-9 => right += 1,
+            Ok(l) => wrong.push(format!("case {i}: {um} um read as {l:?}")),
+            Err(_) => {}
+        }
+    }
+    eprintln!("stroke-font labels (seed 15301): {right}/{n} read right");
+    assert!(n >= 10, "only {n} cases");
+    assert!(wrong.is_empty(), "{wrong:#?}");
+}
+
+/// A textured field 640 x 480 with a dark bar `len` px long on a light
+/// box and `text` in DejaVu Sans 18 px high above it, as an 8-bit PNG.
+fn write_labelled(path: &std::path::Path, len: usize, text: &str) {
+    let (w, h) = (640usize, 480usize);
+    let data: Vec<f32> = (0..w * h)
+        .map(|i| 0.45 + 0.2 * (((i * 7919) % 97) as f32 / 97.0 - 0.5))
+        .collect();
+    let mut g = GrayImage::from_vec(w, h, data).unwrap();
+    let (x0, y0) = (600 - len, 440);
+    for y in 390..465 {
+        for x in x0 - 12..612 {
+            g.data[y * w + x] = 0.92;
+        }
+    }
+    for y in y0..y0 + 6 {
+        for x in x0..x0 + len {
+            g.data[y * w + x] = 0.0;
+        }
+    }
+    let tw = text_width(DEJAVU, text, 18.0);
+    let cx = x0 as f64 + len as f64 / 2.0;
+    draw_ttf(&mut g, DEJAVU, text, cx - tw / 2.0, 430.0, 18.0, 0.0);
+    let bytes: Vec<u8> = g
+        .data
+        .iter()
+        .map(|v| (v.clamp(0.0, 1.0) * 255.0).round() as u8)
+        .collect();
+    image::GrayImage::from_raw(w as u32, h as u32, bytes)
+        .unwrap()
+        .save(path)
+        .unwrap();
+}
+
+fn run_armspace(args: &[&str]) -> (i32, String, String) {
+    let out = std::process::Command::new(env!("CARGO_BIN_EXE_armspace"))
+        .args(args)
+        .output()
+        .expect("the binary runs");
+    (
+        out.status.code().unwrap_or(-1),
+        String::from_utf8_lossy(&out.stdout).into_owned(),
+        String::from_utf8_lossy(&out.stderr).into_owned(),
+    )
+}
+
+#[test]
+fn a_folder_of_two_magnifications_calibrates_in_one_run() {
+    // 50 um over 200 px is 0.25 um/px; 0.2 mm = 200 um over 160 px is
+    // 1.25 um/px (length over pixels, the definition of the calibration).
+    let dir = tempfile::tempdir().unwrap();
+    write_labelled(&dir.path().join("a-x400.png"), 200, "50 µm");
+    write_labelled(&dir.path().join("b-x100.png"), 160, "0.2 mm");
+    let folder = dir.path().to_string_lossy().into_owned();
+    let (code, stdout, stderr) = run_armspace(&["calibrate", &folder, "--scale-bar", "auto"]);
+    assert_eq!(code, 0, "{stderr}");
+    let v: serde_json::Value = serde_json::from_str(&stdout).unwrap();
+    let e = v.as_array().unwrap();
+    assert_eq!(e.len(), 2, "{v}");
+    for (entry, um_per_px, text) in [(&e[0], 0.25, "50 µm"), (&e[1], 1.25, "0.2 mm")] {
+        let got = entry["um_per_px"].as_f64().unwrap_or(f64::NAN);
+        assert!((got / um_per_px - 1.0).abs() < 0.005, "{entry}");
+        assert_eq!(entry["label"]["text"].as_str(), Some(text), "{entry}");
+        let conf = entry["label"]["confidence"].as_f64().unwrap();
+        assert!((label::MIN_CONFIDENCE..=1.0).contains(&conf), "{entry}");
+    }
+    // A length given that the label contradicts: used, and warned about on
+    // stderr and in the entry's warnings.
+    let img = dir.path().join("a-x400.png").to_string_lossy().into_owned();
+    let (code, stdout, stderr) = run_armspace(&["calibrate", &img, "--scale-bar", "20um"]);
+    assert_eq!(code, 0, "{stderr}");
+    assert!(stderr.contains("label reads '50 µm'"), "{stderr}");
+    let v: serde_json::Value = serde_json::from_str(&stdout).unwrap();
+    let got = v[0]["um_per_px"].as_f64().unwrap();
+    assert!((got / 0.1 - 1.0).abs() < 0.005, "{v}");
+    let warned = v[0]["warnings"].as_array().unwrap();
+    assert!(
+        warned
+            .iter()
+            .any(|w| w.as_str().unwrap_or("").contains("label reads '50 µm'")),
+        "{v}"
+    );
+}
+
+#[test]
+fn an_unreadable_label_fails_the_image_with_the_reason() {
+    let dir = tempfile::tempdir().unwrap();
+    let img = dir.path().join("garbled.png");
+    write_labelled(&img, 200, "5# xm");
+    let img = img.to_string_lossy().into_owned();
+    let (code, stdout, stderr) = run_armspace(&["calibrate", &img, "--scale-bar", "auto"]);
+    assert_ne!(code, 0);
+    let v: serde_json::Value = serde_json::from_str(&stdout).unwrap();
+    let err = v[0]["error"].as_str().unwrap_or("");
+    assert!(err.contains("label was not read"), "{err}");
+    assert!(v[0]["um_per_px"].is_null(), "{v}");
+    assert!(stderr.contains("label was not read"), "{stderr}");
+}
+
+#[test]
+fn a_faint_first_digit_is_never_dropped_from_the_number() {
+    // "120 µm" whose 1 is printed at 40 % of the ink (on a 0.8 field): the
+    // rest alone would read 20 µm, six times too short. No reading, or the
+    // whole, is acceptable.
+    for h in [12.0, 20.0, 32.0] {
+        let (w, hh) = (600usize, 420usize);
+        let mut g = GrayImage::from_vec(w, hh, vec![0.8; w * hh]).unwrap();
+        for y in 300..=305 {
+            for x in 150..=349 {
+                g.data[y * w + x] = 0.0;
+            }
+        }
+        let text = "120 µm";
+        let tw = text_width(DEJAVU, text, h);
+        let inks = |k: usize| if k == 0 { 0.48 } else { 0.0 };
+        draw_ttf_inks(
+            &mut g,
+            DEJAVU,
+            text,
+            250.0 - tw / 2.0,
+            306.0 + 0.4 * h + h,
+            h,
+            &inks,
+        );
+        let g = soften(&g, 0.5, 0.01, 11);
+        let bar = detect(&g).expect("the bar");
+        match label::read(&g, &bar) {
+            Ok(l) => assert!((l.length_um - 120.0).abs() < 1e-9, "{h} px: {l:?}"),
+            Err(e) => eprintln!("{h} px: no reading: {e}"),
+        }
+    }
 }

@@ -742,14 +742,14 @@ struct Line {
     glyphs: Vec<Comp>,
     frame: Frame,
     rect: [usize; 4],
-    /// Whether ink that is not on the line lies within a word space before
-    /// its first glyph, level with it: a digit or mark there (missed by
-    /// the grouping) could belong to the number.
+    /// Whether ink that is not on the line lies just before its first
+    /// glyph, level with it: a digit or mark there (missed by the
+    /// grouping, or fainter than the cut) could belong to the number.
     crowded_left: bool,
 }
 
 /// Groups components into lines of text near the bar (module notes, 3).
-fn lines_near(comps: &[Comp], bar: &ScaleBar) -> Vec<Line> {
+fn lines_near(comps: &[Comp], bar: &ScaleBar, cov: &dyn Fn(usize, usize) -> f32) -> Vec<Line> {
     let tall: Vec<usize> = (0..comps.len())
         .filter(|&i| {
             (6..=MAX_HEIGHT_PX).contains(&comps[i].h()) && comps[i].w() <= 2 * MAX_HEIGHT_PX
@@ -880,13 +880,28 @@ fn lines_near(comps: &[Comp], bar: &ScaleBar) -> Vec<Line> {
             merged.iter().map(|c| c.y1).max().unwrap_or(0),
         ];
         let first = merged.first().map_or(rect[0], |c| c.x0);
-        let reach = (SPACE * hh).ceil() as usize + 1;
-        let crowded_left = comps.iter().any(|c| {
-            c.x1 < first
-                && c.x1 + reach >= first
-                && (c.y1 as f64) >= frame.top
-                && (c.y0 as f64) < frame.base
-                && !merged.iter().any(|g| g.runs.contains(&c.runs[0]))
+        // Within the widest gap inside a number (either side of a decimal
+        // point, about 0.3 of the digit height; see SPACE), and a pixel of
+        // anti-aliasing.
+        let reach = (0.35 * hh).ceil() as usize + 1;
+        // Any ink at all there, however faint (a quarter of the way to
+        // the ink, as a glyph's gaps are told): a first digit printed
+        // fainter than the rest is not found at the cut that finds them.
+        // Row by row, past the first glyph's own anti-aliased rim (the ink
+        // running on left of the component, which a high cut leaves out;
+        // at most a fifth of the digit height and two pixels of blur, or
+        // the ink runs on into something else).
+        let rows = (frame.top.max(0.0) as usize)..(frame.base as usize);
+        let rim = (0.2 * hh).ceil() as usize + 2;
+        let crowded_left = rows.into_iter().any(|y| {
+            let mut x = first;
+            while x > 0 && cov(x - 1, y) >= GAP_COVERAGE {
+                x -= 1;
+                if first - x > rim {
+                    return true;
+                }
+            }
+            (x.saturating_sub(reach)..x).any(|xx| cov(xx, y) >= GAP_COVERAGE)
         });
         lines.push(Line {
             glyphs: merged,
@@ -1249,7 +1264,7 @@ fn read_glyphs(
                 ))));
                 continue;
             }
-            if i == 0 && line.crowded_left && span.start == 0 && glyphs[0].x0 == line.rect[0] {
+            if i == 0 && line.crowded_left {
                 out.push(attempt(Err(format!(
                     "in '{whole}', ink just before '{text}' could belong to its number"
                 ))));
@@ -1345,7 +1360,15 @@ pub fn read(img: &GrayImage, bar: &ScaleBar) -> Result<Label, String> {
                 eprintln!("  comp {}..{} x {}..{}", c.x0, c.x1, c.y0, c.y1);
             }
         }
-        for line in lines_near(&comps, bar) {
+        let span = ink - surround;
+        let cov = |x: usize, y: usize| -> f32 {
+            if x >= w || y >= h {
+                0.0
+            } else {
+                ((img.get(x, y) - surround) / span).clamp(0.0, 1.0)
+            }
+        };
+        for line in lines_near(&comps, bar, &cov) {
             for a in read_line(img, &line, ink, surround) {
                 if a.result.is_ok() {
                     readings.push(a);
