@@ -274,24 +274,35 @@ pub fn measure_file(path: &std::path::Path, opts: &MeasureOptions) -> ImageResul
                     None
                 }
             });
-    let calibration = match cal::resolve(&opts.calibration, Some(&detected), metadata) {
-        Ok((c, w)) => {
-            warnings.extend(w);
-            c
-        }
-        Err(e) => {
-            let e = match metadata_unused {
-                Some(note) => format!("{e}: {note}"),
-                None => e.to_string(),
-            };
-            let mut r =
-                ImageResult::failed(path.to_path_buf(), format!("{}: {e}", path.display()), opts);
-            r.info = Some(info);
-            r.bar = detected.ok();
-            r.warnings = warnings;
-            return r;
-        }
-    };
+    // The bar's label is read when its length is to come from it
+    // (`--scale-bar auto`) or is given (to be checked against it).
+    let label = (opts.calibration.read_label || opts.calibration.scale_bar.is_some())
+        .then(|| detected.as_ref().ok())
+        .flatten()
+        .map(|b| cal::label::read(&loaded.image, b));
+    let calibration =
+        match cal::resolve_with_label(&opts.calibration, Some(&detected), label.as_ref(), metadata)
+        {
+            Ok((c, w)) => {
+                warnings.extend(w);
+                c
+            }
+            Err(e) => {
+                let e = match metadata_unused {
+                    Some(note) => format!("{e}: {note}"),
+                    None => e.to_string(),
+                };
+                let mut r = ImageResult::failed(
+                    path.to_path_buf(),
+                    format!("{}: {e}", path.display()),
+                    opts,
+                );
+                r.info = Some(info);
+                r.bar = detected.ok();
+                r.warnings = warnings;
+                return r;
+            }
+        };
     let bar = detected.ok();
     let (mut mask, mut excluded) = match &bar {
         Some(b) => (

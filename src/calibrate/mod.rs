@@ -6,12 +6,14 @@
 //! 2. `profile`: a named entry of a calibration profile file (per objective
 //!    or camera);
 //! 3. `scale-bar`: the bar burned into the image, measured in pixels, with
-//!    its physical length given by `--scale-bar`;
+//!    its physical length given by `--scale-bar LENGTH`, or read from its
+//!    label with `--scale-bar auto` (`label.rs`);
 //! 4. `file-metadata`: TIFF resolution tags.
 //!
 //! Every source that gave a value is reported; when one differs from the
 //! value used by more than 2 %, the image carries a warning.
 
+pub mod label;
 pub mod profile;
 pub mod scale_bar;
 
@@ -61,6 +63,8 @@ pub struct Calibration {
     pub rel_uncertainty: Option<f64>,
     /// The bar, when the calibration came from it.
     pub bar: Option<ScaleBar>,
+    /// The bar's label, when it was read with confidence.
+    pub label: Option<label::Label>,
     /// Every source that offered a value, in order of precedence.
     pub offers: Vec<Offer>,
     /// When sources the user gave (value, profile, scale bar) disagree
@@ -82,6 +86,7 @@ impl Calibration {
             source: CalibrationSource::Manual,
             rel_uncertainty: None,
             bar: None,
+            label: None,
             offers: vec![offer],
             conflict: None,
         }
@@ -107,6 +112,10 @@ pub struct CalibrationRequest {
     pub manual_rel_uncertainty: Option<f64>,
     pub profile: Option<profile::Profile>,
     pub scale_bar: Option<BarLength>,
+    /// `--scale-bar auto`: the bar's length is read from its label
+    /// (`label::read`). A length given in `scale_bar` takes precedence; the
+    /// label is then only checked against it.
+    pub read_label: bool,
     /// The source the user trusts when sources conflict; without it a
     /// conflict leaves the image undecidable (`Calibration::conflict`).
     pub trust: Option<CalibrationSource>,
@@ -153,6 +162,25 @@ pub fn resolve(
     bar: Option<&Result<ScaleBar>>,
     metadata: Option<UmPerPx>,
 ) -> Result<(Calibration, Vec<Warning>)> {
+    resolve_with_label(req, bar, None, metadata)
+}
+
+/// Whether two lengths are one: labels state round numbers and a length
+/// typed in is one of them, so any difference beyond the rounding of
+/// floating point is a disagreement.
+fn same_length(a: Micrometres, b: Micrometres) -> bool {
+    (a.0 / b.0 - 1.0).abs() <= 1e-9
+}
+
+/// [`resolve`] with the bar's label as read (`label::read`), when it was
+/// looked for: with `--scale-bar auto` the length it states calibrates the
+/// bar; with a length given, a label that reads otherwise is warned about.
+pub fn resolve_with_label(
+    req: &CalibrationRequest,
+    bar: Option<&Result<ScaleBar>>,
+    label: Option<&std::result::Result<label::Label, String>>,
+    metadata: Option<UmPerPx>,
+) -> Result<(Calibration, Vec<Warning>)> {
     let mut offers = Vec::new();
     let mut warnings = Vec::new();
     if let Some(v) = req.manual {
@@ -171,7 +199,53 @@ pub fn resolve(
     }
     let mut used_bar = None;
     let mut bar_failure = None;
-    if let Some(len) = &req.scale_bar {
+    let mut read = None;
+    let length = match (&req.scale_bar, req.read_label) {
+        (Some(given), _) => {
+            if let Some(Ok(l)) = label {
+                if !same_length(l.length(), given.length) {
+                    warnings.push(Warning::new(
+                        "calibration.label-disagrees",
+                        format!(
+                            "the scale bar's label reads '{}' ({} um, confidence {:.2}), but --scale-bar gives {} um; the length given is used",
+                            l.text, l.length_um, l.confidence, given.length.0
+                        ),
+                    ));
+                }
+            }
+            Some(*given)
+        }
+        (None, true) => match (bar, label) {
+            (Some(Ok(_)), Some(Ok(l))) => {
+                read = Some(l.clone());
+                Some(BarLength {
+                    length: l.length(),
+                    rel_uncertainty: 0.0,
+                })
+            }
+            (Some(Ok(_)), Some(Err(why))) => {
+                bar_failure = Some(format!(
+                    "the bar was found, but its label was not read with confidence ({:.2} needed): {why}",
+                    label::MIN_CONFIDENCE
+                ));
+                None
+            }
+            (Some(Ok(_)), None) => {
+                bar_failure = Some("the bar's label was not looked for".into());
+                None
+            }
+            (Some(Err(why)), _) => {
+                bar_failure = Some(why.to_string());
+                None
+            }
+            (None, _) => {
+                bar_failure = Some("the image was not searched for a scale bar".into());
+                None
+            }
+        },
+        (None, false) => None,
+    };
+    if let Some(len) = &length {
         match bar {
             Some(Ok(b)) => {
                 let o = from_bar(b, len)?;
@@ -218,6 +292,9 @@ pub fn resolve(
     let Some(chosen) = trusted.or_else(|| offers.first().copied()) else {
         return Err(Error::Calibration {
             reason: match bar_failure {
+                Some(why) if req.read_label && req.scale_bar.is_none() => format!(
+                    "no calibration from the scale bar ({why}); pass --um-per-px, --profile or the bar's length (--scale-bar 50um)"
+                ),
                 Some(why) => format!(
                     "no scale bar found with confidence ({why}); pass --um-per-px or --profile"
                 ),
@@ -227,7 +304,11 @@ pub fn resolve(
     };
     if let Some(reason) = bar_failure {
         warnings.push(Warning::new(
-            "calibration.bar-not-found",
+            if req.read_label && req.scale_bar.is_none() {
+                "calibration.label-not-read"
+            } else {
+                "calibration.bar-not-found"
+            },
             format!(
                 "no scale bar found with confidence ({reason}); the {} calibration is used",
                 chosen.source.name()
@@ -262,12 +343,18 @@ pub fn resolve(
     let bar = (chosen.source == CalibrationSource::ScaleBar)
         .then_some(used_bar)
         .flatten();
+    let label = match (read, label) {
+        (Some(l), _) => Some(l),
+        (None, Some(Ok(l))) if req.scale_bar.is_some() => Some(l.clone()),
+        _ => None,
+    };
     Ok((
         Calibration {
             um_per_px: chosen.um_per_px,
             source: chosen.source,
             rel_uncertainty: chosen.rel_uncertainty,
             bar,
+            label,
             offers,
             conflict,
         },
@@ -320,6 +407,23 @@ pub fn parse_um_per_px(text: &str) -> Result<UmPerPx> {
         reason: format!("'{text}' is not a number"),
     })?;
     UmPerPx::new(v)
+}
+
+/// What `--scale-bar` asks for: the bar's length as given, or read from
+/// its label (`auto`).
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub enum ScaleBarLength {
+    Given(Micrometres),
+    Read,
+}
+
+/// Parses `--scale-bar`: `auto`, or a length with its unit.
+pub fn parse_scale_bar(text: &str) -> Result<ScaleBarLength> {
+    if text.trim().eq_ignore_ascii_case("auto") {
+        Ok(ScaleBarLength::Read)
+    } else {
+        parse_length(text).map(ScaleBarLength::Given)
+    }
 }
 
 /// Parses a length with its unit: um (also µm with the micro sign or the

@@ -99,6 +99,7 @@ fn precedence_manual_profile_bar_metadata() {
             length: Micrometres(100.0),
             rel_uncertainty: 0.0,
         }),
+        read_label: false,
         trust: None,
     };
     let (c, w) = resolve(&full, Some(&found), Some(um(0.5))).unwrap();
@@ -140,6 +141,7 @@ fn disagreement_over_two_percent_is_a_warning() {
             length: Micrometres(100.0),
             rel_uncertainty: 0.0,
         }),
+        read_label: false,
         trust: None,
     };
     let (c, w) = resolve(&req, Some(&found), None).unwrap();
@@ -252,4 +254,65 @@ fn parses_um_per_px() {
     for bad in ["", "abc", "0", "-0.3", "nan", "inf", "1,5"] {
         assert!(parse_um_per_px(bad).is_err(), "{bad:?} accepted");
     }
+}
+
+fn read_label(text: &str, length_um: f64) -> label::Label {
+    label::Label {
+        text: text.into(),
+        length_um,
+        confidence: 0.9,
+        rect: [10, 20, 40, 30],
+        height_px: 10.0,
+    }
+}
+
+#[test]
+fn auto_calibrates_from_the_label_and_fails_without_one() {
+    // 100 um read over a bar of 200 px: 0.5 um/px (the definition of the
+    // calibration, length over pixels).
+    let found: crate::Result<ScaleBar> = Ok(bar(200.0));
+    let auto = CalibrationRequest {
+        read_label: true,
+        ..CalibrationRequest::default()
+    };
+    let read = Ok(read_label("100 µm", 100.0));
+    let (c, w) = resolve_with_label(&auto, Some(&found), Some(&read), None).unwrap();
+    assert!((c.um_per_px.get() - 0.5).abs() < 1e-12);
+    assert_eq!(c.source, CalibrationSource::ScaleBar);
+    assert_eq!(c.label.as_ref().map(|l| l.text.as_str()), Some("100 µm"));
+    assert!(w.is_empty(), "{w:?}");
+    // A label not read: no calibration, and the message says why and what
+    // to pass instead.
+    let unread = Err("character 2 of '1?0 µm' is not clearly any of 0-9".to_string());
+    let e = resolve_with_label(&auto, Some(&found), Some(&unread), None)
+        .unwrap_err()
+        .to_string();
+    assert!(
+        e.contains("label was not read") && e.contains("--um-per-px"),
+        "{e}"
+    );
+    assert!(e.contains("1?0"), "{e}");
+}
+
+#[test]
+fn a_given_length_the_label_contradicts_is_warned_about() {
+    let found: crate::Result<ScaleBar> = Ok(bar(200.0));
+    let given = CalibrationRequest {
+        scale_bar: Some(BarLength {
+            length: Micrometres(50.0),
+            rel_uncertainty: 0.0,
+        }),
+        ..CalibrationRequest::default()
+    };
+    let read = Ok(read_label("100 µm", 100.0));
+    let (c, w) = resolve_with_label(&given, Some(&found), Some(&read), None).unwrap();
+    // The length given is used (0.25 um/px), with the warning.
+    assert!((c.um_per_px.get() - 0.25).abs() < 1e-12);
+    assert_eq!(w.len(), 1, "{w:?}");
+    assert_eq!(w[0].code, "calibration.label-disagrees");
+    assert!(w[0].message.contains("100 µm"), "{}", w[0].message);
+    // The same length written otherwise (0.05 mm = 50 um) agrees.
+    let same = Ok(read_label("0.05 mm", 50.0));
+    let (_, w) = resolve_with_label(&given, Some(&found), Some(&same), None).unwrap();
+    assert!(w.is_empty(), "{w:?}");
 }

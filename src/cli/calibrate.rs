@@ -5,7 +5,7 @@ use super::{
     create_overlay_dir, parse_percent, parse_positive, print_json, EXIT_FATAL, EXIT_NOT_MEASURED,
     EXIT_OK,
 };
-use armspace::calibrate::{self, parse_length, BarLength, CalibrationRequest};
+use armspace::calibrate::{self, parse_scale_bar, BarLength, CalibrationRequest, ScaleBarLength};
 use armspace::load::{collect_inputs, DEFAULT_MAX_MEGAPIXELS};
 use armspace::report;
 use std::path::PathBuf;
@@ -16,9 +16,11 @@ pub(super) struct CalibrateArgs {
     /// Image files or folders (walked as `measure` walks them).
     #[arg(required = true)]
     images: Vec<PathBuf>,
-    /// Physical length of the scale bar, with its unit (100um, 0.1mm, 500nm).
-    #[arg(long, value_parser = parse_length, allow_hyphen_values = true)]
-    scale_bar: armspace::units::Micrometres,
+    /// Physical length of the scale bar, with its unit (100um, 0.1mm,
+    /// 500nm), or `auto` to read it from the label beside each bar (a folder
+    /// of several magnifications then calibrates in one run).
+    #[arg(long, value_parser = parse_scale_bar, allow_hyphen_values = true)]
+    scale_bar: ScaleBarLength,
     /// Stated relative uncertainty of the scale bar itself, in percent.
     #[arg(long, value_parser = parse_percent)]
     scale_bar_uncertainty_pct: Option<f64>,
@@ -41,10 +43,14 @@ pub(super) fn run(args: CalibrateArgs) -> ExitCode {
         manual: None,
         manual_rel_uncertainty: None,
         profile: None,
-        scale_bar: Some(BarLength {
-            length: args.scale_bar,
-            rel_uncertainty: args.scale_bar_uncertainty_pct.unwrap_or(0.0) / 100.0,
-        }),
+        scale_bar: match args.scale_bar {
+            ScaleBarLength::Given(length) => Some(BarLength {
+                length,
+                rel_uncertainty: args.scale_bar_uncertainty_pct.unwrap_or(0.0) / 100.0,
+            }),
+            ScaleBarLength::Read => None,
+        },
+        read_label: args.scale_bar == ScaleBarLength::Read,
         trust: None,
     };
     if let Err(code) = create_overlay_dir(args.overlay.as_deref()) {
@@ -91,14 +97,22 @@ pub(super) fn run(args: CalibrateArgs) -> ExitCode {
             }
             Ok(loaded) => {
                 let detected = calibrate::scale_bar::detect(&loaded.image);
-                match calibrate::resolve(&req, Some(&detected), None) {
+                let label = detected
+                    .as_ref()
+                    .ok()
+                    .map(|b| calibrate::label::read(&loaded.image, b));
+                match calibrate::resolve_with_label(&req, Some(&detected), label.as_ref(), None) {
                     Ok((c, warnings)) => {
+                        for w in &warnings {
+                            say!("warning  {}: {}", path.display(), w.message);
+                        }
                         entry["um_per_px"] = c.um_per_px.get().into();
                         entry["rel_uncertainty"] =
                             c.rel_uncertainty.map(|u| report::round(u, 6)).into();
                         entry["bar"] =
                             serde_json::to_value(c.bar.as_ref().map(report::BarReport::of))
                                 .unwrap_or_default();
+                        entry["label"] = serde_json::to_value(&c.label).unwrap_or_default();
                         entry["warnings"] = warnings
                             .iter()
                             .map(|w| w.message.clone())

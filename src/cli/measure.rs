@@ -6,7 +6,9 @@ use super::{
     create_overlay_dir, parse_percent, parse_positive, ConventionArg, EXIT_FATAL,
     EXIT_INDETERMINATE, EXIT_LIMIT_FAILED, EXIT_NOT_MEASURED, EXIT_OK, EXIT_USAGE,
 };
-use armspace::calibrate::{self, parse_length, parse_um_per_px, BarLength, CalibrationRequest};
+use armspace::calibrate::{
+    self, parse_scale_bar, parse_um_per_px, BarLength, CalibrationRequest, ScaleBarLength,
+};
 use armspace::load::{collect_inputs, LoadOptions, DEFAULT_MAX_MEGAPIXELS};
 use armspace::methods::fft::FftParams;
 use armspace::methods::intercept::InterceptParams;
@@ -162,9 +164,13 @@ struct CalibrationArgs {
     /// exact.
     #[arg(long, value_parser = parse_percent, requires = "um_per_px")]
     um_per_px_uncertainty_pct: Option<f64>,
-    /// Physical length of the scale bar burned into the images, with its unit (100um, 0.1mm, 500nm).
-    #[arg(long, value_parser = parse_length, allow_hyphen_values = true)]
-    scale_bar: Option<armspace::units::Micrometres>,
+    /// Physical length of the scale bar burned into the images, with its
+    /// unit (100um, 0.1mm, 500nm), or `auto` to read it from the label
+    /// printed beside each bar (an image whose label is not read with
+    /// confidence is not measured). With a length given, a label that
+    /// reads otherwise is warned about.
+    #[arg(long, value_parser = parse_scale_bar, allow_hyphen_values = true)]
+    scale_bar: Option<ScaleBarLength>,
     /// Stated relative uncertainty of the scale bar itself, in percent.
     #[arg(long, value_parser = parse_percent, requires = "scale_bar")]
     scale_bar_uncertainty_pct: Option<f64>,
@@ -200,10 +206,14 @@ impl CalibrationArgs {
             manual: self.um_per_px,
             manual_rel_uncertainty: self.um_per_px_uncertainty_pct.map(|p| p / 100.0),
             profile,
-            scale_bar: self.scale_bar.map(|length| BarLength {
-                length,
-                rel_uncertainty: self.scale_bar_uncertainty_pct.unwrap_or(0.0) / 100.0,
-            }),
+            scale_bar: match self.scale_bar {
+                Some(ScaleBarLength::Given(length)) => Some(BarLength {
+                    length,
+                    rel_uncertainty: self.scale_bar_uncertainty_pct.unwrap_or(0.0) / 100.0,
+                }),
+                _ => None,
+            },
+            read_label: self.scale_bar == Some(ScaleBarLength::Read),
             trust: self.trust_calibration.map(|t| match t {
                 TrustArg::Manual => calibrate::CalibrationSource::Manual,
                 TrustArg::Profile => calibrate::CalibrationSource::Profile,

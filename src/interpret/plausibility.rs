@@ -17,11 +17,9 @@ use crate::units::Micrometres;
 /// far more likely a calibration or unit error than a structure.
 pub const SDAS_RANGE_UM: [f64; 2] = [1.0, 1000.0];
 
-/// The range of field-of-view widths of optical and scanning electron
-/// micrographs of cast structures, in um: from about 10 um (several
-/// thousand times) to about 100 mm (a macro-etched section photographed
-/// whole). Common practice, no single source.
-pub const FIELD_WIDTH_RANGE_UM: [f64; 2] = [10.0, 100_000.0];
+/// The range of field-of-view widths of micrographs, um (defined with
+/// the calibration, whose label reader checks it too).
+pub use crate::calibrate::label::FIELD_WIDTH_RANGE_UM;
 
 /// The warning for an SDAS outside [`SDAS_RANGE_UM`], or `None`.
 pub fn sdas_warning(value: Micrometres) -> Option<Warning> {

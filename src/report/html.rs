@@ -325,6 +325,8 @@ pub fn page(
         format!("given: {u} um/px")
     } else if let Some(b) = p["scale_bar_um"].as_f64() {
         format!("from each image's scale bar of {b} um")
+    } else if p["scale_bar_auto"].as_bool() == Some(true) {
+        "from each image's scale bar, its length read from its label".into()
     } else if p["profile"].is_object() {
         format!("profile {}", text(&p["profile"]["name"]))
     } else {

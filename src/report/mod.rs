@@ -96,6 +96,9 @@ pub struct Parameters {
     pub scale_bar_um: Option<f64>,
     #[schemars(range(min = 0))]
     pub scale_bar_rel_uncertainty: Option<f64>,
+    /// --scale-bar auto: each bar's length read from its label.
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub scale_bar_auto: bool,
     /// The methods asked for, in the order they run.
     #[schemars(schema_with = "schema::method_names")]
     #[serde(deserialize_with = "names::names")]
@@ -278,6 +281,12 @@ pub struct CalibrationReport {
     #[serde(skip_serializing_if = "Option::is_none")]
     #[schemars(with = "BarReport")]
     pub bar: Option<BarReport>,
+    /// The text read beside the bar (with `--scale-bar auto`, or checked
+    /// against a length given), its length and confidence; absent when no
+    /// label was read with confidence.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[schemars(with = "crate::calibrate::label::Label")]
+    pub label: Option<crate::calibrate::label::Label>,
     /// The value each available source gave, by source name.
     #[schemars(schema_with = "schema::calibration_sources")]
     #[serde(deserialize_with = "names::name_map")]
@@ -329,6 +338,7 @@ pub fn calibration_report(c: &crate::calibrate::Calibration) -> CalibrationRepor
         source: c.source,
         rel_uncertainty: c.rel_uncertainty.map(|u| round(u, 6)),
         bar: c.bar.as_ref().map(BarReport::of),
+        label: c.label.clone(),
         sources: c
             .offers
             .iter()
@@ -847,6 +857,7 @@ pub fn parameters(inputs: &[String], opts: &MeasureOptions) -> Parameters {
             }),
         scale_bar_um: opts.calibration.scale_bar.map(|b| b.length.0),
         scale_bar_rel_uncertainty: opts.calibration.scale_bar.map(|b| b.rel_uncertainty),
+        scale_bar_auto: opts.calibration.read_label && opts.calibration.scale_bar.is_none(),
         methods: opts.methods.iter().map(|m| m.name()).collect(),
         max_megapixels: opts.load.max_megapixels,
         preprocess: PreprocessParameters {
