@@ -183,6 +183,11 @@ fn the_schema_keeps_the_contracts_constraints() {
         "/$defs/map/properties/solidification_time_s",
         "/$defs/map/properties/picture_solidification_time",
         "/$defs/profile/properties/plot",
+        // Absent unless the bar's label was read (`--scale-bar auto`, or
+        // a length given and checked against it), so that a report
+        // without it reads as before.
+        "/$defs/CalibrationReport/properties/label",
+        "/$defs/Parameters/properties/scale_bar_auto",
         "/$defs/BinReport/properties/cooling_rate_K_per_s",
         "/$defs/BinReport/properties/solidification_time_s",
     ];
