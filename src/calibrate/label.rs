@@ -605,14 +605,40 @@ fn classify(
 ) -> GlyphRead {
     const WIDTH_FACTOR: f64 = 1.6;
     let half = grid_dims().0 * grid_dims().1;
+    // The digits' height in the templates' frame (lining figures are all
+    // of one height).
+    let digit_hs: Vec<f64> = t
+        .glyphs
+        .iter()
+        .filter(|(_, m, _)| matches!(m, Meaning::Digit(_)))
+        .map(|(_, _, tg)| tg.h_h)
+        .collect();
+    let digit_h = digit_hs.iter().sum::<f64>() / digit_hs.len().max(1) as f64;
     let scores: Vec<(f64, bool)> = t
         .glyphs
         .iter()
-        .map(|(_, _, tg)| {
+        .map(|(_, m, tg)| {
             let ratio = w_h / tg.w_h.max(1e-9);
             let width_ok = (1.0 / WIDTH_FACTOR..=WIDTH_FACTOR).contains(&ratio)
                 || (w_h - tg.w_h).abs() <= 0.15;
-            let height_ok = (h_h - tg.h_h).abs() <= 0.25_f64.max(0.5 * tg.h_h);
+            // Half its own height for the dot and comma (their height is a
+            // few pixels, and a pixel of blur is a large share of it); a
+            // letter or digit within a quarter of the digit height.
+            let tol = if *m == Meaning::Separator {
+                0.25_f64.max(0.5 * tg.h_h)
+            } else {
+                0.25
+            };
+            // A lowercase letter shorter than the digits (n, u, m: the
+            // x-height, about 0.7 to 0.8 of the digit height in sans
+            // faces; common practice, no single source) must also be
+            // nearer its own height than the digits': a blob as tall as
+            // the digits is no such letter (two digits fused read as an m
+            // otherwise; seed 15208, case 23: "100 um" read "1mm").
+            let short_letter =
+                !matches!(m, Meaning::Digit(_) | Meaning::Separator) && tg.h_h < digit_h;
+            let height_ok = (h_h - tg.h_h).abs() <= tol
+                && (!short_letter || (h_h - tg.h_h).abs() < (h_h - digit_h).abs());
             if !(width_ok && height_ok) {
                 return (-1.0, false);
             }
