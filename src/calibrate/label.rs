@@ -657,12 +657,34 @@ fn classify(
         .max_by(|a, b| a.1 .0.total_cmp(&b.1 .0))
         .expect("templates are not empty");
     let (c, meaning, _) = &t.glyphs[bi];
-    let (other, other_c) = scores
+    let (mut other, mut other_c) = scores
         .iter()
         .zip(&t.glyphs)
         .filter(|(_, (_, m, _))| m != meaning)
         .map(|(s, (k, _, _))| (s.0, *k))
         .fold((-1.0, ' '), |a, b| if b.0 > a.0 { b } else { a });
+    if size_ok && other <= -1.0 {
+        // Its size admits no character of another meaning, so the margin
+        // would be over nothing and any match above MIN_MATCH would be
+        // near-certain. The runner-up is then the best of the other
+        // meanings' shapes, each stretched to its width as above: a blob
+        // that only its size makes an m (two digits fused) is then no more
+        // an m than a 0.
+        for ((_, m, tg), (k, _, _)) in t.glyphs.iter().zip(&t.glyphs) {
+            if m == meaning {
+                continue;
+            }
+            let g = sample(w_h / tg.w_h.max(1e-9));
+            let score = if ink_only {
+                zncc(&g[..half], &tg.grid[..half])
+            } else {
+                zncc(&g, &tg.grid)
+            };
+            if score > other {
+                (other, other_c) = (score, *k);
+            }
+        }
+    }
     GlyphRead {
         c: *c,
         meaning: *meaning,
