@@ -2,7 +2,9 @@
 //! scale-bar search and the calibration it gives. Beyond "no panic": a
 //! decoded image has the size it says, every grey level finite and in
 //! [0, 1]; a bar lies inside the image with a finite positive length; a
-//! calibration is a finite positive um/px with a finite uncertainty.
+//! calibration is a finite positive um/px with a finite uncertainty; the
+//! bar's label, when read, states a finite positive length with a
+//! confidence the reader accepts and a box inside the image.
 #![no_main]
 
 use armspace::calibrate::{self, scale_bar, BarLength, CalibrationRequest, CalibrationSource};
@@ -83,7 +85,27 @@ fuzz_target!(|data: &[u8]| {
         }),
         ..CalibrationRequest::default()
     };
-    match calibrate::resolve(&req, Some(&detected), metadata) {
+    // The label is read on every image a bar length is given for (to
+    // warn when it reads otherwise), so it must hold on any bytes.
+    let label = detected.as_ref().ok().map(|b| calibrate::label::read(img, b));
+    match &label {
+        Some(Ok(l)) => {
+            assert!(l.length_um.is_finite() && l.length_um > 0.0, "{l:?}");
+            assert!(
+                (calibrate::label::MIN_CONFIDENCE..=1.0).contains(&l.confidence),
+                "{l:?}"
+            );
+            let [x0, y0, x1, y1] = l.rect;
+            assert!(
+                x0 <= x1 && (x1 as usize) < w && y0 <= y1 && (y1 as usize) < h,
+                "{l:?}"
+            );
+            assert!(!l.text.is_empty());
+        }
+        Some(Err(m)) => assert!(!m.is_empty() && !m.contains("NaN"), "{m}"),
+        None => {}
+    }
+    match calibrate::resolve_with_label(&req, Some(&detected), label.as_ref(), metadata) {
         Ok((c, warnings)) => {
             let v = c.um_per_px.get();
             assert!(v.is_finite() && v > 0.0);

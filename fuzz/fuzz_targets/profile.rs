@@ -40,6 +40,7 @@ fuzz_target!(|data: &[u8]| {
                 manual_rel_uncertainty: None,
                 profile: Some(p.clone()),
                 scale_bar: None,
+                read_label: false,
                 trust,
             };
             let (c, warnings) = calibrate::resolve(&req, None, None).expect("two sources given");
