@@ -755,3 +755,33 @@ fn a_faint_first_digit_is_never_dropped_from_the_number() {
         }
     }
 }
+
+/// Writes the fuzzing seed with a labelled bar
+/// (`fuzz/seeds/decode_calibrate/labelled-bar.bmp`): the plain field of
+/// `plain_with_label` with "50 µm" 14 px high, its lower 270 rows (under
+/// the fuzz target's quarter megapixel), read right before it is written.
+#[test]
+#[ignore]
+fn write_fuzz_seed() {
+    let g = plain_with_label("50 µm", 14.0);
+    let top = g.height - 270;
+    let bytes: Vec<u8> = g.data[top * g.width..]
+        .iter()
+        .map(|v| (v.clamp(0.0, 1.0) * 255.0).round() as u8)
+        .collect();
+    let img = image::GrayImage::from_raw(g.width as u32, 270, bytes).unwrap();
+    let back = GrayImage::from_vec(
+        g.width,
+        270,
+        img.as_raw().iter().map(|&b| b as f32 / 255.0).collect(),
+    )
+    .unwrap();
+    let bar = detect(&back).expect("the bar");
+    let read = label::read(&back, &bar).expect("the label");
+    assert_eq!(read.length_um, 50.0);
+    let path = concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/fuzz/seeds/decode_calibrate/labelled-bar.bmp"
+    );
+    img.save(path).unwrap();
+}
