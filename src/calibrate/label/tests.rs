@@ -83,3 +83,38 @@ fn templates_read_themselves() {
         }
     }
 }
+
+/// The running maximum is the window-by-window maximum (the definition),
+/// on arbitrary coverages, sizes and half-widths, including windows wider
+/// than the image.
+#[test]
+fn max_filter_is_the_maximum_over_each_window() {
+    use proptest::prelude::*;
+    let naive = |v: &[f32], w: usize, h: usize, r: usize| -> Vec<f32> {
+        let mut out = vec![0.0f32; w * h];
+        for y in 0..h {
+            for x in 0..w {
+                let mut m = 0.0f32;
+                for yy in y.saturating_sub(r)..=(y + r).min(h - 1) {
+                    for xx in x.saturating_sub(r)..=(x + r).min(w - 1) {
+                        m = m.max(v[yy * w + xx]);
+                    }
+                }
+                out[y * w + x] = m;
+            }
+        }
+        out
+    };
+    proptest!(|(w in 1usize..20, h in 1usize..20, r in 0usize..25, seed in any::<u64>())| {
+        let mut s = seed | 1;
+        let v: Vec<f32> = (0..w * h)
+            .map(|_| {
+                s ^= s << 13;
+                s ^= s >> 7;
+                s ^= s << 17;
+                (s % 1000) as f32 / 999.0
+            })
+            .collect();
+        prop_assert_eq!(max_filter(&v, w, h, r), naive(&v, w, h, r));
+    });
+}
