@@ -19,12 +19,13 @@
 //! Sweep over fresh seeds (prints every case that was not read right):
 //! `ARMSPACE_LABEL_SEEDS=15201,15202 cargo test --release --features synth --test label_reading -- --ignored --nocapture sweep`
 
+mod common;
 use ab_glyph::{point, Font, FontRef, PxScale, ScaleFont};
-use armspace::blocks::blur::gaussian_blur;
 use armspace::calibrate::label;
 use armspace::calibrate::scale_bar::detect;
 use armspace::load::GrayImage;
 use armspace::synth::{render, Corner, FieldSpec, Morphology, Polarity, ScaleBarSpec, Style};
+use common::fields::{gray, mix, soften, u01};
 
 static DEJAVU: &[u8] = include_bytes!("../assets/fonts/DejaVuSans.ttf");
 
@@ -37,19 +38,6 @@ const SYSTEM_FACES: [&str; 6] = [
     "/usr/share/fonts/truetype/dejavu/DejaVuSansCondensed.ttf",
     "/usr/share/fonts/truetype/dejavu/DejaVuSans-Bold.ttf",
 ];
-
-fn mix(a: u64, b: u64) -> u64 {
-    let mut z = a
-        .wrapping_add(b.wrapping_mul(0x9E37_79B9_7F4A_7C15))
-        .wrapping_add(0x632B_E59B_D9B4_E019);
-    z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-    z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-    z ^ (z >> 31)
-}
-
-fn u01(seed: u64, i: u64, k: u64) -> f64 {
-    (mix(mix(seed, i), k) >> 11) as f64 / (1u64 << 53) as f64
-}
 
 /// The faces to draw with: (name, bytes); the bundled one always.
 fn faces() -> Vec<(String, Vec<u8>)> {
@@ -134,30 +122,6 @@ fn text_width(font_bytes: &[u8], text: &str, digit_px: f64) -> f64 {
     (b[2] - b[0] + 1) as f64
 }
 
-fn gray(img: &image::ImageBuffer<image::Luma<u16>, Vec<u16>>) -> GrayImage {
-    GrayImage::from_vec(
-        img.width() as usize,
-        img.height() as usize,
-        img.as_raw().iter().map(|v| *v as f32 / 65535.0).collect(),
-    )
-    .unwrap()
-}
-
-fn soften(g: &GrayImage, sigma: f64, sd: f64, seed: u64) -> GrayImage {
-    let mut data = if sigma > 0.0 {
-        gaussian_blur(&g.data, g.width, g.height, sigma)
-    } else {
-        g.data.clone()
-    };
-    for (k, v) in data.iter_mut().enumerate() {
-        let s: f64 = (0..4).map(|j| u01(seed, k as u64, j) - 0.5).sum::<f64>();
-        *v = (*v as f64 + sd * s * 3f64.sqrt()).clamp(0.0, 1.0) as f32;
-    }
-    GrayImage::from_vec(g.width, g.height, data).unwrap()
-}
-
-/// Lengths a scale bar is drawn for, um (the 1-2-5 series and 25, 250 as
-/// microscope software chooses them; common practice, no single source).
 const NICE_UM: [f64; 14] = [
     0.5, 1.0, 2.0, 5.0, 10.0, 20.0, 25.0, 50.0, 100.0, 200.0, 250.0, 500.0, 1000.0, 2000.0,
 ];

@@ -1,6 +1,8 @@
 //! Helpers shared by the integration tests.
 #![allow(dead_code)]
 
+pub mod fields;
+
 use std::path::{Path, PathBuf};
 use std::process::Command;
 
