@@ -393,29 +393,33 @@ fn sweep() {
     assert_eq!(wrong, 0);
 }
 
-/// Writes one case as an 8-bit PNG (`ARMSPACE_LABEL_DUMP=seed:case`).
-#[test]
-#[ignore]
-fn dump_case() {
-    let Ok(v) = std::env::var("ARMSPACE_LABEL_DUMP") else {
-        return;
-    };
+/// The case named by `ARMSPACE_LABEL_DUMP=seed:case`, if any.
+fn case_asked() -> Option<(u64, u64, Case)> {
+    let v = std::env::var("ARMSPACE_LABEL_DUMP").ok()?;
     let mut it = v.split(':').filter_map(|s| s.parse::<u64>().ok());
-    let (Some(seed), Some(i)) = (it.next(), it.next()) else {
-        return;
-    };
-    let c = case(seed, i, &faces()).expect("a case");
-    let bytes: Vec<u8> = c
-        .image
+    let (seed, i) = (it.next()?, it.next()?);
+    Some((seed, i, case(seed, i, &faces()).expect("a case")))
+}
+
+/// The image as 8-bit grey levels (rounded).
+fn to_8bit(g: &GrayImage) -> image::GrayImage {
+    let bytes: Vec<u8> = g
         .data
         .iter()
         .map(|v| (v.clamp(0.0, 1.0) * 255.0).round() as u8)
         .collect();
+    image::GrayImage::from_raw(g.width as u32, g.height as u32, bytes).unwrap()
+}
+
+/// Writes one case as an 8-bit PNG (`ARMSPACE_LABEL_DUMP=seed:case`).
+#[test]
+#[ignore]
+fn dump_case() {
+    let Some((seed, i, c)) = case_asked() else {
+        return;
+    };
     let path = format!("/tmp/label_{seed}_{i}.png");
-    image::GrayImage::from_raw(c.image.width as u32, c.image.height as u32, bytes)
-        .unwrap()
-        .save(&path)
-        .unwrap();
+    to_8bit(&c.image).save(&path).unwrap();
     eprintln!("{}: {path}", c.what);
 }
 
@@ -424,14 +428,9 @@ fn dump_case() {
 #[test]
 #[ignore]
 fn read_case() {
-    let Ok(v) = std::env::var("ARMSPACE_LABEL_DUMP") else {
+    let Some((_, _, c)) = case_asked() else {
         return;
     };
-    let mut it = v.split(':').filter_map(|s| s.parse::<u64>().ok());
-    let (Some(seed), Some(i)) = (it.next(), it.next()) else {
-        return;
-    };
-    let c = case(seed, i, &faces()).expect("a case");
     let bar = detect(&c.image);
     eprintln!("{}: bar {bar:?}", c.what);
     if let Ok(b) = bar {
@@ -514,12 +513,7 @@ fn debug_plain() {
     let g = plain_with_label(&text, h);
     let bar = detect(&g).expect("the bar");
     eprintln!("{:?}", label::read(&g, &bar));
-    let bytes: Vec<u8> = g
-        .data
-        .iter()
-        .map(|v| (v.clamp(0.0, 1.0) * 255.0).round() as u8)
-        .collect();
-    let img = image::GrayImage::from_raw(g.width as u32, g.height as u32, bytes).unwrap();
+    let img = to_8bit(&g);
     let c = image::imageops::crop_imm(&img, 200, 295, 100, 40).to_image();
     image::imageops::resize(&c, 800, 320, image::imageops::FilterType::Nearest)
         .save("/tmp/plain.png")
@@ -610,15 +604,7 @@ fn write_labelled(path: &std::path::Path, len: usize, text: &str) {
     let tw = text_width(DEJAVU, text, 18.0);
     let cx = x0 as f64 + len as f64 / 2.0;
     draw_ttf(&mut g, DEJAVU, text, cx - tw / 2.0, 430.0, 18.0, 0.0);
-    let bytes: Vec<u8> = g
-        .data
-        .iter()
-        .map(|v| (v.clamp(0.0, 1.0) * 255.0).round() as u8)
-        .collect();
-    image::GrayImage::from_raw(w as u32, h as u32, bytes)
-        .unwrap()
-        .save(path)
-        .unwrap();
+    to_8bit(&g).save(path).unwrap();
 }
 
 fn run_armspace(args: &[&str]) -> (i32, String, String) {
@@ -729,11 +715,8 @@ fn a_faint_first_digit_is_never_dropped_from_the_number() {
 fn write_fuzz_seed() {
     let g = plain_with_label("50 µm", 14.0);
     let top = g.height - 270;
-    let bytes: Vec<u8> = g.data[top * g.width..]
-        .iter()
-        .map(|v| (v.clamp(0.0, 1.0) * 255.0).round() as u8)
-        .collect();
-    let img = image::GrayImage::from_raw(g.width as u32, 270, bytes).unwrap();
+    let img =
+        image::imageops::crop_imm(&to_8bit(&g), 0, top as u32, g.width as u32, 270).to_image();
     let back = GrayImage::from_vec(
         g.width,
         270,
