@@ -4,6 +4,7 @@
 pub mod blur;
 pub mod centres;
 pub mod components;
+pub mod fixed_point;
 pub mod orientation;
 pub mod point_pattern;
 pub mod select;

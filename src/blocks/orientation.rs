@@ -6,6 +6,7 @@
 //! serves any method or analysis that needs the arms' direction.
 
 use crate::blocks::blur::{box_widths, gaussian_blur_in_place};
+use crate::blocks::fixed_point::Fixed16;
 
 /// Smoothed structure tensor components (Jxx, Jxy, Jyy), on a grid of
 /// pitch `d` pixels: every pixel when `d` is 1, else the means of d x d
@@ -29,7 +30,7 @@ pub struct Tensor {
 pub struct GradientProducts<'a> {
     pub w: usize,
     pub h: usize,
-    pub data: &'a [f32],
+    pub data: &'a Fixed16,
     pub mask: Option<&'a [bool]>,
     /// Rows with a masked pixel (the stencil of row y reads rows y - 1 to
     /// y + 1; rows clear of the mask skip the per-pixel lookups).
@@ -39,7 +40,7 @@ pub struct GradientProducts<'a> {
 impl<'a> GradientProducts<'a> {
     /// Central-difference gradients of `data`; pixels whose stencil touches
     /// the mask or the border contribute nothing.
-    pub fn new(data: &'a [f32], mask: Option<&'a [bool]>, w: usize, h: usize) -> Self {
+    pub fn new(data: &'a Fixed16, mask: Option<&'a [bool]>, w: usize, h: usize) -> Self {
         let masked_rows = match mask {
             Some(m) => m.chunks(w.max(1)).map(|r| r.iter().any(|&v| v)).collect(),
             None => vec![false; h],
@@ -71,8 +72,8 @@ impl<'a> GradientProducts<'a> {
                     continue;
                 }
             }
-            let gx = 0.5 * (data[i + 1] - data[i - 1]);
-            let gy = 0.5 * (data[i + w] - data[i - w]);
+            let gx = 0.5 * (data.at(i + 1) - data.at(i - 1));
+            let gy = 0.5 * (data.at(i + w) - data.at(i - w));
             xx[x] = gx * gx;
             xy[x] = gx * gy;
             yy[x] = gy * gy;

@@ -224,13 +224,17 @@ pub fn measure(img: &Prepared, params: &CentresParams) -> CentresOutcome {
     let Some(seg) = segment(img, &params.segment) else {
         return CentresOutcome::none("no arm centres: the image does not separate into two phases");
     };
-    // Only the phase indicator is used here: the smoothed values are let go
-    // at once (a float per pixel).
+    // Only the phase indicator is used here: the smoothed values (a float
+    // per pixel) are let go at once. A field left to `..` would stay in the
+    // partly moved `seg` until the end of this function, beside the
+    // distance transform.
     let Segmentation {
         foreground: mut phase,
         inverted,
+        smoothed,
         ..
     } = seg;
+    drop(smoothed);
     let mut best: Option<CentresOutcome> = None;
     // The segmentation's foreground first (the darker phase when inverted),
     // then the other phase, computed in place over it: unmasked pixels not

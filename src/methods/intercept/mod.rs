@@ -86,6 +86,7 @@ mod lines;
 mod runs;
 
 use crate::blocks::blur::gaussian_blur_indicator_in_place;
+use crate::blocks::fixed_point::Fixed16;
 use crate::blocks::orientation::{GradientProducts, Tensor};
 use crate::blocks::select::median_by_selection;
 use crate::preprocess::Prepared;
@@ -362,7 +363,7 @@ pub fn measure(img: &Prepared, params: &InterceptParams) -> InterceptOutcome {
     };
     let mut scratch = LayScratch {
         tensor: Tensor::empty(),
-        occupied: Vec::new(),
+        occupied: fixedbitset::FixedBitSet::new(),
     };
     let mut best: Option<(f64, f64, Vec<Traced>)> = None;
     let mut fallback: Vec<Traced> = Vec::new();
@@ -511,7 +512,7 @@ fn arm_line_fraction(field: &PhaseField, segments: &[Segment]) -> Option<f64> {
         };
         for k in 0..n {
             let s = k as f64 * step;
-            let v = bilinear(&field.v, field.w, field.h, a.0 + s * ux, a.1 + s * uy);
+            let v = field.v.bilinear(a.0 + s * ux, a.1 + s * uy);
             fg += (v > 0.5) as usize;
         }
         total += n;
@@ -625,19 +626,17 @@ fn axial_diff(a: f64, b: f64) -> f64 {
 pub(crate) struct PhaseField {
     pub(crate) w: usize,
     pub(crate) h: usize,
-    pub(crate) v: Vec<f32>,
-    pub(crate) grey: Vec<f32>,
+    pub(crate) v: Fixed16,
+    pub(crate) grey: Fixed16,
     pub(crate) neck_depth: f32,
 }
 
+/// Both arrays are held as 16-bit fixed point ([`Fixed16`]: within 7.6e-6
+/// of their range of the floats, far below the image's noise), and each
+/// float array is freed as soon as its copy is made, so that the method
+/// holds at most one whole float array beside the prepared image.
 fn phase_field(seg: Segmentation, sigma: f64) -> PhaseField {
-    let mut ind: Vec<f32> = seg
-        .foreground
-        .iter()
-        .map(|&f| if f { 1.0 } else { 0.0 })
-        .collect();
     let (w, h) = (seg.width, seg.height);
-    gaussian_blur_indicator_in_place(&mut ind, w, h, sigma.max(0.5));
     let sign = if seg.inverted { -1.0f32 } else { 1.0 };
     // The segmentation's smoothed values, taken over (not copied).
     let mut grey = seg.smoothed;
@@ -651,10 +650,18 @@ fn phase_field(seg: Segmentation, sigma: f64) -> PhaseField {
         .collect();
     // No arm pixel at all: the level is the image's floor (0), as before.
     let level = median_by_selection(&arm).unwrap_or(0.0) as f32;
+    let grey = Fixed16::from_f32(grey, w, h);
+    let mut ind: Vec<f32> = seg
+        .foreground
+        .iter()
+        .map(|&f| if f { 1.0 } else { 0.0 })
+        .collect();
+    drop(seg.foreground);
+    gaussian_blur_indicator_in_place(&mut ind, w, h, sigma.max(0.5));
     PhaseField {
-        w: seg.width,
-        h: seg.height,
-        v: ind,
+        w,
+        h,
+        v: Fixed16::from_f32(ind, w, h),
         grey,
         neck_depth: 0.5 * (level - sign * seg.threshold).max(0.0),
     }

@@ -422,7 +422,6 @@ pub(crate) fn sample_line(
     b: (f64, f64),
     p: &InterceptParams,
 ) -> Option<Profile> {
-    let (w, h) = (seg.w, seg.h);
     let len = (b.0 - a.0).hypot(b.1 - a.1);
     // Half-pixel steps: the sampling is finer than the 1 px pre-smoothing,
     // so no boundary is skipped.
@@ -435,13 +434,13 @@ pub(crate) fn sample_line(
     let values: Vec<f32> = (0..n)
         .map(|k| {
             let s = k as f64 * step;
-            bilinear(&seg.v, w, h, a.0 + s * ux, a.1 + s * uy)
+            seg.v.bilinear(a.0 + s * ux, a.1 + s * uy)
         })
         .collect();
     let grey: Vec<f32> = (0..n)
         .map(|k| {
             let s = k as f64 * step;
-            bilinear(&seg.grey, w, h, a.0 + s * ux, a.1 + s * uy)
+            seg.grey.bilinear(a.0 + s * ux, a.1 + s * uy)
         })
         .collect();
     let mut runs = runs_of_profile(&values, step, 0.5, false);
