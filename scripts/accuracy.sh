@@ -15,6 +15,8 @@
 #
 # Defaults: COUNT=8, STYLES="cut dense lace binary featureless".
 # Set KEEP=1 to keep the temporary folder (its path is printed).
+# Set ARMSPACE_BIN=PATH to measure with another build of armspace (the sets
+# are still drawn and scored by this tree's): a before/after comparison.
 set -euo pipefail
 
 count=8
@@ -36,7 +38,10 @@ root=$(cd "$(dirname "$0")/.." && pwd)
 cd "$root"
 cargo build --release --locked --features synth --bin armspace --example accuracy_eval >&2
 target=${CARGO_TARGET_DIR:-$root/target}
-bin=$target/release/armspace
+# ARMSPACE_BIN measures with another build (for a before/after comparison
+# on the same sets); the sets are drawn and scored by this tree's build.
+gen_bin=$target/release/armspace
+bin=${ARMSPACE_BIN:-$gen_bin}
 eval_bin=$target/release/examples/accuracy_eval
 
 work=$(mktemp -d "${TMPDIR:-/tmp}/armspace-accuracy.XXXXXX")
@@ -50,7 +55,7 @@ dirs=()
 for style in $styles; do
     for seed in "$@"; do
         dir=$work/$style-$seed
-        "$bin" synth "$dir" --seed "$seed" --count "$count" --style "$style" >&2
+        "$gen_bin" synth "$dir" --seed "$seed" --count "$count" --style "$style" >&2
         mkdir -p "$dir/reports"
         while IFS=$'\t' read -r file um; do
             # exit status 2 (no value) is a result here, not a failure

@@ -10,6 +10,8 @@
 # an 8000 x 8000 8-bit PNG; python3 with numpy and pillow joins them):
 #   coarse: columnar, etched, sdas 24 px, primary 150 px, seeds 6401 + 6402
 #   fine:   columnar, etched, sdas 7 px, primary 60 px, seeds 6411 + 6412
+#   finest: columnar, etched, sdas 4.5 px, primary 30 px, seeds 6421 + 6422
+#           (a structure-tensor window under 8 px at the scales tried)
 #   flat:   20000 x 20000 PNG, black with a grey line every 97 rows (~0.4 MB)
 #   forged: the coarse field's size claimed by a 64 x 64 JPEG's header
 # Needs /usr/bin/time (apt-get install time). Uses about 2 GB at most.
@@ -31,6 +33,7 @@ Image.fromarray(np.vstack([a, b])).save('$name.png')"
 }
 field coarse 24.0 150.0 6401 6402
 field fine 7.0 60.0 6411 6412
+field finest 4.5 30.0 6421 6422
 [ -f flat.png ] || python3 -c "
 from PIL import Image
 import numpy as np
@@ -52,6 +55,7 @@ peak() { # label args...
 echo "label                        peak RSS      wall time"
 peak coarse-64MP coarse.png
 peak fine-64MP fine.png
+peak finest-64MP finest.png
 peak coarse-64MP-overlay coarse.png --overlay "$work/overlays"
 peak flat-400MP-PNG flat.png
 peak forged-JPEG forged.jpg

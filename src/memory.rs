@@ -8,21 +8,24 @@
 //! numbers in DEVELOPERS.md): while the methods run, the prepared image
 //! (4 bytes a pixel) is held with what the method in progress needs; the
 //! most is the intercept method's when its structure tensor is smoothed at
-//! every pixel (windows under 8 px): the phase field and the smoothed grey
-//! values (4 + 4), the lines' occupancy (1) and the three smoothed tensor
-//! components (12), 25 bytes a pixel with the prepared image. Coarser
-//! fields need less (about 14 to 18 bytes a pixel measured at 64
-//! megapixels). While loading, the file's bytes, the decoder's samples and
-//! the grey floats are held together.
+//! every pixel (windows under 4 px, arms finer than about 4 px): the phase
+//! field and the smoothed grey values as 16-bit fixed point (2 + 2), the
+//! lines' occupancy (a bit) and the three smoothed tensor components (12),
+//! 20.1 bytes a pixel with the prepared image, 21 rounded up. Wider windows
+//! put the tensor on a grid of at least 2 px (3 bytes a pixel or less);
+//! fields measured at 64 megapixels peak at 13 to 14 bytes a pixel of
+//! resident memory, the program and its allocator included. While loading,
+//! the file's bytes, the decoder's samples and the grey floats are held
+//! together.
 
 use std::sync::{Condvar, Mutex};
 use std::time::Duration;
 
 /// Bytes a pixel the measurement holds at its peak (see the module docs:
-/// 25 at the intercept method's finest tensor, plus the overlay's grey
+/// 21 at the intercept method's finest tensor, plus the overlay's grey
 /// level, a byte a pixel, kept while the methods run when pictures are
 /// asked for).
-pub const MEASURE_BYTES_PER_PX: u64 = 26;
+pub const MEASURE_BYTES_PER_PX: u64 = 22;
 
 /// Memory of the run that does not grow with the image: the program,
 /// thread stacks, FFT plans and tiles, the report's entries.
@@ -222,7 +225,7 @@ mod tests {
 
     #[test]
     fn estimate_is_the_larger_stage() {
-        // 8000 x 8000 grey 8-bit PNG of 46 MB: measuring (26 B/px) exceeds
+        // 8000 x 8000 grey 8-bit PNG of 46 MB: measuring (22 B/px) exceeds
         // loading (46 MB + 6 B/px).
         let h = Header {
             width: 8000,
@@ -230,7 +233,7 @@ mod tests {
             decoded_bytes_per_px: 1,
             file_bytes: 46_000_000,
         };
-        assert_eq!(estimate_peak(&h), FIXED_BYTES + 64_000_000 * 26);
+        assert_eq!(estimate_peak(&h), FIXED_BYTES + 64_000_000 * 22);
         // A 64-bit float RGB TIFF: loading (52 B/px) is the larger.
         let f = Header {
             decoded_bytes_per_px: 24,
