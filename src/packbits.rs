@@ -94,7 +94,13 @@ pub fn check_tiff(bytes: &[u8]) -> Result<(), String> {
         .and_then(|v| v.first().copied())
         .unwrap_or(1);
     let per_pixel = if planar == 2 { 1 } else { spp };
-    let row_bytes = |w: u64| (w * per_pixel * bps).div_ceil(8);
+    // Sizes from the tags, which the tiff crate takes up to 2^32 - 1
+    // whatever the image's size: products checked (a block that cannot be
+    // decoded to its size is refused below).
+    let row_bytes =
+        |w: u64| -> Option<u64> { Some(w.checked_mul(per_pixel)?.checked_mul(bps)?.div_ceil(8)) };
+    let too_large =
+        || "a PackBits tile or strip size in the tags is larger than any file can hold".to_string();
     // (compressed offset, compressed length, decoded length) of each block.
     let mut blocks: Vec<(u64, u64, u64)> = Vec::new();
     if let (Some(offs), Some(counts)) = (tag_u64(Tag::TileOffsets), tag_u64(Tag::TileByteCounts)) {
@@ -105,11 +111,10 @@ pub fn check_tiff(bytes: &[u8]) -> Result<(), String> {
             return Ok(());
         };
         // Every tile holds a whole tile's rows, also at the image's edges.
-        blocks.extend(
-            offs.iter()
-                .zip(&counts)
-                .map(|(&o, &c)| (o, c, tl * row_bytes(tw))),
-        );
+        let tile = row_bytes(tw)
+            .and_then(|r| r.checked_mul(tl))
+            .ok_or_else(too_large)?;
+        blocks.extend(offs.iter().zip(&counts).map(|(&o, &c)| (o, c, tile)));
     } else if let (Some(offs), Some(counts)) =
         (tag_u64(Tag::StripOffsets), tag_u64(Tag::StripByteCounts))
     {
@@ -121,7 +126,10 @@ pub fn check_tiff(bytes: &[u8]) -> Result<(), String> {
         for (k, (&o, &c)) in offs.iter().zip(&counts).enumerate() {
             let first_row = (k as u64 % strips_per_plane) * rps;
             let rows = rps.min(height.saturating_sub(first_row));
-            blocks.push((o, c, rows * row_bytes(width)));
+            let strip = row_bytes(width)
+                .and_then(|r| r.checked_mul(rows))
+                .ok_or_else(too_large)?;
+            blocks.push((o, c, strip));
         }
     } else {
         return Ok(());
@@ -179,5 +187,60 @@ mod tests {
         let mut bad = packed;
         bad[2] = 0x05;
         assert!(decoded_length(&bad, 24).is_err());
+    }
+}
+
+#[cfg(test)]
+mod tile_size_tests {
+    use super::check_tiff;
+
+    /// A little-endian TIFF of one 64 x 64 page of `spp` 8-bit samples a
+    /// pixel, PackBits-compressed, whose tile tags claim `tile` px a side
+    /// (TIFF 6.0 allows LONG tile sizes; the tiff crate takes them whatever
+    /// the image's size).
+    fn tiff_with_tiles(tile: u32, spp: u32) -> Vec<u8> {
+        let entries: [(u16, u16, u32, u32); 10] = [
+            (256, 4, 1, 64),                           // ImageWidth
+            (257, 4, 1, 64),                           // ImageLength
+            (258, 3, 1, 8),                            // BitsPerSample
+            (259, 3, 1, 32773),                        // Compression: PackBits
+            (262, 3, 1, if spp == 3 { 2 } else { 1 }), // Photometric
+            (277, 3, 1, spp),                          // SamplesPerPixel
+            (322, 4, 1, tile),                         // TileWidth
+            (323, 4, 1, tile),                         // TileLength
+            (324, 4, 1, 200),                          // TileOffsets
+            (325, 4, 1, 2),                            // TileByteCounts
+        ];
+        let mut b = vec![b'I', b'I', 42, 0, 8, 0, 0, 0];
+        b.extend_from_slice(&(entries.len() as u16).to_le_bytes());
+        for (tag, ty, n, v) in entries {
+            b.extend_from_slice(&tag.to_le_bytes());
+            b.extend_from_slice(&ty.to_le_bytes());
+            b.extend_from_slice(&n.to_le_bytes());
+            if ty == 3 {
+                b.extend_from_slice(&(v as u16).to_le_bytes());
+                b.extend_from_slice(&[0, 0]);
+            } else {
+                b.extend_from_slice(&v.to_le_bytes());
+            }
+        }
+        b.extend_from_slice(&[0, 0, 0, 0]);
+        b.resize(200, 0);
+        // One literal byte run: the start of a tile's data.
+        b.extend_from_slice(&[0x00, 0x10]);
+        b
+    }
+
+    #[test]
+    fn absurd_tile_sizes_are_an_error_not_an_overflow() {
+        // (2^32 - 1)^2 px of 3 bytes overflows 64 bits.
+        let e = check_tiff(&tiff_with_tiles(u32::MAX, 3)).unwrap_err();
+        assert!(e.contains("larger than any file can hold"), "{e}");
+        // One sample a pixel fits in 64 bits: the data is then too short.
+        let e = check_tiff(&tiff_with_tiles(u32::MAX, 1)).unwrap_err();
+        assert!(e.contains("ends after"), "{e}");
+        // A plain 64 px tile of 2 compressed bytes is short: refused.
+        let e = check_tiff(&tiff_with_tiles(64, 1)).unwrap_err();
+        assert!(e.contains("ends after"), "{e}");
     }
 }

@@ -1150,6 +1150,16 @@ pub fn along(
         ));
         return p;
     }
+    // A bin narrower than a pixel holds no local measurement of its own
+    // (every local spacing spans two pixels or more), and a tiny bin would
+    // ask for a number of bins without bound.
+    let px_um = cal.to_um(Pixels(1.0)).0;
+    if bin.is_nan() || bin < px_um {
+        p.reason = Some(format!(
+            "the bin ({bin:.3e} um) is narrower than a pixel ({px_um:.3e} um): no local measurement is that narrow; give a bin of a pixel or more"
+        ));
+        return p;
+    }
     let u = [(b[0] - a[0]) / len, (b[1] - a[1]) / len];
     let n = (len / bin).round().max(1.0) as usize;
     let step = len / n as f64;

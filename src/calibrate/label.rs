@@ -45,6 +45,15 @@
 //! The label's confidence is that of its least certain glyph; under
 //! [`MIN_CONFIDENCE`] the image has no reading.
 
+/// A line of the `ARMSPACE_LABEL_DEBUG` trace on stderr; a closed or full
+/// stderr loses the line, never the run (`eprintln!` would panic).
+macro_rules! dbg_line {
+    ($($t:tt)*) => {{
+        use std::io::Write as _;
+        let _ = writeln!(std::io::stderr(), $($t)*);
+    }};
+}
+
 use super::scale_bar::{Polarity, ScaleBar};
 use crate::blocks::components::label_runs;
 use crate::load::GrayImage;
@@ -1292,9 +1301,9 @@ fn read_glyphs(
     };
     let whole = show(0..n);
     if std::env::var_os("ARMSPACE_LABEL_DEBUG").is_some() {
-        eprintln!("line {:?} h {hh:.1} '{whole}'", line.rect);
+        dbg_line!("line {:?} h {hh:.1} '{whole}'", line.rect);
         for ((g, c), comp) in reads.iter().zip(glyphs) {
-            eprintln!(
+            dbg_line!(
                 "  {} best {:.3} other {:.3} ({}) size {} conf {:.2} box {}x{}",
                 g.c,
                 g.best,
@@ -1430,7 +1439,7 @@ pub fn read(img: &GrayImage, bar: &ScaleBar) -> Result<Label, String> {
             })
             .collect();
         if std::env::var_os("ARMSPACE_LABEL_DEBUG").is_some() {
-            eprintln!(
+            dbg_line!(
                 "cut {cut:.3} (ink {ink:.3}, surround {surround:.3}): {} components",
                 comps.len()
             );
@@ -1438,7 +1447,7 @@ pub fn read(img: &GrayImage, bar: &ScaleBar) -> Result<Label, String> {
                 .iter()
                 .filter(|c| c.y0 > y1 && c.y0 < y1 + 40 && c.x0 >= x0 && c.x1 <= x1)
             {
-                eprintln!("  comp {}..{} x {}..{}", c.x0, c.x1, c.y0, c.y1);
+                dbg_line!("  comp {}..{} x {}..{}", c.x0, c.x1, c.y0, c.y1);
             }
         }
         let span = ink - surround;

@@ -70,10 +70,12 @@ impl Part {
 /// How many of `total` images, taken in input order, fall to part `index`
 /// (1-based) of `count`: image i goes to part i mod count + 1.
 pub fn images_of_part(total: usize, index: usize, count: usize) -> usize {
-    if index == 0 || index > count {
+    if index == 0 || index > count || total < index {
         return 0;
     }
-    (total + count - index) / count
+    // Images index - 1, index - 1 + count, ... below total (no sum that
+    // could overflow on a count or total read from a report).
+    (total - index) / count + 1
 }
 
 /// Whether image `i` (0-based, in the batch's input order, files passed
@@ -95,7 +97,9 @@ pub fn merge(parts: Vec<(String, Part)>, created_utc: String) -> Result<Report, 
     };
     let head = shard_of(first_name, first)?;
     let reference = comparable(&first.parameters)?;
-    let mut slots: Vec<Option<usize>> = vec![None; head.count];
+    // Part index -> position in `parts`. A map, not a vector of `count`
+    // slots: the count is read from a report and may be absurd.
+    let mut slots: std::collections::BTreeMap<usize, usize> = std::collections::BTreeMap::new();
     for (k, (name, p)) in parts.iter().enumerate() {
         let s = shard_of(name, p)?;
         if s.count != head.count || s.batch_images != head.batch_images {
@@ -115,10 +119,13 @@ pub fn merge(parts: Vec<(String, Part)>, created_utc: String) -> Result<Report, 
                 s.index, s.count
             ));
         }
-        let slot = slots
-            .get_mut(s.index.wrapping_sub(1))
-            .ok_or_else(|| format!("{name}: part {}/{} does not exist", s.index, s.count))?;
-        if let Some(other) = slot.replace(k) {
+        if s.index == 0 || s.index > s.count {
+            return Err(format!(
+                "{name}: part {}/{} does not exist",
+                s.index, s.count
+            ));
+        }
+        if let Some(other) = slots.insert(s.index, k) {
             return Err(format!(
                 "{name} and {} are both part {}/{}",
                 parts[other].0, s.index, s.count
@@ -135,22 +142,28 @@ pub fn merge(parts: Vec<(String, Part)>, created_utc: String) -> Result<Report, 
             ));
         }
     }
-    let missing: Vec<String> = slots
-        .iter()
-        .enumerate()
-        .filter(|(_, s)| s.is_none())
-        .map(|(i, _)| format!("{}/{}", i + 1, head.count))
-        .collect();
-    if !missing.is_empty() {
+    if slots.len() < head.count {
+        // The first twenty missing parts named (a count read from a report
+        // may be absurd; the list stays short).
+        let missing: Vec<String> = (1..=head.count)
+            .filter(|i| !slots.contains_key(i))
+            .take(20)
+            .map(|i| format!("{i}/{}", head.count))
+            .collect();
+        let more = if head.count - slots.len() > missing.len() {
+            format!(" and {} more", head.count - slots.len() - missing.len())
+        } else {
+            String::new()
+        };
         return Err(format!(
-            "part(s) {} missing: every part of the batch is needed",
+            "part(s) {}{more} missing: every part of the batch is needed",
             missing.join(", ")
         ));
     }
     // In part order, then interleaved back into the batch's input order.
-    let mut ordered: Vec<Part> = Vec::with_capacity(head.count);
+    let mut ordered: Vec<Part> = Vec::with_capacity(parts.len());
     let mut by_index: Vec<Option<Part>> = parts.into_iter().map(|(_, p)| Some(p)).collect();
-    for k in slots.into_iter().flatten() {
+    for k in slots.into_values() {
         if let Some(p) = by_index[k].take() {
             ordered.push(p);
         }

@@ -921,10 +921,14 @@ pub fn outcome(report: &Report) -> Outcome {
 /// Current time as RFC 3339 UTC, or the time given by the SOURCE_DATE_EPOCH
 /// environment variable (reproducible builds convention) when it is set.
 pub fn now_utc() -> String {
+    // RFC 3339 has four-digit years: 253402300799 is 9999-12-31T23:59:59Z.
+    // A value past it, or one the clock cannot add, is ignored like one
+    // that does not parse.
     let t = std::env::var("SOURCE_DATE_EPOCH")
         .ok()
         .and_then(|s| s.trim().parse::<u64>().ok())
-        .map(|s| std::time::UNIX_EPOCH + std::time::Duration::from_secs(s))
+        .filter(|&s| s <= 253_402_300_799)
+        .and_then(|s| std::time::UNIX_EPOCH.checked_add(std::time::Duration::from_secs(s)))
         .unwrap_or_else(std::time::SystemTime::now);
     humantime::format_rfc3339_seconds(t).to_string()
 }
