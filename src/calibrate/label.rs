@@ -697,6 +697,9 @@ fn classify(
         .iter()
         .enumerate()
         .max_by(|a, b| a.1 .0.total_cmp(&b.1 .0))
+        // `Templates::at` holds one template for each of CHARS (a constant,
+        // non-empty list) or gives no templates at all: never empty here,
+        // whatever the image.
         .expect("templates are not empty");
     let (c, meaning, _) = &t.glyphs[bi];
     let (mut other, mut other_c) = scores
@@ -1485,7 +1488,11 @@ pub fn read(img: &GrayImage, bar: &ScaleBar) -> Result<Label, String> {
             },
         );
     };
-    let length = *best.result.as_ref().expect("a reading");
+    // `readings` holds only the attempts whose result is Ok.
+    let length = match &best.result {
+        Ok(v) => *v,
+        Err(e) => return Err(e.clone()),
+    };
     if let Some(other) = readings.iter().find(|a| {
         a.result
             .as_ref()
