@@ -196,13 +196,102 @@ pub fn open_image(path: &Path) -> Result<std::io::BufReader<std::fs::File>> {
     }
 }
 
-/// The memory available to new programs, bytes: `MemAvailable` of
-/// /proc/meminfo (Linux); `None` elsewhere or when it cannot be read.
+/// The memory available to this process, bytes (Linux): the least of
+/// `MemAvailable` of /proc/meminfo, what its control group's memory limit
+/// leaves (a container's limit: the machine's free memory is not the
+/// container's), and what its address-space limit leaves (`ulimit -v`);
+/// `None` elsewhere or when none can be read.
 pub fn available_memory() -> Option<u64> {
-    let text = std::fs::read_to_string("/proc/meminfo").ok()?;
-    let line = text.lines().find(|l| l.starts_with("MemAvailable:"))?;
-    let kib: u64 = line.split_whitespace().nth(1)?.parse().ok()?;
-    kib.checked_mul(1024)
+    let read = |p: &str| std::fs::read_to_string(p).ok();
+    let meminfo = read("/proc/meminfo").and_then(|t| {
+        let line = t
+            .lines()
+            .find(|l| l.starts_with("MemAvailable:"))?
+            .to_owned();
+        let kib: u64 = line.split_whitespace().nth(1)?.parse().ok()?;
+        kib.checked_mul(1024)
+    });
+    let cgroup = read("/proc/self/cgroup")
+        .and_then(|t| cgroup_room(&t, &|p: &str| read(p).map(|s| s.trim().to_owned())));
+    let address_space = read("/proc/self/limits").and_then(|limits| {
+        let status = read("/proc/self/status")?;
+        address_space_room(&limits, &status)
+    });
+    [meminfo, cgroup, address_space].into_iter().flatten().min()
+}
+
+/// What the control group's memory limit leaves (limit less usage), from
+/// /proc/self/cgroup's text; `read` gives a file's trimmed text. cgroup v2
+/// (`0::/PATH`: memory.max, memory.current) or v1 (`N:memory:/PATH`:
+/// memory.limit_in_bytes, memory.usage_in_bytes), under /sys/fs/cgroup; a
+/// container often sees its own group at the root of the mount, so the
+/// root is tried when the path is not there. `None` without a limit ("max",
+/// or v1's largest page-rounded value).
+fn cgroup_room(cgroup: &str, read: &dyn Fn(&str) -> Option<String>) -> Option<u64> {
+    // v1 writes "no limit" as the largest multiple of the page size; any
+    // limit beyond an exbibyte is no limit.
+    const NO_LIMIT: u64 = 1 << 60;
+    for line in cgroup.lines() {
+        let mut parts = line.splitn(3, ':');
+        let (Some(id), Some(controllers), Some(path)) = (parts.next(), parts.next(), parts.next())
+        else {
+            continue;
+        };
+        let (dir, limit_file, usage_file) = if id == "0" && controllers.is_empty() {
+            ("/sys/fs/cgroup", "memory.max", "memory.current")
+        } else if controllers.split(',').any(|c| c == "memory") {
+            (
+                "/sys/fs/cgroup/memory",
+                "memory.limit_in_bytes",
+                "memory.usage_in_bytes",
+            )
+        } else {
+            continue;
+        };
+        let path = path.trim_end_matches('/');
+        for base in [format!("{dir}{path}"), dir.to_owned()] {
+            let Some(limit) = read(&format!("{base}/{limit_file}")) else {
+                continue;
+            };
+            let Ok(limit) = limit.parse::<u64>() else {
+                return None; // "max": no limit
+            };
+            if limit >= NO_LIMIT {
+                return None;
+            }
+            let usage = read(&format!("{base}/{usage_file}"))
+                .and_then(|u| u.parse::<u64>().ok())
+                .unwrap_or(0);
+            return Some(limit.saturating_sub(usage));
+        }
+    }
+    None
+}
+
+/// What the address-space limit (`Max address space` of /proc/self/limits,
+/// the soft one) leaves beside the process's size (`VmSize` of
+/// /proc/self/status); `None` when unlimited or unreadable. Address space
+/// is more than resident memory (thread stacks and allocator arenas are
+/// reserved whole), so this is a bound the process meets before its
+/// resident memory does.
+fn address_space_room(limits: &str, status: &str) -> Option<u64> {
+    let line = limits
+        .lines()
+        .find(|l| l.starts_with("Max address space"))?;
+    let soft: u64 = line
+        .trim_start_matches("Max address space")
+        .split_whitespace()
+        .next()?
+        .parse()
+        .ok()?; // "unlimited" does not parse
+    let size_kib: u64 = status
+        .lines()
+        .find(|l| l.starts_with("VmSize:"))?
+        .split_whitespace()
+        .nth(1)?
+        .parse()
+        .ok()?;
+    Some(soft.saturating_sub(size_kib.saturating_mul(1024)))
 }
 
 /// The file an output path will land on, links resolved: the canonical path
@@ -443,6 +532,61 @@ fn own_jpeg_bytes(head: &[u8]) -> bool {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    // The file formats are the kernel's: proc(5) for /proc/self/cgroup,
+    // limits and status; Documentation/admin-guide/cgroup-v2.rst
+    // (memory.max "max" or bytes, memory.current) and cgroup-v1/memory.rst
+    // (memory.limit_in_bytes, memory.usage_in_bytes; no limit is the
+    // largest page multiple, 9223372036854771712 with 4 KiB pages).
+    #[test]
+    fn a_control_groups_memory_limit_bounds_the_room() {
+        let files = |entries: &'static [(&'static str, &'static str)]| {
+            move |p: &str| {
+                entries
+                    .iter()
+                    .find(|(k, _)| *k == p)
+                    .map(|(_, v)| v.to_string())
+            }
+        };
+        // v2, the group's own folder.
+        let v2 = files(&[
+            ("/sys/fs/cgroup/job/memory.max", "1073741824"),
+            ("/sys/fs/cgroup/job/memory.current", "73741824"),
+        ]);
+        assert_eq!(cgroup_room("0::/job\n", &v2), Some(1_000_000_000));
+        // v2 without a limit.
+        let v2max = files(&[("/sys/fs/cgroup/memory.max", "max")]);
+        assert_eq!(cgroup_room("0::/\n", &v2max), None);
+        // v1, the group seen at the mount's root inside a container.
+        let v1 = files(&[
+            ("/sys/fs/cgroup/memory/memory.limit_in_bytes", "2147483648"),
+            ("/sys/fs/cgroup/memory/memory.usage_in_bytes", "147483648"),
+        ]);
+        let text = "9:name=systemd:/\n4:memory:/docker/abc\n0::/\n";
+        assert_eq!(cgroup_room(text, &v1), Some(2_000_000_000));
+        // v1 without a limit.
+        let v1none = files(&[(
+            "/sys/fs/cgroup/memory/memory.limit_in_bytes",
+            "9223372036854771712",
+        )]);
+        assert_eq!(cgroup_room("4:memory:/\n", &v1none), None);
+        assert_eq!(cgroup_room("garbage", &v1), None);
+    }
+
+    #[test]
+    fn an_address_space_limit_bounds_the_room() {
+        let limits =
+            "Limit                     Soft Limit           Hard Limit           Units     \n\
+Max data size             unlimited            unlimited            bytes     \n\
+Max address space         524288000            unlimited            bytes     \n";
+        let status = "Name:\tarmspace\nVmPeak:\t  9000 kB\nVmSize:\t    4000 kB\n";
+        assert_eq!(
+            address_space_room(limits, status),
+            Some(524_288_000 - 4_096_000)
+        );
+        let unlimited = limits.replace("524288000", "unlimited");
+        assert_eq!(address_space_room(&unlimited, status), None);
+    }
 
     #[test]
     fn atomic_write_replaces_and_cleans_up() {

@@ -16,7 +16,7 @@ use crate::methods::intercept::InterceptParams;
 use crate::methods::{self, Inputs, Outcome};
 use crate::preprocess::{self, PreprocessParams};
 use crate::units::UmPerPx;
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 
 pub use crate::methods::Method;
 
@@ -826,6 +826,41 @@ pub fn measure_batch(
     on_done: &(dyn Fn(&ImageResult) + Sync),
     stop: &std::sync::atomic::AtomicBool,
 ) -> (Vec<ImageResult>, Vec<Skipped>) {
+    measure_batch_with(
+        inputs,
+        opts,
+        &BatchControl {
+            on_begin: &|_| {},
+            on_done,
+            stop,
+            run_alone: &std::collections::HashSet::new(),
+        },
+    )
+}
+
+/// How a batch is run beside the options that decide each image's result.
+pub struct BatchControl<'a> {
+    /// Called with an image's path just before it is read and measured
+    /// (not for files that fail before that, nor for skipped entries).
+    pub on_begin: &'a (dyn Fn(&Path) + Sync),
+    /// Called with each image's result as soon as it is finished.
+    pub on_done: &'a (dyn Fn(&ImageResult) + Sync),
+    /// Once set (an interrupt), images not yet begun are not measured.
+    pub stop: &'a std::sync::atomic::AtomicBool,
+    /// Images measured with nothing else beside them: each takes the whole
+    /// memory budget while it runs. For images suspected of having ended an
+    /// earlier run (the command line's supervisor), so that if one ends a
+    /// run again, it is the only image in progress and is named alone.
+    pub run_alone: &'a std::collections::HashSet<PathBuf>,
+}
+
+/// [`measure_batch`] with a begin hook and images run alone.
+pub fn measure_batch_with(
+    inputs: &[Input],
+    opts: &MeasureOptions,
+    control: &BatchControl,
+) -> (Vec<ImageResult>, Vec<Skipped>) {
+    let (on_done, stop) = (control.on_done, control.stop);
     let work = |input: &Input| -> Option<ImageResult> {
         // Once `stop` is set (an interrupt), images not yet begun are
         // not measured; those in progress finish.
@@ -837,7 +872,10 @@ pub fn measure_batch(
             Input::Unusable { path, .. } if stopped => {
                 return Some(ImageResult::interrupted(path.clone(), opts));
             }
-            Input::Image(p) => Some(measure_file(p, opts)),
+            Input::Image(p) => {
+                (control.on_begin)(p);
+                Some(measure_file(p, opts))
+            }
             Input::Missing(p) => Some(ImageResult::failed(
                 p.clone(),
                 crate::Error::Missing { path: p.clone() }.to_string(),
@@ -882,6 +920,12 @@ pub fn measure_batch(
                     }
                 }
                 _ => 0,
+            };
+            // The whole budget (the gate clamps to it): admitted only when
+            // nothing else runs, and nothing else admitted beside it.
+            let need = match input {
+                Input::Image(p) if control.run_alone.contains(p) => u64::MAX,
+                _ => need,
             };
             let reserved = gate.acquire(need);
             let (gate, work) = (&gate, &work);

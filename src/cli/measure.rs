@@ -12,7 +12,7 @@ use armspace::calibrate::{
 use armspace::load::{collect_inputs, LoadOptions, DEFAULT_MAX_MEGAPIXELS};
 use armspace::methods::fft::FftParams;
 use armspace::methods::intercept::InterceptParams;
-use armspace::pipeline::{measure_batch, MeasureOptions, Method};
+use armspace::pipeline::{MeasureOptions, Method};
 use armspace::preprocess::PreprocessParams;
 use armspace::report;
 use clap::ValueEnum;
@@ -239,6 +239,20 @@ enum PictureFormatArg {
 }
 
 pub(super) fn run(args: MeasureArgs) -> ExitCode {
+    // A failed allocation ends a process; the run goes on in a worker so
+    // that it ends only that image (cli/supervise.rs).
+    let report_file = args
+        .out
+        .as_deref()
+        .filter(|o| armspace::files::kind(o) != armspace::files::Kind::Special);
+    if let Some(code) = super::supervise::supervise(report_file, args.resume, args.points.is_some())
+    {
+        return code;
+    }
+    let worker = match super::supervise::Worker::from_env() {
+        Ok(w) => w,
+        Err(e) => return super::supervise::worker_error(&e),
+    };
     let methods = match args.method {
         MethodArg::Fft => vec![Method::Fft],
         MethodArg::Intercept => vec![Method::Intercept],
@@ -374,6 +388,41 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
                 .collect()
         }
     };
+    // Images that ended an earlier attempt of this run (the supervisor's
+    // notes): recorded as not measured, with the reason; and images to be
+    // measured alone.
+    let (inputs, run_alone) = match &worker {
+        None => (inputs, std::collections::HashSet::new()),
+        Some(w) => {
+            let inputs: Vec<armspace::load::Input> = inputs
+                .into_iter()
+                .map(|input| match input {
+                    armspace::load::Input::Image(p) => {
+                        match w.retry.failed.get(&armspace::files::path_text(&p)) {
+                            Some(reason) => armspace::load::Input::Unusable {
+                                path: p,
+                                reason: reason.clone(),
+                            },
+                            None => armspace::load::Input::Image(p),
+                        }
+                    }
+                    other => other,
+                })
+                .collect();
+            let alone = inputs
+                .iter()
+                .filter_map(|i| match i {
+                    armspace::load::Input::Image(p)
+                        if w.retry.alone.contains(&armspace::files::path_text(p)) =>
+                    {
+                        Some(p.clone())
+                    }
+                    _ => None,
+                })
+                .collect();
+            (inputs, alone)
+        }
+    };
     let shard = args.shard.map(|(index, count)| report::ShardParameters {
         index,
         count,
@@ -465,8 +514,10 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
     };
     // One run per report: a second run given the same --out is refused
     // before it reads or replaces the first one's journal.
+    let lock_held = std::env::var_os(super::supervise::LOCK_HELD_ENV).is_some();
     let _lock = match &journal_path {
-        Some(_) => match args.out.as_deref().map(armspace::journal::RunLock::acquire) {
+        Some(_) if !lock_held => match args.out.as_deref().map(armspace::journal::RunLock::acquire)
+        {
             Some(Ok(lock)) => Some(lock),
             Some(Err(e)) => {
                 say!("armspace: {e}");
@@ -474,7 +525,7 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
             }
             None => None,
         },
-        None => None,
+        _ => None,
     };
     // A part's journal is its own: the part is in the fingerprint.
     let fingerprint = armspace::journal::fingerprint(
@@ -571,9 +622,24 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
             }
         });
         progress.inc(1);
+        if let Some(w) = &worker {
+            w.end(&r.file);
+        }
+    };
+    let on_begin = |p: &std::path::Path| {
+        if let Some(w) = &worker {
+            w.begin(p);
+        }
     };
     let stop = interrupt_flag();
-    let (results, skipped) = pool.install(|| measure_batch(&to_measure, &opts, &on_done, stop));
+    let control = armspace::pipeline::BatchControl {
+        on_begin: &on_begin,
+        on_done: &on_done,
+        stop,
+        run_alone: &run_alone,
+    };
+    let (results, skipped) =
+        pool.install(|| armspace::pipeline::measure_batch_with(&to_measure, &opts, &control));
     progress.finish_and_clear();
     // Input order: each image taken over, or the next one measured (the
     // results keep the order of `to_measure`, skipped entries aside).

@@ -16,6 +16,7 @@ mod interpret;
 mod measure;
 mod merge;
 mod stats;
+mod supervise;
 #[cfg(feature = "synth")]
 mod synth;
 

@@ -1,0 +1,293 @@
+//! A failed allocation becomes that file's error, never the end of the
+//! batch (issue 16, item 5). `measure` runs in a worker process under a
+//! small supervisor (src/cli/supervise.rs): when the worker ends by a
+//! fault, the image in progress is recorded as not measured and the rest of
+//! the batch is measured. What a lab user expects of a batch tool (common
+//! practice, no single source): one bad file never costs the others, and
+//! the file is named with what happened.
+//!
+//! The faults are made two ways: for real (an address-space limit, `ulimit
+//! -v`, under which a large image's buffers cannot be allocated, so the
+//! standard library's allocation-failure handler aborts the process), and
+//! on purpose through the validation build's fault hook
+//! (`ARMSPACE_TEST_FAULT`, the `synth` feature), which ends the process
+//! the way a failed allocation (the same handler), a panic, and the
+//! kernel's out-of-memory killer (SIGKILL) do.
+#![cfg(target_os = "linux")]
+
+mod common;
+
+use common::write_comb_png;
+use serde_json::Value;
+use std::path::Path;
+use std::process::Command;
+
+/// Four comb fields of known period (12, 16, 20, 24 px), quick to measure.
+fn batch(dir: &Path) -> Vec<String> {
+    std::fs::create_dir_all(dir.join("in")).unwrap();
+    [12.0, 16.0, 20.0, 24.0]
+        .iter()
+        .map(|&p| {
+            let name = format!("comb{p:02}.png");
+            write_comb_png(&dir.join("in").join(&name), 600, 600, p);
+            name
+        })
+        .collect()
+}
+
+struct Out {
+    code: Option<i32>,
+    stdout: String,
+    stderr: String,
+}
+
+/// `armspace measure in --um-per-px 1 ARGS` in `dir`, with `TMPDIR` inside
+/// `dir/tmp` (to see that the supervisor's notes are cleaned up) and the
+/// fault hook set to `fault` when given.
+fn measure(dir: &Path, args: &[&str], fault: Option<&str>) -> Out {
+    let tmp = dir.join("tmp");
+    std::fs::create_dir_all(&tmp).unwrap();
+    let mut cmd = Command::new(env!("CARGO_BIN_EXE_armspace"));
+    cmd.current_dir(dir)
+        .args(["measure", "in", "--um-per-px", "1"])
+        .args(args)
+        .env("TMPDIR", &tmp)
+        .env("RUST_BACKTRACE", "0")
+        .env_remove("ARMSPACE_TEST_FAULT")
+        .env_remove("SOURCE_DATE_EPOCH");
+    if let Some(f) = fault {
+        cmd.env("ARMSPACE_TEST_FAULT", f);
+    }
+    let out = cmd.output().unwrap();
+    Out {
+        code: out.status.code(),
+        stdout: String::from_utf8_lossy(&out.stdout).into_owned(),
+        stderr: String::from_utf8_lossy(&out.stderr).into_owned(),
+    }
+}
+
+/// Each image's file name and, measured, its value or, failed, its error.
+fn results(report: &Value) -> Vec<(String, Option<f64>, Option<String>)> {
+    report["images"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|i| {
+            let file = i["file"].as_str().unwrap();
+            let name = Path::new(file).file_name().unwrap().to_string_lossy();
+            (
+                name.into_owned(),
+                i["sdas_um"]["value"].as_f64(),
+                i["error"].as_str().map(str::to_owned),
+            )
+        })
+        .collect()
+}
+
+fn read_report(path: &Path) -> Value {
+    serde_json::from_str(&std::fs::read_to_string(path).unwrap()).unwrap()
+}
+
+/// The batch measured with no fault: the values the others must keep.
+fn clean_values(dir: &Path) -> Vec<(String, Option<f64>)> {
+    let out = measure(dir, &["--out", "clean.json"], None);
+    assert_eq!(out.code, Some(0), "{}", out.stderr);
+    results(&read_report(&dir.join("clean.json")))
+        .into_iter()
+        .map(|(n, v, _)| (n, v))
+        .collect()
+}
+
+/// The faulted image has an error naming `what`; every other image has
+/// the value of the run without a fault.
+fn check(
+    results: &[(String, Option<f64>, Option<String>)],
+    clean: &[(String, Option<f64>)],
+    faulted: &[&str],
+    what: &str,
+) {
+    assert_eq!(results.len(), clean.len());
+    for ((name, value, error), (clean_name, clean_value)) in results.iter().zip(clean) {
+        assert_eq!(name, clean_name);
+        if faulted.contains(&name.as_str()) {
+            let e = error.as_deref().unwrap_or_default();
+            assert!(e.contains(name.as_str()) && e.contains(what), "{name}: {e}");
+            assert!(e.contains("recorded as not measured"), "{e}");
+            assert_eq!(*value, None);
+        } else {
+            assert_eq!(error, &None, "{name}");
+            assert!(value.is_some(), "{name}");
+            assert_eq!(value, clean_value, "{name}");
+        }
+    }
+}
+
+fn no_leftovers(dir: &Path) {
+    assert!(!dir.join("r.json.journal").exists(), "journal left behind");
+    assert!(!dir.join("r.json.lock").exists(), "lock left behind");
+    let tmp: Vec<_> = std::fs::read_dir(dir.join("tmp")).unwrap().collect();
+    assert!(tmp.is_empty(), "supervisor notes left in TMPDIR: {tmp:?}");
+}
+
+#[cfg(feature = "synth")]
+#[test]
+fn a_failed_allocation_ends_only_its_image() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let names = batch(d);
+    let clean = clean_values(d);
+    let out = measure(
+        d,
+        &["--out", "r.json", "--csv", "r.csv", "--jobs", "1"],
+        Some(&format!("alloc:{}", names[1])),
+    );
+    // An image not measured: status 3, as for any file that fails.
+    assert_eq!(out.code, Some(3), "{}", out.stderr);
+    assert!(
+        out.stderr.contains("measuring it stopped the run"),
+        "{}",
+        out.stderr
+    );
+    check(
+        &results(&read_report(&d.join("r.json"))),
+        &clean,
+        &[&names[1]],
+        "a memory allocation failed",
+    );
+    // The CSV is written whole too, a row per image.
+    let csv = std::fs::read_to_string(d.join("r.csv")).unwrap();
+    assert!(
+        csv.lines().filter(|l| l.contains("comb")).count() >= 4,
+        "{csv}"
+    );
+    no_leftovers(d);
+}
+
+#[cfg(feature = "synth")]
+#[test]
+fn a_panic_is_the_images_error_and_the_report_still_goes_to_stdout() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let names = batch(d);
+    let clean = clean_values(d);
+    // No --out: the retry measures the batch again; the report on stdout
+    // is the last attempt's, whole.
+    let out = measure(d, &[], Some(&format!("panic:{}", names[3])));
+    assert_eq!(out.code, Some(3), "{}", out.stderr);
+    let rep: Value = serde_json::from_str(&out.stdout).unwrap();
+    check(&results(&rep), &clean, &[&names[3]], "a panic");
+    no_leftovers(d);
+}
+
+#[cfg(feature = "synth")]
+#[test]
+fn the_out_of_memory_killer_is_named() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let names = batch(d);
+    let clean = clean_values(d);
+    let out = measure(
+        d,
+        &["--out", "r.json", "--jobs", "1"],
+        Some(&format!("kill:{}", names[0])),
+    );
+    assert_eq!(out.code, Some(3), "{}", out.stderr);
+    check(
+        &results(&read_report(&d.join("r.json"))),
+        &clean,
+        &[&names[0]],
+        "the process was killed",
+    );
+    no_leftovers(d);
+}
+
+/// Two images in progress side by side when the process ends: which one
+/// ended it is unknown, so both are measured again alone, and each of
+/// them ends its own attempt.
+#[cfg(feature = "synth")]
+#[test]
+fn images_measured_side_by_side_are_measured_again_alone() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let names = batch(d);
+    let clean = clean_values(d);
+    let out = measure(
+        d,
+        &["--out", "r.json", "--jobs", "2"],
+        Some(&format!("alloc-late:{},{}", names[0], names[1])),
+    );
+    assert_eq!(out.code, Some(3), "{}", out.stderr);
+    assert!(
+        out.stderr.contains("measured side by side")
+            && out.stderr.contains("each of them measured alone"),
+        "{}",
+        out.stderr
+    );
+    check(
+        &results(&read_report(&d.join("r.json"))),
+        &clean,
+        &[&names[0], &names[1]],
+        "a memory allocation failed",
+    );
+    no_leftovers(d);
+}
+
+/// A real failed allocation, no hook: under an address-space limit of
+/// 500 MB, with a memory budget stated far above it (so that the budget
+/// does not refuse the image first), a 36-megapixel field cannot be
+/// measured (its estimate is about 0.8 GB); the small fields can.
+#[test]
+fn a_real_failed_allocation_is_the_files_error() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let names = batch(d);
+    let clean = clean_values(d);
+    // Grey noise with a comb: a real field compresses far less than 200
+    // pixels a byte (so the header check passes), and decodes whole.
+    let mut state = 0x2545_f491_4f6c_dd1d_u64;
+    let big = image::GrayImage::from_fn(6000, 6000, |x, _| {
+        state ^= state << 13;
+        state ^= state >> 7;
+        state ^= state << 17;
+        let noise = (state >> 58) as u8; // 0..63
+        image::Luma([if (x / 10) % 2 == 0 { 150 } else { 60 } + noise])
+    });
+    big.save(d.join("in/big.png")).unwrap();
+    let exe = env!("CARGO_BIN_EXE_armspace");
+    std::fs::create_dir_all(d.join("tmp")).unwrap();
+    let out = Command::new("sh")
+        .current_dir(d)
+        .env("TMPDIR", d.join("tmp"))
+        .env("RUST_BACKTRACE", "0")
+        .env_remove("ARMSPACE_TEST_FAULT")
+        .args([
+            "-c",
+            "ulimit -v 500000 && exec \"$0\" \"$@\"",
+            exe,
+            "measure",
+            "in",
+            "--um-per-px",
+            "1",
+            "--memory-budget",
+            "8G",
+            "--jobs",
+            "1",
+            "--out",
+            "r.json",
+        ])
+        .output()
+        .unwrap();
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(3), "{stderr}");
+    let got = results(&read_report(&d.join("r.json")));
+    let (big_result, small): (Vec<_>, Vec<_>) =
+        got.into_iter().partition(|(n, _, _)| n == "big.png");
+    let e = big_result[0].2.as_deref().unwrap_or_default();
+    assert!(
+        e.contains("a memory allocation failed"),
+        "big.png: {e}\n{stderr}"
+    );
+    check(&small, &clean, &[], "");
+    assert_eq!(small.len(), names.len());
+    no_leftovers(d);
+}
