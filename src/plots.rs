@@ -63,6 +63,23 @@ fn draw_err(e: impl std::fmt::Display) -> crate::Error {
     }
 }
 
+/// Whether `lo..hi` can be an axis: both ends and the span finite, and the
+/// span positive. plotters' tick search does not end on an axis whose span
+/// is infinite (ranges near f64::MAX overflow when padded); such values
+/// come only from damaged or crafted input (a report given to `merge`, a
+/// correlation file), and their plot is refused with an error instead.
+pub fn axis_ok(lo: f64, hi: f64) -> bool {
+    lo.is_finite() && hi.is_finite() && (hi - lo).is_finite() && hi > lo
+}
+
+fn axis_err(what: &str, lo: f64, hi: f64) -> crate::Error {
+    crate::Error::Value {
+        reason: format!(
+            "the plot could not be drawn: its {what} axis from {lo} to {hi} is not a finite range"
+        ),
+    }
+}
+
 /// One point of a profile: a bin's centre, its length along the line, its
 /// value and 95 % interval (none without support).
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -116,6 +133,12 @@ pub fn profile_picture(title: &str, length_um: f64, panels: &[Panel]) -> crate::
             }
             let pad = 0.1 * (hi - lo);
             let (lo, hi) = ((lo - pad).max(0.0), hi + pad);
+            if !axis_ok(lo, hi) {
+                return Err(axis_err("value", lo, hi));
+            }
+            if !axis_ok(0.0, length_um.max(1e-9)) {
+                return Err(axis_err("distance", 0.0, length_um));
+            }
             let mut chart = ChartBuilder::on(area)
                 .margin(12)
                 .x_label_area_size(44)
@@ -259,6 +282,12 @@ pub fn map_picture(
         .filter(|w| w.is_finite() && *w > 0.0)
         .collect();
     let range = colour_range(&valued, crate::stats::median(&widths));
+    if !axis_ok(0.0, w_um) || !axis_ok(0.0, h_um) {
+        return Err(axis_err("position", 0.0, w_um.max(h_um)));
+    }
+    if let Some((a, b)) = range.filter(|&(a, b)| !axis_ok(a, b)) {
+        return Err(axis_err("colour scale", a, b));
+    }
     let mut buf = vec![255u8; (w * h * 3) as usize];
     let plot;
     {
@@ -417,6 +446,53 @@ pub fn scale_colour(v: f64, lo: f64, hi: f64) -> [u8; 3] {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    // Before the axis check each of these never returned (plotters' tick
+    // search on an infinite span; found by reading, then reproduced).
+    #[test]
+    fn values_beyond_a_finite_axis_are_refused_not_drawn_forever() {
+        let bins = |v: f64| {
+            [
+                BinPoint {
+                    distance_um: 0.0,
+                    width_um: 1.0,
+                    value: Some(v),
+                    ci95: Some([v * 0.5, v * 2.0]),
+                },
+                BinPoint {
+                    distance_um: 1.0,
+                    width_um: 1.0,
+                    value: Some(1.0),
+                    ci95: None,
+                },
+            ]
+        };
+        for (v, len) in [(1e308, 10.0), (f64::INFINITY, 10.0), (1.0, f64::INFINITY)] {
+            let b = bins(v);
+            let r = profile_picture(
+                "t",
+                len,
+                &[Panel {
+                    y_desc: "x",
+                    bins: &b,
+                }],
+            );
+            let e = r.err().map(|e| e.to_string()).unwrap_or_default();
+            assert!(e.contains("not a finite range"), "{v} {len}: {e}");
+        }
+        // Large but finite ranges are still drawn.
+        let b = bins(1e300);
+        assert!(profile_picture(
+            "t",
+            10.0,
+            &[Panel {
+                y_desc: "x",
+                bins: &b
+            }]
+        )
+        .is_ok());
+        assert!(axis_ok(0.0, 1e-300) && !axis_ok(-f64::MAX, f64::MAX) && !axis_ok(1.0, 1.0));
+    }
 
     #[test]
     fn a_profile_plot_draws_bands_dots_and_leaves_empty_bins_blank() {

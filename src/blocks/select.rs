@@ -26,7 +26,9 @@ pub fn select_ranks<const K: usize, I: Iterator<Item = f32>>(
     n: usize,
     ranks: [usize; K],
 ) -> [f32; K] {
-    let mut hist = vec![0u32; 1 << 16];
+    // 64-bit counts: a bucket may hold more than 2^32 values only in an image
+    // past 4 gigapixels, but a wrapped count would give a wrong rank silently.
+    let mut hist = vec![0u64; 1 << 16];
     for v in values() {
         hist[(total_order_key(v) >> 16) as usize] += 1;
     }

@@ -155,6 +155,11 @@ fn histogram(image: &Value) -> Option<String> {
     }
     let pad = 0.05 * (hi - lo);
     let (lo, hi) = ((lo - pad).max(0.0), hi + pad);
+    // No histogram of values beyond a finite axis (a damaged or crafted
+    // report given to `merge`): plotters would not end.
+    if !crate::plots::axis_ok(lo, hi) {
+        return None;
+    }
     let bins = 30usize;
     let width = (hi - lo) / bins as f64;
     let bin = |x: f64| (((x - lo) / width).floor().max(0.0) as usize).min(bins - 1);
@@ -724,6 +729,27 @@ pub fn page(
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    // A crafted report given to `merge --html`: local spacings near
+    // f64::MAX (JSON holds them) gave an axis whose padded span is
+    // infinite, on which plotters never returned.
+    #[test]
+    fn a_histogram_of_values_near_the_largest_float_is_left_out() {
+        let image = serde_json::json!({
+            "sdas_um": {"value": 1e308, "ci95": [1.0, 1.79e308]},
+            "methods": {"fft": {"tiles": [
+                {"sdas_um": 1.0}, {"sdas_um": 1e308}, {"sdas_um": 1.79e308}
+            ]}}
+        });
+        assert_eq!(histogram(&image), None);
+        let fine = serde_json::json!({
+            "sdas_um": {"value": 20.0, "ci95": [19.0, 21.0]},
+            "methods": {"fft": {"tiles": [
+                {"sdas_um": 19.0}, {"sdas_um": 20.0}, {"sdas_um": 21.0}
+            ]}}
+        });
+        assert!(histogram(&fine).is_some_and(|svg| svg.contains("<svg")));
+    }
 
     #[test]
     fn text_is_escaped() {

@@ -930,6 +930,20 @@ pub fn now_utc() -> String {
         .filter(|&s| s <= 253_402_300_799)
         .and_then(|s| std::time::UNIX_EPOCH.checked_add(std::time::Duration::from_secs(s)))
         .unwrap_or_else(std::time::SystemTime::now);
+    rfc3339_or_epoch(t)
+}
+
+/// `t` in RFC 3339 to the second.
+fn rfc3339_or_epoch(t: std::time::SystemTime) -> String {
+    // A clock set before 1970 (humantime formats only times after the
+    // epoch, and panics on others) or past year 9999 is written as the
+    // epoch: the date of the report is then plainly not the run's.
+    let latest = std::time::UNIX_EPOCH + std::time::Duration::from_secs(253_402_300_799);
+    let t = if t < std::time::UNIX_EPOCH || t > latest {
+        std::time::UNIX_EPOCH
+    } else {
+        t
+    };
     humantime::format_rfc3339_seconds(t).to_string()
 }
 
@@ -947,6 +961,19 @@ pub fn to_json(report: &Report) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    // A machine whose clock is before 1970 (a flat clock battery can set
+    // one): humantime panics on such times, which cost the report after
+    // every image was measured.
+    #[test]
+    fn a_clock_before_1970_or_past_9999_gives_the_epoch() {
+        let before = std::time::UNIX_EPOCH - std::time::Duration::from_secs(1);
+        assert_eq!(rfc3339_or_epoch(before), "1970-01-01T00:00:00Z");
+        let after = std::time::UNIX_EPOCH + std::time::Duration::from_secs(253_402_300_800);
+        assert_eq!(rfc3339_or_epoch(after), "1970-01-01T00:00:00Z");
+        let t = std::time::UNIX_EPOCH + std::time::Duration::from_secs(1_000_000_000);
+        assert_eq!(rfc3339_or_epoch(t), "2001-09-09T01:46:40Z");
+    }
 
     #[test]
     fn rounding_to_the_uncertainty() {
