@@ -330,13 +330,17 @@ pub(super) fn supervise(report: Option<&Path>, resume: bool, points: bool) -> Op
     // passed on from here: the first makes it finish what is in progress
     // and write a partial report, a second stops it at once, as without a
     // supervisor. This process waits for it either way.
+    // The handler is set once a worker runs: if none can be started, this
+    // process does the run and sets its own.
     static WORKER: std::sync::atomic::AtomicU32 = std::sync::atomic::AtomicU32::new(0);
-    let _ = ctrlc::set_handler(|| {
-        let pid = WORKER.load(std::sync::atomic::Ordering::SeqCst);
-        if pid != 0 {
-            signal(pid, Signal::Interrupt);
-        }
-    });
+    let pass_interrupts_on = || {
+        ctrlc::set_handler(|| {
+            let pid = WORKER.load(std::sync::atomic::Ordering::SeqCst);
+            if pid != 0 {
+                signal(pid, Signal::Interrupt);
+            }
+        })
+    };
     // The report's lock is held here, for the whole run with its attempts:
     // a supervisor killed outright releases it at once (the system does),
     // and its worker ends with it. One that cannot be taken for another
@@ -385,6 +389,11 @@ pub(super) fn supervise(report: Option<&Path>, resume: bool, points: bool) -> Op
         let status = match cmd.spawn() {
             Ok(mut child) => {
                 WORKER.store(child.id(), std::sync::atomic::Ordering::SeqCst);
+                if attempt == 1 {
+                    if let Err(e) = pass_interrupts_on() {
+                        say!("armspace: note: Ctrl-C will not leave a partial report: {e}");
+                    }
+                }
                 let waited = child.wait();
                 WORKER.store(0, std::sync::atomic::Ordering::SeqCst);
                 match waited {
@@ -396,6 +405,7 @@ pub(super) fn supervise(report: Option<&Path>, resume: bool, points: bool) -> Op
                 }
             }
             Err(e) if attempt == 1 => {
+                drop(lock); // this process takes it again for its run
                 say!("armspace: note: running without a supervisor (cannot start the worker {}: {e}); a failed allocation ends the whole run", exe.display());
                 return None;
             }
