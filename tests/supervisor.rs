@@ -170,12 +170,25 @@ fn a_panic_is_the_images_error_and_the_report_still_goes_to_stdout() {
     let d = dir.path();
     let names = batch(d);
     let clean = clean_values(d);
-    // No --out: the retry measures the batch again; the report on stdout
-    // is the last attempt's, whole.
-    let out = measure(d, &[], Some(&format!("panic:{}", names[3])));
+    // No --out: the report on stdout is the last attempt's, whole; the
+    // images finished before the fault are taken over from the worker's
+    // own journal, not measured again.
+    let out = measure(d, &["--jobs", "1"], Some(&format!("panic:{}", names[3])));
     assert_eq!(out.code, Some(3), "{}", out.stderr);
     let rep: Value = serde_json::from_str(&out.stdout).unwrap();
     check(&results(&rep), &clean, &[&names[3]], "a panic");
+    let before_fault = out
+        .stderr
+        .lines()
+        .take_while(|l| !l.contains("measuring it stopped the run"))
+        .filter(|l| l.starts_with("measured ") || l.starts_with("no value "))
+        .count();
+    assert_eq!(
+        rep["summary"]["from_journal"].as_u64(),
+        Some(before_fault as u64),
+        "{}",
+        out.stderr
+    );
     no_leftovers(d);
 }
 
@@ -289,5 +302,36 @@ fn a_real_failed_allocation_is_the_files_error() {
     );
     check(&small, &clean, &[], "");
     assert_eq!(small.len(), names.len());
+    no_leftovers(d);
+}
+
+/// With `--points` (every image's local measurements in one table, which
+/// a journal does not keep) the later attempt measures every image again,
+/// and the table is written whole, without the faulted image.
+#[cfg(feature = "synth")]
+#[test]
+fn with_a_point_table_every_image_is_measured_again() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let names = batch(d);
+    let clean = clean_values(d);
+    let out = measure(
+        d,
+        &["--out", "r.json", "--points", "p.csv", "--jobs", "1"],
+        Some(&format!("alloc:{}", names[2])),
+    );
+    assert_eq!(out.code, Some(3), "{}", out.stderr);
+    let rep = read_report(&d.join("r.json"));
+    check(
+        &results(&rep),
+        &clean,
+        &[&names[2]],
+        "a memory allocation failed",
+    );
+    assert_eq!(rep["summary"]["from_journal"].as_u64(), Some(0));
+    let table = std::fs::read_to_string(d.join("p.csv")).unwrap();
+    for (i, name) in names.iter().enumerate() {
+        assert_eq!(table.contains(name.as_str()), i != 2, "{name}");
+    }
     no_leftovers(d);
 }

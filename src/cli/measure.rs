@@ -456,11 +456,17 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
     }
     // The journal lies beside a report written to a file (not beside a
     // device named as --out), and is checked as the other outputs are.
-    let journal_path = args
-        .out
-        .as_deref()
-        .filter(|out| armspace::files::kind(out) != armspace::files::Kind::Special)
-        .map(armspace::journal::path_for);
+    let journal_path = match (&args.out, &worker) {
+        (Some(out), _) => Some(out.as_path())
+            .filter(|out| armspace::files::kind(out) != armspace::files::Kind::Special)
+            .map(armspace::journal::path_for),
+        // A worker whose report goes to stdout keeps its journal in the
+        // supervisor's notes, for a later attempt (not with --points).
+        (None, Some(w)) if args.points.is_none() => Some(w.journal()),
+        (None, _) => None,
+    };
+    // A later attempt of the supervisor takes over the finished images.
+    let resume = args.resume || worker.as_ref().is_some_and(|w| w.retry.resume);
     if let Some(journal) = &journal_path {
         let checked = if armspace::files::kind(journal) == armspace::files::Kind::Special {
             Err(armspace::Error::Input {
@@ -482,7 +488,7 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
             say!("armspace: {e}");
             return ExitCode::from(EXIT_USAGE);
         }
-    } else if args.resume {
+    } else if resume {
         say!("armspace: --resume needs --out to name a file: the journal lies beside the report");
         return ExitCode::from(EXIT_USAGE);
     }
@@ -538,7 +544,7 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
     );
     // With --resume, the images the journal holds and that are unchanged are
     // taken over; the rest are measured.
-    let taken: Vec<Option<report::ImageReport>> = match (&journal_path, args.resume) {
+    let taken: Vec<Option<report::ImageReport>> = match (&journal_path, resume) {
         (Some(journal), true) => match armspace::journal::read(journal, &fingerprint) {
             Ok(None) => {
                 say!(
@@ -584,7 +590,12 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
         },
         None => None,
     };
-    if !carried.is_empty() {
+    if !carried.is_empty() && args.out.is_none() {
+        say!(
+            "armspace: {} images taken over from the attempt that stopped, measuring the rest",
+            carried.len()
+        );
+    } else if !carried.is_empty() {
         say!(
             "armspace: resuming: {} images taken over from the journal {}, measuring the rest",
             carried.len(),
@@ -687,7 +698,9 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
     // The journal goes once the report (and CSV) are written whole; a
     // partial report or a failed write keeps it for --resume.
     if let Some(journal) = journal {
-        if write_failed || rep.summary.partial {
+        if args.out.is_none() {
+            // The worker's own journal: the supervisor's notes go with it.
+        } else if write_failed || rep.summary.partial {
             say!(
                 "armspace: the journal {} keeps the images finished; rerun with the same arguments and --resume to measure only the rest",
                 journal.path().display()

@@ -14,8 +14,9 @@
 //! image. When it ends by such a fault, the supervisor reads which images
 //! were in progress:
 //! - one image: it is recorded as not measured, with the fault named, and
-//!   the batch is run again (with `--resume` when the report goes to a file,
-//!   so that the images the journal holds are not measured twice);
+//!   the batch is run again, taking over the images finished (from the
+//!   journal beside the report, `--resume`, or the worker's own journal in
+//!   the notes folder when the report goes to stdout; not with `--points`);
 //! - several (images measured side by side): each of them is run alone in
 //!   the next attempt (it takes the whole memory budget), so that a fault
 //!   names one image;
@@ -52,6 +53,11 @@ pub(super) struct Retry {
     pub failed: BTreeMap<String, String>,
     /// Images to be run alone.
     pub alone: BTreeSet<String>,
+    /// Take over the images the worker's own journal holds (a report that
+    /// goes to stdout has no journal beside it; the worker keeps one in
+    /// the notes folder).
+    #[serde(default)]
+    pub resume: bool,
 }
 
 /// One progress note of the worker, a JSON line.
@@ -65,6 +71,7 @@ enum Note {
 /// The worker's side: its notes and its instructions.
 pub(super) struct Worker {
     log: std::sync::Mutex<std::fs::File>,
+    dir: PathBuf,
     pub retry: Retry,
 }
 
@@ -88,11 +95,18 @@ impl Worker {
             Err(e) if e.kind() == std::io::ErrorKind::NotFound => Retry::default(),
             Err(e) => return Err(format!("{}: {e}", dir.display())),
         };
-        watch_supervisor(dir);
+        watch_supervisor(dir.clone());
         Ok(Some(Self {
             log: std::sync::Mutex::new(log),
+            dir,
             retry,
         }))
+    }
+
+    /// Where the worker keeps its journal when the report has no file to
+    /// keep it beside.
+    pub fn journal(&self) -> PathBuf {
+        self.dir.join("journal")
     }
 
     fn note(&self, note: &Note) {
@@ -355,11 +369,14 @@ pub(super) fn supervise(report: Option<&Path>, resume: bool, points: bool) -> Op
         _ => None,
     };
     let args: Vec<std::ffi::OsString> = std::env::args_os().skip(1).collect();
-    let mut retry = Retry::default();
-    // The journal takes over finished images when the report goes to a
-    // file (not with --points, which needs every image measured in one
-    // run: it refuses --resume).
-    let can_resume = report_to_file && !points;
+    // A later attempt takes over the images the earlier ones finished,
+    // from the journal beside the report (`--resume`) or, for a report to
+    // stdout, from the worker's own; not with --points, which needs every
+    // image measured in one run (it refuses --resume).
+    let mut retry = Retry {
+        resume: !points,
+        ..Retry::default()
+    };
     let mut attempt = 0usize;
     loop {
         attempt += 1;
@@ -368,7 +385,7 @@ pub(super) fn supervise(report: Option<&Path>, resume: bool, points: bool) -> Op
         if lock.is_some() {
             cmd.env(LOCK_HELD_ENV, "1");
         }
-        if attempt > 1 && can_resume && !resume {
+        if attempt > 1 && report_to_file && !points && !resume {
             cmd.arg("--resume");
         }
         #[cfg(unix)]
