@@ -179,7 +179,7 @@ pub fn batch_lines(rep: &Report) -> Vec<String> {
     )];
     if s.from_journal > 0 {
         lines.push(format!(
-            "{} of them taken over from the journal of an earlier run (--resume), not measured again",
+            "{} of them taken over from a journal (an earlier run with --resume, or an attempt a fault stopped), not measured again",
             s.from_journal
         ));
     }

@@ -727,7 +727,8 @@ pub struct BatchImage {
     pub report: ImageReport,
     /// Not measured: the run was interrupted before this image.
     pub interrupted: bool,
-    /// Taken from the journal of an earlier run (`--resume`).
+    /// Taken from the journal of an earlier run (`--resume`) or of an
+    /// attempt that a fault stopped (the supervisor of `measure`).
     pub from_journal: bool,
 }
 
