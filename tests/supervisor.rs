@@ -338,3 +338,30 @@ fn with_a_point_table_every_image_is_measured_again() {
     }
     no_leftovers(d);
 }
+
+/// The notes of a supervisor killed outright (its worker dies with it) are
+/// removed by the next run; those of a live process's number are kept.
+#[test]
+fn notes_of_a_killed_supervisor_are_removed_by_the_next_run() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    batch(d);
+    let tmp = d.join("tmp");
+    std::fs::create_dir_all(&tmp).unwrap();
+    // A process that has ended: its number names no process now.
+    let mut ended = Command::new("true").spawn().unwrap();
+    let dead = ended.id();
+    ended.wait().unwrap();
+    let stale = tmp.join(format!("armspace-{dead}-1-0.supervisor"));
+    let live = tmp.join(format!("armspace-{}-1-0.supervisor", std::process::id()));
+    for notes in [&stale, &live] {
+        std::fs::create_dir(notes).unwrap();
+        std::fs::write(notes.join("progress"), "{\"begin\":\"x\"}\n").unwrap();
+    }
+    let out = measure(d, &["--out", "r.json"], None);
+    assert_eq!(out.code, Some(0), "{}", out.stderr);
+    assert!(!stale.exists(), "the dead run's notes are left");
+    assert!(live.exists(), "a live process's notes were removed");
+    std::fs::remove_dir_all(&live).unwrap();
+    no_leftovers(d);
+}

@@ -271,6 +271,7 @@ struct NotesDir(PathBuf);
 impl NotesDir {
     fn create() -> std::io::Result<Self> {
         let base = std::env::temp_dir();
+        remove_stale(&base);
         let stamp = std::time::SystemTime::now()
             .duration_since(std::time::UNIX_EPOCH)
             .map(|d| d.as_nanos())
@@ -288,6 +289,39 @@ impl NotesDir {
         }
         Err(std::io::Error::other("no free name"))
     }
+}
+
+/// Removes the notes of supervisors that were killed outright (they could
+/// not remove their own; their workers died with them): folders named
+/// `armspace-PID-*.supervisor` whose PID is no process now (Linux: no
+/// /proc/PID). A live process of that number, even another program, keeps
+/// the folder: only notes of certainly dead runs go.
+fn remove_stale(base: &Path) {
+    #[cfg(target_os = "linux")]
+    {
+        let Ok(entries) = std::fs::read_dir(base) else {
+            return;
+        };
+        for entry in entries.flatten() {
+            let name = entry.file_name();
+            let Some(name) = name.to_str() else {
+                continue;
+            };
+            let Some(pid) = name
+                .strip_prefix("armspace-")
+                .filter(|n| n.ends_with(".supervisor"))
+                .and_then(|n| n.split('-').next())
+                .and_then(|p| p.parse::<u32>().ok())
+            else {
+                continue;
+            };
+            if pid != std::process::id() && !Path::new(&format!("/proc/{pid}")).exists() {
+                let _ = std::fs::remove_dir_all(entry.path());
+            }
+        }
+    }
+    #[cfg(not(target_os = "linux"))]
+    let _ = base;
 }
 
 impl Drop for NotesDir {
