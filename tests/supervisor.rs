@@ -365,3 +365,29 @@ fn notes_of_a_killed_supervisor_are_removed_by_the_next_run() {
     std::fs::remove_dir_all(&live).unwrap();
     no_leftovers(d);
 }
+
+/// A report to a device (`--out /dev/stdout`) has no journal: the later
+/// attempt measures every image again instead of refusing to resume.
+#[cfg(feature = "synth")]
+#[test]
+fn a_report_to_a_device_is_measured_again_whole() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let names = batch(d);
+    let clean = clean_values(d);
+    let out = measure(
+        d,
+        &["--out", "/dev/stdout", "--jobs", "1"],
+        Some(&format!("alloc:{}", names[1])),
+    );
+    assert_eq!(out.code, Some(3), "{}", out.stderr);
+    let rep: Value = serde_json::from_str(&out.stdout).unwrap();
+    check(
+        &results(&rep),
+        &clean,
+        &[&names[1]],
+        "a memory allocation failed",
+    );
+    assert_eq!(rep["summary"]["from_journal"].as_u64(), Some(0));
+    no_leftovers(d);
+}

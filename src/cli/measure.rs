@@ -488,7 +488,7 @@ pub(super) fn run(args: MeasureArgs) -> ExitCode {
             say!("armspace: {e}");
             return ExitCode::from(EXIT_USAGE);
         }
-    } else if resume {
+    } else if args.resume {
         say!("armspace: --resume needs --out to name a file: the journal lies beside the report");
         return ExitCode::from(EXIT_USAGE);
     }
