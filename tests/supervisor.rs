@@ -37,6 +37,8 @@ fn batch(dir: &Path) -> Vec<String> {
 
 struct Out {
     code: Option<i32>,
+    // Read by the fault-hook tests only (the `synth` feature).
+    #[cfg_attr(not(feature = "synth"), allow(dead_code))]
     stdout: String,
     stderr: String,
 }
@@ -129,54 +131,66 @@ fn no_leftovers(dir: &Path) {
     assert!(tmp.is_empty(), "supervisor notes left in TMPDIR: {tmp:?}");
 }
 
+/// The batch measured once without a fault and once with the fault `kind`
+/// on the images numbered `which` and the arguments `args`: the second
+/// run exits 3 (an image not measured, as for any file that fails), its
+/// report (from `r.json`, else stdout) holds the faulted images with an
+/// error naming `what` and the others with the values of the first run,
+/// and it leaves no journal, lock or notes. Returns the report, the run and
+/// the folder, for the test's own checks.
 #[cfg(feature = "synth")]
-#[test]
-fn a_failed_allocation_ends_only_its_image() {
+fn faulted_run(
+    args: &[&str],
+    kind: &str,
+    which: &[usize],
+    what: &str,
+) -> (Value, Out, tempfile::TempDir, Vec<String>) {
     let dir = tempfile::tempdir().unwrap();
     let d = dir.path();
     let names = batch(d);
     let clean = clean_values(d);
-    let out = measure(
-        d,
-        &["--out", "r.json", "--csv", "r.csv", "--jobs", "1"],
-        Some(&format!("alloc:{}", names[1])),
-    );
-    // An image not measured: status 3, as for any file that fails.
+    let faulted: Vec<&str> = which.iter().map(|&i| names[i].as_str()).collect();
+    let out = measure(d, args, Some(&format!("{kind}:{}", faulted.join(","))));
     assert_eq!(out.code, Some(3), "{}", out.stderr);
+    let rep: Value = if args.contains(&"r.json") {
+        read_report(&d.join("r.json"))
+    } else {
+        serde_json::from_str(&out.stdout).unwrap()
+    };
+    check(&results(&rep), &clean, &faulted, what);
+    no_leftovers(d);
+    (rep, out, dir, names)
+}
+
+#[cfg(feature = "synth")]
+#[test]
+fn a_failed_allocation_ends_only_its_image() {
+    let (_, out, dir, _) = faulted_run(
+        &["--out", "r.json", "--csv", "r.csv", "--jobs", "1"],
+        "alloc",
+        &[1],
+        "a memory allocation failed",
+    );
     assert!(
         out.stderr.contains("measuring it stopped the run"),
         "{}",
         out.stderr
     );
-    check(
-        &results(&read_report(&d.join("r.json"))),
-        &clean,
-        &[&names[1]],
-        "a memory allocation failed",
-    );
     // The CSV is written whole too, a row per image.
-    let csv = std::fs::read_to_string(d.join("r.csv")).unwrap();
+    let csv = std::fs::read_to_string(dir.path().join("r.csv")).unwrap();
     assert!(
         csv.lines().filter(|l| l.contains("comb")).count() >= 4,
         "{csv}"
     );
-    no_leftovers(d);
 }
 
 #[cfg(feature = "synth")]
 #[test]
 fn a_panic_is_the_images_error_and_the_report_still_goes_to_stdout() {
-    let dir = tempfile::tempdir().unwrap();
-    let d = dir.path();
-    let names = batch(d);
-    let clean = clean_values(d);
     // No --out: the report on stdout is the last attempt's, whole; the
     // images finished before the fault are taken over from the worker's
     // own journal, not measured again.
-    let out = measure(d, &["--jobs", "1"], Some(&format!("panic:{}", names[3])));
-    assert_eq!(out.code, Some(3), "{}", out.stderr);
-    let rep: Value = serde_json::from_str(&out.stdout).unwrap();
-    check(&results(&rep), &clean, &[&names[3]], "a panic");
+    let (rep, out, _, _) = faulted_run(&["--jobs", "1"], "panic", &[3], "a panic");
     let before_fault = out
         .stderr
         .lines()
@@ -189,29 +203,17 @@ fn a_panic_is_the_images_error_and_the_report_still_goes_to_stdout() {
         "{}",
         out.stderr
     );
-    no_leftovers(d);
 }
 
 #[cfg(feature = "synth")]
 #[test]
 fn the_out_of_memory_killer_is_named() {
-    let dir = tempfile::tempdir().unwrap();
-    let d = dir.path();
-    let names = batch(d);
-    let clean = clean_values(d);
-    let out = measure(
-        d,
+    faulted_run(
         &["--out", "r.json", "--jobs", "1"],
-        Some(&format!("kill:{}", names[0])),
-    );
-    assert_eq!(out.code, Some(3), "{}", out.stderr);
-    check(
-        &results(&read_report(&d.join("r.json"))),
-        &clean,
-        &[&names[0]],
+        "kill",
+        &[0],
         "the process was killed",
     );
-    no_leftovers(d);
 }
 
 /// Two images in progress side by side when the process ends: which one
@@ -220,29 +222,18 @@ fn the_out_of_memory_killer_is_named() {
 #[cfg(feature = "synth")]
 #[test]
 fn images_measured_side_by_side_are_measured_again_alone() {
-    let dir = tempfile::tempdir().unwrap();
-    let d = dir.path();
-    let names = batch(d);
-    let clean = clean_values(d);
-    let out = measure(
-        d,
+    let (_, out, _, _) = faulted_run(
         &["--out", "r.json", "--jobs", "2"],
-        Some(&format!("alloc-late:{},{}", names[0], names[1])),
+        "alloc-late",
+        &[0, 1],
+        "a memory allocation failed",
     );
-    assert_eq!(out.code, Some(3), "{}", out.stderr);
     assert!(
         out.stderr.contains("measured side by side")
             && out.stderr.contains("each of them measured alone"),
         "{}",
         out.stderr
     );
-    check(
-        &results(&read_report(&d.join("r.json"))),
-        &clean,
-        &[&names[0], &names[1]],
-        "a memory allocation failed",
-    );
-    no_leftovers(d);
 }
 
 /// A real failed allocation, no hook: under an address-space limit of
@@ -314,29 +305,17 @@ fn a_real_failed_allocation_is_the_files_error() {
 #[cfg(feature = "synth")]
 #[test]
 fn with_a_point_table_every_image_is_measured_again() {
-    let dir = tempfile::tempdir().unwrap();
-    let d = dir.path();
-    let names = batch(d);
-    let clean = clean_values(d);
-    let out = measure(
-        d,
+    let (rep, _, dir, names) = faulted_run(
         &["--out", "r.json", "--points", "p.csv", "--jobs", "1"],
-        Some(&format!("alloc:{}", names[2])),
-    );
-    assert_eq!(out.code, Some(3), "{}", out.stderr);
-    let rep = read_report(&d.join("r.json"));
-    check(
-        &results(&rep),
-        &clean,
-        &[&names[2]],
+        "alloc",
+        &[2],
         "a memory allocation failed",
     );
     assert_eq!(rep["summary"]["from_journal"].as_u64(), Some(0));
-    let table = std::fs::read_to_string(d.join("p.csv")).unwrap();
+    let table = std::fs::read_to_string(dir.path().join("p.csv")).unwrap();
     for (i, name) in names.iter().enumerate() {
         assert_eq!(table.contains(name.as_str()), i != 2, "{name}");
     }
-    no_leftovers(d);
 }
 
 /// The notes of a supervisor killed outright (its worker dies with it) are
@@ -371,23 +350,11 @@ fn notes_of_a_killed_supervisor_are_removed_by_the_next_run() {
 #[cfg(feature = "synth")]
 #[test]
 fn a_report_to_a_device_is_measured_again_whole() {
-    let dir = tempfile::tempdir().unwrap();
-    let d = dir.path();
-    let names = batch(d);
-    let clean = clean_values(d);
-    let out = measure(
-        d,
+    let (rep, _, _, _) = faulted_run(
         &["--out", "/dev/stdout", "--jobs", "1"],
-        Some(&format!("alloc:{}", names[1])),
-    );
-    assert_eq!(out.code, Some(3), "{}", out.stderr);
-    let rep: Value = serde_json::from_str(&out.stdout).unwrap();
-    check(
-        &results(&rep),
-        &clean,
-        &[&names[1]],
+        "alloc",
+        &[1],
         "a memory allocation failed",
     );
     assert_eq!(rep["summary"]["from_journal"].as_u64(), Some(0));
-    no_leftovers(d);
 }

@@ -972,6 +972,8 @@ mod tests {
         assert_eq!(rfc3339_or_epoch(before), "1970-01-01T00:00:00Z");
         let after = std::time::UNIX_EPOCH + std::time::Duration::from_secs(253_402_300_800);
         assert_eq!(rfc3339_or_epoch(after), "1970-01-01T00:00:00Z");
+        // Unix time 1 000 000 000 (common practice, no single source: the
+        // widely noted "billennium" of September 2001).
         let t = std::time::UNIX_EPOCH + std::time::Duration::from_secs(1_000_000_000);
         assert_eq!(rfc3339_or_epoch(t), "2001-09-09T01:46:40Z");
     }
