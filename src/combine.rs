@@ -290,13 +290,41 @@ pub fn combine(outcomes: &[Outcome], cal: UmPerPx, cal_rel_u: Option<f64>) -> Es
         // centres' value alone in that case gave 3 right values and one
         // 36 % too high; a value still needs two methods that agree on it.
     }
+    // Values beyond the spacing of the bodies (see `beyond_bodies`).
+    let beyond = beyond_bodies(outcomes, &parts);
+    if !beyond.is_empty() {
+        for &(i, nn) in &beyond {
+            let p = &parts[i];
+            let why = format!(
+                "{:.2} um is {:.2} times the distance between neighbouring arm bodies ({:.2} um, the median distance from a body to the nearest distinct one): a longer period than the arms (the spacing between rows of arms, trunks, or arms missed)",
+                to_um(p.value),
+                p.value / nn,
+                to_um(nn)
+            );
+            warnings.push(Warning::new(
+                "combine.beyond-bodies",
+                format!("{} left out of the image's value: {why}", p.method.name()),
+            ));
+            left_out.push((p.method, why));
+        }
+        parts = parts
+            .into_iter()
+            .enumerate()
+            .filter(|(i, _)| !beyond.iter().any(|(j, _)| j == i))
+            .map(|(_, p)| p)
+            .collect();
+        if parts.is_empty() {
+            let why = "every method's value is well above the distance between neighbouring arm bodies: each reads a longer period than the arms".to_string();
+            return none(why, left_out, warnings);
+        }
+    }
     let used: Vec<&Part> = if parts.len() < 2 && needed == 2 {
         let list: Vec<String> = parts
             .iter()
             .map(|p| format!("{} {:.2} um", p.method.name(), to_um(p.value)))
             .collect();
         let why = format!(
-            "no two methods agree on the arm spacing ({}); the others read the spacing between rows of arms",
+            "no two methods agree on the arm spacing ({}); the others read a longer period than the arms (see the methods left out)",
             list.join(", ")
         );
         return none(why, left_out, warnings);
@@ -436,6 +464,46 @@ fn rows_explained(outcomes: &[Outcome], parts: &[Part]) -> Vec<(usize, f64, Meth
                 .find(|&&w| reads_rows(p, w))
                 .map(|&(m, _, rows)| (i, rows, m))
         })
+        .collect()
+}
+
+/// Largest ratio of a value to the distance between neighbouring arm
+/// bodies ([`crate::methods::centres::CentresOutcome::nearest_body_px`])
+/// for the value still to be read as the bodies' spacing.
+///
+/// Why 1.4: the median nearest-body distance is at most about one arm
+/// spacing (the nearer of two row neighbours; see
+/// `methods::centres::nearest_body_median`), and at least about 0.8 of it
+/// when the arm spacings scatter by 20 % (the nearer of two neighbours
+/// whose spacings scatter by a standard deviation s lies on average
+/// s / sqrt(pi) = 0.56 s below the mean: the expected minimum of two
+/// independent normal values, which follows from E|X1 - X2| = 2 s / sqrt(pi)). A
+/// value of the arm spacing is therefore at most about 1/0.8 = 1.25 times
+/// the median, and 1.4 leaves room for the value's own scatter. The
+/// spacing between rows of arms cut across is 1.4 to 2 arm spacings, and a
+/// value reading it stands 1.4 / 1.0 to 2 / 0.8 times the median, so part
+/// of the row readings lie above the bound: those are left out; the rest
+/// are left to the other evidence (`rows_explained`).
+pub const BODY_SPACING_RATIO: f64 = 1.4;
+
+/// The parts (by index) whose value exceeds [`BODY_SPACING_RATIO`] times
+/// the distance between neighbouring arm bodies that the centres method
+/// measured, each with that distance. Such a value is not the spacing of
+/// the bodies: most bodies have a distinct neighbour much nearer than it.
+/// When the centres method was not run, nothing is left out.
+fn beyond_bodies(outcomes: &[Outcome], parts: &[Part]) -> Vec<(usize, f64)> {
+    let Some(nn) = outcomes
+        .iter()
+        .find_map(|o| o.centres().and_then(|c| c.nearest_body_px))
+        .filter(|v| v.is_finite() && *v > 0.0)
+    else {
+        return vec![];
+    };
+    parts
+        .iter()
+        .enumerate()
+        .filter(|(_, p)| p.value > BODY_SPACING_RATIO * nn)
+        .map(|(i, _)| (i, nn))
         .collect()
 }
 
@@ -1068,6 +1136,51 @@ mod tests {
             }),
             ..outcome(Method::Fft, Some(value), Some(ci), 40)
         }
+    }
+
+    /// A centres outcome without a value whose bodies stand `nn` px apart
+    /// (median nearest distinct body).
+    fn centres_with_bodies(nn: f64) -> Outcome {
+        use crate::methods::centres::CentresOutcome;
+        Outcome {
+            detail: Detail::Centres(CentresOutcome {
+                nearest_body_px: Some(nn),
+                reason: Some("no arm rows beyond chance".into()),
+                ..Default::default()
+            }),
+            ..outcome(Method::Centres, None, None, 0)
+        }
+    }
+
+    #[test]
+    fn values_well_above_the_spacing_of_the_bodies_are_left_out() {
+        // Geometry of a section with the arms cut across: spots 10 px apart
+        // along rows 17 px apart. The FFT and the intercept both read the
+        // rows (17 px, agreeing with each other), while the bodies stand
+        // 10 px from their nearest neighbours: 1.7 > BODY_SPACING_RATIO
+        // times that, so neither is the arms' spacing and there is no value.
+        let outs = [
+            outcome(Method::Fft, Some(17.0), Some([16.6, 17.4]), 40),
+            outcome(Method::Intercept, Some(17.3), Some([16.5, 18.1]), 10),
+            centres_with_bodies(10.0),
+        ];
+        let e = combine(&outs, UmPerPx::new(1.0).unwrap(), None);
+        assert!(e.value.is_none(), "{e:?}");
+        assert_eq!(e.left_out.len(), 2, "{:?}", e.left_out);
+        assert!(e.warnings.iter().any(|w| w.code == "combine.beyond-bodies"));
+        // Values within the bound stand: arms 10 px apart whose bodies'
+        // nearest neighbours are 8.5 px away (the nearer of two scattered
+        // neighbours) give their combined value.
+        let outs = [
+            outcome(Method::Fft, Some(10.0), Some([9.8, 10.2]), 40),
+            outcome(Method::Intercept, Some(10.2), Some([9.7, 10.7]), 10),
+            centres_with_bodies(8.5),
+        ];
+        let e = combine(&outs, UmPerPx::new(1.0).unwrap(), None);
+        assert!(e.value.is_some() && e.left_out.is_empty(), "{e:?}");
+        // Without the centres method run there is no such evidence.
+        let e = combine(&outs[..2], UmPerPx::new(1.0).unwrap(), None);
+        assert!(e.value.is_some());
     }
 
     #[test]

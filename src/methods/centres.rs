@@ -157,6 +157,12 @@ pub struct CentresOutcome {
     pub chance_parallel_max: Option<f64>,
     /// The phase whose centres were taken as the arms ("darker" or "brighter").
     pub arm_phase: Option<&'static str>,
+    /// How far apart neighbouring bodies stand: the median, over the
+    /// centres, of the distance to the nearest centre on a distinct body,
+    /// pixels; the larger of the two phases' medians (see
+    /// [`nearest_body_median`]). Evidence for the combination: a period
+    /// well above it is not the spacing of the bodies.
+    pub nearest_body_px: Option<f64>,
     pub reason: Option<String>,
 }
 
@@ -236,6 +242,7 @@ pub fn measure(img: &Prepared, params: &CentresParams) -> CentresOutcome {
     } = seg;
     drop(smoothed);
     let mut best: Option<CentresOutcome> = None;
+    let mut nearest_body: Option<f64> = None;
     // The segmentation's foreground first (the darker phase when inverted),
     // then the other phase, computed in place over it: unmasked pixels not
     // of the foreground.
@@ -248,6 +255,9 @@ pub fn measure(img: &Prepared, params: &CentresParams) -> CentresOutcome {
         }
         let mut o = analyse_phase(&phase, w, h, params);
         o.arm_phase = Some(if darker { "darker" } else { "brighter" });
+        if let Some(nn) = o.nearest_body_px {
+            nearest_body = Some(nearest_body.map_or(nn, |b: f64| b.max(nn)));
+        }
         let excess = |o: &CentresOutcome| match (o.parallel_fraction, o.chance_parallel_max) {
             (Some(c), Some(m)) => c - m,
             _ => f64::NEG_INFINITY,
@@ -264,8 +274,44 @@ pub fn measure(img: &Prepared, params: &CentresParams) -> CentresOutcome {
             best = Some(o);
         }
     }
-    best.unwrap_or_else(|| CentresOutcome::none("no arm centres"))
+    let mut out = best.unwrap_or_else(|| CentresOutcome::none("no arm centres"));
+    out.nearest_body_px = nearest_body;
+    out
 }
+
+/// The median, over the centres, of the distance to the nearest centre on
+/// a distinct body (the shortest of its links, which go to the nearest
+/// distinct bodies only, see [`neighbour_links`]); `None` with fewer than
+/// [`MIN_NEAREST_BODIES`] centres linked.
+///
+/// Why it bounds the arm spacing from above (within its scatter): arms
+/// stand in rows at the arm spacing, so a body's nearest distinct
+/// neighbour is at most about one spacing away (the nearer of its two
+/// neighbours along the row); a missing arm lengthens a few of these
+/// distances and the median passes over them. The phase between the arms
+/// is cut into bodies by the arms at the same spacing. A body whose nearest
+/// neighbour is a row or a trunk away is one whose row neighbours are all
+/// missing, which the median does not see unless most are.
+pub fn nearest_body_median(points: &[[f64; 2]], links: &[Vec<usize>]) -> Option<f64> {
+    let nearest: Vec<f64> = points
+        .iter()
+        .zip(links)
+        .filter_map(|(p, ls)| {
+            ls.iter()
+                .map(|&j| (points[j][0] - p[0]).hypot(points[j][1] - p[1]))
+                .min_by(f64::total_cmp)
+        })
+        .collect();
+    if nearest.len() < MIN_NEAREST_BODIES {
+        return None;
+    }
+    crate::stats::median(&nearest)
+}
+
+/// Fewest linked centres for [`nearest_body_median`]: with 30, the median's
+/// 95 % distribution-free interval runs from about the 32nd to the 68th
+/// percentile (binomial order statistics, n = 30: ranks 10 to 20).
+pub const MIN_NEAREST_BODIES: usize = 30;
 
 /// The centres, chains, chance test and statistics of one phase.
 fn analyse_phase(phase: &[bool], w: usize, h: usize, params: &CentresParams) -> CentresOutcome {
@@ -307,6 +353,7 @@ fn analyse_phase(phase: &[bool], w: usize, h: usize, params: &CentresParams) -> 
     let links = neighbour_links(&points, params.neighbours, |i, j| {
         distinct_bodies(&d, w, h, centres[i], centres[j])
     });
+    let nearest_body_px = nearest_body_median(&points, &links);
     let chains = build_chains(&points, &links, params);
     let parallel = parallel_fraction(&chains);
 
@@ -355,6 +402,7 @@ fn analyse_phase(phase: &[bool], w: usize, h: usize, params: &CentresParams) -> 
     let row_spacing_px = row_spacing(&along);
     let base = CentresOutcome {
         centres,
+        nearest_body_px,
         row_spacing_px,
         parallel_fraction: parallel,
         chance_parallel_max: Some(chance_max),
@@ -873,6 +921,52 @@ mod tests {
             let rows = o.row_spacing_px.unwrap();
             assert!((rows / 34.0 - 1.0).abs() < 0.1, "{angle}: rows {rows}");
         }
+    }
+
+    #[test]
+    fn the_nearest_body_distance_is_the_spacing_along_the_rows() {
+        // Geometry: in a lattice of spots 20 px apart along rows 34 px apart,
+        // a spot's nearest neighbour is the next one along its row, 20 px
+        // away (within the 1 px quantisation of the centres).
+        for angle in [0.0, 30.0] {
+            let img = rows_of_spots(400, 320, 20.0, 34.0, 7.0, angle);
+            let d = &img.image.data;
+            let mid = d.iter().sum::<f32>() / d.len() as f32;
+            let dark: Vec<bool> = d.iter().map(|&v| v < mid).collect();
+            let spots = analyse_phase(&dark, 400, 320, &CentresParams::default());
+            let nn = spots.nearest_body_px.unwrap();
+            assert!((nn / 20.0 - 1.0).abs() < 0.1, "{angle}: {nn}");
+            // The bright phase between separate spots is one channel along
+            // each row, its bodies a row apart: the larger of the two
+            // medians, which the method reports, is the rows' 34 px, and
+            // no value reading the rows is left out by it (the bound is
+            // one-sided: it leaves out only what both phases refute).
+            let both = measure(&img, &CentresParams::default())
+                .nearest_body_px
+                .unwrap();
+            assert!((both / 34.0 - 1.0).abs() < 0.1, "{angle}: {both}");
+        }
+        // By hand: points 10 apart on a line, each linked to its
+        // neighbours, one stray point linked to nothing: median 10.
+        let line = |n: usize| -> (Vec<[f64; 2]>, Vec<Vec<usize>>) {
+            let points = (0..n).map(|i| [10.0 * i as f64, 0.0]).collect();
+            let links = (0..n)
+                .map(|i: usize| {
+                    [i.checked_sub(1), Some(i + 1).filter(|&j| j < n)]
+                        .into_iter()
+                        .flatten()
+                        .collect()
+                })
+                .collect();
+            (points, links)
+        };
+        let (mut points, mut links) = line(40);
+        points.push([5.0, 50.0]);
+        links.push(vec![]);
+        assert_eq!(nearest_body_median(&points, &links), Some(10.0));
+        // Too few linked centres for a median to rest on.
+        let (points, links) = line(MIN_NEAREST_BODIES - 1);
+        assert_eq!(nearest_body_median(&points, &links), None);
     }
 
     #[test]

@@ -37,6 +37,10 @@ pub struct CentresReport {
     /// Median distance between neighbouring parallel chains (the row or
     /// trunk spacing where the arms are cut across); never SDAS.
     pub row_spacing_um: Option<f64>,
+    /// Median distance from a body's centre to the nearest centre on a
+    /// distinct body (the larger of the two phases' medians); a method's
+    /// value well above it is left out of the image's value.
+    pub nearest_body_um: Option<f64>,
     /// Fraction of the chains whose nearest chain runs parallel to them, and
     /// the largest such fraction in the random point sets of the chance test.
     pub parallel_fraction: Option<f64>,
@@ -298,6 +302,7 @@ pub(super) fn methods_report(
                     chains_for_target: o.for_target,
                     n_centres: c.centres.len(),
                     row_spacing_um: c.row_spacing_px.map(|v| um(cal, v)),
+                    nearest_body_um: c.nearest_body_px.map(|v| um(cal, v)),
                     parallel_fraction: c.parallel_fraction.map(|v| round(v, 3)),
                     chance_parallel_max: c.chance_parallel_max.map(|v| round(v, 3)),
                     arm_phase: c.arm_phase,
