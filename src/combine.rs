@@ -290,6 +290,37 @@ pub fn combine(outcomes: &[Outcome], cal: UmPerPx, cal_rel_u: Option<f64>) -> Es
         // centres' value alone in that case gave 3 right values and one
         // 36 % too high; a value still needs two methods that agree on it.
     }
+    // Values the FFT's tiles leave undecided between arms and rows (see
+    // `rows_undecided`).
+    let undecided = rows_undecided(outcomes, &parts);
+    if !undecided.is_empty() {
+        for &(i, ev) in &undecided {
+            let p = &parts[i];
+            let why = format!(
+                "{:.2} um may be the spacing between rows of arms cut across: {} of the FFT's {} tiles also show a finer period at right angles ({:.2} um), too many to call the rows a chance minority of the field (the share could be one half or more: Wilson 95 % upper bound {:.2})",
+                to_um(p.value),
+                ev.tiles,
+                ev.used,
+                to_um(ev.period_px),
+                ev.share_upper95
+            );
+            warnings.push(Warning::new(
+                "combine.rows-undecided",
+                format!("{} left out of the image's value: {why}", p.method.name()),
+            ));
+            left_out.push((p.method, why));
+        }
+        parts = parts
+            .into_iter()
+            .enumerate()
+            .filter(|(i, _)| !undecided.iter().any(|(j, _)| j == i))
+            .map(|(_, p)| p)
+            .collect();
+        if parts.is_empty() {
+            let why = "every method's value may be the spacing between rows of arms cut across (the FFT's tiles also show a finer period at right angles in too large a part of the field)".to_string();
+            return none(why, left_out, warnings);
+        }
+    }
     // Values beyond the spacing of the bodies (see `beyond_bodies`).
     let beyond = beyond_bodies(outcomes, &parts);
     if !beyond.is_empty() {
@@ -504,6 +535,36 @@ fn beyond_bodies(outcomes: &[Outcome], parts: &[Part]) -> Vec<(usize, f64)> {
         .enumerate()
         .filter(|(_, p)| p.value > BODY_SPACING_RATIO * nn)
         .map(|(i, _)| (i, nn))
+        .collect()
+}
+
+/// The parts (by index) that read the FFT's value while its tiles leave
+/// open whether that value is the spacing between rows of arms cut across
+/// (`methods::fft::FftOutcome::rows_undecided`: a finer period at right
+/// angles in a share of the tiles that may be one half or more), each with
+/// that evidence. The field is then ambiguous between two readings: the
+/// coarser period is the arm spacing (and the finer tiles a chance
+/// minority), or the coarser period is the rows' and the finer one the
+/// arms'. The intercept and the centres methods read the rows of such a
+/// section too (README, known limits), so their agreement with the
+/// coarser period does not tell the two apart, as agreement on the rows is
+/// no corroboration of the arms in `rows_explained`. A part that agrees
+/// with the finer period is not left out.
+fn rows_undecided(
+    outcomes: &[Outcome],
+    parts: &[Part],
+) -> Vec<(usize, crate::methods::fft::RowsUndecided)> {
+    let Some((coarse, ev)) = outcomes.iter().find_map(|o| {
+        let f = o.fft()?;
+        Some((f.value_px?.0, f.rows_undecided?))
+    }) else {
+        return vec![];
+    };
+    parts
+        .iter()
+        .enumerate()
+        .filter(|(_, p)| agree(p.value, coarse) && !agree(p.value, ev.period_px))
+        .map(|(i, _)| (i, ev))
         .collect()
 }
 
@@ -1133,6 +1194,7 @@ mod tests {
                 reason: None,
                 row_spacing_px: Some(Pixels(rows)),
                 read_along_rows: true,
+                rows_undecided: None,
             }),
             ..outcome(Method::Fft, Some(value), Some(ci), 40)
         }
@@ -1181,6 +1243,46 @@ mod tests {
         // Without the centres method run there is no such evidence.
         let e = combine(&outs[..2], UmPerPx::new(1.0).unwrap(), None);
         assert!(e.value.is_some());
+    }
+
+    #[test]
+    fn values_the_fft_leaves_undecided_between_arms_and_rows_are_left_out() {
+        use crate::methods::fft::RowsUndecided;
+        // The FFT reads 13.5 px in most tiles, a quarter of them also 7.5 px
+        // at right angles, too many to call a chance minority: 13.5 may be
+        // the rows. The intercept agreeing on 13.5 does not settle it (it
+        // reads the rows of such sections too): no value.
+        let mut fft = fft_in_rows(13.5, 0.0);
+        if let Detail::Fft(f) = &mut fft.detail {
+            f.row_spacing_px = None;
+            f.read_along_rows = false;
+            f.rows_undecided = Some(RowsUndecided {
+                period_px: 7.5,
+                tiles: 10,
+                used: 40,
+                share_upper95: 0.56,
+            });
+        }
+        let outs = [
+            fft.clone(),
+            outcome(Method::Intercept, Some(13.7), Some([13.2, 14.2]), 20),
+        ];
+        let e = combine(&outs, UmPerPx::new(1.0).unwrap(), None);
+        assert!(e.value.is_none(), "{e:?}");
+        assert_eq!(e.left_out.len(), 2);
+        assert!(e
+            .warnings
+            .iter()
+            .any(|w| w.code == "combine.rows-undecided"));
+        // Two methods that agree on the finer period stand.
+        let outs = [
+            fft,
+            outcome(Method::Intercept, Some(7.6), Some([7.3, 7.9]), 20),
+            outcome(Method::Centres, Some(7.4), Some([7.1, 7.7]), 20),
+        ];
+        let e = combine(&outs, UmPerPx::new(1.0).unwrap(), None);
+        let v = e.value.map(|v| v.0).unwrap_or(f64::NAN);
+        assert!((v - 7.5).abs() < 0.2, "{e:?}");
     }
 
     #[test]

@@ -406,6 +406,9 @@ fn light_detail(image: &Outcome) -> Detail {
             reason: None,
             row_spacing_px: f.row_spacing_px,
             read_along_rows: f.read_along_rows,
+            // Judged on the whole image's value only (the local cells
+            // carry no FFT value of the image to compare with).
+            rows_undecided: None,
         }),
         Detail::Intercept(_) => Detail::Intercept(crate::methods::intercept::InterceptOutcome {
             value_px: None,

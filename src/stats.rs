@@ -205,6 +205,24 @@ pub fn measurements_for_target(summary: &Summary, target_rel_accuracy_pct: f64) 
     Some(n)
 }
 
+/// Upper end of the Wilson score 95 % interval of a proportion: `x`
+/// successes in `n` trials (both may be fractional, for an effective
+/// number of trials), without continuity correction (E. B. Wilson,
+/// "Probable inference, the law of succession, and statistical
+/// inference", J. Am. Stat. Assoc. 22 (1927) 209-212). Unlike the normal
+/// approximation it stays within [0, 1] and is usable for small `n`.
+/// 1 for `n` <= 0 (nothing is known).
+pub fn wilson_upper95(x: f64, n: f64) -> f64 {
+    if n.is_nan() || n <= 0.0 {
+        return 1.0;
+    }
+    let p = (x / n).clamp(0.0, 1.0);
+    let z2 = Z95 * Z95;
+    let centre = p + z2 / (2.0 * n);
+    let half = Z95 * (p * (1.0 - p) / n + z2 / (4.0 * n * n)).sqrt();
+    ((centre + half) / (1.0 + z2 / n)).min(1.0)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -293,5 +311,22 @@ mod tests {
         );
         assert_eq!(weighted_median(&[1.0, 2.0], &[1.0, 1.0]), Some(1.5));
         assert_eq!(weighted_median(&[], &[]), None);
+    }
+
+    #[test]
+    fn wilson_upper_bound_matches_scipy() {
+        // scipy 1.17.1: scipy.stats.binomtest(k, n).proportion_ci(
+        // confidence_level=0.95, method="wilson").high
+        for (k, n, high) in [
+            (46.0, 191.0, 0.306_203_808_875_489_04),
+            (88.0, 217.0, 0.471_950_704_225_813_03),
+            (3.0, 10.0, 0.603_221_852_538_854_6),
+            (0.0, 8.0, 0.324_407_564_880_383_9),
+            (10.0, 10.0, 1.0),
+        ] {
+            let u = wilson_upper95(k, n);
+            assert!((u - high).abs() < 1e-9, "{k}/{n}: {u} vs {high}");
+        }
+        assert_eq!(wilson_upper95(0.0, 0.0), 1.0);
     }
 }

@@ -489,6 +489,7 @@ mod tests {
             reason: None,
             row_spacing_px: None,
             read_along_rows: false,
+            rows_undecided: None,
         };
         let mut out = RgbImage::from_pixel(200, 100, Rgb([128, 128, 128]));
         draw_fft(&mut out, &f, 6.0, 1);

@@ -148,6 +148,12 @@ pub struct FftReport {
     /// Whether the value is the spots' period along their rows, finer than
     /// the period the tiles first chose (the rows').
     pub read_along_rows: bool,
+    /// A finer period at right angles that a minority of the used tiles
+    /// show, too large a minority to call chance (the Wilson 95 % upper
+    /// bound of its share reaches one half): the value may be the spacing
+    /// between rows of arms cut across, and is then not used
+    /// (`combine.rows-undecided`); null otherwise.
+    pub rows_undecided: Option<RowsUndecidedReport>,
     pub reason: Option<String>,
     /// See `InterceptReport::indicative`.
     #[schemars(
@@ -163,6 +169,21 @@ pub struct FftReport {
     #[serde(skip_serializing_if = "Option::is_none")]
     #[schemars(with = "LocalsOmitted")]
     pub omitted: Option<LocalsOmitted>,
+}
+
+/// See `FftReport::rows_undecided`.
+#[derive(Serialize, Deserialize, JsonSchema, Debug, PartialEq)]
+pub struct RowsUndecidedReport {
+    /// Median of the finer periods, um.
+    #[schemars(extend("exclusiveMinimum" = 0))]
+    pub period_um: f64,
+    /// Used tiles that show it, and used tiles in all.
+    pub tiles: usize,
+    pub tiles_used: usize,
+    /// Upper end of the Wilson 95 % interval of their share (each tile
+    /// counting a quarter, as in the value's interval).
+    #[schemars(range(min = 0.5, max = 1))]
+    pub share_upper95: f64,
 }
 
 /// Local measurements a list leaves out: how many, and the spread of their
@@ -379,6 +400,12 @@ fn fft_report(f: &FftOutcome, cal: UmPerPx) -> FftReport {
         orientation_coherence: f.orientation_coherence.map(|v| round(v, 3)),
         row_spacing_um: f.row_spacing_px.map(|v| um(cal, v.0)),
         read_along_rows: f.read_along_rows,
+        rows_undecided: f.rows_undecided.map(|r| RowsUndecidedReport {
+            period_um: um(cal, r.period_px),
+            tiles: r.tiles,
+            tiles_used: r.used,
+            share_upper95: round(r.share_upper95, 3),
+        }),
         reason: f.reason.clone(),
         indicative: None,
         tiles,

@@ -130,6 +130,24 @@ pub struct FftOutcome {
     /// Whether the value is the finer period across the one the tiles chose
     /// first (the spots along their rows; the chosen one was the rows').
     pub read_along_rows: bool,
+    /// A finer period across the value's that a minority of the used tiles
+    /// show, too large a minority to say that most of the field has no
+    /// rows (see [`along_rows`]): the value may then be the spacing between
+    /// rows of arms cut across, and this the arms' along them.
+    pub rows_undecided: Option<RowsUndecided>,
+}
+
+/// The evidence of [`FftOutcome::rows_undecided`].
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct RowsUndecided {
+    /// Median of the finer periods the tiles show, pixels.
+    pub period_px: f64,
+    /// Used tiles that show it, and used tiles in all.
+    pub tiles: usize,
+    pub used: usize,
+    /// Upper end of the Wilson 95 % interval of the share of tiles that
+    /// show it (at the tiles' effective number), at least one half.
+    pub share_upper95: f64,
 }
 
 impl FftOutcome {
@@ -147,6 +165,7 @@ impl FftOutcome {
             reason: Some(reason),
             row_spacing_px: None,
             read_along_rows: false,
+            rows_undecided: None,
         }
     }
 }
@@ -598,6 +617,7 @@ fn aggregate(mut tiles: Vec<TileResult>, n: usize, params: &FftParams) -> FftOut
         reason: None,
         row_spacing_px: None,
         read_along_rows: false,
+        rows_undecided: None,
     }
 }
 
@@ -606,6 +626,25 @@ fn aggregate(mut tiles: Vec<TileResult>, n: usize, params: &FftParams) -> FftOut
 /// rows: the rows must be a property of the field, seen in most of it, not
 /// of a stray tile where two grains or a texture meet.
 const ROWS_SHARE: f64 = 0.5;
+
+/// The tiles as they read across their chosen period: each used tile that
+/// shows a period across its own gives that period (with its direction and
+/// prominence), every other tile nothing; for [`aggregate`].
+fn cross_tiles(tiles: &[TileResult]) -> Vec<TileResult> {
+    tiles
+        .iter()
+        .map(|t| {
+            let shows = t.used && t.cross_spacing_px.is_finite();
+            TileResult {
+                spacing_px: t.cross_spacing_px,
+                dir_deg: t.cross_dir_deg,
+                quality: if shows { t.cross_quality } else { 0.0 },
+                used: false,
+                ..*t
+            }
+        })
+        .collect()
+}
 
 /// Two periods at right angles, seen in most tiles: the finer one is the
 /// arm spacing and the coarser one the spacing between rows.
@@ -636,12 +675,53 @@ fn along_rows(out: FftOutcome, params: &FftParams) -> FftOutcome {
         .filter(|t| t.cross_quality >= params.min_quality)
         .map(|t| t.cross_spacing_px)
         .collect();
-    if used == 0 || (across.len() as f64) < ROWS_SHARE * used as f64 {
+    if used == 0 {
         return out;
     }
     let Some(m) = stats::median(&across) else {
         return out;
     };
+    if (across.len() as f64) < ROWS_SHARE * used as f64 {
+        // A minority of tiles show a finer period across the value's. If
+        // the field had no rows, such tiles would be a chance minority; if
+        // it is a section with the arms cut across whose spots the tiles
+        // resolve only in part (fine spots that the optical blur partly
+        // fuses along their rows), the value is the rows' spacing. The
+        // share alone decides only when it is clearly below one half: the
+        // Wilson 95 % interval of the share (E. B. Wilson, J. Am. Stat.
+        // Assoc. 22 (1927) 209-212), at the tiles' effective number
+        // (overlapping tiles count TILE_INDEPENDENCE each, as in the
+        // value's own interval), must lie below one half. Otherwise the
+        // field may be mostly rows, and the evidence is kept for the
+        // combination (`combine::rows_undecided`), which does not take a
+        // reading of the coarser period as the arm spacing.
+        //
+        // The finer period must also be measured on its own by the rules
+        // of any value (the tiles that show it, aggregated as when the
+        // field is read along its rows, give a value with an interval):
+        // with few tiles the share's interval is wide whatever it holds,
+        // and a tile or two showing a finer period is no evidence of rows.
+        let finer = m * peaks::RESOLVED_RATIO <= value.0;
+        let n_eff = used as f64 * TILE_INDEPENDENCE;
+        let upper = stats::wilson_upper95(across.len() as f64 * TILE_INDEPENDENCE, n_eff);
+        let measured = || {
+            aggregate(cross_tiles(&out.tiles), out.window_px, params)
+                .value_px
+                .is_some()
+        };
+        if finer && upper >= 0.5 && measured() {
+            return FftOutcome {
+                rows_undecided: Some(RowsUndecided {
+                    period_px: m,
+                    tiles: across.len(),
+                    used,
+                    share_upper95: upper,
+                }),
+                ..out
+            };
+        }
+        return out;
+    }
     if m >= peaks::RESOLVED_RATIO * value.0 {
         return FftOutcome {
             row_spacing_px: Some(Pixels(m)),
@@ -651,22 +731,7 @@ fn along_rows(out: FftOutcome, params: &FftParams) -> FftOutcome {
     if m * peaks::RESOLVED_RATIO > value.0 {
         return out;
     }
-    let n = out.window_px;
-    let tiles: Vec<TileResult> = out
-        .tiles
-        .iter()
-        .map(|t| {
-            let shows = t.used && t.cross_spacing_px.is_finite();
-            TileResult {
-                spacing_px: t.cross_spacing_px,
-                dir_deg: t.cross_dir_deg,
-                quality: if shows { t.cross_quality } else { 0.0 },
-                used: false,
-                ..*t
-            }
-        })
-        .collect();
-    let along = aggregate(tiles, n, params);
+    let along = aggregate(cross_tiles(&out.tiles), out.window_px, params);
     // Without a value along the rows there is none: the chosen period is
     // the rows', never the arms'.
     let reason = along.reason.as_ref().map(|r| {

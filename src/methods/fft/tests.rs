@@ -505,3 +505,50 @@ fn a_grating_has_no_rows() {
     assert_eq!(out.row_spacing_px, None);
     assert!(!out.read_along_rows);
 }
+
+/// `used` tiles of period 13.5 px, `finer` of them also showing a period
+/// of 7.5 px at right angles (the geometry of spots 7.5 px apart along rows
+/// 13.5 px apart, which the tiles read as rows), through the aggregate and
+/// the rows rule.
+fn rows_minority(used: usize, finer: usize) -> FftOutcome {
+    let params = FftParams::default();
+    let tiles: Vec<TileResult> = (0..used)
+        .map(|i| {
+            let mut t = tile(13.5, 10.0);
+            if i < finer {
+                t.cross_spacing_px = 7.5;
+                t.cross_dir_deg = 90.0;
+                t.cross_quality = 10.0;
+            }
+            t
+        })
+        .collect();
+    along_rows(aggregate(tiles, 64, &params), &params)
+}
+
+#[test]
+fn a_minority_of_tiles_with_rows_leaves_the_field_undecided_when_it_may_be_half() {
+    // 10 of 40 tiles, 10 effective trials (a quarter each): the Wilson 95 %
+    // interval of the share reaches 0.56 (scipy, see stats), so the field
+    // may be mostly rows: the value stands as read, with the finer period
+    // kept as evidence for the combination.
+    let out = rows_minority(40, 10);
+    assert!((out.value_px.unwrap().0 - 13.5).abs() < 1e-9);
+    assert!(!out.read_along_rows);
+    let ev = out.rows_undecided.unwrap();
+    assert_eq!((ev.tiles, ev.used), (10, 40));
+    assert!((ev.period_px - 7.5).abs() < 1e-9);
+    assert!((ev.share_upper95 - 0.557_818_575_721_450_2).abs() < 1e-9);
+    // The same share over 400 tiles (100 effective trials) is clearly a
+    // minority (upper bound 0.34): no evidence kept.
+    assert!(rows_minority(400, 100).rows_undecided.is_none());
+    // 2 of 40 (upper bound 0.34): a chance minority.
+    assert!(rows_minority(40, 2).rows_undecided.is_none());
+    // 1 of 18: the share's interval reaches 0.52, but one tile measures no
+    // period on its own (a value needs at least three tiles): no evidence.
+    assert!(rows_minority(18, 1).rows_undecided.is_none());
+    // 25 of 40, a majority: read along the rows, as before.
+    let most = rows_minority(40, 25);
+    assert!(most.read_along_rows && most.rows_undecided.is_none());
+    assert!((most.value_px.unwrap().0 - 7.5).abs() < 1e-9);
+}
