@@ -706,7 +706,7 @@ fn along_rows(out: FftOutcome, params: &FftParams) -> FftOutcome {
         let upper = stats::wilson_upper95(across.len() as f64 * TILE_INDEPENDENCE, n_eff);
         let measured = || {
             aggregate(cross_tiles(&out.tiles), out.window_px, params)
-                .value_px
+                .ci95_px
                 .is_some()
         };
         if finer && upper >= 0.5 && measured() {
