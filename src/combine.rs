@@ -258,96 +258,87 @@ pub fn combine(outcomes: &[Outcome], cal: UmPerPx, cal_rel_u: Option<f64>) -> Es
         );
     }
     let mut warnings = Vec::new();
-    // Row spacing named by the centres' or the FFT's evidence (see `rows_explained`).
-    let explained = rows_explained(outcomes, &parts);
-    if !explained.is_empty() {
-        for &(i, rows, witness) in &explained {
-            let p = &parts[i];
+    // Row spacing named by the centres' or the FFT's evidence (see
+    // `rows_explained`). The centres' value is not vouched for by the
+    // methods that read the rows: they corroborate the row spacing, not the
+    // spacing along the rows. Measured on 20 cut sections (seeds 41, 42):
+    // taking the centres' value alone in that case gave 3 right values and
+    // one 36 % too high; a value still needs two methods that agree on it.
+    let explained: Vec<(usize, String)> = rows_explained(outcomes, &parts)
+        .into_iter()
+        .map(|(i, rows, witness)| {
             let seen = match witness {
                 Method::Fft => "the period across the arms' rows that most FFT tiles show",
                 _ => "between the rows of arm centres the centres method found",
             };
             let why = format!(
                 "{:.2} um is the spacing between rows of arms ({:.2} um, {seen}), not the spacing of the arms along a row",
-                to_um(p.value),
+                to_um(parts[i].value),
                 to_um(rows)
             );
-            warnings.push(Warning::new(
-                "combine.row-spacing",
-                format!("{} left out of the image's value: {why}", p.method.name()),
-            ));
-            left_out.push((p.method, why));
-        }
-        parts = parts
-            .into_iter()
-            .enumerate()
-            .filter(|(i, _)| !explained.iter().any(|(j, _, _)| j == i))
-            .map(|(_, p)| p)
-            .collect();
-        // The centres' value is not vouched for by the methods that read
-        // the rows: they corroborate the row spacing, not the spacing along
-        // the rows. Measured on 20 cut sections (seeds 41, 42): taking the
-        // centres' value alone in that case gave 3 right values and one
-        // 36 % too high; a value still needs two methods that agree on it.
-    }
+            (i, why)
+        })
+        .collect();
+    parts = leave_out(
+        parts,
+        explained,
+        "combine.row-spacing",
+        &mut warnings,
+        &mut left_out,
+    );
     // Values the FFT's tiles leave undecided between arms and rows (see
     // `rows_undecided`).
-    let undecided = rows_undecided(outcomes, &parts);
-    if !undecided.is_empty() {
-        for &(i, ev) in &undecided {
-            let p = &parts[i];
+    let undecided: Vec<(usize, String)> = rows_undecided(outcomes, &parts)
+        .into_iter()
+        .map(|(i, ev)| {
             let why = format!(
                 "{:.2} um may be the spacing between rows of arms cut across: {} of the FFT's {} tiles also show a finer period at right angles ({:.2} um), too many to call the rows a chance minority of the field (the share could be one half or more: Wilson 95 % upper bound {:.2})",
-                to_um(p.value),
+                to_um(parts[i].value),
                 ev.tiles,
                 ev.used,
                 to_um(ev.period_px),
                 ev.share_upper95
             );
-            warnings.push(Warning::new(
-                "combine.rows-undecided",
-                format!("{} left out of the image's value: {why}", p.method.name()),
-            ));
-            left_out.push((p.method, why));
-        }
-        parts = parts
-            .into_iter()
-            .enumerate()
-            .filter(|(i, _)| !undecided.iter().any(|(j, _)| j == i))
-            .map(|(_, p)| p)
-            .collect();
-        if parts.is_empty() {
-            let why = "every method's value may be the spacing between rows of arms cut across (the FFT's tiles also show a finer period at right angles in too large a part of the field)".to_string();
-            return none(why, left_out, warnings);
-        }
+            (i, why)
+        })
+        .collect();
+    let any_undecided = !undecided.is_empty();
+    parts = leave_out(
+        parts,
+        undecided,
+        "combine.rows-undecided",
+        &mut warnings,
+        &mut left_out,
+    );
+    if any_undecided && parts.is_empty() {
+        let why = "every method's value may be the spacing between rows of arms cut across (the FFT's tiles also show a finer period at right angles in too large a part of the field)".to_string();
+        return none(why, left_out, warnings);
     }
     // Values beyond the spacing of the bodies (see `beyond_bodies`).
-    let beyond = beyond_bodies(outcomes, &parts);
-    if !beyond.is_empty() {
-        for &(i, nn) in &beyond {
-            let p = &parts[i];
+    let beyond: Vec<(usize, String)> = beyond_bodies(outcomes, &parts)
+        .into_iter()
+        .map(|(i, nn)| {
+            let v = parts[i].value;
             let why = format!(
                 "{:.2} um is {:.2} times the distance between neighbouring arm bodies ({:.2} um, the median distance from a body to the nearest distinct one): a longer period than the arms (the spacing between rows of arms, trunks, or arms missed)",
-                to_um(p.value),
-                p.value / nn,
+                to_um(v),
+                v / nn,
                 to_um(nn)
             );
-            warnings.push(Warning::new(
-                "combine.beyond-bodies",
-                format!("{} left out of the image's value: {why}", p.method.name()),
-            ));
-            left_out.push((p.method, why));
-        }
-        parts = parts
-            .into_iter()
-            .enumerate()
-            .filter(|(i, _)| !beyond.iter().any(|(j, _)| j == i))
-            .map(|(_, p)| p)
-            .collect();
-        if parts.is_empty() {
-            let why = "every method's value is well above the distance between neighbouring arm bodies: each reads a longer period than the arms".to_string();
-            return none(why, left_out, warnings);
-        }
+            (i, why)
+        })
+        .collect();
+    let any_beyond = !beyond.is_empty();
+    parts = leave_out(
+        parts,
+        beyond,
+        "combine.beyond-bodies",
+        &mut warnings,
+        &mut left_out,
+    );
+    if any_beyond && parts.is_empty() {
+        let why = "every method's value is well above the distance between neighbouring arm bodies: each reads a longer period than the arms".to_string();
+        return none(why, left_out, warnings);
     }
     let used: Vec<&Part> = if parts.len() < 2 && needed == 2 {
         let list: Vec<String> = parts
@@ -445,6 +436,34 @@ pub fn combine(outcomes: &[Outcome], cal: UmPerPx, cal_rel_u: Option<f64>) -> Es
             coverage_factor: Z95,
         }),
     }
+}
+
+/// Leaves the parts at the given indices out of the combination, each with
+/// its reason in `left_out` and a warning `code` naming its method.
+fn leave_out(
+    parts: Vec<Part>,
+    drop: Vec<(usize, String)>,
+    code: &'static str,
+    warnings: &mut Vec<Warning>,
+    left_out: &mut Vec<(Method, String)>,
+) -> Vec<Part> {
+    if drop.is_empty() {
+        return parts;
+    }
+    for (i, why) in &drop {
+        let m = parts[*i].method;
+        warnings.push(Warning::new(
+            code,
+            format!("{} left out of the image's value: {why}", m.name()),
+        ));
+        left_out.push((m, why.clone()));
+    }
+    parts
+        .into_iter()
+        .enumerate()
+        .filter(|(i, _)| !drop.iter().any(|(j, _)| j == i))
+        .map(|(_, p)| p)
+        .collect()
 }
 
 /// The parts (by index) that read the spacing between rows of arms, each
