@@ -292,7 +292,7 @@ pub fn combine(outcomes: &[Outcome], cal: UmPerPx, cal_rel_u: Option<f64>) -> Es
         .into_iter()
         .map(|(i, ev)| {
             let why = format!(
-                "{:.2} um may be the spacing between rows of arms cut across: {} of the FFT's {} tiles also show a finer period at right angles ({:.2} um), too many to call the rows a chance minority of the field (the share could be one half or more: Wilson 95 % upper bound {:.2})",
+                "{:.2} um may be the spacing between rows of arms cut across: {} of the FFT's {} tiles also show a finer period at right angles ({:.2} um), too many to call them a chance minority of the field (their share could be one half or more: Wilson 95 % upper bound {:.2})",
                 to_um(parts[i].value),
                 ev.tiles,
                 ev.used,
