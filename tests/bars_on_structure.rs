@@ -158,7 +158,12 @@ fn run_bars(seed: u64, n: u64) -> Tally {
         match detect(&g) {
             Ok(found) => {
                 let err = (found.length_px - tb.length_px).abs();
-                let right_place = found.y0.abs_diff(tb.y0) <= 2 && found.x0.abs_diff(tb.x0) <= 3;
+                // At the drawn place: the rows found lie within the drawn
+                // bar's rows (2 px of blur either side; the outer rows of
+                // a bar touched by structure of its ink may be left out)
+                // and the left end within 3 px.
+                let right_place =
+                    found.y0 + 2 >= tb.y0 && found.y1 <= tb.y1 + 2 && found.x0.abs_diff(tb.x0) <= 3;
                 if !right_place {
                     t.wrong_place += 1;
                     t.misses.push(format!(
@@ -212,7 +217,7 @@ fn run_false(seed: u64, n: u64) -> (usize, Vec<String>) {
 }
 
 #[test]
-#[ignore = "target of issue 15 item 1, not met yet (seed 15001: 20 of 40 found right); see DEVELOPERS.md"]
+#[ignore = "target of issue 15 item 1, not met yet (seed 15001: 19 of 40 found right, 1 elsewhere); see DEVELOPERS.md"]
 fn bars_on_busy_fields_are_found_within_half_a_pixel() {
     let t = run_bars(15_001, 40);
     eprintln!(
@@ -229,8 +234,11 @@ fn bars_on_busy_fields_are_found_within_half_a_pixel() {
     assert_eq!(t.found, t.cases, "{:#?}", t.misses);
 }
 
+/// Issue 15's target "no bar found where none is drawn": 42 fields of
+/// every style (seed 15002). Held since bars must stand out from the
+/// bands of their ink in the structure (`scale_bar::rival_band`); on the
+/// sweep seeds 15101-15103 and 15201-15203 no false bar on 504 fields.
 #[test]
-#[ignore = "target of issue 15 item 1, not met yet (seed 15002: 1 false bar on 42 fields); see DEVELOPERS.md"]
 fn no_bar_on_fields_without_one() {
     let (fields, false_bars) = run_false(15_002, 42);
     assert!(fields >= 40);
