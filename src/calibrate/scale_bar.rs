@@ -209,12 +209,7 @@ pub fn detect(img: &GrayImage) -> crate::Result<ScaleBar> {
 /// the straight bands that pass every test, now in both dimensions.
 fn rival_band(img: &GrayImage, bar: &ScaleBar) -> Option<String> {
     let (w, h) = (img.width, img.height);
-    let (lo, hi) = img
-        .data
-        .iter()
-        .fold((f32::INFINITY, f32::NEG_INFINITY), |(a, c), v| {
-            (a.min(*v), c.max(*v))
-        });
+    let (lo, hi) = extremes(img);
     let range = hi - lo;
     let [mx0, my0, mx1, my1] = bar.mask.map(|v| v as usize);
     let (bx0, by0, bx1, by1) = (
@@ -262,10 +257,7 @@ fn rival_band(img: &GrayImage, bar: &ScaleBar) -> Option<String> {
     let len = |r: &Rect| r.x1 + 1 - r.x0;
     let mut levels: Vec<Level> = Vec::new();
     for fraction in CANDIDATE_FRACTIONS {
-        let is_cand = |v: f32| match bar.polarity {
-            Polarity::DarkOnLight => v <= lo + fraction * range,
-            Polarity::LightOnDark => v >= hi - fraction * range,
-        };
+        let is_cand = candidate(bar.polarity, fraction, lo, hi);
         let rects = rectangles(img, &is_cand);
         // Over the bar or touching its rows: the bar's own ink (the found
         // rows may leave out an outer row that a touching feature widens).
@@ -351,6 +343,30 @@ fn rival_band(img: &GrayImage, bar: &ScaleBar) -> Option<String> {
     ))
 }
 
+/// The darkest and lightest grey of the image.
+pub(super) fn extremes(img: &GrayImage) -> (f32, f32) {
+    img.data
+        .iter()
+        .fold((f32::INFINITY, f32::NEG_INFINITY), |(a, b), v| {
+            (a.min(*v), b.max(*v))
+        })
+}
+
+/// Whether a grey is a bar candidate: within `fraction` of the grey range
+/// (`lo` to `hi`) of the extreme the polarity's bar is drawn in.
+pub(super) fn candidate(
+    polarity: Polarity,
+    fraction: f32,
+    lo: f32,
+    hi: f32,
+) -> impl Fn(f32) -> bool {
+    let range = hi - lo;
+    move |v: f32| match polarity {
+        Polarity::DarkOnLight => v <= lo + fraction * range,
+        Polarity::LightOnDark => v >= hi - fraction * range,
+    }
+}
+
 fn not_standing_out(b: &ScaleBar, rival: &ScaleBar) -> String {
     format!(
         "no bar stands out: straight bands of similar length ({:.0} px at x = {}, y = {} \
@@ -364,12 +380,7 @@ fn not_standing_out(b: &ScaleBar, rival: &ScaleBar) -> String {
 /// every straight band found, box strips left out.
 fn detect_on_structure(img: &GrayImage) -> (crate::Result<ScaleBar>, Vec<ScaleBar>) {
     let none = |reason: String| crate::Error::Calibration { reason };
-    let (lo, hi) = img
-        .data
-        .iter()
-        .fold((f32::INFINITY, f32::NEG_INFINITY), |(a, b), v| {
-            (a.min(*v), b.max(*v))
-        });
+    let (lo, hi) = extremes(img);
     let range = hi - lo;
     if range.is_nan() || range < 0.05 {
         return (
@@ -383,10 +394,7 @@ fn detect_on_structure(img: &GrayImage) -> (crate::Result<ScaleBar>, Vec<ScaleBa
     let mut near: Option<NearMiss> = None;
     for fraction in CANDIDATE_FRACTIONS {
         for polarity in [Polarity::DarkOnLight, Polarity::LightOnDark] {
-            let is_cand = |v: f32| match polarity {
-                Polarity::DarkOnLight => v <= lo + fraction * range,
-                Polarity::LightOnDark => v >= hi - fraction * range,
-            };
+            let is_cand = candidate(polarity, fraction, lo, hi);
             for r in rectangles(img, &is_cand) {
                 match examine(img, r, polarity, range) {
                     Verdict::Bar(b) => found.push(*b),

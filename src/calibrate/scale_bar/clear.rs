@@ -34,12 +34,7 @@ pub(super) fn detect(img: &GrayImage) -> crate::Result<ScaleBar> {
     if w < 16 || h < 8 {
         return Err(none("the image is too small to hold a scale bar"));
     }
-    let (lo, hi) = img
-        .data
-        .iter()
-        .fold((f32::INFINITY, f32::NEG_INFINITY), |(a, b), v| {
-            (a.min(*v), b.max(*v))
-        });
+    let (lo, hi) = super::extremes(img);
     let range = hi - lo;
     if range < 0.05 {
         return Err(none(
@@ -49,10 +44,7 @@ pub(super) fn detect(img: &GrayImage) -> crate::Result<ScaleBar> {
     let mut found: Vec<ScaleBar> = Vec::new();
     for fraction in CANDIDATE_FRACTIONS {
         for polarity in [Polarity::DarkOnLight, Polarity::LightOnDark] {
-            let is_cand = |v: f32| match polarity {
-                Polarity::DarkOnLight => v <= lo + fraction * range,
-                Polarity::LightOnDark => v >= hi - fraction * range,
-            };
+            let is_cand = super::candidate(polarity, fraction, lo, hi);
             found.extend(
                 groups(img, &is_cand)
                     .iter()
