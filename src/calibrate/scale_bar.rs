@@ -338,9 +338,9 @@ fn rival_band(img: &GrayImage, bar: &ScaleBar) -> Option<String> {
     } else {
         format!("{what} is not one band of one ink at any level, so it cannot be told from the structure")
     };
-    Some(format!(
-        "{why}; give the scale with --um-per-px or --profile"
-    ))
+    // The caller adds what the user can give instead (it depends on
+    // whether a length was given or the label was to be read).
+    Some(why)
 }
 
 /// The darkest and lightest grey of the image.
@@ -370,8 +370,7 @@ pub(super) fn candidate(
 fn not_standing_out(b: &ScaleBar, rival: &ScaleBar) -> String {
     format!(
         "no bar stands out: straight bands of similar length ({:.0} px at x = {}, y = {} \
-         and {:.0} px at x = {}, y = {}) belong to the structure or to a drawing; \
-         give the scale with --um-per-px or --profile",
+         and {:.0} px at x = {}, y = {}) belong to the structure or to a drawing",
         b.length_px, b.x0, b.y0, rival.length_px, rival.x0, rival.y0
     )
 }
